@@ -1,0 +1,319 @@
+//! One period end to end: measured values → estimate → classification → tests → report.
+
+use std::collections::BTreeMap;
+
+use crate::classify::{classify, Classification};
+use crate::equations::{measurement, stream_fraction, stream_total, Layout, Var};
+use crate::model::Plant;
+use crate::period::PeriodInput;
+use crate::report::*;
+use crate::solve::{solve, Measured, Solution, SolveOptions, SolveStatus};
+use crate::start::initial_point;
+use crate::stats::{global_test, measurement_test_critical, sidak};
+
+/// The estimate of one period with everything needed to test it: the seam on which fault
+/// identification builds.
+#[derive(Debug, Clone)]
+pub struct Estimate {
+    pub layout: Layout,
+    pub measured: Vec<Measured>,
+    pub solution: Solution,
+    pub classification: Classification,
+}
+
+impl Estimate {
+    /// Reconciled value of measured meter k (index into `measured`) and its gradient.
+    pub fn reconciled(&self, plant: &Plant, k: usize) -> (f64, Vec<(usize, f64)>) {
+        measurement(plant, &self.layout, &plant.meters[self.measured[k].meter], &self.solution.z)
+    }
+}
+
+/// Estimate the state from measured values.
+pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
+    let layout = Layout::new(plant);
+    let start = initial_point(plant, &layout, &measured);
+    let solution = solve(plant, &layout, &measured, start, SolveOptions::default());
+    let classification = classify(plant, &layout, &measured, &solution.z, &solution.at_bound);
+    Estimate {
+        layout,
+        measured,
+        solution,
+        classification,
+    }
+}
+
+/// Reconcile one period and build its report.
+pub fn reconcile_period(plant: &Plant, input: &PeriodInput) -> Report {
+    let mut warnings = Vec::new();
+    let mut measured = Vec::new();
+    for v in &input.values {
+        let meter = &plant.meters[v.meter];
+        if !v.value.is_finite() {
+            warnings.push(format!("meter \"{}\": value is not a finite number; not used", meter.tag));
+            continue;
+        }
+        match meter.sigma_for(v.value) {
+            Some(sigma) => measured.push(Measured {
+                meter: v.meter,
+                value: v.value,
+                sigma,
+            }),
+            None => warnings.push(format!(
+                "meter \"{}\": its σ is a percentage of a reading of {}, which gives no positive σ; not used",
+                meter.tag, v.value
+            )),
+        }
+        if let Some([lo, hi]) = meter.range {
+            if v.value < lo || v.value > hi {
+                warnings.push(format!(
+                    "meter \"{}\": value {} {} is outside its range [{lo}, {hi}]",
+                    meter.tag, v.value, meter.uom
+                ));
+            }
+        }
+    }
+    let mut report = Report {
+        plant: plant.name.clone(),
+        period_start: input.start.to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
+        period_end: input.end.to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
+        status: ReportStatus::NoData,
+        iterations: 0,
+        objective: None,
+        redundancy: 0,
+        global_test: None,
+        measurement_test: None,
+        meters: Vec::new(),
+        streams: Vec::new(),
+        extents: Vec::new(),
+        split_fractions: Vec::new(),
+        faults: Vec::new(),
+        figures: Vec::new(),
+        unobservable: Vec::new(),
+        diagnostics: None,
+        warnings,
+        caution: CAUTION.to_string(),
+    };
+    if measured.is_empty() {
+        report.warnings.push("no usable reading in this period".into());
+        report.meters = plant.meters.iter().map(|m| unmeasured_meter(plant, m)).collect();
+        return report;
+    }
+    let est = estimate(plant, measured);
+    fill_report(plant, input, &est, &mut report);
+    report
+}
+
+fn unmeasured_meter(plant: &Plant, m: &crate::model::Meter) -> MeterReport {
+    MeterReport {
+        tag: m.tag.clone(),
+        stream: plant.streams[m.stream].id.clone(),
+        quantity: m.quantity.as_str().to_string(),
+        component: m.component.map(|c| plant.components[c].id.clone()),
+        uom: m.uom.to_string(),
+        measured: None,
+        reconciled: None,
+        sigma: None,
+        reconciled_sigma: None,
+        adjustment: None,
+        adjustment_sigma: None,
+        normalized_adjustment: None,
+        redundant: false,
+        testable: false,
+        suspect: false,
+        used_uncertain: false,
+        readings: 0,
+    }
+}
+
+/// A value and σ of a function with gradient `grad`, or nulls when it is unobservable.
+fn observed(c: &Classification, value: f64, grad: &[(usize, f64)]) -> (Option<f64>, Option<f64>) {
+    if c.is_observable(grad) {
+        (Some(value), Some(c.sigma(grad)))
+    } else {
+        (None, None)
+    }
+}
+
+fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut Report) {
+    let sol = &est.solution;
+    let c = &est.classification;
+    let z = &sol.z;
+    let layout = &est.layout;
+    report.iterations = sol.iterations;
+    report.objective = Some(sol.objective);
+    report.redundancy = c.redundancy;
+    report.diagnostics = Some(Diagnostics {
+        constraint_residual: sol.constraint_residual,
+        last_step: sol.last_step,
+        states: layout.n,
+        equations: layout.rows.len(),
+        at_bound: (0..layout.n).filter(|&i| sol.at_bound[i]).map(|i| var_name(plant, layout, i)).collect(),
+    });
+    report.status = match sol.status {
+        SolveStatus::Converged => ReportStatus::Solved,
+        SolveStatus::NotConverged => ReportStatus::NotConverged,
+        SolveStatus::Infeasible => ReportStatus::Infeasible,
+    };
+    if sol.status != SolveStatus::Converged {
+        report.warnings.push(format!(
+            "the estimate did not converge in {} iterations (constraint residual {:.3e} kmol/h); values are not to be used",
+            sol.iterations, sol.constraint_residual
+        ));
+    }
+
+    // Meters and the measurement test.
+    let redundant: Vec<bool> = (0..est.measured.len()).map(|k| c.is_redundant(k)).collect();
+    let tests = redundant.iter().filter(|&&r| r).count();
+    let critical = measurement_test_critical(plant.alpha, tests);
+    let gt = global_test(sol.objective, c.redundancy, plant.alpha);
+    report.global_test = Some(GlobalTestReport {
+        statistic: gt.statistic,
+        critical: gt.critical,
+        alpha: gt.alpha,
+        dof: gt.dof,
+        p_value: gt.p_value,
+        passed: gt.passed,
+    });
+    report.measurement_test = Some(MeasurementTestReport {
+        critical,
+        alpha_per_test: sidak(plant.alpha, tests.max(1)),
+        tests,
+    });
+    let by_meter: BTreeMap<usize, usize> = est.measured.iter().enumerate().map(|(k, m)| (m.meter, k)).collect();
+    for (mi, meter) in plant.meters.iter().enumerate() {
+        let mut entry = unmeasured_meter(plant, meter);
+        let (h, grad) = measurement(plant, layout, meter, z);
+        let (value, sigma) = observed(c, h, &grad);
+        entry.reconciled = value;
+        entry.reconciled_sigma = sigma;
+        if let Some(&k) = by_meter.get(&mi) {
+            let m = &est.measured[k];
+            let v = input.values.iter().find(|v| v.meter == mi).expect("measured from input");
+            entry.measured = Some(m.value);
+            entry.sigma = Some(m.sigma);
+            entry.readings = v.readings;
+            entry.used_uncertain = v.used_uncertain;
+            entry.redundant = redundant[k];
+            entry.testable = redundant[k];
+            // A measured meter's reconciled value always exists: the data determine it.
+            entry.reconciled = Some(h);
+            entry.reconciled_sigma = Some(m.sigma * c.leverage(k).sqrt());
+            if redundant[k] {
+                let adjustment = h - m.value;
+                let sd = m.sigma * c.adjustment_variance(k).sqrt();
+                entry.adjustment = Some(adjustment);
+                entry.adjustment_sigma = Some(sd);
+                let d = adjustment / sd;
+                entry.normalized_adjustment = Some(d);
+                entry.suspect = d.abs() > critical;
+            } else {
+                // A non-redundant meter keeps its raw value: no adjustment, nothing to test.
+                entry.reconciled = Some(m.value);
+                entry.adjustment = Some(0.0);
+                entry.adjustment_sigma = Some(0.0);
+            }
+        }
+        report.meters.push(entry);
+    }
+
+    // Streams.
+    for (s, stream) in plant.streams.iter().enumerate() {
+        let (f, grad) = stream_total(plant, layout, s, z);
+        let (molar_flow, molar_flow_sigma) = observed(c, f, &grad);
+        let mass_grad: Vec<(usize, f64)> = layout
+            .stream_flows(plant, s)
+            .zip(&stream.components)
+            .map(|(i, &k)| (i, plant.components[k].molar_mass))
+            .collect();
+        let mass: f64 = mass_grad.iter().map(|&(i, m)| m * z[i]).sum();
+        let (mass_flow, mass_flow_sigma) = observed(c, mass, &mass_grad);
+        let mut entry = StreamReport {
+            id: stream.id.clone(),
+            from: stream.from.map_or("outside".into(), |u| plant.units[u].id.clone()),
+            to: stream.to.map_or("outside".into(), |u| plant.units[u].id.clone()),
+            molar_flow,
+            molar_flow_sigma,
+            mass_flow,
+            mass_flow_sigma,
+            composition: BTreeMap::new(),
+            composition_sigma: BTreeMap::new(),
+            component_flows: BTreeMap::new(),
+            component_flows_sigma: BTreeMap::new(),
+            observable: molar_flow.is_some(),
+        };
+        for &k in &stream.components {
+            let id = plant.components[k].id.clone();
+            let (x, grad) = stream_fraction(plant, layout, s, k, z);
+            let (x, xs) = observed(c, x, &grad);
+            entry.composition.insert(id.clone(), x);
+            entry.composition_sigma.insert(id.clone(), xs);
+            let i = layout.flow(plant, s, k).expect("carried");
+            let (n, ns) = observed(c, z[i], &[(i, 1.0)]);
+            entry.component_flows.insert(id.clone(), n);
+            entry.component_flows_sigma.insert(id, ns);
+        }
+        if molar_flow.is_none() {
+            report.unobservable.push(format!("flow of stream \"{}\"", stream.id));
+        }
+        report.streams.push(entry);
+    }
+
+    for (r, reaction) in plant.reactions.iter().enumerate() {
+        let i = layout.extent(r);
+        let (value, sigma) = observed(c, z[i], &[(i, 1.0)]);
+        if value.is_none() {
+            report.unobservable.push(format!("extent of reaction \"{}\"", reaction.id));
+        }
+        report.extents.push(ExtentReport {
+            reaction: reaction.id.clone(),
+            unit: plant.units[reaction.unit].id.clone(),
+            value,
+            sigma,
+            observable: value.is_some(),
+        });
+    }
+
+    for u in plant.units.iter().filter(|u| u.kind == crate::model::UnitKind::Splitter) {
+        let mut rest: Vec<(usize, f64)> = Vec::new();
+        let mut rest_value = 1.0;
+        for (k, &o) in u.outlets.iter().enumerate() {
+            // The last outlet's fraction is 1 − Σ of the others.
+            let (value, grad) = if k + 1 < u.outlets.len() {
+                let i = layout.split(o).expect("split var");
+                rest.push((i, -1.0));
+                rest_value -= z[i];
+                (z[i], vec![(i, 1.0)])
+            } else {
+                (rest_value, rest.clone())
+            };
+            let (value, sigma) = observed(c, value, &grad);
+            if value.is_none() {
+                report.unobservable.push(format!("split fraction of stream \"{}\"", plant.streams[o].id));
+            }
+            report.split_fractions.push(SplitReport {
+                stream: plant.streams[o].id.clone(),
+                unit: u.id.clone(),
+                value,
+                sigma,
+                observable: value.is_some(),
+            });
+        }
+    }
+
+    let any_flow_or_extent_unobservable = report.streams.iter().any(|s| !s.observable) || report.extents.iter().any(|e| !e.observable);
+    if report.status == ReportStatus::Solved && any_flow_or_extent_unobservable {
+        report.status = ReportStatus::Unobservable;
+    }
+}
+
+/// A readable name of state i, e.g. `flow of "H2" in stream "purge"`.
+pub fn var_name(plant: &Plant, layout: &Layout, i: usize) -> String {
+    match layout.var(plant, i) {
+        Var::Flow { stream, component } => format!(
+            "flow of \"{}\" in stream \"{}\"",
+            plant.components[component].id, plant.streams[stream].id
+        ),
+        Var::Extent(r) => format!("extent of reaction \"{}\"", plant.reactions[r].id),
+        Var::Split(s) => format!("split fraction of stream \"{}\"", plant.streams[s].id),
+    }
+}

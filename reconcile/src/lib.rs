@@ -1,0 +1,26 @@
+//! loopbal's engine: the plant model, bilinear data reconciliation of recycle loops,
+//! classification, uncertainty and the statistical tests.
+//!
+//! No I/O, no async, no clock: the same input gives the same output. The `server` crate turns
+//! files, requests and rows into calls of [`analysis::reconcile_period`] and back.
+
+pub mod analysis;
+pub mod classify;
+pub mod equations;
+pub mod model;
+pub mod period;
+pub mod report;
+pub mod solve;
+pub mod sparse;
+pub mod start;
+pub mod stats;
+pub mod uom;
+mod validate;
+
+pub use analysis::{estimate, reconcile_period, Estimate};
+pub use model::{parse_plant, ModelError, ModelProblem, ModelSpec, Plant};
+pub use period::{group_readings, PeriodInput, Quality, Reading};
+pub use report::{Report, ReportStatus};
+
+/// Version of the engine, recorded with every report.
+pub const ENGINE_VERSION: &str = env!("CARGO_PKG_VERSION");

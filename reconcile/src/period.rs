@@ -1,0 +1,116 @@
+//! Readings and periods (FORMATS.md): a reading belongs to the UTC-aligned period that contains
+//! it; a meter's value for a period is the mean of its good and uncertain readings; bad
+//! readings are kept by the caller but not used.
+
+use chrono::{DateTime, TimeZone, Utc};
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+use crate::model::Plant;
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum Quality {
+    #[default]
+    Good,
+    Uncertain,
+    Bad,
+}
+
+impl Quality {
+    pub fn parse(text: &str) -> Option<Quality> {
+        match text {
+            "" | "good" => Some(Quality::Good),
+            "uncertain" => Some(Quality::Uncertain),
+            "bad" => Some(Quality::Bad),
+            _ => None,
+        }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct Reading {
+    pub tag: String,
+    pub time: DateTime<Utc>,
+    pub value: f64,
+    pub quality: Quality,
+}
+
+/// A meter's value for one period.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct MeterValue {
+    pub meter: usize,
+    /// Mean of the good and uncertain readings, in the meter's uom.
+    pub value: f64,
+    pub readings: usize,
+    pub used_uncertain: bool,
+    /// Spread (max − min) of the readings averaged.
+    pub spread: f64,
+}
+
+/// Everything the engine needs for one period.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PeriodInput {
+    pub start: DateTime<Utc>,
+    pub end: DateTime<Utc>,
+    pub values: Vec<MeterValue>,
+}
+
+/// Start of the UTC-aligned period of `period_seconds` containing `time`.
+pub fn period_start(time: DateTime<Utc>, period_seconds: i64) -> DateTime<Utc> {
+    let t = time.timestamp();
+    let start = t.div_euclid(period_seconds) * period_seconds;
+    Utc.timestamp_opt(start, 0).single().expect("in range")
+}
+
+/// Group readings into the plant's periods, one input per period that has any reading (of any
+/// quality), in time order. Readings of tags the plant does not know are ignored.
+pub fn group_readings(plant: &Plant, readings: &[Reading]) -> Vec<PeriodInput> {
+    let mut by_period: BTreeMap<i64, BTreeMap<usize, Vec<&Reading>>> = BTreeMap::new();
+    for r in readings {
+        let Some(meter) = plant.meter_index(&r.tag) else { continue };
+        let start = period_start(r.time, plant.period_seconds).timestamp();
+        by_period.entry(start).or_default().entry(meter).or_default().push(r);
+    }
+    by_period
+        .into_iter()
+        .map(|(start, meters)| {
+            let values = meters
+                .into_iter()
+                .filter_map(|(meter, rs)| {
+                    let used: Vec<&&Reading> = rs.iter().filter(|r| r.quality != Quality::Bad).collect();
+                    if used.is_empty() {
+                        return None;
+                    }
+                    let sum: f64 = used.iter().map(|r| r.value).sum();
+                    let (lo, hi) = used.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), r| (lo.min(r.value), hi.max(r.value)));
+                    Some(MeterValue {
+                        meter,
+                        value: sum / used.len() as f64,
+                        readings: used.len(),
+                        used_uncertain: used.iter().any(|r| r.quality == Quality::Uncertain),
+                        spread: hi - lo,
+                    })
+                })
+                .collect();
+            PeriodInput {
+                start: Utc.timestamp_opt(start, 0).single().expect("in range"),
+                end: Utc.timestamp_opt(start + plant.period_seconds, 0).single().expect("in range"),
+                values,
+            }
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn periods_align_to_utc() {
+        let t = DateTime::parse_from_rfc3339("2026-03-02T05:59:59.9+02:00").unwrap().with_timezone(&Utc);
+        assert_eq!(period_start(t, 3600).to_rfc3339(), "2026-03-02T03:00:00+00:00");
+        assert_eq!(period_start(t, 86_400).to_rfc3339(), "2026-03-02T00:00:00+00:00");
+        assert_eq!(period_start(t, 900).to_rfc3339(), "2026-03-02T03:45:00+00:00");
+    }
+}

@@ -1,0 +1,187 @@
+//! The report of one period (FORMATS.md): what users and their tools read. Values in `meters`
+//! are in each meter's uom; everything else in kmol/h and mole fractions. An unobservable value
+//! is `null` with `"observable": false`, never a made-up number.
+
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ReportStatus {
+    /// Converged, and every stream flow and extent is observable.
+    Solved,
+    /// The iteration did not converge; the values are the last iterate's and not to be used.
+    NotConverged,
+    /// Converged, but some stream flows or extents cannot be determined from the meters that
+    /// reported: those are null and listed in `unobservable`.
+    Unobservable,
+    /// The balances cannot be satisfied within the bounds (n ≥ 0, 0 ≤ φ ≤ 1).
+    Infeasible,
+    /// No usable reading in the period.
+    NoData,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct GlobalTestReport {
+    /// Minimised objective J = Σ((y − ŷ)/σ)².
+    pub statistic: f64,
+    /// χ²_{1−α}(ν).
+    pub critical: f64,
+    pub alpha: f64,
+    /// Degrees of freedom ν (the degree of redundancy).
+    pub dof: usize,
+    pub p_value: f64,
+    pub passed: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct MeasurementTestReport {
+    /// Critical |normalised adjustment|: z_{1−β/2} with β = 1 − (1 − α)^{1/m_r}.
+    pub critical: f64,
+    /// Per-test level β after the Šidák correction.
+    pub alpha_per_test: f64,
+    /// m_r: number of redundant meters tested.
+    pub tests: usize,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct MeterReport {
+    pub tag: String,
+    pub stream: String,
+    pub quantity: String,
+    pub component: Option<String>,
+    pub uom: String,
+    /// Mean of the period's good and uncertain readings; null when the meter did not report.
+    pub measured: Option<f64>,
+    /// Reconciled value in the meter's uom; null when unobservable.
+    pub reconciled: Option<f64>,
+    /// σ of the measurement used this period.
+    pub sigma: Option<f64>,
+    pub reconciled_sigma: Option<f64>,
+    /// Reconciled − measured.
+    pub adjustment: Option<f64>,
+    /// σ of the adjustment, sqrt(V_a,ii).
+    pub adjustment_sigma: Option<f64>,
+    /// Adjustment / its σ; null for a non-redundant meter (untestable).
+    pub normalized_adjustment: Option<f64>,
+    pub redundant: bool,
+    /// False when the meter did not report or its adjustment has no variance.
+    pub testable: bool,
+    /// |normalised adjustment| beyond the Šidák-corrected critical value.
+    pub suspect: bool,
+    /// The period's value used readings of quality "uncertain".
+    pub used_uncertain: bool,
+    /// Number of readings averaged.
+    pub readings: usize,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StreamReport {
+    pub id: String,
+    pub from: String,
+    pub to: String,
+    /// kmol/h.
+    pub molar_flow: Option<f64>,
+    pub molar_flow_sigma: Option<f64>,
+    /// kg/h.
+    pub mass_flow: Option<f64>,
+    pub mass_flow_sigma: Option<f64>,
+    /// Mole fractions per carried component; null where unobservable.
+    pub composition: BTreeMap<String, Option<f64>>,
+    pub composition_sigma: BTreeMap<String, Option<f64>>,
+    /// kmol/h per carried component; null where unobservable.
+    pub component_flows: BTreeMap<String, Option<f64>>,
+    pub component_flows_sigma: BTreeMap<String, Option<f64>>,
+    /// The total flow is observable.
+    pub observable: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ExtentReport {
+    pub reaction: String,
+    pub unit: String,
+    /// kmol/h.
+    pub value: Option<f64>,
+    pub sigma: Option<f64>,
+    pub observable: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SplitReport {
+    /// The outlet stream.
+    pub stream: String,
+    pub unit: String,
+    pub value: Option<f64>,
+    pub sigma: Option<f64>,
+    pub observable: bool,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum FaultKind {
+    MeterBias,
+    Leak,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Fault {
+    pub kind: FaultKind,
+    /// Meters (tags) or units (ids) that the data cannot tell apart.
+    pub candidates: Vec<String>,
+    pub magnitude: f64,
+    pub magnitude_sigma: f64,
+    pub statistic: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Figure {
+    pub name: String,
+    pub subject: String,
+    pub value: Option<f64>,
+    pub sigma: Option<f64>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Diagnostics {
+    /// ‖g‖∞ at the solution, kmol/h.
+    pub constraint_residual: f64,
+    /// Largest relative change of a state in the last iteration.
+    pub last_step: f64,
+    /// Number of states (component flows, extents, split fractions).
+    pub states: usize,
+    /// Number of constraint rows.
+    pub equations: usize,
+    /// States held at a bound at the solution (e.g. a zero flow).
+    pub at_bound: Vec<String>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Report {
+    pub plant: String,
+    pub period_start: String,
+    pub period_end: String,
+    pub status: ReportStatus,
+    pub iterations: usize,
+    pub objective: Option<f64>,
+    /// Degrees of redundancy ν.
+    pub redundancy: usize,
+    pub global_test: Option<GlobalTestReport>,
+    pub measurement_test: Option<MeasurementTestReport>,
+    pub meters: Vec<MeterReport>,
+    pub streams: Vec<StreamReport>,
+    pub extents: Vec<ExtentReport>,
+    pub split_fractions: Vec<SplitReport>,
+    pub faults: Vec<Fault>,
+    pub figures: Vec<Figure>,
+    /// Names of the quantities that cannot be determined this period.
+    pub unobservable: Vec<String>,
+    pub diagnostics: Option<Diagnostics>,
+    pub warnings: Vec<String>,
+    /// The standing caution (DOMAIN.md §10).
+    pub caution: String,
+}
+
+/// The caution every report carries.
+pub const CAUTION: &str = "Reconciled values are statistical estimates with the stated \
+uncertainty; a suspect meter is a candidate for inspection, not proof of a fault. Purge and \
+operating changes follow the site's procedures, local codes and licensed engineering practice.";

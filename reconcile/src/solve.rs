@@ -1,0 +1,298 @@
+//! The estimate of DOMAIN.md §4: weighted least squares subject to g(z) = 0 and bounds, solved
+//! by equality-constrained Gauss–Newton (SQP with the Gauss–Newton Hessian).
+//!
+//! Each iteration linearises h and g at z and solves the KKT system
+//!
+//! ```text
+//! [ JᵀJ + εI   Gᵀ ] [ Δz ]   [ Jᵀr ]
+//! [ G         −δI ] [ λ  ] = [ −g  ]
+//! ```
+//!
+//! with J the σ-scaled measurement Jacobian and r the σ-scaled residual. The small ε keeps the
+//! system regular when some states are unobservable (their step is then the minimum-norm one);
+//! δ does the same for dependent constraint rows. Bounds (n ≥ 0, 0 ≤ φ ≤ 1, ξ ≥ 0 for
+//! irreversible reactions) are kept with a primal active set: a step is cut at the first bound
+//! it would cross, that variable is fixed there, and fixed variables are released when their
+//! bound multiplier has the wrong sign (Nocedal & Wright, *Numerical Optimization*, 2nd ed.,
+//! §16.5). A backtracking line search on the exact-penalty merit ½‖r‖² + μ‖g‖₁ (ibid. §18.3)
+//! guards the step from poor starting regions.
+
+use crate::equations::{constraints, measurement, Layout};
+use crate::model::Plant;
+use crate::sparse::{SparseLu, Triplets};
+
+/// A meter measured in the period being reconciled: its value and σ in the meter's uom.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Measured {
+    pub meter: usize,
+    pub value: f64,
+    pub sigma: f64,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SolveStatus {
+    Converged,
+    NotConverged,
+    Infeasible,
+}
+
+#[derive(Debug, Clone)]
+pub struct Solution {
+    pub z: Vec<f64>,
+    pub status: SolveStatus,
+    pub iterations: usize,
+    /// Σ ((y − h)/σ)² at z.
+    pub objective: f64,
+    /// ‖g(z)‖∞ in kmol/h.
+    pub constraint_residual: f64,
+    /// Largest relative step of the last iteration.
+    pub last_step: f64,
+    /// Variables held at a bound at the solution.
+    pub at_bound: Vec<bool>,
+}
+
+/// Settings of the iteration.
+#[derive(Debug, Clone, Copy)]
+pub struct SolveOptions {
+    pub max_iterations: usize,
+    /// Tolerance on ‖g‖∞ relative to the largest flow.
+    pub constraint_tolerance: f64,
+    /// Tolerance on the largest step relative to (1 + |z|).
+    pub step_tolerance: f64,
+}
+
+impl Default for SolveOptions {
+    fn default() -> Self {
+        SolveOptions {
+            max_iterations: 100,
+            constraint_tolerance: 1e-10,
+            step_tolerance: 1e-9,
+        }
+    }
+}
+
+/// σ-scaled residuals r and Jacobian J of the measurements at z, and the objective ‖r‖².
+pub(crate) fn scaled_measurements(plant: &Plant, layout: &Layout, measured: &[Measured], z: &[f64]) -> (Vec<f64>, Triplets) {
+    let mut r = Vec::with_capacity(measured.len());
+    let mut j = Triplets::new(measured.len(), layout.n);
+    for (i, m) in measured.iter().enumerate() {
+        let (h, grad) = measurement(plant, layout, &plant.meters[m.meter], z);
+        r.push((m.value - h) / m.sigma);
+        for (col, d) in grad {
+            j.push(i, col, d / m.sigma);
+        }
+    }
+    (r, j)
+}
+
+fn norm_inf(v: &[f64]) -> f64 {
+    v.iter().fold(0.0, |a, x| a.max(x.abs()))
+}
+
+fn norm_1(v: &[f64]) -> f64 {
+    v.iter().map(|x| x.abs()).sum()
+}
+
+fn flow_scale(layout: &Layout, z: &[f64]) -> f64 {
+    norm_inf(&z[..layout.extent_start]).max(1.0)
+}
+
+struct Step {
+    dz: Vec<f64>,
+    lambda: Vec<f64>,
+}
+
+/// Solve the KKT system at z with the variables in `fixed` held where they are.
+fn kkt_step(layout: &Layout, g: &[f64], gj: &Triplets, r: &[f64], j: &Triplets, fixed: &[bool]) -> Option<Step> {
+    let n = layout.n;
+    let p = g.len();
+    let mut k = Triplets::new(n + p, n + p);
+    // JᵀJ from the rows of J: each measurement row touches a handful of columns.
+    let mut by_row: Vec<Vec<(usize, f64)>> = vec![Vec::new(); j.nrows];
+    for &(row, col, v) in &j.entries {
+        by_row[row].push((col, v));
+    }
+    let mut diag = vec![0.0; n];
+    for row in &by_row {
+        for &(a, va) in row {
+            if fixed[a] {
+                continue;
+            }
+            for &(b, vb) in row {
+                if !fixed[b] {
+                    k.push(a, b, va * vb);
+                }
+            }
+            diag[a] += va * va;
+        }
+    }
+    let eps = 1e-9 * diag.iter().fold(1.0_f64, |a, &d| a.max(d));
+    for (i, &f) in fixed.iter().enumerate() {
+        k.push(i, i, if f { 1.0 } else { eps });
+    }
+    for &(row, col, v) in &gj.entries {
+        if !fixed[col] {
+            k.push(n + row, col, v);
+            k.push(col, n + row, v);
+        }
+    }
+    for row in 0..p {
+        k.push(n + row, n + row, -1e-10);
+    }
+    let mut rhs = j.tr_mul_vec(r);
+    for (i, &f) in fixed.iter().enumerate() {
+        if f {
+            rhs[i] = 0.0;
+        }
+    }
+    rhs.extend(g.iter().map(|x| -x));
+    let sol = match SparseLu::new(&k) {
+        Some(lu) => lu.solve(&rhs),
+        None => {
+            // Fall back to a dense factorisation with full pivoting.
+            let dense = k.to_dense();
+            let x = dense.full_piv_lu().solve(&nalgebra::DVector::from_vec(rhs))?;
+            x.as_slice().to_vec()
+        }
+    };
+    if sol.iter().any(|v| !v.is_finite()) {
+        return None;
+    }
+    Some(Step {
+        dz: sol[..n].to_vec(),
+        lambda: sol[n..].to_vec(),
+    })
+}
+
+/// Minimise Σ((y − h(z))/σ)² subject to g(z) = 0 and the layout's bounds, from `start`.
+pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f64>, options: SolveOptions) -> Solution {
+    let n = layout.n;
+    let mut z = start;
+    for i in 0..n {
+        z[i] = z[i].clamp(layout.lower[i], layout.upper[i]);
+    }
+    let mut fixed: Vec<bool> = (0..n).map(|i| z[i] == layout.lower[i] || z[i] == layout.upper[i]).collect();
+    // A variable starts fixed only if it sits on a bound; the multiplier test releases it.
+    let mut released_once = vec![false; n];
+    let mut last_step = f64::INFINITY;
+    let mut iterations = 0;
+    let mut status = SolveStatus::NotConverged;
+    let mut mu = 1.0;
+
+    while iterations < options.max_iterations {
+        iterations += 1;
+        let mut gj = Triplets::new(layout.rows.len(), n);
+        let g = constraints(plant, layout, &z, Some(&mut gj));
+        let (r, j) = scaled_measurements(plant, layout, measured, &z);
+        let Some(step) = kkt_step(layout, &g, &gj, &r, &j, &fixed) else {
+            status = SolveStatus::NotConverged;
+            break;
+        };
+        let scale = flow_scale(layout, &z);
+        let g_inf = norm_inf(&g);
+        if std::env::var("LOOPBAL_TRACE").is_ok() { eprintln!("it {iterations} g {:e} obj {:e} fixed {}", norm_inf(&g), r.iter().map(|x| x*x).sum::<f64>(), fixed.iter().filter(|f| **f).count()); }
+        let step_rel = (0..n).map(|i| step.dz[i].abs() / (1.0 + z[i].abs())).fold(0.0, f64::max);
+
+        if g_inf <= options.constraint_tolerance * scale && step_rel <= options.step_tolerance {
+            // Stationary on the current active set: check the bound multipliers.
+            // Stationarity: −Jᵀr + Gᵀλ − μ_lower + μ_upper = 0 at the solution.
+            let jtr = j.tr_mul_vec(&r);
+            let gtl = gj.tr_mul_vec(&step.lambda);
+            let mut worst: Option<(usize, f64)> = None;
+            for i in 0..n {
+                if !fixed[i] {
+                    continue;
+                }
+                let m = -jtr[i] + gtl[i];
+                // At a lower bound the multiplier must be ≥ 0, at an upper bound ≤ 0.
+                let wrong = if z[i] == layout.lower[i] { -m } else { m };
+                let tol = 1e-9 * (1.0 + jtr[i].abs() + gtl[i].abs());
+                if wrong > tol && worst.is_none_or(|(_, w)| wrong > w) {
+                    worst = Some((i, wrong));
+                }
+            }
+            match worst {
+                Some((i, _)) => {
+                    fixed[i] = false;
+                    released_once[i] = true;
+                    continue;
+                }
+                None => {
+                    last_step = step_rel;
+                    status = SolveStatus::Converged;
+                    break;
+                }
+            }
+        }
+
+        // Longest step that keeps the free variables within their bounds.
+        let mut alpha_max: f64 = 1.0;
+        let mut blocking = None;
+        for i in 0..n {
+            if fixed[i] || step.dz[i] == 0.0 {
+                continue;
+            }
+            let limit = if step.dz[i] < 0.0 { layout.lower[i] } else { layout.upper[i] };
+            if limit.is_finite() {
+                let a = (limit - z[i]) / step.dz[i];
+                if a < alpha_max {
+                    alpha_max = a.max(0.0);
+                    blocking = Some(i);
+                }
+            }
+        }
+
+        // Exact-penalty merit with a penalty above the largest multiplier.
+        mu = f64::max(mu, 2.0 * norm_inf(&step.lambda) + 1.0);
+        let merit = |z: &[f64]| -> f64 {
+            let (r, _) = scaled_measurements(plant, layout, measured, z);
+            let g = constraints(plant, layout, z, None);
+            0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(&g)
+        };
+        let m0 = 0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(&g);
+        let jtr = j.tr_mul_vec(&r);
+        let slope = -(0..n).map(|i| jtr[i] * step.dz[i]).sum::<f64>() - mu * norm_1(&g);
+        let mut alpha = alpha_max;
+        let mut trial: Vec<f64>;
+        loop {
+            trial = (0..n).map(|i| z[i] + alpha * step.dz[i]).collect();
+            // Armijo on the merit, with room for rounding once the decrease reaches it.
+            if merit(&trial) <= m0 + 1e-4 * alpha * slope.min(0.0) + 1e-13 * (1.0 + m0.abs()) || alpha < 1e-10 {
+                break;
+            }
+            alpha *= 0.5;
+        }
+        for i in 0..n {
+            trial[i] = trial[i].clamp(layout.lower[i], layout.upper[i]);
+        }
+        if alpha == alpha_max {
+            if let Some(b) = blocking {
+                trial[b] = if step.dz[b] < 0.0 { layout.lower[b] } else { layout.upper[b] };
+                fixed[b] = true;
+            }
+        }
+        last_step = (0..n).map(|i| (trial[i] - z[i]).abs() / (1.0 + z[i].abs())).fold(0.0, f64::max);
+        z = trial;
+        if alpha < 1e-10 && alpha_max > 1e-10 {
+            // The line search found no descent: the linearisation no longer helps.
+            break;
+        }
+    }
+
+    let g = constraints(plant, layout, &z, None);
+    let (r, _) = scaled_measurements(plant, layout, measured, &z);
+    let constraint_residual = norm_inf(&g);
+    if status != SolveStatus::Converged && constraint_residual > 1e-6 * flow_scale(layout, &z) {
+        status = SolveStatus::Infeasible;
+    }
+    let _ = released_once;
+    Solution {
+        objective: r.iter().map(|x| x * x).sum(),
+        constraint_residual,
+        last_step,
+        at_bound: fixed,
+        z,
+        status,
+        iterations,
+    }
+}

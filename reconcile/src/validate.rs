@@ -1,0 +1,429 @@
+//! Validation of a [`ModelSpec`] into a [`Plant`] (DOMAIN.md §2): every problem is collected,
+//! each naming the item at fault.
+
+use std::collections::HashMap;
+
+use crate::model::{
+    index_ids, parse_period, Component, Meter, ModelError, ModelProblem, ModelSpec, Plant,
+    Quantity, Reaction, Sigma, Stream, Unit, UnitKind, OUTSIDE,
+};
+use crate::uom::Uom;
+
+/// Relative tolerance on Σ ν_c M_c for a reaction to count as conserving mass.
+pub const MASS_BALANCE_TOLERANCE: f64 = 1e-6;
+
+struct Problems(Vec<ModelProblem>);
+
+impl Problems {
+    fn add(&mut self, item: impl Into<String>, message: impl Into<String>) {
+        self.0.push(ModelProblem {
+            item: item.into(),
+            message: message.into(),
+        });
+    }
+}
+
+pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
+    let mut p = Problems(Vec::new());
+
+    if spec.name.trim().is_empty() {
+        p.add("model", "has an empty name");
+    }
+    let period_seconds = parse_period(&spec.period).unwrap_or_else(|| {
+        p.add(
+            "model",
+            format!(
+                "period \"{}\" is not a length such as 15m, 1h or 1d that divides a day",
+                spec.period
+            ),
+        );
+        3600
+    });
+    if !(spec.alpha.is_finite() && spec.alpha > 0.0 && spec.alpha < 0.5) {
+        p.add(
+            "model",
+            format!("alpha {} must lie strictly between 0 and 0.5", spec.alpha),
+        );
+    }
+
+    let comp_ix = index_ids("component", spec.components.iter().map(|c| c.id.as_str()), &mut p.0);
+    let unit_ix = index_ids("unit", spec.units.iter().map(|u| u.id.as_str()), &mut p.0);
+    let stream_ix = index_ids("stream", spec.streams.iter().map(|s| s.id.as_str()), &mut p.0);
+    let _ = index_ids("reaction", spec.reactions.iter().map(|r| r.id.as_str()), &mut p.0);
+    let _ = index_ids("meter", spec.meters.iter().map(|m| m.tag.as_str()), &mut p.0);
+
+    if spec.components.is_empty() {
+        p.add("model", "has no components");
+    }
+    if spec.streams.is_empty() {
+        p.add("model", "has no streams");
+    }
+
+    let components: Vec<Component> = spec
+        .components
+        .iter()
+        .map(|c| {
+            if !(c.molar_mass.is_finite() && c.molar_mass > 0.0) {
+                p.add(
+                    format!("component \"{}\"", c.id),
+                    format!("molar_mass {} must be a positive number (g/mol)", c.molar_mass),
+                );
+            }
+            Component {
+                id: c.id.clone(),
+                molar_mass: c.molar_mass,
+                inert: c.inert,
+            }
+        })
+        .collect();
+
+    let mut units: Vec<Unit> = spec
+        .units
+        .iter()
+        .map(|u| {
+            if u.id == OUTSIDE {
+                p.add("unit \"outside\"", "\"outside\" is reserved for the plant boundary");
+            }
+            Unit {
+                id: u.id.clone(),
+                kind: u.kind,
+                inlets: Vec::new(),
+                outlets: Vec::new(),
+                reactions: Vec::new(),
+            }
+        })
+        .collect();
+
+    let mut streams = Vec::with_capacity(spec.streams.len());
+    for (si, s) in spec.streams.iter().enumerate() {
+        let item = format!("stream \"{}\"", s.id);
+        let mut end = |name: &str, which: &str| -> Option<usize> {
+            if name == OUTSIDE {
+                return None;
+            }
+            match unit_ix.get(name) {
+                Some(&u) => Some(u),
+                None => {
+                    p.add(&item, format!("{which} unit \"{name}\" is not a unit of the model"));
+                    None
+                }
+            }
+        };
+        let from = end(&s.from, "its from");
+        let to = end(&s.to, "its to");
+        if s.from == OUTSIDE && s.to == OUTSIDE {
+            p.add(&item, "joins the outside to the outside: it touches no unit");
+        }
+        if from.is_some() && from == to {
+            p.add(&item, format!("leaves and enters the same unit \"{}\"", s.from));
+        }
+        let comps = match &s.components {
+            None => (0..components.len()).collect(),
+            Some(list) => {
+                if list.is_empty() {
+                    p.add(&item, "lists no components");
+                }
+                let mut v: Vec<usize> = Vec::new();
+                for c in list {
+                    match comp_ix.get(c) {
+                        Some(&ci) if v.contains(&ci) => {
+                            p.add(&item, format!("lists component \"{c}\" twice"))
+                        }
+                        Some(&ci) => v.push(ci),
+                        None => p.add(&item, format!("lists unknown component \"{c}\"")),
+                    }
+                }
+                v.sort_unstable();
+                v
+            }
+        };
+        if let Some(u) = from {
+            units[u].outlets.push(si);
+        }
+        if let Some(u) = to {
+            units[u].inlets.push(si);
+        }
+        streams.push(Stream {
+            id: s.id.clone(),
+            from,
+            to,
+            components: comps,
+        });
+    }
+
+    let mut reactions = Vec::with_capacity(spec.reactions.len());
+    for (ri, r) in spec.reactions.iter().enumerate() {
+        let item = format!("reaction \"{}\"", r.id);
+        let unit = match unit_ix.get(&r.unit) {
+            Some(&u) => {
+                if units[u].kind != UnitKind::Reactor {
+                    p.add(
+                        &item,
+                        format!("is attached to unit \"{}\", a {}, not a reactor", r.unit, units[u].kind),
+                    );
+                }
+                units[u].reactions.push(ri);
+                u
+            }
+            None => {
+                p.add(&item, format!("is attached to unknown unit \"{}\"", r.unit));
+                usize::MAX
+            }
+        };
+        if r.stoichiometry.is_empty() {
+            p.add(&item, "has an empty stoichiometry");
+        }
+        let mut stoich = Vec::new();
+        let (mut net, mut scale) = (0.0, 0.0);
+        let mut mass_known = true;
+        for (c, &nu) in &r.stoichiometry {
+            if !nu.is_finite() {
+                p.add(&item, format!("coefficient of \"{c}\" is {nu}, not a finite number"));
+                mass_known = false;
+                continue;
+            }
+            if nu == 0.0 {
+                p.add(&item, format!("coefficient of \"{c}\" is zero; leave it out"));
+                continue;
+            }
+            match comp_ix.get(c) {
+                Some(&ci) => {
+                    stoich.push((ci, nu));
+                    let m = components[ci].molar_mass;
+                    net += nu * m;
+                    scale += (nu * m).abs();
+                }
+                None => {
+                    p.add(&item, format!("names unknown component \"{c}\""));
+                    mass_known = false;
+                }
+            }
+        }
+        stoich.sort_by_key(|(c, _)| *c);
+        if mass_known && scale.is_finite() && scale > 0.0 && net.abs() > MASS_BALANCE_TOLERANCE * scale
+        {
+            p.add(
+                &item,
+                format!(
+                    "does not conserve mass: Σ ν·M = {net:.6} g/mol against {scale:.6} g/mol moved \
+                     (tolerance {MASS_BALANCE_TOLERANCE} relative)"
+                ),
+            );
+        }
+        let key = r.key.as_ref().and_then(|k| match comp_ix.get(k) {
+            Some(&ci) if stoich.iter().any(|&(c, nu)| c == ci && nu < 0.0) => Some(ci),
+            Some(_) => {
+                p.add(&item, format!("key \"{k}\" is not a reactant (negative coefficient) of it"));
+                None
+            }
+            None => {
+                p.add(&item, format!("key \"{k}\" is not a component of the model"));
+                None
+            }
+        });
+        reactions.push(Reaction {
+            id: r.id.clone(),
+            unit,
+            stoichiometry: stoich,
+            key,
+            irreversible: r.irreversible,
+        });
+    }
+
+    for u in &units {
+        let item = format!("unit \"{}\"", u.id);
+        if u.inlets.is_empty() {
+            p.add(&item, "has no inlet stream");
+        }
+        if u.outlets.is_empty() {
+            p.add(&item, "has no outlet stream");
+        }
+        match u.kind {
+            UnitKind::Splitter => {
+                if u.inlets.len() > 1 {
+                    p.add(&item, "is a splitter with more than one inlet; put a mixer before it");
+                }
+                if u.outlets.len() < 2 {
+                    p.add(&item, format!("is a splitter with {} outlet(s); it needs two or more", u.outlets.len()));
+                }
+                if let Some(&inlet) = u.inlets.first() {
+                    for &o in &u.outlets {
+                        if streams[o].components != streams[inlet].components {
+                            p.add(
+                                format!("stream \"{}\"", streams[o].id),
+                                format!(
+                                    "leaves splitter \"{}\" but does not carry the same components as its inlet \"{}\"",
+                                    u.id, streams[inlet].id
+                                ),
+                            );
+                        }
+                    }
+                }
+            }
+            UnitKind::Reactor if u.reactions.is_empty() => {
+                p.add(&item, "is a reactor without any reaction");
+            }
+            _ => {}
+        }
+        // Every component a reaction touches must be carried by a stream of the unit, or its
+        // balance forces the extent to zero.
+        for &ri in &u.reactions {
+            for &(c, _) in &reactions[ri].stoichiometry {
+                let carried = u
+                    .inlets
+                    .iter()
+                    .chain(&u.outlets)
+                    .any(|&s| streams[s].components.contains(&c));
+                if !carried {
+                    p.add(
+                        format!("reaction \"{}\"", reactions[ri].id),
+                        format!(
+                            "involves \"{}\" but no stream of unit \"{}\" carries it",
+                            components[c].id, u.id
+                        ),
+                    );
+                }
+            }
+        }
+    }
+
+    let meters = validate_meters(&spec, &comp_ix, &stream_ix, &streams, &mut p);
+
+    if !p.0.is_empty() {
+        return Err(ModelError::Invalid(p.0));
+    }
+    Ok(Plant {
+        name: spec.name.clone(),
+        period_seconds,
+        alpha: spec.alpha,
+        spec,
+        components,
+        units,
+        reactions,
+        streams,
+        meters,
+    })
+}
+
+fn validate_meters(
+    spec: &ModelSpec,
+    comp_ix: &HashMap<String, usize>,
+    stream_ix: &HashMap<String, usize>,
+    streams: &[Stream],
+    p: &mut Problems,
+) -> Vec<Meter> {
+    let mut meters = Vec::with_capacity(spec.meters.len());
+    for m in &spec.meters {
+        let item = format!("meter \"{}\"", m.tag);
+        let stream = stream_ix.get(&m.stream).copied();
+        if stream.is_none() {
+            p.add(&item, format!("is on unknown stream \"{}\"", m.stream));
+        }
+        let carried = |ci: usize| stream.is_none_or(|s| streams[s].components.contains(&ci));
+        let uom = Uom::parse(&m.uom);
+        match uom {
+            None => p.add(
+                &item,
+                format!(
+                    "uom \"{}\" is not one of {} for {}",
+                    m.uom,
+                    Uom::allowed_for(m.quantity).join(", "),
+                    m.quantity.as_str()
+                ),
+            ),
+            Some(u) if !u.fits(m.quantity) => p.add(
+                &item,
+                format!(
+                    "uom \"{}\" does not fit {}; use one of {}",
+                    m.uom,
+                    m.quantity.as_str(),
+                    Uom::allowed_for(m.quantity).join(", ")
+                ),
+            ),
+            Some(_) => {}
+        }
+        let component = match (&m.component, m.quantity.needs_component()) {
+            (None, true) => {
+                p.add(&item, format!("measures {} but names no component", m.quantity.as_str()));
+                None
+            }
+            (Some(c), false) => {
+                p.add(&item, format!("names component \"{c}\" but measures {}, a whole-stream quantity", m.quantity.as_str()));
+                None
+            }
+            (None, false) => None,
+            (Some(c), true) => match comp_ix.get(c) {
+                None => {
+                    p.add(&item, format!("names unknown component \"{c}\""));
+                    None
+                }
+                Some(&ci) if !carried(ci) => {
+                    p.add(&item, format!("measures component \"{c}\", which stream \"{}\" does not carry", m.stream));
+                    None
+                }
+                Some(&ci) => Some(ci),
+            },
+        };
+        let basis = m.basis.as_ref().map(|list| {
+            if m.quantity != Quantity::MoleFraction {
+                p.add(&item, "gives a basis, which only a mole_fraction meter may have");
+            }
+            let mut v = Vec::new();
+            for c in list {
+                match comp_ix.get(c) {
+                    Some(&ci) if carried(ci) => {
+                        if !v.contains(&ci) {
+                            v.push(ci)
+                        }
+                    }
+                    Some(_) => p.add(&item, format!("basis component \"{c}\" is not carried by stream \"{}\"", m.stream)),
+                    None => p.add(&item, format!("basis names unknown component \"{c}\"")),
+                }
+            }
+            if let Some(ci) = component {
+                if !v.contains(&ci) {
+                    p.add(&item, "its basis does not include the component it measures");
+                }
+            }
+            v.sort_unstable();
+            v
+        });
+        if let Some([lo, hi]) = m.range {
+            if !(lo.is_finite() && hi.is_finite() && lo < hi) {
+                p.add(&item, format!("range [{lo}, {hi}] must be two finite numbers, low before high"));
+            }
+        }
+        let given = [m.sigma, m.sigma_pct, m.sigma_pct_span];
+        let count = given.iter().filter(|s| s.is_some()).count();
+        if count != 1 {
+            p.add(&item, "must give exactly one of sigma, sigma_pct or sigma_pct_span");
+        }
+        for (name, v) in ["sigma", "sigma_pct", "sigma_pct_span"].iter().zip(given) {
+            if let Some(v) = v {
+                if !(v.is_finite() && v > 0.0) {
+                    p.add(&item, format!("{name} {v} must be a positive number"));
+                }
+            }
+        }
+        if m.sigma_pct_span.is_some() && m.range.is_none() {
+            p.add(&item, "gives sigma_pct_span but no range to take the span from");
+        }
+        let sigma = match (m.sigma, m.sigma_pct, m.sigma_pct_span) {
+            (Some(s), _, _) => Sigma::Absolute(s),
+            (_, Some(s), _) => Sigma::PercentOfReading(s),
+            (_, _, Some(s)) => Sigma::PercentOfSpan(s),
+            _ => Sigma::Absolute(f64::NAN),
+        };
+        meters.push(Meter {
+            tag: m.tag.clone(),
+            stream: stream.unwrap_or(usize::MAX),
+            quantity: m.quantity,
+            component,
+            basis,
+            uom: uom.unwrap_or(Uom::Fraction),
+            sigma,
+            range: m.range,
+        });
+    }
+    meters
+}
