@@ -172,8 +172,6 @@ pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f
         z[i] = z[i].clamp(layout.lower[i], layout.upper[i]);
     }
     let mut fixed: Vec<bool> = (0..n).map(|i| z[i] == layout.lower[i] || z[i] == layout.upper[i]).collect();
-    // A variable starts fixed only if it sits on a bound; the multiplier test releases it.
-    let mut released_once = vec![false; n];
     let mut last_step = f64::INFINITY;
     let mut iterations = 0;
     let mut status = SolveStatus::NotConverged;
@@ -190,7 +188,6 @@ pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f
         };
         let scale = flow_scale(layout, &z);
         let g_inf = norm_inf(&g);
-        if std::env::var("LOOPBAL_TRACE").is_ok() { eprintln!("it {iterations} g {:e} obj {:e} fixed {}", norm_inf(&g), r.iter().map(|x| x*x).sum::<f64>(), fixed.iter().filter(|f| **f).count()); }
         let step_rel = (0..n).map(|i| step.dz[i].abs() / (1.0 + z[i].abs())).fold(0.0, f64::max);
 
         if g_inf <= options.constraint_tolerance * scale && step_rel <= options.step_tolerance {
@@ -214,7 +211,6 @@ pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f
             match worst {
                 Some((i, _)) => {
                     fixed[i] = false;
-                    released_once[i] = true;
                     continue;
                 }
                 None => {
@@ -285,7 +281,6 @@ pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f
     if status != SolveStatus::Converged && constraint_residual > 1e-6 * flow_scale(layout, &z) {
         status = SolveStatus::Infeasible;
     }
-    let _ = released_once;
     Solution {
         objective: r.iter().map(|x| x * x).sum(),
         constraint_residual,
