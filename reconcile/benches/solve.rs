@@ -1,1 +1,199 @@
-fn main(){}
+//! Benchmarks of the engine (docs/performance.md has the figures and the machine):
+//!
+//! - `fenwick/reconcile_period`: one period of the Fenwick Reach methanol loop
+//!   (tests/data/fenwick-methanol.toml, 15 streams × 6 components, 26 meters) with noisy
+//!   readings: estimate, classification, every σ and the report.
+//! - `estimate/N`: generated networks of N streams × 8 components (benches/common/network.rs):
+//!   Layout::new + start::initial_point + solve::solve with the default options.
+//! - `estimate_10_iterations/N`: the same, capped at 10 Gauss–Newton iterations (what a run
+//!   costs when it converges in the usual 5–10).
+//! - `classify/N`: the dense classification and covariance at the solution.
+//!
+//! Run with `cargo bench -p reconcile --bench solve`. `LOOPBAL_BENCH_PROBE=1` instead times each
+//! case once and prints iterations and status, without criterion.
+
+mod common;
+
+use std::hint::black_box;
+use std::time::{Duration, Instant};
+
+use common::network::{network, Network};
+use common::{exact_values, fenwick_true_state, noisy_values, period, FenwickConditions, FENWICK};
+use criterion::{criterion_group, BenchmarkId, Criterion};
+use reconcile::classify::classify;
+use reconcile::equations::Layout;
+use reconcile::model::Plant;
+use reconcile::solve::{solve, Measured, Solution, SolveOptions};
+use reconcile::start::initial_point;
+use reconcile::{parse_plant, reconcile_period};
+
+/// Network sizes (streams) timed for the estimate, and for the dense classification.
+const ESTIMATE_SIZES: [usize; 4] = [100, 250, 500, 2000];
+const CLASSIFY_SIZES: [usize; 2] = [100, 250];
+/// Seed of the readings' noise. With seed 0 the Fenwick period converges (in 9 iterations).
+const NOISE_SEED: u64 = 0;
+const NETWORK_SEED: u64 = 7;
+
+fn measured(plant: &Plant, values: &[reconcile::period::MeterValue]) -> Vec<Measured> {
+    values
+        .iter()
+        .map(|v| Measured {
+            meter: v.meter,
+            value: v.value,
+            sigma: plant.meters[v.meter]
+                .sigma_for(v.value)
+                .expect("positive σ"),
+        })
+        .collect()
+}
+
+fn noisy_network(streams: usize) -> (Network, Vec<Measured>) {
+    let net = network(streams, NETWORK_SEED);
+    let values = noisy_values(
+        &net.plant,
+        &exact_values(&net.plant, &net.layout, &net.z),
+        NOISE_SEED,
+    );
+    let m = measured(&net.plant, &values);
+    (net, m)
+}
+
+fn estimate(plant: &Plant, measured: &[Measured], options: SolveOptions) -> (Layout, Solution) {
+    let layout = Layout::new(plant);
+    let start = initial_point(plant, &layout, measured);
+    let solution = solve(plant, &layout, measured, start, options);
+    (layout, solution)
+}
+
+fn capped() -> SolveOptions {
+    SolveOptions {
+        max_iterations: 10,
+        ..SolveOptions::default()
+    }
+}
+
+fn fenwick(c: &mut Criterion) {
+    let plant = parse_plant(FENWICK).expect("Fenwick model is valid");
+    let layout = Layout::new(&plant);
+    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let input = period(noisy_values(
+        &plant,
+        &exact_values(&plant, &layout, &z),
+        NOISE_SEED,
+    ));
+    let report = reconcile_period(&plant, &input);
+    eprintln!(
+        "fenwick: status {:?}, {} iterations, objective {:.2}, redundancy {}",
+        report.status,
+        report.iterations,
+        report.objective.unwrap_or(f64::NAN),
+        report.redundancy
+    );
+    let mut group = c.benchmark_group("fenwick");
+    group.bench_function("reconcile_period", |b| {
+        b.iter(|| reconcile_period(black_box(&plant), black_box(&input)))
+    });
+    group.finish();
+}
+
+fn networks(c: &mut Criterion) {
+    let mut group = c.benchmark_group("estimate");
+    group
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(4));
+    for &size in &ESTIMATE_SIZES {
+        let (net, m) = noisy_network(size);
+        let (_, s) = estimate(&net.plant, &m, SolveOptions::default());
+        eprintln!(
+            "estimate/{size}: {} streams, {} states, {} equations, {} meters: {:?} in {} iterations",
+            net.plant.streams.len(),
+            net.layout.n,
+            net.layout.rows.len(),
+            m.len(),
+            s.status,
+            s.iterations
+        );
+        group.bench_with_input(BenchmarkId::from_parameter(size), &size, |b, _| {
+            b.iter(|| {
+                estimate(
+                    black_box(&net.plant),
+                    black_box(&m),
+                    SolveOptions::default(),
+                )
+            })
+        });
+    }
+    group.finish();
+
+    let mut group = c.benchmark_group("estimate_10_iterations");
+    group
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(3));
+    for &size in &ESTIMATE_SIZES {
+        let (net, m) = noisy_network(size);
+        group.bench_with_input(BenchmarkId::from_parameter(size), &size, |b, _| {
+            b.iter(|| estimate(black_box(&net.plant), black_box(&m), capped()))
+        });
+    }
+    group.finish();
+
+    let mut group = c.benchmark_group("classify");
+    group
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(5));
+    for &size in &CLASSIFY_SIZES {
+        let (net, m) = noisy_network(size);
+        let (layout, s) = estimate(&net.plant, &m, capped());
+        group.bench_with_input(BenchmarkId::from_parameter(size), &size, |b, _| {
+            b.iter(|| classify(black_box(&net.plant), &layout, &m, &s.z, &s.at_bound))
+        });
+    }
+    group.finish();
+}
+
+/// Time every case once, for sizes too slow for criterion's repeated samples.
+fn probe() {
+    let sizes: Vec<usize> = std::env::var("LOOPBAL_BENCH_PROBE_SIZES")
+        .ok()
+        .map(|s| s.split(',').filter_map(|x| x.trim().parse().ok()).collect())
+        .unwrap_or_else(|| vec![100, 250, 500]);
+    for size in sizes {
+        let (net, m) = noisy_network(size);
+        let t = Instant::now();
+        let (layout, s) = estimate(&net.plant, &m, SolveOptions::default());
+        let t_est = t.elapsed();
+        let t = Instant::now();
+        let _ = estimate(&net.plant, &m, capped());
+        let t_cap = t.elapsed();
+        let t = Instant::now();
+        let c = classify(&net.plant, &layout, &m, &s.z, &s.at_bound);
+        let t_cls = t.elapsed();
+        println!(
+            "{size} streams ({} states, {} equations, {} meters): estimate {:?} ({:?}, {} iterations), 10 iterations {:?}, classify {:?} (redundancy {}, {} unobservable directions)",
+            net.layout.n,
+            net.layout.rows.len(),
+            m.len(),
+            t_est,
+            s.status,
+            s.iterations,
+            t_cap,
+            t_cls,
+            c.redundancy,
+            c.unobservable.ncols()
+        );
+    }
+}
+
+criterion_group!(benches, fenwick, networks);
+
+fn main() {
+    if std::env::var_os("LOOPBAL_BENCH_PROBE").is_some() {
+        probe();
+        return;
+    }
+    benches();
+    Criterion::default().configure_from_args().final_summary();
+}

@@ -24,7 +24,12 @@ pub struct Estimate {
 impl Estimate {
     /// Reconciled value of measured meter k (index into `measured`) and its gradient.
     pub fn reconciled(&self, plant: &Plant, k: usize) -> (f64, Vec<(usize, f64)>) {
-        measurement(plant, &self.layout, &plant.meters[self.measured[k].meter], &self.solution.z)
+        measurement(
+            plant,
+            &self.layout,
+            &plant.meters[self.measured[k].meter],
+            &self.solution.z,
+        )
     }
 }
 
@@ -33,7 +38,16 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     let layout = Layout::new(plant);
     let start = initial_point(plant, &layout, &measured);
     let solution = solve(plant, &layout, &measured, start, SolveOptions::default());
-    let classification = classify(plant, &layout, &measured, &solution.z, &solution.at_bound);
+    // Classification and covariance ignore the bounds (common practice): a variable resting on
+    // a bound is not thereby known, and treating it as known would call unobservable states
+    // observable.
+    let classification = classify(
+        plant,
+        &layout,
+        &measured,
+        &solution.z,
+        &vec![false; layout.n],
+    );
     Estimate {
         layout,
         measured,
@@ -49,7 +63,10 @@ pub fn reconcile_period(plant: &Plant, input: &PeriodInput) -> Report {
     for v in &input.values {
         let meter = &plant.meters[v.meter];
         if !v.value.is_finite() {
-            warnings.push(format!("meter \"{}\": value is not a finite number; not used", meter.tag));
+            warnings.push(format!(
+                "meter \"{}\": value is not a finite number; not used",
+                meter.tag
+            ));
             continue;
         }
         match meter.sigma_for(v.value) {
@@ -74,7 +91,9 @@ pub fn reconcile_period(plant: &Plant, input: &PeriodInput) -> Report {
     }
     let mut report = Report {
         plant: plant.name.clone(),
-        period_start: input.start.to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
+        period_start: input
+            .start
+            .to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
         period_end: input.end.to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
         status: ReportStatus::NoData,
         iterations: 0,
@@ -94,8 +113,14 @@ pub fn reconcile_period(plant: &Plant, input: &PeriodInput) -> Report {
         caution: CAUTION.to_string(),
     };
     if measured.is_empty() {
-        report.warnings.push("no usable reading in this period".into());
-        report.meters = plant.meters.iter().map(|m| unmeasured_meter(plant, m)).collect();
+        report
+            .warnings
+            .push("no usable reading in this period".into());
+        report.meters = plant
+            .meters
+            .iter()
+            .map(|m| unmeasured_meter(plant, m))
+            .collect();
         return report;
     }
     let est = estimate(plant, measured);
@@ -147,7 +172,10 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
         last_step: sol.last_step,
         states: layout.n,
         equations: layout.rows.len(),
-        at_bound: (0..layout.n).filter(|&i| sol.at_bound[i]).map(|i| var_name(plant, layout, i)).collect(),
+        at_bound: (0..layout.n)
+            .filter(|&i| sol.at_bound[i])
+            .map(|i| var_name(plant, layout, i))
+            .collect(),
     });
     report.status = match sol.status {
         SolveStatus::Converged => ReportStatus::Solved,
@@ -179,7 +207,12 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
         alpha_per_test: sidak(plant.alpha, tests.max(1)),
         tests,
     });
-    let by_meter: BTreeMap<usize, usize> = est.measured.iter().enumerate().map(|(k, m)| (m.meter, k)).collect();
+    let by_meter: BTreeMap<usize, usize> = est
+        .measured
+        .iter()
+        .enumerate()
+        .map(|(k, m)| (m.meter, k))
+        .collect();
     for (mi, meter) in plant.meters.iter().enumerate() {
         let mut entry = unmeasured_meter(plant, meter);
         let (h, grad) = measurement(plant, layout, meter, z);
@@ -188,7 +221,11 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
         entry.reconciled_sigma = sigma;
         if let Some(&k) = by_meter.get(&mi) {
             let m = &est.measured[k];
-            let v = input.values.iter().find(|v| v.meter == mi).expect("measured from input");
+            let v = input
+                .values
+                .iter()
+                .find(|v| v.meter == mi)
+                .expect("measured from input");
             entry.measured = Some(m.value);
             entry.sigma = Some(m.sigma);
             entry.readings = v.readings;
@@ -229,8 +266,12 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
         let (mass_flow, mass_flow_sigma) = observed(c, mass, &mass_grad);
         let mut entry = StreamReport {
             id: stream.id.clone(),
-            from: stream.from.map_or("outside".into(), |u| plant.units[u].id.clone()),
-            to: stream.to.map_or("outside".into(), |u| plant.units[u].id.clone()),
+            from: stream
+                .from
+                .map_or("outside".into(), |u| plant.units[u].id.clone()),
+            to: stream
+                .to
+                .map_or("outside".into(), |u| plant.units[u].id.clone()),
             molar_flow,
             molar_flow_sigma,
             mass_flow,
@@ -253,7 +294,9 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
             entry.component_flows_sigma.insert(id, ns);
         }
         if molar_flow.is_none() {
-            report.unobservable.push(format!("flow of stream \"{}\"", stream.id));
+            report
+                .unobservable
+                .push(format!("flow of stream \"{}\"", stream.id));
         }
         report.streams.push(entry);
     }
@@ -262,7 +305,9 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
         let i = layout.extent(r);
         let (value, sigma) = observed(c, z[i], &[(i, 1.0)]);
         if value.is_none() {
-            report.unobservable.push(format!("extent of reaction \"{}\"", reaction.id));
+            report
+                .unobservable
+                .push(format!("extent of reaction \"{}\"", reaction.id));
         }
         report.extents.push(ExtentReport {
             reaction: reaction.id.clone(),
@@ -273,7 +318,11 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
         });
     }
 
-    for u in plant.units.iter().filter(|u| u.kind == crate::model::UnitKind::Splitter) {
+    for u in plant
+        .units
+        .iter()
+        .filter(|u| u.kind == crate::model::UnitKind::Splitter)
+    {
         let mut rest: Vec<(usize, f64)> = Vec::new();
         let mut rest_value = 1.0;
         for (k, &o) in u.outlets.iter().enumerate() {
@@ -288,7 +337,10 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
             };
             let (value, sigma) = observed(c, value, &grad);
             if value.is_none() {
-                report.unobservable.push(format!("split fraction of stream \"{}\"", plant.streams[o].id));
+                report.unobservable.push(format!(
+                    "split fraction of stream \"{}\"",
+                    plant.streams[o].id
+                ));
             }
             report.split_fractions.push(SplitReport {
                 stream: plant.streams[o].id.clone(),
@@ -300,7 +352,8 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
         }
     }
 
-    let any_flow_or_extent_unobservable = report.streams.iter().any(|s| !s.observable) || report.extents.iter().any(|e| !e.observable);
+    let any_flow_or_extent_unobservable = report.streams.iter().any(|s| !s.observable)
+        || report.extents.iter().any(|e| !e.observable);
     if report.status == ReportStatus::Solved && any_flow_or_extent_unobservable {
         report.status = ReportStatus::Unobservable;
     }

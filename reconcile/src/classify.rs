@@ -70,14 +70,102 @@ fn full_svd(a: &DMatrix<f64>) -> (DMatrix<f64>, Vec<f64>, DMatrix<f64>) {
     order.sort_by(|&i, &j| svd.singular_values[j].total_cmp(&svd.singular_values[i]));
     let s: Vec<f64> = order.iter().map(|&i| svd.singular_values[i]).collect();
     let v = DMatrix::from_fn(cols, order.len(), |r, k| v_t[(order[k], r)]);
-    let u = DMatrix::from_fn(u.nrows().min(rows.max(1)), order.len(), |r, k| u[(r, order[k])]);
+    let u = DMatrix::from_fn(u.nrows().min(rows.max(1)), order.len(), |r, k| {
+        u[(r, order[k])]
+    });
     let mut s_full = s;
     s_full.resize(cols, 0.0);
     // V may have fewer columns than `cols` only when rows ≥ cols is false, which padding avoids.
     (u, s_full, v)
 }
 
-pub fn classify(plant: &Plant, layout: &Layout, measured: &[Measured], z: &[f64], at_bound: &[bool]) -> Classification {
+/// A diagonal of R this much smaller than the largest counts as a possible rank deficiency,
+/// and the SVD decides instead. Conservative: the SVD's own threshold is RANK_TOLERANCE.
+const QR_RANK_GUARD: f64 = 1e-7;
+
+/// Orthonormal basis of the null space of a p × n matrix G with p ≤ n and full row rank, from
+/// the Householder QR Gᵀ = Q R (Golub & Van Loan, *Matrix Computations*, 4th ed., §5.2): the
+/// last n − p columns of Q. They are formed as the rows of [0 I] Qᵀ = [0 I] H_p … H_1, applying
+/// each reflection from the right to an (n − p) × n block, which costs O((n − p) n p) instead of
+/// forming all of Q. `None` when G is rank-deficient or nearly so.
+fn nullspace_by_qr(g: &DMatrix<f64>) -> Option<DMatrix<f64>> {
+    let (p, n) = g.shape();
+    if p > n {
+        return None;
+    }
+    let mut a = g.transpose(); // n × p, column-major: each column of Gᵀ is contiguous
+    let mut reflections: Vec<(Vec<f64>, f64)> = Vec::with_capacity(p);
+    let mut diag_max: f64 = 0.0;
+    let mut diag_min = f64::INFINITY;
+    for k in 0..p {
+        let v_start: Vec<f64> = a.column(k).rows(k, n - k).iter().copied().collect();
+        let norm = v_start.iter().map(|t| t * t).sum::<f64>().sqrt();
+        if !norm.is_finite() {
+            return None;
+        }
+        // Reflect x onto −sign(x₀)‖x‖ e₁ to avoid cancellation.
+        let alpha = if v_start[0] >= 0.0 { -norm } else { norm };
+        let mut v = v_start;
+        v[0] -= alpha;
+        let vv: f64 = v.iter().map(|t| t * t).sum();
+        let beta = if vv > 0.0 { 2.0 / vv } else { 0.0 };
+        for j in k + 1..p {
+            let col = &mut a.column_mut(j);
+            let tail = &mut col.as_mut_slice()[k..];
+            let s: f64 = beta * v.iter().zip(tail.iter()).map(|(x, y)| x * y).sum::<f64>();
+            if s != 0.0 {
+                for (c, vi) in tail.iter_mut().zip(&v) {
+                    *c -= s * vi;
+                }
+            }
+        }
+        diag_max = diag_max.max(norm);
+        diag_min = diag_min.min(norm);
+        reflections.push((v, beta));
+    }
+    if p > 0
+        && diag_min.partial_cmp(&(QR_RANK_GUARD * diag_max)) != Some(std::cmp::Ordering::Greater)
+    {
+        return None;
+    }
+    let q = n - p;
+    // W = [0 I] (q × n), then W ← W H_k for k = p−1 … 0, with H_k = I − β v vᵀ on columns k…n.
+    let mut w = DMatrix::zeros(q, n);
+    for i in 0..q {
+        w[(i, p + i)] = 1.0;
+    }
+    let mut wv = vec![0.0; q];
+    for (k, (v, beta)) in reflections.iter().enumerate().rev() {
+        if *beta == 0.0 {
+            continue;
+        }
+        wv.iter_mut().for_each(|t| *t = 0.0);
+        for (off, &vi) in v.iter().enumerate() {
+            if vi != 0.0 {
+                for (acc, &x) in wv.iter_mut().zip(w.column(k + off).iter()) {
+                    *acc += x * vi;
+                }
+            }
+        }
+        for (off, &vi) in v.iter().enumerate() {
+            let f = beta * vi;
+            if f != 0.0 {
+                for (x, &acc) in w.column_mut(k + off).iter_mut().zip(&wv) {
+                    *x -= f * acc;
+                }
+            }
+        }
+    }
+    Some(w.transpose())
+}
+
+pub fn classify(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+    at_bound: &[bool],
+) -> Classification {
     let n = layout.n;
     let free: Vec<usize> = (0..n).filter(|&i| !at_bound[i]).collect();
     let mut map = vec![None; n];
@@ -92,26 +180,46 @@ pub fn classify(plant: &Plant, layout: &Layout, measured: &[Measured], z: &[f64]
     let nf = free.len();
     let m = measured.len();
 
-    // Null space of G: right singular vectors beyond its rank.
+    // Null space of G: from a Householder QR of Gᵀ when G clearly has full row rank (the
+    // usual case, and many times cheaper than the SVD), else the right singular vectors beyond
+    // its numerical rank.
     let nullspace = if g.nrows() == 0 {
         DMatrix::identity(nf, nf)
+    } else if let Some(basis) = nullspace_by_qr(&g) {
+        basis
     } else {
         let (_, s, v) = full_svd(&g);
         let smax = s.first().copied().unwrap_or(0.0);
-        let rank = s.iter().filter(|&&x| x > RANK_TOLERANCE * smax.max(1e-300)).count();
+        let rank = s
+            .iter()
+            .filter(|&&x| x > RANK_TOLERANCE * smax.max(1e-300))
+            .count();
         v.columns(rank, nf - rank).into_owned()
     };
     let q = nullspace.ncols();
 
     let (l_free, u, unobs_free, rank) = if q == 0 {
-        (DMatrix::zeros(nf, 0), DMatrix::zeros(m, 0), DMatrix::zeros(nf, 0), 0)
+        (
+            DMatrix::zeros(nf, 0),
+            DMatrix::zeros(m, 0),
+            DMatrix::zeros(nf, 0),
+            0,
+        )
     } else if m == 0 {
-        (DMatrix::zeros(nf, 0), DMatrix::zeros(0, 0), nullspace.clone(), 0)
+        (
+            DMatrix::zeros(nf, 0),
+            DMatrix::zeros(0, 0),
+            nullspace.clone(),
+            0,
+        )
     } else {
         let b = &jf * &nullspace;
         let (u_full, s, v) = full_svd(&b);
         let smax = s.first().copied().unwrap_or(0.0);
-        let rank = s.iter().filter(|&&x| x > RANK_TOLERANCE * smax.max(1e-300)).count();
+        let rank = s
+            .iter()
+            .filter(|&&x| x > RANK_TOLERANCE * smax.max(1e-300))
+            .count();
         let vr = v.columns(0, rank);
         let mut l = &nullspace * vr;
         for k in 0..rank {

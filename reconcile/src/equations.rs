@@ -105,7 +105,10 @@ impl Layout {
     }
 
     pub fn split(&self, stream: usize) -> Option<usize> {
-        self.splits.iter().find(|(s, _)| *s == stream).map(|(_, i)| *i)
+        self.splits
+            .iter()
+            .find(|(s, _)| *s == stream)
+            .map(|(_, i)| *i)
     }
 
     pub fn var(&self, plant: &Plant, index: usize) -> Var {
@@ -113,7 +116,11 @@ impl Layout {
             if index < self.extent_start + plant.reactions.len() {
                 return Var::Extent(index - self.extent_start);
             }
-            let (s, _) = self.splits.iter().find(|(_, i)| *i == index).expect("index in layout");
+            let (s, _) = self
+                .splits
+                .iter()
+                .find(|(_, i)| *i == index)
+                .expect("index in layout");
             return Var::Split(*s);
         }
         let stream = self.flow_start.partition_point(|&f| f <= index) - 1;
@@ -166,7 +173,12 @@ fn rows(plant: &Plant) -> Vec<Row> {
 }
 
 /// g(z) and, when `jac` is given, its Jacobian as triplets (row, column, value).
-pub fn constraints(plant: &Plant, layout: &Layout, z: &[f64], mut jac: Option<&mut Triplets>) -> Vec<f64> {
+pub fn constraints(
+    plant: &Plant,
+    layout: &Layout,
+    z: &[f64],
+    mut jac: Option<&mut Triplets>,
+) -> Vec<f64> {
     let mut g = Vec::with_capacity(layout.rows.len());
     for (ri, row) in layout.rows.iter().enumerate() {
         let mut value = 0.0;
@@ -219,7 +231,12 @@ pub fn constraints(plant: &Plant, layout: &Layout, z: &[f64], mut jac: Option<&m
 }
 
 /// h(z) of one meter in its uom, with its gradient as (column, value) pairs.
-pub fn measurement(plant: &Plant, layout: &Layout, meter: &Meter, z: &[f64]) -> (f64, Vec<(usize, f64)>) {
+pub fn measurement(
+    plant: &Plant,
+    layout: &Layout,
+    meter: &Meter,
+    z: &[f64],
+) -> (f64, Vec<(usize, f64)>) {
     let f = meter.uom.factor_from_base();
     let s = meter.stream;
     let stream = &plant.streams[s];
@@ -242,7 +259,9 @@ pub fn measurement(plant: &Plant, layout: &Layout, meter: &Meter, z: &[f64]) -> 
             (f * total, grad)
         }
         Quantity::ComponentFlow => {
-            let i = layout.flow(plant, s, meter.component.expect("validated")).expect("validated");
+            let i = layout
+                .flow(plant, s, meter.component.expect("validated"))
+                .expect("validated");
             (f * z[i], vec![(i, f)])
         }
         Quantity::MoleFraction => {
@@ -292,15 +311,31 @@ pub fn measurement(plant: &Plant, layout: &Layout, meter: &Meter, z: &[f64]) -> 
 }
 
 /// Total molar flow of a stream (kmol/h) and its gradient.
-pub fn stream_total(plant: &Plant, layout: &Layout, stream: usize, z: &[f64]) -> (f64, Vec<(usize, f64)>) {
+pub fn stream_total(
+    plant: &Plant,
+    layout: &Layout,
+    stream: usize,
+    z: &[f64],
+) -> (f64, Vec<(usize, f64)>) {
     let cols = layout.stream_flows(plant, stream);
-    (z[cols.clone()].iter().sum(), cols.map(|i| (i, 1.0)).collect())
+    (
+        z[cols.clone()].iter().sum(),
+        cols.map(|i| (i, 1.0)).collect(),
+    )
 }
 
 /// Mole fraction of component c in a stream, and its gradient.
-pub fn stream_fraction(plant: &Plant, layout: &Layout, stream: usize, component: usize, z: &[f64]) -> (f64, Vec<(usize, f64)>) {
+pub fn stream_fraction(
+    plant: &Plant,
+    layout: &Layout,
+    stream: usize,
+    component: usize,
+    z: &[f64],
+) -> (f64, Vec<(usize, f64)>) {
     let cols = layout.stream_flows(plant, stream);
-    let ic = layout.flow(plant, stream, component).expect("carried component");
+    let ic = layout
+        .flow(plant, stream, component)
+        .expect("carried component");
     let total = z[cols.clone()].iter().sum::<f64>().max(TINY_FLOW);
     let x = z[ic] / total;
     let grad = cols

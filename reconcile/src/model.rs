@@ -356,6 +356,9 @@ impl Plant {
     }
 }
 
+/// The longest reconciliation period accepted: 366 days.
+pub const MAX_PERIOD_SECONDS: i64 = 366 * 86_400;
+
 /// Parse a period length such as "15m", "1h", "1d" or "30s" into seconds.
 pub fn parse_period(text: &str) -> Option<i64> {
     let text = text.trim();
@@ -370,8 +373,10 @@ pub fn parse_period(text: &str) -> Option<i64> {
         _ => return None,
     };
     let secs = n.checked_mul(mult)?;
-    // Periods align to UTC, so they must divide a day evenly (or be whole days).
-    (secs > 0 && (86_400 % secs == 0 || secs % 86_400 == 0)).then_some(secs)
+    // Periods align to UTC, so they must divide a day evenly (or be whole days); at most
+    // MAX_PERIOD_SECONDS, so that every period's end is a representable date.
+    (secs > 0 && secs <= MAX_PERIOD_SECONDS && (86_400 % secs == 0 || secs % 86_400 == 0))
+        .then_some(secs)
 }
 
 /// Helper used by validation: index of ids with duplicate detection.

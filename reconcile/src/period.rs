@@ -68,9 +68,16 @@ pub fn period_start(time: DateTime<Utc>, period_seconds: i64) -> DateTime<Utc> {
 pub fn group_readings(plant: &Plant, readings: &[Reading]) -> Vec<PeriodInput> {
     let mut by_period: BTreeMap<i64, BTreeMap<usize, Vec<&Reading>>> = BTreeMap::new();
     for r in readings {
-        let Some(meter) = plant.meter_index(&r.tag) else { continue };
+        let Some(meter) = plant.meter_index(&r.tag) else {
+            continue;
+        };
         let start = period_start(r.time, plant.period_seconds).timestamp();
-        by_period.entry(start).or_default().entry(meter).or_default().push(r);
+        by_period
+            .entry(start)
+            .or_default()
+            .entry(meter)
+            .or_default()
+            .push(r);
     }
     by_period
         .into_iter()
@@ -78,12 +85,17 @@ pub fn group_readings(plant: &Plant, readings: &[Reading]) -> Vec<PeriodInput> {
             let values = meters
                 .into_iter()
                 .filter_map(|(meter, rs)| {
-                    let used: Vec<&&Reading> = rs.iter().filter(|r| r.quality != Quality::Bad).collect();
+                    let used: Vec<&&Reading> =
+                        rs.iter().filter(|r| r.quality != Quality::Bad).collect();
                     if used.is_empty() {
                         return None;
                     }
                     let sum: f64 = used.iter().map(|r| r.value).sum();
-                    let (lo, hi) = used.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), r| (lo.min(r.value), hi.max(r.value)));
+                    let (lo, hi) = used
+                        .iter()
+                        .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), r| {
+                            (lo.min(r.value), hi.max(r.value))
+                        });
                     Some(MeterValue {
                         meter,
                         value: sum / used.len() as f64,
@@ -95,7 +107,10 @@ pub fn group_readings(plant: &Plant, readings: &[Reading]) -> Vec<PeriodInput> {
                 .collect();
             PeriodInput {
                 start: Utc.timestamp_opt(start, 0).single().expect("in range"),
-                end: Utc.timestamp_opt(start + plant.period_seconds, 0).single().expect("in range"),
+                end: Utc
+                    .timestamp_opt(start + plant.period_seconds, 0)
+                    .single()
+                    .expect("in range"),
                 values,
             }
         })
@@ -108,9 +123,20 @@ mod tests {
 
     #[test]
     fn periods_align_to_utc() {
-        let t = DateTime::parse_from_rfc3339("2026-03-02T05:59:59.9+02:00").unwrap().with_timezone(&Utc);
-        assert_eq!(period_start(t, 3600).to_rfc3339(), "2026-03-02T03:00:00+00:00");
-        assert_eq!(period_start(t, 86_400).to_rfc3339(), "2026-03-02T00:00:00+00:00");
-        assert_eq!(period_start(t, 900).to_rfc3339(), "2026-03-02T03:45:00+00:00");
+        let t = DateTime::parse_from_rfc3339("2026-03-02T05:59:59.9+02:00")
+            .unwrap()
+            .with_timezone(&Utc);
+        assert_eq!(
+            period_start(t, 3600).to_rfc3339(),
+            "2026-03-02T03:00:00+00:00"
+        );
+        assert_eq!(
+            period_start(t, 86_400).to_rfc3339(),
+            "2026-03-02T00:00:00+00:00"
+        );
+        assert_eq!(
+            period_start(t, 900).to_rfc3339(),
+            "2026-03-02T03:45:00+00:00"
+        );
     }
 }

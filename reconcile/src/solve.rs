@@ -49,6 +49,8 @@ pub struct Solution {
     pub last_step: f64,
     /// Variables held at a bound at the solution.
     pub at_bound: Vec<bool>,
+    /// Per iteration: (‖g‖∞, objective, step length α, variables at a bound).
+    pub history: Vec<(f64, f64, f64, usize)>,
 }
 
 /// Settings of the iteration.
@@ -72,7 +74,12 @@ impl Default for SolveOptions {
 }
 
 /// σ-scaled residuals r and Jacobian J of the measurements at z, and the objective ‖r‖².
-pub(crate) fn scaled_measurements(plant: &Plant, layout: &Layout, measured: &[Measured], z: &[f64]) -> (Vec<f64>, Triplets) {
+pub(crate) fn scaled_measurements(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+) -> (Vec<f64>, Triplets) {
     let mut r = Vec::with_capacity(measured.len());
     let mut j = Triplets::new(measured.len(), layout.n);
     for (i, m) in measured.iter().enumerate() {
@@ -103,10 +110,23 @@ struct Step {
 }
 
 /// Solve the KKT system at z with the variables in `fixed` held where they are.
-fn kkt_step(layout: &Layout, g: &[f64], gj: &Triplets, r: &[f64], j: &Triplets, fixed: &[bool]) -> Option<Step> {
+fn kkt_step(
+    layout: &Layout,
+    g: &[f64],
+    gj: &Triplets,
+    r: &[f64],
+    j: &Triplets,
+    fixed: &[bool],
+    curvature: &[(usize, usize, f64)],
+) -> Option<Step> {
     let n = layout.n;
     let p = g.len();
     let mut k = Triplets::new(n + p, n + p);
+    for &(a, b, v) in curvature {
+        if !fixed[a] && !fixed[b] {
+            k.push(a, b, v);
+        }
+    }
     // JᵀJ from the rows of J: each measurement row touches a handful of columns.
     let mut by_row: Vec<Vec<(usize, f64)>> = vec![Vec::new(); j.nrows];
     for &(row, col, v) in &j.entries {
@@ -151,7 +171,9 @@ fn kkt_step(layout: &Layout, g: &[f64], gj: &Triplets, r: &[f64], j: &Triplets, 
         None => {
             // Fall back to a dense factorisation with full pivoting.
             let dense = k.to_dense();
-            let x = dense.full_piv_lu().solve(&nalgebra::DVector::from_vec(rhs))?;
+            let x = dense
+                .full_piv_lu()
+                .solve(&nalgebra::DVector::from_vec(rhs))?;
             x.as_slice().to_vec()
         }
     };
@@ -164,61 +186,132 @@ fn kkt_step(layout: &Layout, g: &[f64], gj: &Triplets, r: &[f64], j: &Triplets, 
     })
 }
 
+/// Entries (both triangles) of Σ_k λ_k ∇²g_k: only the splitter rows n_k − φ n_in are curved.
+fn constraint_curvature(
+    plant: &Plant,
+    layout: &Layout,
+    lambda: &[f64],
+) -> Vec<(usize, usize, f64)> {
+    let mut out = Vec::new();
+    for (row, kind) in layout.rows.iter().enumerate() {
+        if let crate::equations::Row::Split {
+            unit,
+            outlet,
+            component,
+        } = *kind
+        {
+            let inlet = plant.units[unit].inlets[0];
+            let i = layout.flow(plant, inlet, component).expect("validated");
+            let phi = layout.split(outlet).expect("split var");
+            out.push((i, phi, -lambda[row]));
+            out.push((phi, i, -lambda[row]));
+        }
+    }
+    out
+}
+
 /// Minimise Σ((y − h(z))/σ)² subject to g(z) = 0 and the layout's bounds, from `start`.
-pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f64>, options: SolveOptions) -> Solution {
+pub fn solve(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    start: Vec<f64>,
+    options: SolveOptions,
+) -> Solution {
     let n = layout.n;
     let mut z = start;
     for i in 0..n {
         z[i] = z[i].clamp(layout.lower[i], layout.upper[i]);
     }
-    let mut fixed: Vec<bool> = (0..n).map(|i| z[i] == layout.lower[i] || z[i] == layout.upper[i]).collect();
+    let mut fixed = vec![false; n];
     let mut last_step = f64::INFINITY;
     let mut iterations = 0;
     let mut status = SolveStatus::NotConverged;
     let mut mu = 1.0;
+    // Multipliers of the previous iteration, for the constraint curvature of the Lagrangian.
+    let mut lambda: Vec<f64> = vec![0.0; layout.rows.len()];
+    let mut history = Vec::new();
 
     while iterations < options.max_iterations {
         iterations += 1;
         let mut gj = Triplets::new(layout.rows.len(), n);
         let g = constraints(plant, layout, &z, Some(&mut gj));
         let (r, j) = scaled_measurements(plant, layout, measured, &z);
-        let Some(step) = kkt_step(layout, &g, &gj, &r, &j, &fixed) else {
+        // The working set: every variable on a bound, less those whose bound multiplier in
+        // this iteration's QP has the wrong sign (they want to move inwards).
+        for i in 0..n {
+            fixed[i] = z[i] == layout.lower[i] || z[i] == layout.upper[i];
+        }
+        // Newton on the constraints: add Σ_k λ_k ∇²g_k, from the bilinear splitter rows
+        // (∂²/∂φ∂n_in = −1), once the constraints are nearly met; far from them the plain
+        // Gauss–Newton matrix is the safer model.
+        let near = norm_inf(&g) <= 1e-3 * flow_scale(layout, &z);
+        let curvature = if near {
+            constraint_curvature(plant, layout, &lambda)
+        } else {
+            Vec::new()
+        };
+        let jtr = j.tr_mul_vec(&r);
+        let mut step = None;
+        for _ in 0..(2 * n + 2) {
+            let Some(s) = kkt_step(layout, &g, &gj, &r, &j, &fixed, &curvature) else {
+                break;
+            };
+            // A free variable on its bound that the step would push outwards joins the set.
+            let mut changed = false;
+            for i in 0..n {
+                let outwards = (z[i] == layout.lower[i] && s.dz[i] < 0.0)
+                    || (z[i] == layout.upper[i] && s.dz[i] > 0.0);
+                if !fixed[i] && outwards {
+                    fixed[i] = true;
+                    changed = true;
+                }
+            }
+            if !changed {
+                // QP stationarity: (JᵀJ) Δz + Gᵀλ − Jᵀr = μ, with μ ≥ 0 at a lower bound and
+                // μ ≤ 0 at an upper bound; release the variable whose μ is most wrong.
+                let jtjdz = j.tr_mul_vec(&j.mul_vec(&s.dz));
+                let gtl = gj.tr_mul_vec(&s.lambda);
+                let mut worst: Option<(usize, f64)> = None;
+                for i in (0..n).filter(|&i| fixed[i]) {
+                    let m = jtjdz[i] + gtl[i] - jtr[i];
+                    let wrong = if z[i] == layout.lower[i] { -m } else { m };
+                    if wrong > 1e-12 * (1.0 + jtr[i].abs() + gtl[i].abs())
+                        && worst.is_none_or(|(_, w)| wrong > w)
+                    {
+                        worst = Some((i, wrong));
+                    }
+                }
+                if let Some((i, _)) = worst {
+                    fixed[i] = false;
+                    changed = true;
+                }
+            }
+            step = Some(s);
+            if !changed {
+                break;
+            }
+        }
+        let Some(step) = step else {
             status = SolveStatus::NotConverged;
             break;
         };
+        lambda.clone_from(&step.lambda);
         let scale = flow_scale(layout, &z);
         let g_inf = norm_inf(&g);
-        let step_rel = (0..n).map(|i| step.dz[i].abs() / (1.0 + z[i].abs())).fold(0.0, f64::max);
-
-        if g_inf <= options.constraint_tolerance * scale && step_rel <= options.step_tolerance {
-            // Stationary on the current active set: check the bound multipliers.
-            // Stationarity: −Jᵀr + Gᵀλ − μ_lower + μ_upper = 0 at the solution.
-            let jtr = j.tr_mul_vec(&r);
-            let gtl = gj.tr_mul_vec(&step.lambda);
-            let mut worst: Option<(usize, f64)> = None;
-            for i in 0..n {
-                if !fixed[i] {
-                    continue;
-                }
-                let m = -jtr[i] + gtl[i];
-                // At a lower bound the multiplier must be ≥ 0, at an upper bound ≤ 0.
-                let wrong = if z[i] == layout.lower[i] { -m } else { m };
-                let tol = 1e-9 * (1.0 + jtr[i].abs() + gtl[i].abs());
-                if wrong > tol && worst.is_none_or(|(_, w)| wrong > w) {
-                    worst = Some((i, wrong));
-                }
-            }
-            match worst {
-                Some((i, _)) => {
-                    fixed[i] = false;
-                    continue;
-                }
-                None => {
-                    last_step = step_rel;
-                    status = SolveStatus::Converged;
-                    break;
-                }
-            }
+        let step_rel = (0..n)
+            .map(|i| step.dz[i].abs() / (1.0 + z[i].abs()))
+            .fold(0.0, f64::max);
+        // How far the step would move the reconciled values, in units of their σ: along
+        // unobservable directions the step length means nothing, this measure stays exact.
+        let moves = norm_inf(&j.mul_vec(&step.dz));
+        let flat = moves <= 1e-9;
+        if g_inf <= options.constraint_tolerance * scale
+            && (step_rel <= options.step_tolerance || flat)
+        {
+            last_step = step_rel;
+            status = SolveStatus::Converged;
+            break;
         }
 
         // Longest step that keeps the free variables within their bounds.
@@ -228,7 +321,11 @@ pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f
             if fixed[i] || step.dz[i] == 0.0 {
                 continue;
             }
-            let limit = if step.dz[i] < 0.0 { layout.lower[i] } else { layout.upper[i] };
+            let limit = if step.dz[i] < 0.0 {
+                layout.lower[i]
+            } else {
+                layout.upper[i]
+            };
             if limit.is_finite() {
                 let a = (limit - z[i]) / step.dz[i];
                 if a < alpha_max {
@@ -246,14 +343,15 @@ pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f
             0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(&g)
         };
         let m0 = 0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(&g);
-        let jtr = j.tr_mul_vec(&r);
         let slope = -(0..n).map(|i| jtr[i] * step.dz[i]).sum::<f64>() - mu * norm_1(&g);
         let mut alpha = alpha_max;
         let mut trial: Vec<f64>;
         loop {
             trial = (0..n).map(|i| z[i] + alpha * step.dz[i]).collect();
             // Armijo on the merit, with room for rounding once the decrease reaches it.
-            if merit(&trial) <= m0 + 1e-4 * alpha * slope.min(0.0) + 1e-13 * (1.0 + m0.abs()) || alpha < 1e-10 {
+            if merit(&trial) <= m0 + 1e-4 * alpha * slope.min(0.0) + 1e-13 * (1.0 + m0.abs())
+                || alpha < 1e-10
+            {
                 break;
             }
             alpha *= 0.5;
@@ -263,11 +361,23 @@ pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f
         }
         if alpha == alpha_max {
             if let Some(b) = blocking {
-                trial[b] = if step.dz[b] < 0.0 { layout.lower[b] } else { layout.upper[b] };
+                trial[b] = if step.dz[b] < 0.0 {
+                    layout.lower[b]
+                } else {
+                    layout.upper[b]
+                };
                 fixed[b] = true;
             }
         }
-        last_step = (0..n).map(|i| (trial[i] - z[i]).abs() / (1.0 + z[i].abs())).fold(0.0, f64::max);
+        history.push((
+            norm_inf(&g),
+            r.iter().map(|x| x * x).sum::<f64>(),
+            alpha,
+            fixed.iter().filter(|&&f| f).count(),
+        ));
+        last_step = (0..n)
+            .map(|i| (trial[i] - z[i]).abs() / (1.0 + z[i].abs()))
+            .fold(0.0, f64::max);
         z = trial;
         if alpha < 1e-10 && alpha_max > 1e-10 {
             // The line search found no descent: the linearisation no longer helps.
@@ -286,6 +396,7 @@ pub fn solve(plant: &Plant, layout: &Layout, measured: &[Measured], start: Vec<f
         constraint_residual,
         last_step,
         at_bound: fixed,
+        history,
         z,
         status,
         iterations,

@@ -116,7 +116,11 @@ impl SparseLu {
         for col in 0..lu.n {
             // The diagonal is the last entry of each column of U.
             let end = u.p[col + 1] as usize;
-            let d = if end > 0 && u.i[end - 1] == col { u.x[end - 1].abs() } else { 0.0 };
+            let d = if end > 0 && u.i[end - 1] == col {
+                u.x[end - 1].abs()
+            } else {
+                0.0
+            };
             max_diag = max_diag.max(d);
             min_diag = min_diag.min(d);
         }
@@ -180,7 +184,11 @@ mod tests {
         t.push(0, 0, -1.0);
         let b = [1.0, 2.0, 3.0, 0.5, -0.25];
         let x = SparseLu::new(&t).expect("non-singular").solve(&b);
-        let dense = t.to_dense().lu().solve(&nalgebra::DVector::from_column_slice(&b)).unwrap();
+        let dense = t
+            .to_dense()
+            .lu()
+            .solve(&nalgebra::DVector::from_column_slice(&b))
+            .unwrap();
         for k in 0..5 {
             assert!((x[k] - dense[k]).abs() < 1e-12, "{x:?} vs {dense}");
         }

@@ -23,7 +23,10 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
     for s in 0..ns {
         let mut x = vec![f64::NAN; nc];
         let mut any = false;
-        for m in measured.iter().filter(|m| plant.meters[m.meter].stream == s) {
+        for m in measured
+            .iter()
+            .filter(|m| plant.meters[m.meter].stream == s)
+        {
             let meter = &plant.meters[m.meter];
             if meter.quantity == Quantity::MoleFraction && meter.basis.is_none() {
                 x[meter.component.expect("validated")] = base(m).clamp(0.0, 1.0);
@@ -41,8 +44,14 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
             if comp[s].is_some() {
                 continue;
             }
-            let Some(u) = plant.streams[s].from else { continue };
-            let known: Vec<&Vec<f64>> = plant.units[u].inlets.iter().filter_map(|&i| comp[i].as_ref()).collect();
+            let Some(u) = plant.streams[s].from else {
+                continue;
+            };
+            let known: Vec<&Vec<f64>> = plant.units[u]
+                .inlets
+                .iter()
+                .filter_map(|&i| comp[i].as_ref())
+                .collect();
             if known.is_empty() {
                 continue;
             }
@@ -67,7 +76,11 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
         }
     }
     let comp: Vec<Vec<f64>> = (0..ns)
-        .map(|s| comp[s].clone().unwrap_or_else(|| fill_composition(plant, s, &vec![f64::NAN; nc])))
+        .map(|s| {
+            comp[s]
+                .clone()
+                .unwrap_or_else(|| fill_composition(plant, s, &vec![f64::NAN; nc]))
+        })
         .collect();
 
     // Total flows from flow meters.
@@ -94,14 +107,24 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
     for _ in 0..ns {
         let mut changed = false;
         for u in &plant.units {
-            let unknown: Vec<usize> = u.inlets.iter().chain(&u.outlets).copied().filter(|&s| flow[s].is_none()).collect();
+            let unknown: Vec<usize> = u
+                .inlets
+                .iter()
+                .chain(&u.outlets)
+                .copied()
+                .filter(|&s| flow[s].is_none())
+                .collect();
             if unknown.len() != 1 || !u.reactions.is_empty() {
                 continue;
             }
             let s = unknown[0];
             let inflow: f64 = u.inlets.iter().filter_map(|&i| flow[i]).sum();
             let outflow: f64 = u.outlets.iter().filter_map(|&o| flow[o]).sum();
-            let value = if u.inlets.contains(&s) { outflow - inflow } else { inflow - outflow };
+            let value = if u.inlets.contains(&s) {
+                outflow - inflow
+            } else {
+                inflow - outflow
+            };
             if value > 0.0 {
                 flow[s] = Some(value);
                 changed = true;
@@ -112,11 +135,24 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
         }
     }
     let known: Vec<f64> = flow.iter().flatten().copied().collect();
-    let fallback = if known.is_empty() { 100.0 } else { known.iter().sum::<f64>() / known.len() as f64 };
+    let fallback = if known.is_empty() {
+        100.0
+    } else {
+        known.iter().sum::<f64>() / known.len() as f64
+    };
     // Outlets of a splitter without a flow share the rest of the inlet.
-    for u in plant.units.iter().filter(|u| u.kind == crate::model::UnitKind::Splitter) {
+    for u in plant
+        .units
+        .iter()
+        .filter(|u| u.kind == crate::model::UnitKind::Splitter)
+    {
         let inlet = flow[u.inlets[0]].unwrap_or(fallback);
-        let missing: Vec<usize> = u.outlets.iter().copied().filter(|&o| flow[o].is_none()).collect();
+        let missing: Vec<usize> = u
+            .outlets
+            .iter()
+            .copied()
+            .filter(|&o| flow[o].is_none())
+            .collect();
         let taken: f64 = u.outlets.iter().filter_map(|&o| flow[o]).sum();
         let rest = (inlet - taken).max(0.05 * inlet);
         for &o in &missing {
@@ -132,7 +168,11 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
         }
     }
     // Split fractions from outlet flows, and outlets made consistent with them.
-    for u in plant.units.iter().filter(|u| u.kind == crate::model::UnitKind::Splitter) {
+    for u in plant
+        .units
+        .iter()
+        .filter(|u| u.kind == crate::model::UnitKind::Splitter)
+    {
         let total: f64 = u.outlets.iter().map(|&o| flow[o]).sum();
         let inlet = u.inlets[0];
         for &o in &u.outlets[..u.outlets.len() - 1] {
@@ -152,9 +192,17 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
 /// evenly, floored at MIN_FRACTION and renormalised over the carried components.
 fn fill_composition(plant: &Plant, s: usize, x: &[f64]) -> Vec<f64> {
     let carried = &plant.streams[s].components;
-    let known: f64 = carried.iter().filter(|&&c| x[c].is_finite()).map(|&c| x[c]).sum();
+    let known: f64 = carried
+        .iter()
+        .filter(|&&c| x[c].is_finite())
+        .map(|&c| x[c])
+        .sum();
     let unknown = carried.iter().filter(|&&c| !x[c].is_finite()).count();
-    let share = if unknown > 0 { ((1.0 - known).max(0.0) / unknown as f64).max(MIN_FRACTION) } else { 0.0 };
+    let share = if unknown > 0 {
+        ((1.0 - known).max(0.0) / unknown as f64).max(MIN_FRACTION)
+    } else {
+        0.0
+    };
     let mut out = vec![0.0; x.len()];
     for &c in carried {
         out[c] = if x[c].is_finite() { x[c] } else { share }.max(MIN_FRACTION);
@@ -169,10 +217,15 @@ fn fit_extents(plant: &Plant, layout: &Layout, z: &mut [f64]) {
     for u in plant.units.iter().filter(|u| !u.reactions.is_empty()) {
         let nc = plant.components.len();
         let nr = u.reactions.len();
-        let a = DMatrix::from_fn(nc, nr, |c, k| plant.reactions[u.reactions[k]].coefficient(c));
+        let a = DMatrix::from_fn(nc, nr, |c, k| {
+            plant.reactions[u.reactions[k]].coefficient(c)
+        });
         let b = DVector::from_fn(nc, |c, _| {
             let sum = |list: &[usize]| -> f64 {
-                list.iter().filter_map(|&s| layout.flow(plant, s, c)).map(|i| z[i]).sum()
+                list.iter()
+                    .filter_map(|&s| layout.flow(plant, s, c))
+                    .map(|i| z[i])
+                    .sum()
             };
             sum(&u.outlets) - sum(&u.inlets)
         });
@@ -180,7 +233,11 @@ fn fit_extents(plant: &Plant, layout: &Layout, z: &mut [f64]) {
         if let Ok(x) = svd.solve(&b, 1e-12) {
             for k in 0..nr {
                 let r = u.reactions[k];
-                let v = if plant.reactions[r].irreversible { x[k].max(1e-6) } else { x[k] };
+                let v = if plant.reactions[r].irreversible {
+                    x[k].max(1e-6)
+                } else {
+                    x[k]
+                };
                 z[layout.extent(r)] = v;
             }
         }

@@ -9,7 +9,9 @@ pub fn chi2_critical(alpha: f64, dof: usize) -> f64 {
     if dof == 0 {
         return 0.0;
     }
-    ChiSquared::new(dof as f64).expect("positive dof").inverse_cdf(1.0 - alpha)
+    ChiSquared::new(dof as f64)
+        .expect("positive dof")
+        .inverse_cdf(1.0 - alpha)
 }
 
 /// Upper-tail probability of χ²(ν) beyond `x`.
@@ -17,12 +19,16 @@ pub fn chi2_p_value(x: f64, dof: usize) -> f64 {
     if dof == 0 {
         return 1.0;
     }
-    1.0 - ChiSquared::new(dof as f64).expect("positive dof").cdf(x.max(0.0))
+    1.0 - ChiSquared::new(dof as f64)
+        .expect("positive dof")
+        .cdf(x.max(0.0))
 }
 
 /// Standard normal quantile z_p.
 pub fn normal_quantile(p: f64) -> f64 {
-    Normal::new(0.0, 1.0).expect("standard normal").inverse_cdf(p)
+    Normal::new(0.0, 1.0)
+        .expect("standard normal")
+        .inverse_cdf(p)
 }
 
 /// Šidák-corrected per-test level β = 1 − (1 − α)^{1/m} for m tests at family level α.
@@ -71,7 +77,14 @@ mod tests {
     fn chi2_critical_values_match_nist_table() {
         // NIST/SEMATECH e-Handbook of Statistical Methods, §1.3.6.7.4, upper critical values
         // of the chi-square distribution at probability 0.95 (table given to 3 decimals).
-        for (dof, table) in [(1, 3.841), (2, 5.991), (3, 7.815), (5, 11.070), (10, 18.307), (20, 31.410)] {
+        for (dof, table) in [
+            (1, 3.841),
+            (2, 5.991),
+            (3, 7.815),
+            (5, 11.070),
+            (10, 18.307),
+            (20, 31.410),
+        ] {
             let v = chi2_critical(0.05, dof);
             assert!((v - table).abs() < 6e-4, "ν={dof}: {v} vs {table}");
         }

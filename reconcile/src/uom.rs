@@ -125,7 +125,9 @@ mod tests {
         assert_eq!(Uom::TonnePerHour.factor_from_base(), 1e-3);
         assert_eq!(Uom::Percent.factor_from_base(), 100.0);
         assert_eq!(Uom::Ppm.factor_from_base(), 1e6);
-        for s in ["kmol/h", "mol/s", "kg/h", "t/h", "Nm3/h", "Sm3/h", "fraction", "%", "ppm"] {
+        for s in [
+            "kmol/h", "mol/s", "kg/h", "t/h", "Nm3/h", "Sm3/h", "fraction", "%", "ppm",
+        ] {
             assert_eq!(Uom::parse(s).unwrap().as_str(), s);
         }
         assert!(Uom::parse("Kmol/h").is_none());

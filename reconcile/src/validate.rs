@@ -33,7 +33,8 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         p.add(
             "model",
             format!(
-                "period \"{}\" is not a length such as 15m, 1h or 1d that divides a day",
+                "period \"{}\" is not a length such as 15m, 1h or 1d that divides a day \
+                 (or whole days, at most 366d)",
                 spec.period
             ),
         );
@@ -46,11 +47,27 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         );
     }
 
-    let comp_ix = index_ids("component", spec.components.iter().map(|c| c.id.as_str()), &mut p.0);
+    let comp_ix = index_ids(
+        "component",
+        spec.components.iter().map(|c| c.id.as_str()),
+        &mut p.0,
+    );
     let unit_ix = index_ids("unit", spec.units.iter().map(|u| u.id.as_str()), &mut p.0);
-    let stream_ix = index_ids("stream", spec.streams.iter().map(|s| s.id.as_str()), &mut p.0);
-    let _ = index_ids("reaction", spec.reactions.iter().map(|r| r.id.as_str()), &mut p.0);
-    let _ = index_ids("meter", spec.meters.iter().map(|m| m.tag.as_str()), &mut p.0);
+    let stream_ix = index_ids(
+        "stream",
+        spec.streams.iter().map(|s| s.id.as_str()),
+        &mut p.0,
+    );
+    let _ = index_ids(
+        "reaction",
+        spec.reactions.iter().map(|r| r.id.as_str()),
+        &mut p.0,
+    );
+    let _ = index_ids(
+        "meter",
+        spec.meters.iter().map(|m| m.tag.as_str()),
+        &mut p.0,
+    );
 
     if spec.components.is_empty() {
         p.add("model", "has no components");
@@ -66,7 +83,10 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
             if !(c.molar_mass.is_finite() && c.molar_mass > 0.0) {
                 p.add(
                     format!("component \"{}\"", c.id),
-                    format!("molar_mass {} must be a positive number (g/mol)", c.molar_mass),
+                    format!(
+                        "molar_mass {} must be a positive number (g/mol)",
+                        c.molar_mass
+                    ),
                 );
             }
             Component {
@@ -82,7 +102,10 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         .iter()
         .map(|u| {
             if u.id == OUTSIDE {
-                p.add("unit \"outside\"", "\"outside\" is reserved for the plant boundary");
+                p.add(
+                    "unit \"outside\"",
+                    "\"outside\" is reserved for the plant boundary",
+                );
             }
             Unit {
                 id: u.id.clone(),
@@ -104,7 +127,10 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
             match unit_ix.get(name) {
                 Some(&u) => Some(u),
                 None => {
-                    p.add(&item, format!("{which} unit \"{name}\" is not a unit of the model"));
+                    p.add(
+                        &item,
+                        format!("{which} unit \"{name}\" is not a unit of the model"),
+                    );
                     None
                 }
             }
@@ -112,10 +138,16 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         let from = end(&s.from, "its from");
         let to = end(&s.to, "its to");
         if s.from == OUTSIDE && s.to == OUTSIDE {
-            p.add(&item, "joins the outside to the outside: it touches no unit");
+            p.add(
+                &item,
+                "joins the outside to the outside: it touches no unit",
+            );
         }
         if from.is_some() && from == to {
-            p.add(&item, format!("leaves and enters the same unit \"{}\"", s.from));
+            p.add(
+                &item,
+                format!("leaves and enters the same unit \"{}\"", s.from),
+            );
         }
         let comps = match &s.components {
             None => (0..components.len()).collect(),
@@ -159,7 +191,10 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                 if units[u].kind != UnitKind::Reactor {
                     p.add(
                         &item,
-                        format!("is attached to unit \"{}\", a {}, not a reactor", r.unit, units[u].kind),
+                        format!(
+                            "is attached to unit \"{}\", a {}, not a reactor",
+                            r.unit, units[u].kind
+                        ),
                     );
                 }
                 units[u].reactions.push(ri);
@@ -178,12 +213,18 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         let mut mass_known = true;
         for (c, &nu) in &r.stoichiometry {
             if !nu.is_finite() {
-                p.add(&item, format!("coefficient of \"{c}\" is {nu}, not a finite number"));
+                p.add(
+                    &item,
+                    format!("coefficient of \"{c}\" is {nu}, not a finite number"),
+                );
                 mass_known = false;
                 continue;
             }
             if nu == 0.0 {
-                p.add(&item, format!("coefficient of \"{c}\" is zero; leave it out"));
+                p.add(
+                    &item,
+                    format!("coefficient of \"{c}\" is zero; leave it out"),
+                );
                 continue;
             }
             match comp_ix.get(c) {
@@ -200,7 +241,10 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
             }
         }
         stoich.sort_by_key(|(c, _)| *c);
-        if mass_known && scale.is_finite() && scale > 0.0 && net.abs() > MASS_BALANCE_TOLERANCE * scale
+        if mass_known
+            && scale.is_finite()
+            && scale > 0.0
+            && net.abs() > MASS_BALANCE_TOLERANCE * scale
         {
             p.add(
                 &item,
@@ -213,11 +257,17 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         let key = r.key.as_ref().and_then(|k| match comp_ix.get(k) {
             Some(&ci) if stoich.iter().any(|&(c, nu)| c == ci && nu < 0.0) => Some(ci),
             Some(_) => {
-                p.add(&item, format!("key \"{k}\" is not a reactant (negative coefficient) of it"));
+                p.add(
+                    &item,
+                    format!("key \"{k}\" is not a reactant (negative coefficient) of it"),
+                );
                 None
             }
             None => {
-                p.add(&item, format!("key \"{k}\" is not a component of the model"));
+                p.add(
+                    &item,
+                    format!("key \"{k}\" is not a component of the model"),
+                );
                 None
             }
         });
@@ -241,10 +291,19 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         match u.kind {
             UnitKind::Splitter => {
                 if u.inlets.len() > 1 {
-                    p.add(&item, "is a splitter with more than one inlet; put a mixer before it");
+                    p.add(
+                        &item,
+                        "is a splitter with more than one inlet; put a mixer before it",
+                    );
                 }
                 if u.outlets.len() < 2 {
-                    p.add(&item, format!("is a splitter with {} outlet(s); it needs two or more", u.outlets.len()));
+                    p.add(
+                        &item,
+                        format!(
+                            "is a splitter with {} outlet(s); it needs two or more",
+                            u.outlets.len()
+                        ),
+                    );
                 }
                 if let Some(&inlet) = u.inlets.first() {
                     for &o in &u.outlets {
@@ -344,11 +403,20 @@ fn validate_meters(
         }
         let component = match (&m.component, m.quantity.needs_component()) {
             (None, true) => {
-                p.add(&item, format!("measures {} but names no component", m.quantity.as_str()));
+                p.add(
+                    &item,
+                    format!("measures {} but names no component", m.quantity.as_str()),
+                );
                 None
             }
             (Some(c), false) => {
-                p.add(&item, format!("names component \"{c}\" but measures {}, a whole-stream quantity", m.quantity.as_str()));
+                p.add(
+                    &item,
+                    format!(
+                        "names component \"{c}\" but measures {}, a whole-stream quantity",
+                        m.quantity.as_str()
+                    ),
+                );
                 None
             }
             (None, false) => None,
@@ -358,7 +426,13 @@ fn validate_meters(
                     None
                 }
                 Some(&ci) if !carried(ci) => {
-                    p.add(&item, format!("measures component \"{c}\", which stream \"{}\" does not carry", m.stream));
+                    p.add(
+                        &item,
+                        format!(
+                            "measures component \"{c}\", which stream \"{}\" does not carry",
+                            m.stream
+                        ),
+                    );
                     None
                 }
                 Some(&ci) => Some(ci),
@@ -366,7 +440,10 @@ fn validate_meters(
         };
         let basis = m.basis.as_ref().map(|list| {
             if m.quantity != Quantity::MoleFraction {
-                p.add(&item, "gives a basis, which only a mole_fraction meter may have");
+                p.add(
+                    &item,
+                    "gives a basis, which only a mole_fraction meter may have",
+                );
             }
             let mut v = Vec::new();
             for c in list {
@@ -376,13 +453,22 @@ fn validate_meters(
                             v.push(ci)
                         }
                     }
-                    Some(_) => p.add(&item, format!("basis component \"{c}\" is not carried by stream \"{}\"", m.stream)),
+                    Some(_) => p.add(
+                        &item,
+                        format!(
+                            "basis component \"{c}\" is not carried by stream \"{}\"",
+                            m.stream
+                        ),
+                    ),
                     None => p.add(&item, format!("basis names unknown component \"{c}\"")),
                 }
             }
             if let Some(ci) = component {
                 if !v.contains(&ci) {
-                    p.add(&item, "its basis does not include the component it measures");
+                    p.add(
+                        &item,
+                        "its basis does not include the component it measures",
+                    );
                 }
             }
             v.sort_unstable();
@@ -390,13 +476,19 @@ fn validate_meters(
         });
         if let Some([lo, hi]) = m.range {
             if !(lo.is_finite() && hi.is_finite() && lo < hi) {
-                p.add(&item, format!("range [{lo}, {hi}] must be two finite numbers, low before high"));
+                p.add(
+                    &item,
+                    format!("range [{lo}, {hi}] must be two finite numbers, low before high"),
+                );
             }
         }
         let given = [m.sigma, m.sigma_pct, m.sigma_pct_span];
         let count = given.iter().filter(|s| s.is_some()).count();
         if count != 1 {
-            p.add(&item, "must give exactly one of sigma, sigma_pct or sigma_pct_span");
+            p.add(
+                &item,
+                "must give exactly one of sigma, sigma_pct or sigma_pct_span",
+            );
         }
         for (name, v) in ["sigma", "sigma_pct", "sigma_pct_span"].iter().zip(given) {
             if let Some(v) = v {
@@ -406,7 +498,10 @@ fn validate_meters(
             }
         }
         if m.sigma_pct_span.is_some() && m.range.is_none() {
-            p.add(&item, "gives sigma_pct_span but no range to take the span from");
+            p.add(
+                &item,
+                "gives sigma_pct_span but no range to take the span from",
+            );
         }
         let sigma = match (m.sigma, m.sigma_pct, m.sigma_pct_span) {
             (Some(s), _, _) => Sigma::Absolute(s),

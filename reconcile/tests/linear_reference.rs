@@ -3,7 +3,9 @@
 
 use chrono::{TimeZone, Utc};
 use clarabel::algebra::CscMatrix;
-use clarabel::solver::{DefaultSettingsBuilder, DefaultSolver, IPSolver, SolverStatus, SupportedConeT};
+use clarabel::solver::{
+    DefaultSettingsBuilder, DefaultSolver, IPSolver, SolverStatus, SupportedConeT,
+};
 use nalgebra::{DMatrix, DVector};
 use reconcile::period::{MeterValue, PeriodInput};
 use reconcile::{parse_plant, reconcile_period, Report, ReportStatus};
@@ -157,14 +159,25 @@ fn fully_measured_linear_network_matches_the_closed_form() {
 
     let x = reconciled_kmol_h(&report);
     for k in 0..6 {
-        assert!((x[k] - xhat[k]).abs() < 1e-9 * xhat[k].abs(), "meter {k}: {} vs {}", x[k], xhat[k]);
+        assert!(
+            (x[k] - xhat[k]).abs() < 1e-9 * xhat[k].abs(),
+            "meter {k}: {} vs {}",
+            x[k],
+            xhat[k]
+        );
         let scale = if k == 2 { MOL_S } else { 1.0 };
         let sd = report.meters[k].reconciled_sigma.unwrap() / scale;
-        assert!((sd - cov[(k, k)].sqrt()).abs() < 1e-9 * sd, "σ of meter {k}");
+        assert!(
+            (sd - cov[(k, k)].sqrt()).abs() < 1e-9 * sd,
+            "σ of meter {k}"
+        );
         // Adjustment covariance V − cov(x̂): the normalised adjustment divides by its root.
         let va = v[(k, k)] - cov[(k, k)];
         let d = (xhat[k] - y[k]) / va.sqrt();
-        assert!((report.meters[k].normalized_adjustment.unwrap() - d).abs() < 1e-7, "d of meter {k}");
+        assert!(
+            (report.meters[k].normalized_adjustment.unwrap() - d).abs() < 1e-7,
+            "d of meter {k}"
+        );
     }
     assert_eq!(report.redundancy, 3);
     assert!((report.objective.unwrap() - j).abs() < 1e-9 * j.max(1.0));
@@ -186,12 +199,22 @@ fn active_non_negativity_matches_a_general_qp_solver() {
         let s_inv = (&a * &v * a.transpose()).try_inverse().unwrap();
         &yv - &v * a.transpose() * s_inv * &a * &yv
     };
-    assert!(unconstrained[3] < -1.0, "the case must push s4 below zero: {}", unconstrained[3]);
+    assert!(
+        unconstrained[3] < -1.0,
+        "the case must push s4 below zero: {}",
+        unconstrained[3]
+    );
 
     // Reference: Clarabel (interior-point conic solver, crates.io `clarabel`) on
     // minimise ½ xᵀ V⁻¹ x − (V⁻¹ y)ᵀ x  subject to  A x = 0,  x ≥ 0.
     let s = sigmas();
-    let p = CscMatrix::new(6, 6, (0..=6).collect(), (0..6).collect(), s.iter().map(|s| 1.0 / (s * s)).collect());
+    let p = CscMatrix::new(
+        6,
+        6,
+        (0..=6).collect(),
+        (0..6).collect(),
+        s.iter().map(|s| 1.0 / (s * s)).collect(),
+    );
     let q: Vec<f64> = (0..6).map(|k| -y[k] / (s[k] * s[k])).collect();
     let a = incidence();
     let mut rows = Vec::new();
@@ -213,7 +236,10 @@ fn active_non_negativity_matches_a_general_qp_solver() {
     }
     let constraints = CscMatrix::new_from_triplets(9, 6, rows, cols, vals);
     let b = vec![0.0; 9];
-    let cones = [SupportedConeT::ZeroConeT(3), SupportedConeT::NonnegativeConeT(6)];
+    let cones = [
+        SupportedConeT::ZeroConeT(3),
+        SupportedConeT::NonnegativeConeT(6),
+    ];
     let settings = DefaultSettingsBuilder::default()
         .verbose(false)
         .tol_gap_abs(1e-12)
@@ -230,8 +256,18 @@ fn active_non_negativity_matches_a_general_qp_solver() {
     assert_eq!(report.status, ReportStatus::Solved, "{:?}", report.warnings);
     let x = reconciled_kmol_h(&report);
     for k in 0..6 {
-        assert!((x[k] - reference[k]).abs() < 1e-6 * (1.0 + reference[k].abs()), "meter {k}: {} vs {}", x[k], reference[k]);
+        assert!(
+            (x[k] - reference[k]).abs() < 1e-6 * (1.0 + reference[k].abs()),
+            "meter {k}: {} vs {}",
+            x[k],
+            reference[k]
+        );
     }
     assert_eq!(x[3], 0.0, "s4 sits on its bound");
-    assert!(report.diagnostics.unwrap().at_bound.iter().any(|v| v.contains("\"s4\"")));
+    assert!(report
+        .diagnostics
+        .unwrap()
+        .at_bound
+        .iter()
+        .any(|v| v.contains("\"s4\"")));
 }

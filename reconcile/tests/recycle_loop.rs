@@ -11,10 +11,16 @@ const MODEL: &str = include_str!("../../tests/data/kestrel-loop.toml");
 /// The loop's true steady state by successive substitution around the recycle: 25 % single-pass
 /// conversion of N2, all NH3 and 5 % of the CH4 leave with the liquid product, 5 % purge.
 /// Returns the state vector in the model's layout.
-pub fn true_state(plant: &Plant, layout: &Layout, makeup: [f64; 5], purge_fraction: f64) -> Vec<f64> {
+pub fn true_state(
+    plant: &Plant,
+    layout: &Layout,
+    makeup: [f64; 5],
+    purge_fraction: f64,
+) -> Vec<f64> {
     let nu = [-1.0, -3.0, 2.0, 0.0, 0.0];
     let mut recycle = [0.0; 5];
-    let (mut feed, mut out, mut product, mut gas, mut xi) = ([0.0; 5], [0.0; 5], [0.0; 5], [0.0; 5], 0.0);
+    let (mut feed, mut out, mut product, mut gas, mut xi) =
+        ([0.0; 5], [0.0; 5], [0.0; 5], [0.0; 5], 0.0);
     for _ in 0..5000 {
         for c in 0..5 {
             feed[c] = makeup[c] + recycle[c];
@@ -82,16 +88,39 @@ fn noise_free_loop_reconciles_to_itself() {
     assert_eq!(report.status, ReportStatus::Solved, "{:?}", report.warnings);
     assert!(report.objective.unwrap() < 1e-12);
     for m in &report.meters {
-        assert!(m.adjustment.unwrap().abs() <= 1e-7 * m.measured.unwrap().abs().max(1.0), "{}", m.tag);
+        assert!(
+            m.adjustment.unwrap().abs() <= 1e-7 * m.measured.unwrap().abs().max(1.0),
+            "{}",
+            m.tag
+        );
     }
     // Splitter outlets have the inlet's composition.
-    let comp = |id: &str| report.streams.iter().find(|s| s.id == id).unwrap().composition.clone();
+    let comp = |id: &str| {
+        report
+            .streams
+            .iter()
+            .find(|s| s.id == id)
+            .unwrap()
+            .composition
+            .clone()
+    };
     let (gas, purge, recycle) = (comp("cold-gas"), comp("purge"), comp("recycle"));
     for (c, x) in &gas {
         let x = x.unwrap();
-        assert!((purge[c].unwrap() - x).abs() < 1e-12 && (recycle[c].unwrap() - x).abs() < 1e-12, "{c}");
+        assert!(
+            (purge[c].unwrap() - x).abs() < 1e-12 && (recycle[c].unwrap() - x).abs() < 1e-12,
+            "{c}"
+        );
     }
     // Inert in equals inert out (argon leaves only with the purge).
-    let flow = |s: &str, c: &str| report.streams.iter().find(|x| x.id == s).unwrap().component_flows[c].unwrap();
+    let flow = |s: &str, c: &str| {
+        report
+            .streams
+            .iter()
+            .find(|x| x.id == s)
+            .unwrap()
+            .component_flows[c]
+            .unwrap()
+    };
     assert!((flow("makeup", "Ar") - flow("purge", "Ar")).abs() < 1e-9);
 }

@@ -1,0 +1,109 @@
+//! The Fenwick Reach methanol loop (tests/data/fenwick-methanol.toml): two reactions on one
+//! converter, a flash, a let-down vessel, a purge splitter and a recycle, 15 streams, six
+//! components and 26 meters of every kind and many units.
+
+#[path = "../benches/common/mod.rs"]
+mod common;
+
+use common::{exact_values, fenwick_true_state, period, FenwickConditions, FENWICK};
+use reconcile::equations::{constraints, Layout};
+use reconcile::{parse_plant, reconcile_period, ReportStatus};
+
+#[test]
+fn true_state_satisfies_every_balance() {
+    let plant = parse_plant(FENWICK).unwrap();
+    let layout = Layout::new(&plant);
+    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let g = constraints(&plant, &layout, &z, None);
+    let worst = g.iter().fold(0.0_f64, |a, x| a.max(x.abs()));
+    assert!(worst < 1e-8, "largest balance residual {worst} kmol/h");
+    assert!(z.iter().all(|&v| v >= 0.0));
+}
+
+#[test]
+fn noise_free_loop_reconciles_to_itself() {
+    let plant = parse_plant(FENWICK).unwrap();
+    let layout = Layout::new(&plant);
+    // States: 72 component flows (makeup 4, CO2 feed 1, fresh gas 4, loop-gas, conv-feed,
+    // conv-out, interchanger-out, flash-feed 6 each, crude 4, flash-gas, purge, loop-return,
+    // recycle 6 each, let-down gas 2, crude product 3), 2 extents and 1 split fraction = 75.
+    // Equations: balances feed-mix 4, loop-mix 6, fe-cold 6, conv 6, fe-hot 6, final-cooler 6,
+    // flash 6, purge-split 6, circulator 6, letdown 4, plus 6 splitter rows = 62, independent.
+    // Degrees of freedom 75 − 62 = 13: makeup 4, CO2 feed 1, two extents, the flash split of
+    // CO2, CH3OH, H2O and CH4, the let-down split of CO2, and the purge fraction.
+    // With every state observable rank(J N) = 13, so the redundancy is ν = 26 − 13 = 13.
+    assert_eq!(layout.n, 75);
+    assert_eq!(layout.rows.len(), 62);
+    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let values = exact_values(&plant, &layout, &z);
+    for v in &values {
+        println!(
+            "{:12} {:>14.6} {}",
+            plant.meters[v.meter].tag, v.value, plant.meters[v.meter].uom
+        );
+    }
+    let report = reconcile_period(&plant, &period(values));
+    assert_eq!(
+        report.status,
+        ReportStatus::Solved,
+        "{:?} {:?}",
+        report.warnings,
+        report.unobservable
+    );
+    assert_eq!(report.redundancy, 13);
+    assert!(
+        report.objective.unwrap() < 1e-12,
+        "objective {:?}",
+        report.objective
+    );
+    for m in &report.meters {
+        let measured = m.measured.unwrap();
+        assert!(
+            m.adjustment.unwrap().abs() <= 1e-7 * measured.abs().max(1.0),
+            "{}",
+            m.tag
+        );
+    }
+    for s in &report.streams {
+        assert!(s.observable, "stream {}", s.id);
+        let i = plant.stream_index(&s.id).unwrap();
+        let truth: f64 = z[layout.stream_flows(&plant, i)].iter().sum();
+        assert!(
+            (s.molar_flow.unwrap() - truth).abs() <= 1e-7 * truth.max(1.0),
+            "stream {}",
+            s.id
+        );
+    }
+    for (r, e) in report.extents.iter().enumerate() {
+        assert!(e.observable, "extent {}", e.reaction);
+        let truth = z[layout.extent(r)];
+        assert!(
+            (e.value.unwrap() - truth).abs() <= 1e-7 * truth,
+            "extent {}",
+            e.reaction
+        );
+    }
+    assert!(
+        report.meters.iter().all(|m| m.redundant),
+        "every Fenwick meter is redundant"
+    );
+    assert!(report.unobservable.is_empty(), "{:?}", report.unobservable);
+}
+
+/// The solver should report noise-free data of this loop as solved. It does not yet: from the
+/// meters' starting point it reaches the true state to about 3e-8 relative in 4–5 iterations,
+/// then every further Gauss–Newton step (which would cut that to 2e-10) is refused by the line
+/// search, because at flows of 1e4–1e5 kmol/h the rounding of ‖g‖₁ (about 1e-11 times the
+/// penalty μ) exceeds the Armijo slack of 1e-13 (1 + merit); the step test on the refused
+/// Gauss–Newton step is never met and the run ends at the iteration limit. Noisy periods of
+/// this loop stall the same way in about 12 % of seeds. Un-ignore once solve.rs scales that
+/// slack with the rounding level of the balances.
+#[test]
+#[ignore = "solver stalls at the rounding floor of its merit function (see comment)"]
+fn noise_free_loop_converges() {
+    let plant = parse_plant(FENWICK).unwrap();
+    let layout = Layout::new(&plant);
+    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let report = reconcile_period(&plant, &period(exact_values(&plant, &layout, &z)));
+    assert_eq!(report.status, ReportStatus::Solved, "{:?}", report.warnings);
+}

@@ -1,0 +1,395 @@
+//! Readings files (FORMATS.md, "Readings"): CSV with a header, or JSON. Every reading is checked
+//! at this boundary (known tag, RFC 3339 time, finite value, known quality) and every bad one is
+//! reported with its place, so a user fixes a file in one pass instead of one error per run.
+
+use std::collections::HashMap;
+use std::fmt;
+use std::path::Path;
+
+use chrono::{DateTime, Datelike, Utc};
+use reconcile::{Plant, Quality, Reading};
+
+/// Where a reading sits in its file: the physical CSV line (the header is line 1), or the
+/// index in the JSON `readings` array.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Place {
+    Line(u64),
+    Index(usize),
+}
+
+impl fmt::Display for Place {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Place::Line(n) => write!(f, "line {n}"),
+            Place::Index(i) => write!(f, "readings[{i}]"),
+        }
+    }
+}
+
+/// What is wrong with one reading.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum Problem {
+    #[error("tag is empty")]
+    EmptyTag,
+    #[error("unknown tag \"{0}\" (no meter of the model has it)")]
+    UnknownTag(String),
+    #[error("time is empty")]
+    EmptyTime,
+    #[error("time \"{text}\" is not RFC 3339 ({reason})")]
+    BadTime { text: String, reason: String },
+    #[error("value is empty")]
+    EmptyValue,
+    #[error("value \"{0}\" is not a number")]
+    NotANumber(String),
+    #[error("value {0} is not a finite number")]
+    NotFinite(String),
+    #[error("quality \"{0}\" is not one of good, uncertain, bad")]
+    BadQuality(String),
+    #[error("has {found} field(s) but the header names {expected}")]
+    FieldCount { found: usize, expected: usize },
+    #[error("is not UTF-8 text")]
+    NotUtf8,
+    #[error("is not an object with tag, time, value and quality")]
+    NotAnObject,
+    #[error("{field} must be {expected}")]
+    WrongType {
+        field: &'static str,
+        expected: &'static str,
+    },
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct BadReading {
+    pub place: Place,
+    pub problems: Vec<Problem>,
+}
+
+impl fmt::Display for BadReading {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let problems: Vec<String> = self.problems.iter().map(|p| p.to_string()).collect();
+        write!(f, "{}: {}", self.place, problems.join("; "))
+    }
+}
+
+/// Why a readings file cannot be used.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum ReadingsError {
+    /// The file as a whole is unusable (no header, not JSON, wrong shape).
+    #[error("{0}")]
+    File(String),
+    /// Some readings are bad; every one is listed.
+    #[error("{} bad reading(s)", .0.len())]
+    Bad(Vec<BadReading>),
+}
+
+/// A later reading of the same (tag, time) that replaced an earlier one.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Replacement {
+    pub later: Place,
+    pub earlier: Place,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct Readings {
+    pub readings: Vec<Reading>,
+    pub replaced: Vec<Replacement>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Format {
+    Csv,
+    Json,
+}
+
+const BOM: &[u8] = b"\xEF\xBB\xBF";
+
+/// `.json` and `.csv` decide; any other name is JSON when the content starts with `{`.
+pub fn detect(path: &Path, bytes: &[u8]) -> Format {
+    match crate::model_file::extension(path).as_deref() {
+        Some("json") => Format::Json,
+        Some("csv") => Format::Csv,
+        _ => {
+            let body = bytes.strip_prefix(BOM).unwrap_or(bytes);
+            match body.iter().find(|b| !b.is_ascii_whitespace()) {
+                Some(b'{') => Format::Json,
+                _ => Format::Csv,
+            }
+        }
+    }
+}
+
+pub fn parse(bytes: &[u8], format: Format, plant: &Plant) -> Result<Readings, ReadingsError> {
+    let body = bytes.strip_prefix(BOM).unwrap_or(bytes);
+    let raw = match format {
+        Format::Csv => crate::readings_csv::raw_readings(body)?,
+        Format::Json => raw_json(body)?,
+    };
+    let mut readings: Vec<Reading> = Vec::new();
+    let mut places: Vec<Place> = Vec::new();
+    let mut bad = Vec::new();
+    let mut replaced = Vec::new();
+    // (tag, instant) → index in `readings`: two spellings of one instant are one reading.
+    let mut seen: HashMap<(String, DateTime<Utc>), usize> = HashMap::new();
+    for (place, fields) in raw {
+        match fields.and_then(|f| check(&f, plant)) {
+            Ok(reading) => {
+                let key = (reading.tag.clone(), reading.time);
+                if let Some(&i) = seen.get(&key) {
+                    replaced.push(Replacement {
+                        later: place,
+                        earlier: places[i],
+                    });
+                    readings[i] = reading;
+                    places[i] = place;
+                } else {
+                    seen.insert(key, readings.len());
+                    readings.push(reading);
+                    places.push(place);
+                }
+            }
+            Err(problems) => bad.push(BadReading { place, problems }),
+        }
+    }
+    if bad.is_empty() {
+        Ok(Readings { readings, replaced })
+    } else {
+        Err(ReadingsError::Bad(bad))
+    }
+}
+
+/// A value as found in the file, before it is checked.
+#[derive(Debug, Clone, PartialEq)]
+pub enum RawValue {
+    Text(String),
+    Number(f64),
+    Missing,
+}
+
+/// The fields of one reading as found in the file.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RawFields {
+    pub tag: String,
+    pub time: String,
+    pub value: RawValue,
+    pub quality: Option<String>,
+}
+
+/// A reading's place and either its fields or what made them unreadable.
+pub type RawReading = (Place, Result<RawFields, Vec<Problem>>);
+
+/// Check every field, collecting all problems of the reading rather than the first.
+fn check(f: &RawFields, plant: &Plant) -> Result<Reading, Vec<Problem>> {
+    let mut problems = Vec::new();
+    let tag = f.tag.trim();
+    if tag.is_empty() {
+        problems.push(Problem::EmptyTag);
+    } else if plant.meter_index(tag).is_none() {
+        problems.push(Problem::UnknownTag(tag.to_string()));
+    }
+    let time_text = f.time.trim();
+    let time = if time_text.is_empty() {
+        problems.push(Problem::EmptyTime);
+        None
+    } else {
+        match DateTime::parse_from_rfc3339(time_text) {
+            // Reports print times as RFC 3339, which has four-digit years: an offset that
+            // carries a time past 9999 in UTC could not be reported.
+            Ok(t) if !(0..=9998).contains(&t.with_timezone(&Utc).year()) => {
+                problems.push(Problem::BadTime {
+                    text: time_text.to_string(),
+                    reason: "outside the years 0000 to 9998 in UTC".into(),
+                });
+                None
+            }
+            Ok(t) => Some(t.with_timezone(&Utc)),
+            Err(e) => {
+                problems.push(Problem::BadTime {
+                    text: time_text.to_string(),
+                    reason: e.to_string(),
+                });
+                None
+            }
+        }
+    };
+    let value = match &f.value {
+        RawValue::Missing => Err(Problem::EmptyValue),
+        RawValue::Text(t) if t.trim().is_empty() => Err(Problem::EmptyValue),
+        RawValue::Text(t) => match t.trim().parse::<f64>() {
+            Ok(v) if v.is_finite() => Ok(v),
+            Ok(_) => Err(Problem::NotFinite(format!("\"{}\"", t.trim()))),
+            Err(_) => Err(Problem::NotANumber(t.trim().to_string())),
+        },
+        RawValue::Number(v) if v.is_finite() => Ok(*v),
+        RawValue::Number(v) => Err(Problem::NotFinite(v.to_string())),
+    };
+    let value = value.map_err(|p| problems.push(p)).ok();
+    // The words are the contract's; case is forgiven because historians disagree on it.
+    let quality_text = f
+        .quality
+        .as_deref()
+        .unwrap_or("")
+        .trim()
+        .to_ascii_lowercase();
+    let quality = Quality::parse(&quality_text).or_else(|| {
+        let original = f.quality.as_deref().unwrap_or("").trim();
+        problems.push(Problem::BadQuality(original.to_string()));
+        None
+    });
+    match (time, value, quality) {
+        (Some(time), Some(value), Some(quality)) if problems.is_empty() => Ok(Reading {
+            tag: tag.to_string(),
+            time,
+            value,
+            quality,
+        }),
+        _ => Err(problems),
+    }
+}
+
+/// `{"readings": [{"tag", "time", "value", "quality"}]}`; other keys of a reading are ignored.
+fn raw_json(body: &[u8]) -> Result<Vec<RawReading>, ReadingsError> {
+    use serde_json::Value;
+    let doc: Value = serde_json::from_slice(body)
+        .map_err(|e| ReadingsError::File(format!("not valid JSON: {e}")))?;
+    let Some(list) = doc.get("readings").and_then(Value::as_array) else {
+        return Err(ReadingsError::File(
+            "expected a JSON object {\"readings\": [...]}".into(),
+        ));
+    };
+    let text = |r: &Value, field: &'static str, problems: &mut Vec<Problem>| -> Option<String> {
+        match r.get(field) {
+            None | Some(Value::Null) => Some(String::new()),
+            Some(Value::String(s)) => Some(s.clone()),
+            Some(_) => {
+                problems.push(Problem::WrongType {
+                    field,
+                    expected: "a string",
+                });
+                None
+            }
+        }
+    };
+    let raw = list
+        .iter()
+        .enumerate()
+        .map(|(i, r)| {
+            if !r.is_object() {
+                return (Place::Index(i), Err(vec![Problem::NotAnObject]));
+            }
+            let mut problems = Vec::new();
+            let tag = text(r, "tag", &mut problems);
+            let time = text(r, "time", &mut problems);
+            let quality = text(r, "quality", &mut problems);
+            let value = match r.get("value") {
+                None | Some(Value::Null) => Some(RawValue::Missing),
+                // Without arbitrary precision serde_json holds every number as an f64 (a number
+                // too large for one fails the parse above), so NaN here is unreachable.
+                Some(Value::Number(n)) => Some(RawValue::Number(n.as_f64().unwrap_or(f64::NAN))),
+                Some(_) => {
+                    problems.push(Problem::WrongType {
+                        field: "value",
+                        expected: "a number",
+                    });
+                    None
+                }
+            };
+            let fields = match (tag, time, value, quality) {
+                (Some(tag), Some(time), Some(value), Some(quality)) if problems.is_empty() => {
+                    Ok(RawFields {
+                        tag,
+                        time,
+                        value,
+                        quality: Some(quality),
+                    })
+                }
+                _ => Err(problems),
+            };
+            (Place::Index(i), fields)
+        })
+        .collect();
+    Ok(raw)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn plant() -> Plant {
+        reconcile::parse_plant(
+            r#"
+name = "tit-line"
+[[component]]
+id = "A"
+molar_mass = 2.0
+[[unit]]
+id = "n"
+kind = "node"
+[[stream]]
+id = "in"
+from = "outside"
+to = "n"
+[[stream]]
+id = "out"
+from = "n"
+to = "outside"
+[[meter]]
+tag = "T-1"
+stream = "in"
+quantity = "molar_flow"
+uom = "kmol/h"
+sigma = 1.0
+"#,
+        )
+        .expect("valid test model")
+    }
+
+    #[test]
+    fn crlf_bom_and_blank_lines_keep_physical_line_numbers() {
+        let text = "\u{feff}tag,time,value\r\n\r\nT-1,2026-03-02T05:00:00Z,1\r\n\r\n\r\nT-1,2026-03-02T05:00:00Z,x\r\n";
+        let err = parse(text.as_bytes(), Format::Csv, &plant()).expect_err("line 6 is bad");
+        assert_eq!(
+            err,
+            ReadingsError::Bad(vec![BadReading {
+                place: Place::Line(6),
+                problems: vec![Problem::NotANumber("x".into())],
+            }])
+        );
+    }
+
+    #[test]
+    fn one_instant_in_two_offsets_is_one_reading_and_the_later_wins() {
+        let text = "tag,time,value,quality\nT-1,2026-03-02T05:00:00Z,1,\nT-1,2026-03-02T07:00:00+02:00,2,Uncertain\n";
+        let parsed = parse(text.as_bytes(), Format::Csv, &plant()).expect("valid");
+        assert_eq!(parsed.readings.len(), 1);
+        assert_eq!(parsed.readings[0].value, 2.0);
+        assert_eq!(parsed.readings[0].quality, Quality::Uncertain);
+        assert_eq!(
+            parsed.replaced,
+            vec![Replacement {
+                later: Place::Line(3),
+                earlier: Place::Line(2)
+            }]
+        );
+    }
+
+    #[test]
+    fn a_reading_lists_all_its_problems() {
+        let text = "tag,time,value,quality\nT-9,noon,inf,meh\n";
+        let Err(ReadingsError::Bad(bad)) = parse(text.as_bytes(), Format::Csv, &plant()) else {
+            panic!("expected bad readings");
+        };
+        assert_eq!(bad.len(), 1);
+        assert_eq!(bad[0].problems.len(), 4, "{}", bad[0]);
+    }
+
+    #[test]
+    fn format_follows_extension_then_content() {
+        assert_eq!(detect(Path::new("r.json"), b"tag,time"), Format::Json);
+        assert_eq!(detect(Path::new("r.csv"), b"{"), Format::Csv);
+        assert_eq!(
+            detect(Path::new("r.txt"), b"\xEF\xBB\xBF \n{\"readings\":[]}"),
+            Format::Json
+        );
+        assert_eq!(detect(Path::new("r"), b"tag,time,value"), Format::Csv);
+    }
+}
