@@ -167,7 +167,18 @@ fn kkt_step(
     }
     rhs.extend(g.iter().map(|x| -x));
     let sol = match SparseLu::new(&k) {
-        Some(lu) => lu.solve(&rhs),
+        Some(lu) => {
+            // Two steps of iterative refinement: the regularised KKT matrix is ill-conditioned
+            // when states are poorly observable, and the step must be accurate near the end.
+            let mut x = lu.solve(&rhs);
+            for _ in 0..2 {
+                let kx = k.mul_vec(&x);
+                let res: Vec<f64> = rhs.iter().zip(&kx).map(|(b, a)| b - a).collect();
+                let dx = lu.solve(&res);
+                x.iter_mut().zip(&dx).for_each(|(a, d)| *a += d);
+            }
+            x
+        }
         None => {
             // Fall back to a dense factorisation with full pivoting.
             let dense = k.to_dense();
@@ -380,7 +391,12 @@ pub fn solve(
             .fold(0.0, f64::max);
         z = trial;
         if alpha < 1e-10 && alpha_max > 1e-10 {
-            // The line search found no descent: the linearisation no longer helps.
+            // The line search found no descent. With the balances met and a step that would
+            // move no reconciled value by more than 1e-6 σ, that is rounding at the optimum;
+            // otherwise the linearisation no longer helps and the iteration has failed.
+            if g_inf <= options.constraint_tolerance * scale && moves <= 1e-6 {
+                status = SolveStatus::Converged;
+            }
             break;
         }
     }

@@ -124,3 +124,32 @@ fn noise_free_loop_reconciles_to_itself() {
     };
     assert!((flow("makeup", "Ar") - flow("purge", "Ar")).abs() < 1e-9);
 }
+
+/// Noisy hours of the same loop (Gaussian noise at each meter's σ, fixed seed): every hour
+/// converges to a state that satisfies the balances.
+#[test]
+#[ignore = "open: with noise the line search stalls at a constraint residual near 5e-10 kmol/h and the hour is reported not_converged; see issue 2 notes"]
+fn noisy_hours_converge() {
+    use rand::SeedableRng;
+    use rand_distr::{Distribution, Normal};
+    let plant = parse_plant(MODEL).unwrap();
+    let layout = Layout::new(&plant);
+    let z = true_state(&plant, &layout, [247.0, 740.0, 0.0, 3.0, 10.0], 0.05);
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(7);
+    let mut solved = 0;
+    for _ in 0..40 {
+        let mut values = exact_readings(&plant, &layout, &z);
+        for v in &mut values {
+            let sigma = plant.meters[v.meter].sigma_for(v.value).unwrap();
+            v.value += Normal::new(0.0, sigma).unwrap().sample(&mut rng);
+        }
+        let report = reconcile_period(&plant, &period(values));
+        if report.status == ReportStatus::Solved {
+            solved += 1;
+            assert!(report.diagnostics.unwrap().constraint_residual < 1e-6);
+        } else {
+            eprintln!("{:?} {:?}", report.status, report.diagnostics);
+        }
+    }
+    assert_eq!(solved, 40);
+}
