@@ -156,6 +156,31 @@ fn networks(c: &mut Criterion) {
 
 /// Time every case once, for sizes too slow for criterion's repeated samples.
 fn probe() {
+    // The Fenwick period split into its parts, each the mean of 200 runs.
+    let plant = parse_plant(FENWICK).expect("Fenwick model is valid");
+    let layout = Layout::new(&plant);
+    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let values = noisy_values(&plant, &exact_values(&plant, &layout, &z), NOISE_SEED);
+    let m = measured(&plant, &values);
+    let input = period(values);
+    let runs = 200;
+    let t = Instant::now();
+    for _ in 0..runs {
+        black_box(estimate(&plant, &m, SolveOptions::default()));
+    }
+    let t_est = t.elapsed() / runs;
+    let (layout, s) = estimate(&plant, &m, SolveOptions::default());
+    let t = Instant::now();
+    for _ in 0..runs {
+        black_box(classify(&plant, &layout, &m, &s.z, &s.at_bound));
+    }
+    let t_cls = t.elapsed() / runs;
+    let t = Instant::now();
+    for _ in 0..runs {
+        black_box(reconcile_period(&plant, &input));
+    }
+    let t_all = t.elapsed() / runs;
+    println!("fenwick: estimate {t_est:?} ({} iterations), classify {t_cls:?}, reconcile_period {t_all:?}", s.iterations);
     let sizes: Vec<usize> = std::env::var("LOOPBAL_BENCH_PROBE_SIZES")
         .ok()
         .map(|s| s.split(',').filter_map(|x| x.trim().parse().ok()).collect())

@@ -89,21 +89,3 @@ fn noise_free_loop_reconciles_to_itself() {
     );
     assert!(report.unobservable.is_empty(), "{:?}", report.unobservable);
 }
-
-/// The solver should report noise-free data of this loop as solved. It does not yet: from the
-/// meters' starting point it reaches the true state to about 3e-8 relative in 4–5 iterations,
-/// then every further Gauss–Newton step (which would cut that to 2e-10) is refused by the line
-/// search, because at flows of 1e4–1e5 kmol/h the rounding of ‖g‖₁ (about 1e-11 times the
-/// penalty μ) exceeds the Armijo slack of 1e-13 (1 + merit); the step test on the refused
-/// Gauss–Newton step is never met and the run ends at the iteration limit. Noisy periods of
-/// this loop stall the same way in about 12 % of seeds. Un-ignore once solve.rs scales that
-/// slack with the rounding level of the balances.
-#[test]
-#[ignore = "solver stalls at the rounding floor of its merit function (see comment)"]
-fn noise_free_loop_converges() {
-    let plant = parse_plant(FENWICK).unwrap();
-    let layout = Layout::new(&plant);
-    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
-    let report = reconcile_period(&plant, &period(exact_values(&plant, &layout, &z)));
-    assert_eq!(report.status, ReportStatus::Solved, "{:?}", report.warnings);
-}
