@@ -19,6 +19,8 @@ pub struct Estimate {
     pub measured: Vec<Measured>,
     pub solution: Solution,
     pub classification: Classification,
+    /// Restarts tried because the first estimate did not converge or failed the global test.
+    pub restarts: usize,
 }
 
 impl Estimate {
@@ -37,23 +39,83 @@ impl Estimate {
 pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     let layout = Layout::new(plant);
     let start = initial_point(plant, &layout, &measured);
-    let solution = solve(plant, &layout, &measured, start, SolveOptions::default());
-    // Classification and covariance ignore the bounds (common practice): a variable resting on
-    // a bound is not thereby known, and treating it as known would call unobservable states
-    // observable.
-    let classification = classify(
-        plant,
-        &layout,
-        &measured,
-        &solution.z,
-        &vec![false; layout.n],
-    );
+    let mut best = settle(plant, &layout, &measured, start.clone());
+    // Bilinear problems are not convex: from a poor start the iteration can stall or settle in
+    // a local minimum. When the first estimate did not converge, rests on a bound or fails the
+    // global test,
+    // try a few deterministic restarts around the first start and keep the best converged one.
+    let mut restarts = 0;
+    while restarts < RESTARTS && !acceptable(plant, &best) {
+        restarts += 1;
+        let alternative = perturbed_start(&start, &layout, restarts as u64);
+        let candidate = settle(plant, &layout, &measured, alternative);
+        if better(&candidate, &best) {
+            best = candidate;
+        }
+    }
+    let (solution, classification) = best;
     Estimate {
         layout,
         measured,
         solution,
         classification,
+        restarts,
     }
+}
+
+/// Restarts tried when the first estimate is not acceptable.
+const RESTARTS: usize = 6;
+
+fn settle(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    start: Vec<f64>,
+) -> (Solution, Classification) {
+    let solution = solve(plant, layout, measured, start, SolveOptions::default());
+    // Classification and covariance ignore the bounds (common practice): a variable resting on
+    // a bound is not thereby known, and treating it as known would call unobservable states
+    // observable.
+    let classification = classify(plant, layout, measured, &solution.z, &vec![false; layout.n]);
+    (solution, classification)
+}
+
+fn acceptable(plant: &Plant, (solution, classification): &(Solution, Classification)) -> bool {
+    // A state resting on a bound is also suspect: from a poor start the iteration can pin a
+    // flow at zero and settle in a minimum of the boundary.
+    solution.status == SolveStatus::Converged
+        && !solution.at_bound.iter().any(|&b| b)
+        && global_test(solution.objective, classification.redundancy, plant.alpha).passed
+}
+
+fn better(a: &(Solution, Classification), b: &(Solution, Classification)) -> bool {
+    let converged = |x: &(Solution, Classification)| x.0.status == SolveStatus::Converged;
+    match (converged(a), converged(b)) {
+        (true, false) => true,
+        (false, true) => false,
+        _ => a.0.objective < b.0.objective,
+    }
+}
+
+/// The start with every flow scaled by a factor in [1/3, 3] and split fractions redrawn, from
+/// a small deterministic generator (SplitMix64), so that the same input gives the same output.
+fn perturbed_start(start: &[f64], layout: &Layout, seed: u64) -> Vec<f64> {
+    let mut state = seed.wrapping_mul(0x9E37_79B9_7F4A_7C15);
+    let mut next = move || {
+        state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut x = state;
+        x = (x ^ (x >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        x = (x ^ (x >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        ((x ^ (x >> 31)) >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let mut z = start.to_vec();
+    for v in z.iter_mut().take(layout.extent_start) {
+        *v *= 3f64.powf(2.0 * next() - 1.0);
+    }
+    for &(_, i) in &layout.splits {
+        z[i] = 0.05 + 0.9 * next();
+    }
+    z
 }
 
 /// Reconcile one period and build its report.
@@ -176,6 +238,7 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
             .filter(|&i| sol.at_bound[i])
             .map(|i| var_name(plant, layout, i))
             .collect(),
+        restarts: est.restarts,
     });
     report.status = match sol.status {
         SolveStatus::Converged => ReportStatus::Solved,

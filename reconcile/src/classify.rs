@@ -215,11 +215,23 @@ pub fn classify(
     } else {
         let b = &jf * &nullspace;
         let (u_full, s, v) = full_svd(&b);
-        let smax = s.first().copied().unwrap_or(0.0);
-        let rank = s
+        // The rank is decided on B with its rows scaled to unit norm, which leaves the rank
+        // unchanged: one very sensitive meter (a fraction on a stream with almost no flow)
+        // would otherwise push every other singular value under a threshold relative to its own.
+        let mut equilibrated = b.clone();
+        for mut row in equilibrated.row_iter_mut() {
+            let norm = row.norm();
+            if norm > 0.0 {
+                row /= norm;
+            }
+        }
+        let (_, se, _) = full_svd(&equilibrated);
+        let se_max = se.first().copied().unwrap_or(0.0);
+        let rank = se
             .iter()
-            .filter(|&&x| x > RANK_TOLERANCE * smax.max(1e-300))
-            .count();
+            .filter(|&&x| x > RANK_TOLERANCE * se_max.max(1e-300))
+            .count()
+            .min(s.iter().filter(|&&x| x > 0.0).count());
         let vr = v.columns(0, rank);
         let mut l = &nullspace * vr;
         for k in 0..rank {

@@ -153,6 +153,9 @@ pub struct Diagnostics {
     pub equations: usize,
     /// States held at a bound at the solution (e.g. a zero flow).
     pub at_bound: Vec<String>,
+    /// Restarts from perturbed starting points tried because the first estimate did not
+    /// converge, rested on a bound or failed the global test.
+    pub restarts: usize,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

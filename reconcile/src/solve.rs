@@ -53,6 +53,9 @@ pub struct Solution {
     pub history: Vec<(f64, f64, f64, usize)>,
 }
 
+/// Regularisation of the constraint block of the KKT matrix (removed by refinement).
+const DELTA: f64 = 1e-10;
+
 /// Settings of the iteration.
 #[derive(Debug, Clone, Copy)]
 pub struct SolveOptions {
@@ -114,7 +117,7 @@ fn kkt_step(
     layout: &Layout,
     g: &[f64],
     gj: &Triplets,
-    r: &[f64],
+    top: &[f64],
     j: &Triplets,
     fixed: &[bool],
     curvature: &[(usize, usize, f64)],
@@ -146,7 +149,7 @@ fn kkt_step(
             diag[a] += va * va;
         }
     }
-    let eps = 1e-9 * diag.iter().fold(1.0_f64, |a, &d| a.max(d));
+    let eps = 1e-12 * diag.iter().fold(1.0_f64, |a, &d| a.max(d));
     for (i, &f) in fixed.iter().enumerate() {
         k.push(i, i, if f { 1.0 } else { eps });
     }
@@ -157,9 +160,9 @@ fn kkt_step(
         }
     }
     for row in 0..p {
-        k.push(n + row, n + row, -1e-10);
+        k.push(n + row, n + row, -DELTA);
     }
-    let mut rhs = j.tr_mul_vec(r);
+    let mut rhs = top.to_vec();
     for (i, &f) in fixed.iter().enumerate() {
         if f {
             rhs[i] = 0.0;
@@ -168,11 +171,15 @@ fn kkt_step(
     rhs.extend(g.iter().map(|x| -x));
     let sol = match SparseLu::new(&k) {
         Some(lu) => {
-            // Two steps of iterative refinement: the regularised KKT matrix is ill-conditioned
-            // when states are poorly observable, and the step must be accurate near the end.
+            // Iterative refinement against the unregularised KKT matrix (δ = 0): the −δI
+            // block only makes the factorisation safe with dependent rows; left in, it would
+            // settle the iteration where g = δλ instead of g = 0.
             let mut x = lu.solve(&rhs);
-            for _ in 0..2 {
-                let kx = k.mul_vec(&x);
+            for _ in 0..3 {
+                let mut kx = k.mul_vec(&x);
+                for row in 0..p {
+                    kx[n + row] += DELTA * x[n + row];
+                }
                 let res: Vec<f64> = rhs.iter().zip(&kx).map(|(b, a)| b - a).collect();
                 let dx = lu.solve(&res);
                 x.iter_mut().zip(&dx).for_each(|(a, d)| *a += d);
@@ -241,7 +248,7 @@ pub fn solve(
     let mut mu = 1.0;
     // Multipliers of the previous iteration, for the constraint curvature of the Lagrangian.
     let mut lambda: Vec<f64> = vec![0.0; layout.rows.len()];
-    let mut history = Vec::new();
+    let mut history: Vec<(f64, f64, f64, usize)> = Vec::new();
 
     while iterations < options.max_iterations {
         iterations += 1;
@@ -265,7 +272,7 @@ pub fn solve(
         let jtr = j.tr_mul_vec(&r);
         let mut step = None;
         for _ in 0..(2 * n + 2) {
-            let Some(s) = kkt_step(layout, &g, &gj, &r, &j, &fixed, &curvature) else {
+            let Some(s) = kkt_step(layout, &g, &gj, &jtr, &j, &fixed, &curvature) else {
                 break;
             };
             // A free variable on its bound that the step would push outwards joins the set.
@@ -316,9 +323,16 @@ pub fn solve(
         // How far the step would move the reconciled values, in units of their σ: along
         // unobservable directions the step length means nothing, this measure stays exact.
         let moves = norm_inf(&j.mul_vec(&step.dz));
-        let flat = moves <= 1e-9;
+        let flat = moves <= 1e-7;
+        // Stagnation: the objective has stopped changing over two iterations with the
+        // balances met; what remains of the step is rounding in poorly determined directions.
+        let objective: f64 = r.iter().map(|x| x * x).sum();
+        let stagnant = history.len() >= 2 && {
+            let before = history[history.len() - 2].1;
+            (before - objective).abs() <= 1e-12 * (1.0 + objective)
+        };
         if g_inf <= options.constraint_tolerance * scale
-            && (step_rel <= options.step_tolerance || flat)
+            && (step_rel <= options.step_tolerance || flat || stagnant)
         {
             last_step = step_rel;
             status = SolveStatus::Converged;
@@ -355,17 +369,48 @@ pub fn solve(
         };
         let m0 = 0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(&g);
         let slope = -(0..n).map(|i| jtr[i] * step.dz[i]).sum::<f64>() - mu * norm_1(&g);
-        let mut alpha = alpha_max;
-        let mut trial: Vec<f64>;
-        loop {
-            trial = (0..n).map(|i| z[i] + alpha * step.dz[i]).collect();
+        let accept = |trial: &[f64], alpha: f64| {
             // Armijo on the merit, with room for rounding once the decrease reaches it.
-            if merit(&trial) <= m0 + 1e-4 * alpha * slope.min(0.0) + 1e-13 * (1.0 + m0.abs())
-                || alpha < 1e-10
-            {
-                break;
+            merit(trial) <= m0 + 1e-4 * alpha * slope.min(0.0) + 1e-13 * (1.0 + m0.abs())
+        };
+        let project = |v: Vec<f64>| -> Vec<f64> {
+            v.into_iter()
+                .enumerate()
+                .map(|(i, x)| x.clamp(layout.lower[i], layout.upper[i]))
+                .collect()
+        };
+        // First the full step projected on the bounds: a variable heading for its bound lands
+        // on it (and joins the working set next iteration) instead of creeping towards it.
+        let full = project((0..n).map(|i| z[i] + step.dz[i]).collect());
+        let mut alpha = 1.0;
+        let mut trial: Vec<f64> = full.clone();
+        // Only when the projection moves no more than a hair: a real cut changes the step's
+        // direction, and then the cut step below is the better guide.
+        let projected_little = alpha_max >= 0.999;
+        let mut accepted = projected_little && accept(&full, 1.0);
+        if !accepted && projected_little {
+            // Second-order correction against the Maratos effect (Nocedal & Wright §18.3): the
+            // full step's own constraint violation is removed by a least-change step.
+            let g_trial = constraints(plant, layout, &full, None);
+            let zero = vec![0.0; n];
+            if let Some(soc) = kkt_step(layout, &g_trial, &gj, &zero, &j, &fixed, &curvature) {
+                let corrected = project((0..n).map(|i| full[i] + soc.dz[i]).collect());
+                if accept(&corrected, 1.0) {
+                    trial = corrected;
+                    accepted = true;
+                }
             }
-            alpha *= 0.5;
+        }
+        if !accepted {
+            // Backtrack along the step cut at the first bound it crosses.
+            alpha = alpha_max;
+            loop {
+                trial = (0..n).map(|i| z[i] + alpha * step.dz[i]).collect();
+                if accept(&trial, alpha) || alpha < 1e-10 {
+                    break;
+                }
+                alpha *= 0.5;
+            }
         }
         for i in 0..n {
             trial[i] = trial[i].clamp(layout.lower[i], layout.upper[i]);
@@ -392,9 +437,9 @@ pub fn solve(
         z = trial;
         if alpha < 1e-10 && alpha_max > 1e-10 {
             // The line search found no descent. With the balances met and a step that would
-            // move no reconciled value by more than 1e-6 σ, that is rounding at the optimum;
+            // move no reconciled value by more than 1e-5 σ, that is rounding at the optimum;
             // otherwise the linearisation no longer helps and the iteration has failed.
-            if g_inf <= options.constraint_tolerance * scale && moves <= 1e-6 {
+            if g_inf <= options.constraint_tolerance * scale && moves <= 1e-5 {
                 status = SolveStatus::Converged;
             }
             break;

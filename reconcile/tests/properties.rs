@@ -8,6 +8,7 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 use reconcile::equations::{constraints, measurement, stream_total, Layout};
+use reconcile::model::Quantity;
 use reconcile::period::{MeterValue, PeriodInput};
 use reconcile::solve::Measured;
 use reconcile::sparse::Triplets;
@@ -290,8 +291,17 @@ fn flow_observable_by_rank(case: &Case, s: usize, z: &[f64]) -> bool {
             stacked[(p + k, i)] = v;
         }
     }
+    // Rank with rows scaled to unit norm (which leaves the rank unchanged), so that meters of
+    // very different sensitivity do not hide each other under a relative threshold.
     let rank = |m: &DMatrix<f64>| {
-        let sv = m.clone().svd(false, false).singular_values;
+        let mut m = m.clone();
+        for mut row in m.row_iter_mut() {
+            let norm = row.norm();
+            if norm > 0.0 {
+                row /= norm;
+            }
+        }
+        let sv = m.svd(false, false).singular_values;
         let max = sv.max();
         sv.iter().filter(|&&x| x > 1e-9 * max).count()
     };
@@ -332,33 +342,66 @@ fn check_noise_free(case: &Case, report: &Report) {
             m.tag
         );
     }
+    // Fraction meters make the measurement equations nonlinear, and then several exact
+    // solutions can reproduce the same readings: the truth is only required where the
+    // readings are flows, which the balances and splitter rows pin down uniquely.
+    let has_fractions = case
+        .plant
+        .meters
+        .iter()
+        .any(|m| matches!(m.quantity, Quantity::MoleFraction | Quantity::MassFraction));
+    let est = estimate_of(case, &readings(case, None));
     for (s, entry) in report.streams.iter().enumerate() {
         let truth: f64 = case
             .layout
             .stream_flows(&case.plant, s)
             .map(|i| case.truth[i])
             .sum();
-        // Noise-free, the estimate is the truth to a small fraction of its own uncertainty.
         match (entry.molar_flow, entry.molar_flow_sigma) {
-            (Some(f), Some(sd)) => assert!(
+            (Some(f), Some(sd)) if !has_fractions => assert!(
                 (f - truth).abs() <= 1e-3 * sd + 1e-7 * scale,
                 "stream {}: {f} vs true {truth} (σ {sd})",
                 entry.id
             ),
+            (Some(_), Some(_)) => {}
             _ => assert!(!entry.observable),
         }
+        // Observability agrees with an independent rank computation at the estimate.
         assert_eq!(
             entry.observable,
-            flow_observable_by_rank(case, s, &case.truth),
+            flow_observable_by_rank(case, s, &est.solution.z),
             "observability of stream {}",
             entry.id
         );
     }
-    for e in &report.extents {
-        if let Some(v) = e.value {
-            assert!((v - case.truth[case.layout.extent(0)]).abs() <= 1e-6 * scale);
+    if !has_fractions {
+        for e in &report.extents {
+            if let Some(v) = e.value {
+                assert!((v - case.truth[case.layout.extent(0)]).abs() <= 1e-6 * scale);
+            }
         }
     }
+}
+
+fn estimate_of(case: &Case, values: &[MeterValue]) -> reconcile::Estimate {
+    let measured = values
+        .iter()
+        .map(|v| Measured {
+            meter: v.meter,
+            value: v.value,
+            sigma: case.plant.meters[v.meter].sigma_for(v.value).unwrap(),
+        })
+        .collect();
+    estimate(&case.plant, measured)
+}
+
+/// A stream with almost no flow at the estimate has no defined composition: fraction meters
+/// on it make the problem degenerate, and the linearised statements do not apply there.
+fn degenerate(case: &Case, est: &reconcile::Estimate) -> bool {
+    let z = &est.solution.z;
+    let scale = z.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
+    (0..case.plant.streams.len())
+        .any(|s| stream_total(&case.plant, &case.layout, s, z).0 < 1e-6 * scale)
 }
 
 proptest! {
@@ -367,16 +410,15 @@ proptest! {
     /// Noise-free measurements reconcile to themselves; balances hold; numbers are the truth
     /// and unobservable quantities are null.
     #[test]
-    #[ignore = "open: the solver stops short of stationarity on some generated bilinear plants (seeds 1861198619237299448, 8175858398683357423); see issue 2 notes"]
     fn noise_free_data_reconcile_to_themselves(seed in any::<u64>()) {
         let case = generate(seed);
+        prop_assume!(!degenerate(&case, &estimate_of(&case, &readings(&case, None))));
         let report = reconcile_period(&case.plant, &period(readings(&case, None)));
         check_noise_free(&case, &report);
     }
 
     /// With noise, non-redundant meters keep their value: the estimate matches them exactly.
     #[test]
-    #[ignore = "open: the solver stops short of stationarity on some generated bilinear plants (seeds 1861198619237299448, 8175858398683357423); see issue 2 notes"]
     fn non_redundant_meters_are_not_adjusted(seed in any::<u64>()) {
         let case = generate(seed);
         let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0x5eed);
@@ -389,6 +431,7 @@ proptest! {
         // An active bound (a flow the noise pushes below zero) may move any meter; the
         // property is about the unbounded estimate.
         prop_assume!(!est.solution.at_bound.iter().any(|&b| b));
+        prop_assume!(!degenerate(&case, &est));
         let scale = case.truth.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
         prop_assert!(est.solution.constraint_residual <= 1e-9 * scale);
         for (k, m) in measured.iter().enumerate() {
@@ -412,36 +455,33 @@ proptest! {
     }
 }
 
+/// Five hundred generated plants, noise-free: every estimate converges, closes the balances
+/// and reproduces the readings (objective ≈ 0). Degenerate estimates (a stream with no flow)
+/// are counted and must stay rare.
 #[test]
-#[ignore]
-fn debug_seed() {
-    let seed: u64 = std::env::var("SEED").unwrap().parse().unwrap();
-    let case = generate(seed);
-    let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0x5eed);
-    let values = readings(&case, std::env::var("NOISE").is_ok().then_some(&mut rng));
-    let measured: Vec<Measured> = values
-        .iter()
-        .map(|v| Measured {
-            meter: v.meter,
-            value: v.value,
-            sigma: case.plant.meters[v.meter].sigma_for(v.value).unwrap(),
-        })
-        .collect();
-    let est = estimate(&case.plant, measured);
-    for h in &est.solution.history {
-        println!("{h:?}");
+fn generated_plants_reconcile_noise_free_data() {
+    let (mut not_conv, mut local, mut degenerate_n, mut ok) = (0, 0, 0, 0);
+    for seed in 0..500u64 {
+        let case = generate(seed);
+        let est = estimate_of(&case, &readings(&case, None));
+        if degenerate(&case, &est) {
+            degenerate_n += 1;
+            continue;
+        }
+        if est.solution.status != reconcile::solve::SolveStatus::Converged {
+            not_conv += 1;
+            continue;
+        }
+        if est.solution.objective > 1e-8 {
+            local += 1;
+            continue;
+        }
+        ok += 1;
     }
-    for k in 0..est.measured.len() {
-        let (h, _) = est.reconciled(&case.plant, k);
-        println!(
-            "meter {} redundant {} var {:e} moved {:e} sd {}",
-            case.plant.meters[est.measured[k].meter].tag,
-            est.classification.is_redundant(k),
-            est.classification.adjustment_variance(k),
-            h - est.measured[k].value,
-            est.measured[k].sigma
-        );
-    }
-    println!("{:?} {}", est.solution.status, case.plant.spec.units.len());
-    println!("{}", toml::to_string(&case.plant.spec).unwrap());
+    assert_eq!(
+        (not_conv, local),
+        (0, 0),
+        "{ok} ok, {degenerate_n} degenerate"
+    );
+    assert!(degenerate_n <= 5, "{degenerate_n} degenerate of 500");
 }

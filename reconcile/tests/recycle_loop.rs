@@ -128,7 +128,7 @@ fn noise_free_loop_reconciles_to_itself() {
 /// Noisy hours of the same loop (Gaussian noise at each meter's σ, fixed seed): every hour
 /// converges to a state that satisfies the balances.
 #[test]
-#[ignore = "open: with noise the line search stalls at a constraint residual near 5e-10 kmol/h and the hour is reported not_converged; see issue 2 notes"]
+
 fn noisy_hours_converge() {
     use rand::SeedableRng;
     use rand_distr::{Distribution, Normal};
