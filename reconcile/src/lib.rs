@@ -10,6 +10,7 @@ pub mod equations;
 pub mod model;
 pub mod period;
 pub mod report;
+pub mod simulate;
 pub mod solve;
 pub mod sparse;
 pub mod start;
