@@ -207,6 +207,8 @@ fn unmeasured_meter(plant: &Plant, m: &crate::model::Meter) -> MeterReport {
         redundant: false,
         testable: false,
         suspect: false,
+        measurement_test_failed: false,
+        detectable_bias: None,
         used_uncertain: false,
         readings: 0,
     }
@@ -305,7 +307,13 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
                 entry.adjustment_sigma = Some(sd);
                 let d = adjustment / sd;
                 entry.normalized_adjustment = Some(d);
-                entry.suspect = d.abs() > critical;
+                entry.measurement_test_failed = d.abs() > critical;
+                entry.detectable_bias = crate::faults::detectable_bias(
+                    m.sigma,
+                    c.adjustment_variance(k),
+                    critical,
+                    0.90,
+                );
             } else {
                 // A non-redundant meter keeps its raw value: no adjustment, nothing to test.
                 entry.reconciled = Some(m.value);
@@ -413,6 +421,18 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
                 observable: value.is_some(),
             });
         }
+    }
+
+    if sol.status == SolveStatus::Converged {
+        let identified = crate::faults::identify(plant, est);
+        for entry in report.meters.iter_mut() {
+            entry.suspect = identified.suspect_tags.contains(&entry.tag);
+        }
+        report.faults = identified.faults;
+        report.figures = crate::figures::loop_figures(plant, est);
+        report
+            .figures
+            .extend(crate::figures::raw_imbalances(plant, est));
     }
 
     let any_flow_or_extent_unobservable = report.streams.iter().any(|s| !s.observable)

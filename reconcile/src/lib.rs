@@ -7,6 +7,8 @@
 pub mod analysis;
 pub mod classify;
 pub mod equations;
+pub mod faults;
+pub mod figures;
 pub mod model;
 pub mod period;
 pub mod report;

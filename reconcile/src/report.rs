@@ -67,8 +67,14 @@ pub struct MeterReport {
     pub redundant: bool,
     /// False when the meter did not report or its adjustment has no variance.
     pub testable: bool,
-    /// |normalised adjustment| beyond the Šidák-corrected critical value.
+    /// A candidate of a fault the identification accepted (see `faults`).
     pub suspect: bool,
+    /// |normalised adjustment| beyond the Šidák-corrected critical value of the measurement
+    /// test.
+    pub measurement_test_failed: bool,
+    /// Smallest bias (in the uom) the measurement test would detect with 90 % probability at
+    /// the model's alpha; null for a non-redundant meter, whose faults cannot be seen.
+    pub detectable_bias: Option<f64>,
     /// The period's value used readings of quality "uncertain".
     pub used_uncertain: bool,
     /// Number of readings averaged.
@@ -121,22 +127,46 @@ pub struct SplitReport {
 pub enum FaultKind {
     MeterBias,
     Leak,
+    /// A group whose members include both meter biases and leaks that the data cannot tell
+    /// apart.
+    MeterBiasOrLeak,
+}
+
+/// One member of a fault group, with its own estimate.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FaultCandidate {
+    pub kind: FaultKind,
+    /// Meter tag or unit id.
+    pub id: String,
+    /// Bias in the meter's uom (reads high when positive), or leak in kmol/h (lost when
+    /// positive).
+    pub magnitude: f64,
+    pub magnitude_sigma: f64,
+    /// Generalised likelihood ratio statistic.
+    pub statistic: f64,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Fault {
     pub kind: FaultKind,
-    /// Meters (tags) or units (ids) that the data cannot tell apart.
+    /// Meters (tags) or units (ids) that the data cannot tell apart: one of them is probably
+    /// at fault, and no amount of data from this meter set can say which.
     pub candidates: Vec<String>,
+    /// Estimate for the first candidate (each member's own is in `members`).
     pub magnitude: f64,
     pub magnitude_sigma: f64,
+    /// Generalised likelihood ratio statistic (χ²(1) without the fault).
     pub statistic: f64,
+    pub members: Vec<FaultCandidate>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Figure {
     pub name: String,
+    /// What the figure is of: a reaction, a stream, a unit, a component, or `item:component`.
     pub subject: String,
+    /// `fraction`, `ratio`, `%` or `kmol/h`.
+    pub uom: String,
     pub value: Option<f64>,
     pub sigma: Option<f64>,
 }
