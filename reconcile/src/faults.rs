@@ -17,7 +17,9 @@
 //!
 //! Hypotheses whose signatures W f are collinear cannot be told apart by any amount of data
 //! from this meter set (the equivalency theory of Bagajewicz & Jiang, 1998–1999): they are
-//! accepted together as one group of candidates, never one of them alone.
+//! accepted together as one group of candidates, never one of them alone. Hypotheses that are
+//! not collinear but whose statistic is within χ²_{1−α}(1) of the strongest join the group too
+//! (a likelihood-ratio confidence set): this period's data cannot tell them apart.
 
 use nalgebra::{DMatrix, DVector};
 
@@ -160,13 +162,22 @@ pub fn identify(plant: &Plant, est: &Estimate) -> Identification {
         if t <= critical {
             break;
         }
-        // The group of hypotheses equivalent to the strongest one.
+        // The group of candidates: every hypothesis whose signature is collinear with the
+        // strongest one's (structurally equivalent: no amount of data from this meter set can
+        // tell them apart), and every other whose statistic falls short of the strongest by
+        // less than χ²_{1−α}(1), the likelihood-ratio confidence set: the data of this period
+        // cannot tell those apart at the model's level either.
         let lead = signatures[h].clone().expect("tested");
         let lead_norm = lead.norm();
+        let close = chi2_critical(plant.alpha, 1);
+        let collinear = |s: &DVector<f64>| {
+            (s.dot(&lead) / (s.norm() * lead_norm)).abs() >= 1.0 - EQUIVALENCE_TOLERANCE
+        };
         let group: Vec<usize> = (0..hyps.len())
             .filter(|&k| {
                 signatures[k].as_ref().is_some_and(|s| {
-                    (s.dot(&lead) / (s.norm() * lead_norm)).abs() >= 1.0 - EQUIVALENCE_TOLERANCE
+                    let tk = s.dot(&r).powi(2) / hyps[k].f.dot(s);
+                    collinear(s) || t - tk <= close
                 })
             })
             .collect();
@@ -179,6 +190,7 @@ pub fn identify(plant: &Plant, est: &Estimate) -> Identification {
             candidates.push(FaultCandidate {
                 kind: hyps[k].kind,
                 id: hyps[k].id.clone(),
+                equivalent: collinear(wf),
                 magnitude: b * hyps[k].unit_factor,
                 magnitude_sigma: hyps[k].unit_factor / fwf.sqrt(),
                 statistic: wf.dot(&r).powi(2) / fwf,

@@ -138,6 +138,9 @@ pub struct FaultCandidate {
     pub kind: FaultKind,
     /// Meter tag or unit id.
     pub id: String,
+    /// Structurally equivalent to the group's first candidate: no amount of data from this
+    /// meter set can tell them apart (otherwise only this period's data cannot).
+    pub equivalent: bool,
     /// Bias in the meter's uom (reads high when positive), or leak in kmol/h (lost when
     /// positive).
     pub magnitude: f64,

@@ -31,7 +31,8 @@ fn noise_free_loop_reconciles_to_itself() {
     // flash 6, purge-split 6, circulator 6, letdown 4, plus 6 splitter rows = 62, independent.
     // Degrees of freedom 75 − 62 = 13: makeup 4, CO2 feed 1, two extents, the flash split of
     // CO2, CH3OH, H2O and CH4, the let-down split of CO2, and the purge fraction.
-    // With every state observable rank(J N) = 13, so the redundancy is ν = 26 − 13 = 13.
+    // With every state observable rank(J N) = 13, so with 28 meters the redundancy is
+    // ν = 28 − 13 = 15.
     assert_eq!(layout.n, 75);
     assert_eq!(layout.rows.len(), 62);
     let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
@@ -50,7 +51,8 @@ fn noise_free_loop_reconciles_to_itself() {
         report.warnings,
         report.unobservable
     );
-    assert_eq!(report.redundancy, 13);
+    assert_eq!(plant.meters.len(), 28);
+    assert_eq!(report.redundancy, 15);
     assert!(
         report.objective.unwrap() < 1e-12,
         "objective {:?}",
