@@ -7,7 +7,8 @@ use crate::equations::{measurement, stream_fraction, stream_total, Layout, Var};
 use crate::model::Plant;
 use crate::period::PeriodInput;
 use crate::report::*;
-use crate::solve::{solve, Measured, Solution, SolveOptions, SolveStatus};
+use crate::solve::{solve_with, Measured, Solution, SolveOptions, SolveStatus};
+use crate::sparse::Symbolic;
 use crate::start::initial_point;
 use crate::stats::{global_test, measurement_test_critical, sidak};
 
@@ -39,21 +40,26 @@ impl Estimate {
 pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     let layout = Layout::new(plant);
     let start = initial_point(plant, &layout, &measured);
-    let mut best = settle(plant, &layout, &measured, start.clone());
+    // The KKT pattern depends only on the plant and the meters measured: restarts share its
+    // symbolic analysis.
+    let mut kkt = None;
+    let mut best = settle(plant, &layout, &measured, start.clone(), &mut kkt);
     // Bilinear problems are not convex: from a poor start the iteration can stall or settle in
     // a local minimum. When the first estimate did not converge, rests on a bound or fails the
     // global test,
     // try a few deterministic restarts around the first start and keep the best converged one.
     let mut restarts = 0;
-    while restarts < RESTARTS && !acceptable(plant, &best) {
+    while restarts < RESTARTS && !acceptable(plant, &layout, &measured, &mut best) {
         restarts += 1;
         let alternative = perturbed_start(&start, &layout, restarts as u64);
-        let candidate = settle(plant, &layout, &measured, alternative);
+        let candidate = settle(plant, &layout, &measured, alternative, &mut kkt);
         if better(&candidate, &best) {
             best = candidate;
         }
     }
     let (solution, classification) = best;
+    let classification =
+        classification.unwrap_or_else(|| classify_free(plant, &layout, &measured, &solution));
     Estimate {
         layout,
         measured,
@@ -66,30 +72,51 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
 /// Restarts tried when the first estimate is not acceptable.
 const RESTARTS: usize = 6;
 
+/// A solution with its classification, computed only when needed (the global test of
+/// `acceptable`, or the estimate finally kept).
+type Settled = (Solution, Option<Classification>);
+
 fn settle(
     plant: &Plant,
     layout: &Layout,
     measured: &[Measured],
     start: Vec<f64>,
-) -> (Solution, Classification) {
-    let solution = solve(plant, layout, measured, start, SolveOptions::default());
-    // Classification and covariance ignore the bounds (common practice): a variable resting on
-    // a bound is not thereby known, and treating it as known would call unobservable states
-    // observable.
-    let classification = classify(plant, layout, measured, &solution.z, &vec![false; layout.n]);
-    (solution, classification)
+    kkt: &mut Option<Symbolic>,
+) -> Settled {
+    let options = SolveOptions::default();
+    (
+        solve_with(plant, layout, measured, start, options, kkt),
+        None,
+    )
 }
 
-fn acceptable(plant: &Plant, (solution, classification): &(Solution, Classification)) -> bool {
+/// Classification and covariance ignore the bounds (common practice): a variable resting on
+/// a bound is not thereby known, and treating it as known would call unobservable states
+/// observable.
+fn classify_free(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    solution: &Solution,
+) -> Classification {
+    classify(plant, layout, measured, &solution.z, &vec![false; layout.n])
+}
+
+fn acceptable(plant: &Plant, layout: &Layout, measured: &[Measured], best: &mut Settled) -> bool {
+    let solution = &best.0;
     // A state resting on a bound is also suspect: from a poor start the iteration can pin a
     // flow at zero and settle in a minimum of the boundary.
-    solution.status == SolveStatus::Converged
-        && !solution.at_bound.iter().any(|&b| b)
-        && global_test(solution.objective, classification.redundancy, plant.alpha).passed
+    if solution.status != SolveStatus::Converged || solution.at_bound.iter().any(|&b| b) {
+        return false;
+    }
+    let classification = best
+        .1
+        .get_or_insert_with(|| classify_free(plant, layout, measured, solution));
+    global_test(solution.objective, classification.redundancy, plant.alpha).passed
 }
 
-fn better(a: &(Solution, Classification), b: &(Solution, Classification)) -> bool {
-    let converged = |x: &(Solution, Classification)| x.0.status == SolveStatus::Converged;
+fn better(a: &Settled, b: &Settled) -> bool {
+    let converged = |x: &Settled| x.0.status == SolveStatus::Converged;
     match (converged(a), converged(b)) {
         (true, false) => true,
         (false, true) => false,

@@ -237,32 +237,53 @@ pub fn measurement(
     meter: &Meter,
     z: &[f64],
 ) -> (f64, Vec<(usize, f64)>) {
+    let mut grad = Vec::new();
+    let h = evaluate(plant, layout, meter, z, Some(&mut grad));
+    (h, grad)
+}
+
+/// h(z) of one meter in its uom without the gradient (the same arithmetic as `measurement`).
+pub fn measurement_value(plant: &Plant, layout: &Layout, meter: &Meter, z: &[f64]) -> f64 {
+    evaluate(plant, layout, meter, z, None)
+}
+
+fn evaluate(
+    plant: &Plant,
+    layout: &Layout,
+    meter: &Meter,
+    z: &[f64],
+    mut grad: Option<&mut Vec<(usize, f64)>>,
+) -> f64 {
     let f = meter.uom.factor_from_base();
     let s = meter.stream;
     let stream = &plant.streams[s];
     let cols = layout.stream_flows(plant, s);
     let mass = |c: usize| plant.components[c].molar_mass;
+    let mut put = |i: usize, d: f64| {
+        if let Some(g) = grad.as_deref_mut() {
+            g.push((i, d));
+        }
+    };
     match meter.quantity {
         Quantity::MolarFlow | Quantity::StdVolumeFlow => {
             let total: f64 = z[cols.clone()].iter().sum();
-            (f * total, cols.map(|i| (i, f)).collect())
+            cols.for_each(|i| put(i, f));
+            f * total
         }
         Quantity::MassFlow => {
             let mut total = 0.0;
-            let grad = cols
-                .zip(&stream.components)
-                .map(|(i, &c)| {
-                    total += mass(c) * z[i];
-                    (i, f * mass(c))
-                })
-                .collect();
-            (f * total, grad)
+            for (i, &c) in cols.zip(&stream.components) {
+                total += mass(c) * z[i];
+                put(i, f * mass(c));
+            }
+            f * total
         }
         Quantity::ComponentFlow => {
             let i = layout
                 .flow(plant, s, meter.component.expect("validated"))
                 .expect("validated");
-            (f * z[i], vec![(i, f)])
+            put(i, f);
+            f * z[i]
         }
         Quantity::MoleFraction => {
             // x = n_c / S with S = Σ_{k∈B} n_k; ∂x/∂n_k = δ_kc / S − n_c / S² for k ∈ B.
@@ -277,15 +298,11 @@ pub fn measurement(
                 .sum::<f64>()
                 .max(TINY_FLOW);
             let x = z[ic] / total;
-            let grad = cols
-                .zip(&stream.components)
-                .filter(|(_, &k)| in_basis(k))
-                .map(|(i, _)| {
-                    let d = if i == ic { 1.0 / total } else { 0.0 } - x / total;
-                    (i, f * d)
-                })
-                .collect();
-            (f * x, grad)
+            for (i, _) in cols.zip(&stream.components).filter(|(_, &k)| in_basis(k)) {
+                let d = if i == ic { 1.0 / total } else { 0.0 } - x / total;
+                put(i, f * d);
+            }
+            f * x
         }
         Quantity::MassFraction => {
             // w = M_c n_c / T with T = Σ_k M_k n_k; ∂w/∂n_k = δ_kc M_c / T − w M_k / T.
@@ -298,14 +315,11 @@ pub fn measurement(
                 .sum::<f64>()
                 .max(TINY_FLOW);
             let w = mass(c) * z[ic] / total;
-            let grad = cols
-                .zip(&stream.components)
-                .map(|(i, &k)| {
-                    let d = if i == ic { mass(c) / total } else { 0.0 } - w * mass(k) / total;
-                    (i, f * d)
-                })
-                .collect();
-            (f * w, grad)
+            for (i, &k) in cols.zip(&stream.components) {
+                let d = if i == ic { mass(c) / total } else { 0.0 } - w * mass(k) / total;
+                put(i, f * d);
+            }
+            f * w
         }
     }
 }

@@ -17,9 +17,9 @@
 //! §16.5). A backtracking line search on the exact-penalty merit ½‖r‖² + μ‖g‖₁ (ibid. §18.3)
 //! guards the step from poor starting regions.
 
-use crate::equations::{constraints, measurement, Layout};
+use crate::equations::{constraints, measurement, measurement_value, Layout};
 use crate::model::Plant;
-use crate::sparse::{SparseLu, Triplets};
+use crate::sparse::{SparseLu, Symbolic, Triplets};
 
 /// A meter measured in the period being reconciled: its value and σ in the meter's uom.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -95,6 +95,19 @@ pub(crate) fn scaled_measurements(
     (r, j)
 }
 
+/// σ-scaled residuals r alone, for the line search's merit: no Jacobian is built.
+pub(crate) fn scaled_residuals(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+) -> Vec<f64> {
+    measured
+        .iter()
+        .map(|m| (m.value - measurement_value(plant, layout, &plant.meters[m.meter], z)) / m.sigma)
+        .collect()
+}
+
 fn norm_inf(v: &[f64]) -> f64 {
     v.iter().fold(0.0, |a, x| a.max(x.abs()))
 }
@@ -112,103 +125,127 @@ struct Step {
     lambda: Vec<f64>,
 }
 
-/// Solve the KKT system at z with the variables in `fixed` held where they are.
-fn kkt_step(
-    layout: &Layout,
-    g: &[f64],
-    gj: &Triplets,
-    top: &[f64],
-    j: &Triplets,
-    fixed: &[bool],
-    curvature: &[(usize, usize, f64)],
-) -> Option<Step> {
-    let n = layout.n;
-    let p = g.len();
-    let mut k = Triplets::new(n + p, n + p);
-    for &(a, b, v) in curvature {
-        if !fixed[a] && !fixed[b] {
-            k.push(a, b, v);
+/// The factorised KKT matrix of one iteration and working set, for the step and the
+/// second-order correction (same matrix, another right-hand side).
+struct Kkt {
+    n: usize,
+    p: usize,
+    k: Triplets,
+    factor: Factor,
+}
+
+enum Factor {
+    Sparse(SparseLu),
+    /// Fallback when the sparse LU refuses the matrix: dense LU with full pivoting.
+    Dense(nalgebra::linalg::FullPivLU<f64, nalgebra::Dyn, nalgebra::Dyn>),
+}
+
+impl Kkt {
+    /// Assemble and factorise the KKT matrix at z with the variables in `fixed` held where
+    /// they are. Fixed variables and the curvature (zero when not in use) keep their entries as
+    /// explicit zeros, so the pattern, and with it the fill-reducing ordering and symbolic
+    /// analysis in `cache`, stays the same for the whole solve.
+    fn new(
+        layout: &Layout,
+        gj: &Triplets,
+        j_rows: &[Vec<(usize, f64)>],
+        fixed: &[bool],
+        curvature: &[(usize, usize, f64)],
+        cache: &mut Option<Symbolic>,
+    ) -> Option<Kkt> {
+        let n = layout.n;
+        let p = gj.nrows;
+        let free = |a: usize, b: usize| !fixed[a] && !fixed[b];
+        let mut k = Triplets::new(n + p, n + p);
+        k.entries.reserve(
+            curvature.len()
+                + j_rows.iter().map(|r| r.len() * r.len()).sum::<usize>()
+                + n
+                + 2 * gj.entries.len()
+                + p,
+        );
+        for &(a, b, v) in curvature {
+            k.push(a, b, if free(a, b) { v } else { 0.0 });
         }
-    }
-    // JᵀJ from the rows of J: each measurement row touches a handful of columns.
-    let mut by_row: Vec<Vec<(usize, f64)>> = vec![Vec::new(); j.nrows];
-    for &(row, col, v) in &j.entries {
-        by_row[row].push((col, v));
-    }
-    let mut diag = vec![0.0; n];
-    for row in &by_row {
-        for &(a, va) in row {
-            if fixed[a] {
-                continue;
-            }
-            for &(b, vb) in row {
-                if !fixed[b] {
-                    k.push(a, b, va * vb);
+        // JᵀJ from the rows of J: each measurement row touches a handful of columns.
+        let mut diag = vec![0.0; n];
+        for row in j_rows {
+            for &(a, va) in row {
+                for &(b, vb) in row {
+                    k.push(a, b, if free(a, b) { va * vb } else { 0.0 });
+                }
+                if !fixed[a] {
+                    diag[a] += va * va;
                 }
             }
-            diag[a] += va * va;
         }
-    }
-    let eps = 1e-12 * diag.iter().fold(1.0_f64, |a, &d| a.max(d));
-    for (i, &f) in fixed.iter().enumerate() {
-        k.push(i, i, if f { 1.0 } else { eps });
-    }
-    for &(row, col, v) in &gj.entries {
-        if !fixed[col] {
+        let eps = 1e-12 * diag.iter().fold(1.0_f64, |a, &d| a.max(d));
+        for (i, &f) in fixed.iter().enumerate() {
+            k.push(i, i, if f { 1.0 } else { eps });
+        }
+        for &(row, col, v) in &gj.entries {
+            let v = if fixed[col] { 0.0 } else { v };
             k.push(n + row, col, v);
             k.push(col, n + row, v);
         }
-    }
-    for row in 0..p {
-        k.push(n + row, n + row, -DELTA);
-    }
-    let mut rhs = top.to_vec();
-    for (i, &f) in fixed.iter().enumerate() {
-        if f {
-            rhs[i] = 0.0;
+        for row in 0..p {
+            k.push(n + row, n + row, -DELTA);
         }
+        let factor = match SparseLu::with_symbolic(&k, cache) {
+            Some(lu) => Factor::Sparse(lu),
+            None => Factor::Dense(k.to_dense().full_piv_lu()),
+        };
+        Some(Kkt { n, p, k, factor })
     }
-    rhs.extend(g.iter().map(|x| -x));
-    let sol = match SparseLu::new(&k) {
-        Some(lu) => {
-            // Iterative refinement against the unregularised KKT matrix (δ = 0): the −δI
-            // block only makes the factorisation safe with dependent rows; left in, it would
-            // settle the iteration where g = δλ instead of g = 0.
-            let mut x = lu.solve(&rhs);
-            for _ in 0..3 {
-                let mut kx = k.mul_vec(&x);
-                for row in 0..p {
-                    kx[n + row] += DELTA * x[n + row];
-                }
-                let res: Vec<f64> = rhs.iter().zip(&kx).map(|(b, a)| b - a).collect();
-                let dx = lu.solve(&res);
-                x.iter_mut().zip(&dx).for_each(|(a, d)| *a += d);
+
+    /// The step for the gradient `top` and constraint values g.
+    fn step(&self, top: &[f64], g: &[f64], fixed: &[bool]) -> Option<Step> {
+        let (n, p) = (self.n, self.p);
+        let mut rhs = top.to_vec();
+        for (i, &f) in fixed.iter().enumerate() {
+            if f {
+                rhs[i] = 0.0;
             }
-            x
         }
-        None => {
-            // Fall back to a dense factorisation with full pivoting.
-            let dense = k.to_dense();
-            let x = dense
-                .full_piv_lu()
-                .solve(&nalgebra::DVector::from_vec(rhs))?;
-            x.as_slice().to_vec()
+        rhs.extend(g.iter().map(|x| -x));
+        let sol = match &self.factor {
+            Factor::Sparse(lu) => {
+                // Iterative refinement against the unregularised KKT matrix (δ = 0): the −δI
+                // block only makes the factorisation safe with dependent rows; left in, it
+                // would settle the iteration where g = δλ instead of g = 0.
+                let mut x = lu.solve(&rhs);
+                for _ in 0..3 {
+                    let mut kx = self.k.mul_vec(&x);
+                    for row in 0..p {
+                        kx[n + row] += DELTA * x[n + row];
+                    }
+                    let res: Vec<f64> = rhs.iter().zip(&kx).map(|(b, a)| b - a).collect();
+                    let dx = lu.solve(&res);
+                    x.iter_mut().zip(&dx).for_each(|(a, d)| *a += d);
+                }
+                x
+            }
+            Factor::Dense(lu) => lu
+                .solve(&nalgebra::DVector::from_vec(rhs))?
+                .as_slice()
+                .to_vec(),
+        };
+        if sol.iter().any(|v| !v.is_finite()) {
+            return None;
         }
-    };
-    if sol.iter().any(|v| !v.is_finite()) {
-        return None;
+        Some(Step {
+            dz: sol[..n].to_vec(),
+            lambda: sol[n..].to_vec(),
+        })
     }
-    Some(Step {
-        dz: sol[..n].to_vec(),
-        lambda: sol[n..].to_vec(),
-    })
 }
 
 /// Entries (both triangles) of Σ_k λ_k ∇²g_k: only the splitter rows n_k − φ n_in are curved.
+/// With `lambda` None the entries are there with the value zero (the same KKT pattern).
 fn constraint_curvature(
     plant: &Plant,
     layout: &Layout,
-    lambda: &[f64],
+    lambda: Option<&[f64]>,
 ) -> Vec<(usize, usize, f64)> {
     let mut out = Vec::new();
     for (row, kind) in layout.rows.iter().enumerate() {
@@ -221,8 +258,9 @@ fn constraint_curvature(
             let inlet = plant.units[unit].inlets[0];
             let i = layout.flow(plant, inlet, component).expect("validated");
             let phi = layout.split(outlet).expect("split var");
-            out.push((i, phi, -lambda[row]));
-            out.push((phi, i, -lambda[row]));
+            let v = lambda.map_or(0.0, |l| -l[row]);
+            out.push((i, phi, v));
+            out.push((phi, i, v));
         }
     }
     out
@@ -235,6 +273,19 @@ pub fn solve(
     measured: &[Measured],
     start: Vec<f64>,
     options: SolveOptions,
+) -> Solution {
+    solve_with(plant, layout, measured, start, options, &mut None)
+}
+
+/// `solve`, reusing (and leaving in `cache`) the symbolic analysis of the KKT matrix, whose
+/// pattern depends only on the plant and the meters measured: restarts share it.
+pub fn solve_with(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    start: Vec<f64>,
+    options: SolveOptions,
+    cache: &mut Option<Symbolic>,
 ) -> Solution {
     let n = layout.n;
     let mut z = start;
@@ -264,17 +315,26 @@ pub fn solve(
         // (∂²/∂φ∂n_in = −1), once the constraints are nearly met; far from them the plain
         // Gauss–Newton matrix is the safer model.
         let near = norm_inf(&g) <= 1e-3 * flow_scale(layout, &z);
-        let curvature = if near {
-            constraint_curvature(plant, layout, &lambda)
-        } else {
-            Vec::new()
-        };
+        let curvature = constraint_curvature(plant, layout, near.then_some(&lambda[..]));
         let jtr = j.tr_mul_vec(&r);
+        let mut j_rows: Vec<Vec<(usize, f64)>> = vec![Vec::new(); j.nrows];
+        for &(row, col, v) in &j.entries {
+            j_rows[row].push((col, v));
+        }
         let mut step = None;
+        let mut kkt = None;
+        // Variables released in this iteration's working-set loop: one that the next step
+        // pushes outwards again is fixed for good, which ends any cycle.
+        let mut released = vec![false; n];
+        let mut locked = vec![false; n];
         for _ in 0..(2 * n + 2) {
-            let Some(s) = kkt_step(layout, &g, &gj, &jtr, &j, &fixed, &curvature) else {
+            let Some(system) = Kkt::new(layout, &gj, &j_rows, &fixed, &curvature, cache) else {
                 break;
             };
+            let Some(s) = system.step(&jtr, &g, &fixed) else {
+                break;
+            };
+            let snapshot = fixed.clone();
             // A free variable on its bound that the step would push outwards joins the set.
             let mut changed = false;
             for i in 0..n {
@@ -283,16 +343,20 @@ pub fn solve(
                 if !fixed[i] && outwards {
                     fixed[i] = true;
                     changed = true;
+                    locked[i] = released[i];
                 }
             }
             if !changed {
-                // QP stationarity: (JᵀJ) Δz + Gᵀλ − Jᵀr = μ, with μ ≥ 0 at a lower bound and
-                // μ ≤ 0 at an upper bound; release the variable whose μ is most wrong.
-                let jtjdz = j.tr_mul_vec(&j.mul_vec(&s.dz));
+                // QP stationarity: (JᵀJ + Σλ∇²g) Δz + Gᵀλ − Jᵀr = μ, with μ ≥ 0 at a lower
+                // bound and μ ≤ 0 at an upper bound; release the variable whose μ is most wrong.
+                let mut hdz = j.tr_mul_vec(&j.mul_vec(&s.dz));
+                for &(a, b, v) in &curvature {
+                    hdz[a] += v * s.dz[b];
+                }
                 let gtl = gj.tr_mul_vec(&s.lambda);
                 let mut worst: Option<(usize, f64)> = None;
-                for i in (0..n).filter(|&i| fixed[i]) {
-                    let m = jtjdz[i] + gtl[i] - jtr[i];
+                for i in (0..n).filter(|&i| fixed[i] && !locked[i]) {
+                    let m = hdz[i] + gtl[i] - jtr[i];
                     let wrong = if z[i] == layout.lower[i] { -m } else { m };
                     if wrong > 1e-12 * (1.0 + jtr[i].abs() + gtl[i].abs())
                         && worst.is_none_or(|(_, w)| wrong > w)
@@ -302,10 +366,12 @@ pub fn solve(
                 }
                 if let Some((i, _)) = worst {
                     fixed[i] = false;
+                    released[i] = true;
                     changed = true;
                 }
             }
             step = Some(s);
+            kkt = Some((system, snapshot));
             if !changed {
                 break;
             }
@@ -363,7 +429,7 @@ pub fn solve(
         // Exact-penalty merit with a penalty above the largest multiplier.
         mu = f64::max(mu, 2.0 * norm_inf(&step.lambda) + 1.0);
         let merit = |z: &[f64]| -> f64 {
-            let (r, _) = scaled_measurements(plant, layout, measured, z);
+            let r = scaled_residuals(plant, layout, measured, z);
             let g = constraints(plant, layout, z, None);
             0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(&g)
         };
@@ -393,7 +459,15 @@ pub fn solve(
             // full step's own constraint violation is removed by a least-change step.
             let g_trial = constraints(plant, layout, &full, None);
             let zero = vec![0.0; n];
-            if let Some(soc) = kkt_step(layout, &g_trial, &gj, &zero, &j, &fixed, &curvature) {
+            // The same matrix as the step's: its factorisation serves again.
+            let soc = match &kkt {
+                Some((system, built_for)) if *built_for == fixed => {
+                    system.step(&zero, &g_trial, &fixed)
+                }
+                _ => Kkt::new(layout, &gj, &j_rows, &fixed, &curvature, cache)
+                    .and_then(|system| system.step(&zero, &g_trial, &fixed)),
+            };
+            if let Some(soc) = soc {
                 let corrected = project((0..n).map(|i| full[i] + soc.dz[i]).collect());
                 if accept(&corrected, 1.0) {
                     trial = corrected;
@@ -447,7 +521,7 @@ pub fn solve(
     }
 
     let g = constraints(plant, layout, &z, None);
-    let (r, _) = scaled_measurements(plant, layout, measured, &z);
+    let r = scaled_residuals(plant, layout, measured, &z);
     let constraint_residual = norm_inf(&g);
     if status != SolveStatus::Converged && constraint_residual > 1e-6 * flow_scale(layout, &z) {
         status = SolveStatus::Infeasible;

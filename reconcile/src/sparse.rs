@@ -54,34 +54,82 @@ impl Triplets {
         }
         y
     }
+}
 
-    /// Compressed sparse columns with duplicates summed.
-    fn to_csc(&self) -> Sprs<f64> {
-        let mut entries = self.entries.clone();
-        entries.sort_unstable_by_key(|&(r, c, _)| (c, r));
-        let mut p = vec![0isize; self.ncols + 1];
-        let mut i: Vec<usize> = Vec::with_capacity(entries.len());
-        let mut x: Vec<f64> = Vec::with_capacity(entries.len());
+/// The symbolic part of a sparse LU, reusable while the pattern stays the same: the triplet
+/// positions it was made for, where each triplet lands in the compressed columns, and the
+/// fill-reducing ordering (AMD on A + Aᵀ). A Gauss–Newton iteration factorises many matrices of
+/// one pattern, and the ordering costs as much as the numeric factorisation itself.
+#[derive(Debug, Clone)]
+pub struct Symbolic {
+    /// (row, column) of every triplet, in push order.
+    positions: Vec<(usize, usize)>,
+    /// Index into the compressed values of each triplet (duplicates share one).
+    slots: Vec<usize>,
+    nrows: usize,
+    ncols: usize,
+    colptr: Vec<isize>,
+    rowidx: Vec<usize>,
+    symbolic: Symb,
+}
+
+impl Symbolic {
+    fn matches(&self, a: &Triplets) -> bool {
+        self.nrows == a.nrows
+            && self.ncols == a.ncols
+            && self.positions.len() == a.entries.len()
+            && self
+                .positions
+                .iter()
+                .zip(&a.entries)
+                .all(|(&(r, c), &(r2, c2, _))| r == r2 && c == c2)
+    }
+
+    fn analyse(a: &Triplets) -> Symbolic {
+        let mut order: Vec<usize> = (0..a.entries.len()).collect();
+        order.sort_unstable_by_key(|&k| (a.entries[k].1, a.entries[k].0));
+        let mut slots = vec![0; a.entries.len()];
+        let mut colptr = vec![0isize; a.ncols + 1];
+        let mut rowidx: Vec<usize> = Vec::with_capacity(a.entries.len());
         let mut last: Option<(usize, usize)> = None;
-        for (r, c, v) in entries {
-            if last == Some((r, c)) {
-                *x.last_mut().expect("entry exists") += v;
-                continue;
+        for k in order {
+            let (r, c, _) = a.entries[k];
+            if last != Some((r, c)) {
+                last = Some((r, c));
+                rowidx.push(r);
+                colptr[c + 1] += 1;
             }
-            last = Some((r, c));
-            i.push(r);
-            x.push(v);
-            p[c + 1] += 1;
+            slots[k] = rowidx.len() - 1;
         }
-        for k in 0..self.ncols {
-            p[k + 1] += p[k];
+        for k in 0..a.ncols {
+            colptr[k + 1] += colptr[k];
+        }
+        let mut sym = Symbolic {
+            positions: a.entries.iter().map(|&(r, c, _)| (r, c)).collect(),
+            slots,
+            nrows: a.nrows,
+            ncols: a.ncols,
+            colptr,
+            rowidx,
+            symbolic: Symb::new(),
+        };
+        // Order 1: minimum degree on A + Aᵀ, the right choice for a symmetric KKT pattern.
+        sym.symbolic = rsparse::sqr(&sym.csc(a), 1, false);
+        sym
+    }
+
+    /// The compressed columns of `a`, whose pattern this analysis was made for.
+    fn csc(&self, a: &Triplets) -> Sprs<f64> {
+        let mut x = vec![0.0; self.rowidx.len()];
+        for (&slot, &(_, _, v)) in self.slots.iter().zip(&a.entries) {
+            x[slot] += v;
         }
         Sprs {
             nzmax: x.len(),
             m: self.nrows,
             n: self.ncols,
-            p,
-            i,
+            p: self.colptr.clone(),
+            i: self.rowidx.clone(),
             x,
         }
     }
@@ -90,23 +138,31 @@ impl Triplets {
 /// An LU factorisation P A Q = L U of a square sparse matrix, reusable for many right-hand sides.
 pub struct SparseLu {
     n: usize,
-    symbolic: Symb,
+    q: Option<Vec<isize>>,
     numeric: Nmrc<f64>,
 }
 
 impl SparseLu {
     /// Factorise; `None` when the matrix is structurally or numerically singular.
     pub fn new(a: &Triplets) -> Option<SparseLu> {
+        SparseLu::with_symbolic(a, &mut None)
+    }
+
+    /// Factorise, reusing the symbolic analysis in `cache` when `a` has the same triplet
+    /// positions (in the same order) as the matrix it was made for, else replacing it.
+    pub fn with_symbolic(a: &Triplets, cache: &mut Option<Symbolic>) -> Option<SparseLu> {
         assert_eq!(a.nrows, a.ncols, "LU needs a square matrix");
-        let csc = a.to_csc();
-        // Order 1: minimum degree on A + Aᵀ, the right choice for a symmetric KKT pattern.
-        let mut symbolic = rsparse::sqr(&csc, 1, false);
+        if !cache.as_ref().is_some_and(|c| c.matches(a)) {
+            *cache = Some(Symbolic::analyse(a));
+        }
+        let sym = cache.as_mut().expect("just set");
+        let csc = sym.csc(a);
         // Threshold 0.1 prefers diagonal pivots (which keep the ordering's fill low) while
         // still refusing pivots much smaller than the column's largest entry.
-        let numeric = rsparse::lu(&csc, &mut symbolic, 0.1).ok()?;
+        let numeric = rsparse::lu(&csc, &mut sym.symbolic, 0.1).ok()?;
         let lu = SparseLu {
             n: a.nrows,
-            symbolic,
+            q: sym.symbolic.q.clone(),
             numeric,
         };
         // CSparse does not fail on tiny pivots: check U's diagonal ourselves.
@@ -143,7 +199,7 @@ impl SparseLu {
         rsparse::usolve(&self.numeric.u, &mut x);
         // b = Q x
         let mut out = vec![0.0; n];
-        match &self.symbolic.q {
+        match &self.q {
             Some(q) => {
                 for k in 0..n {
                     out[q[k] as usize] = x[k];

@@ -283,7 +283,9 @@ fn stacked_jacobian(case: &Case, z: &[f64]) -> DMatrix<f64> {
     constraints(plant, layout, z, Some(&mut g));
     let p = layout.rows.len();
     let mut stacked = DMatrix::zeros(p + plant.meters.len(), layout.n);
-    stacked.view_mut((0, 0), (p, layout.n)).copy_from(&g.to_dense());
+    stacked
+        .view_mut((0, 0), (p, layout.n))
+        .copy_from(&g.to_dense());
     for (k, meter) in plant.meters.iter().enumerate() {
         let (_, grad) = measurement(plant, layout, meter, z);
         for (i, v) in grad {
@@ -314,7 +316,9 @@ fn singular_values(m: &DMatrix<f64>) -> Vec<f64> {
 /// magnitude beyond the flows; whether to call it observable is a matter of threshold, so the
 /// property below is checked on clear-cut plants only.
 fn ambiguous(case: &Case, z: &[f64]) -> bool {
-    singular_values(&stacked_jacobian(case, z)).iter().any(|&s| s > 1e-12 && s < 1e-7)
+    singular_values(&stacked_jacobian(case, z))
+        .iter()
+        .any(|&s| s > 1e-12 && s < 1e-7)
 }
 
 /// Is the total flow of stream s observable? Checked independently of the engine's projection:
