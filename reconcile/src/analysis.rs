@@ -45,11 +45,20 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     let mut kkt = None;
     let mut best = settle(plant, &layout, &measured, start.clone(), &mut kkt);
     // Bilinear problems are not convex: from a poor start the iteration can stall or settle in
-    // a local minimum. When the first estimate did not converge, rests on a bound or fails the
-    // global test,
-    // try a few deterministic restarts around the first start and keep the best converged one.
+    // a local minimum. When the estimate did not converge or fails the global test, try up to
+    // RESTARTS deterministic restarts around the first start and keep the best converged one;
+    // when it only rests on a bound (often a genuine optimum with a small flow at zero), try
+    // fewer.
     let mut restarts = 0;
-    while restarts < RESTARTS && !acceptable(plant, &layout, &measured, &mut best) {
+    loop {
+        let limit = match verdict(plant, &layout, &measured, &mut best) {
+            Verdict::Good => break,
+            Verdict::OnBound => RESTARTS_ON_BOUND,
+            Verdict::Poor => RESTARTS,
+        };
+        if restarts >= limit {
+            break;
+        }
         restarts += 1;
         let alternative = perturbed_start(&start, &layout, restarts as u64);
         let candidate = settle(plant, &layout, &measured, alternative, &mut kkt);
@@ -69,8 +78,16 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     }
 }
 
-/// Restarts tried when the first estimate is not acceptable.
+/// Restarts tried when the estimate did not converge or fails the global test.
 const RESTARTS: usize = 6;
+/// Restarts tried when the estimate only rests on a bound.
+const RESTARTS_ON_BOUND: usize = 2;
+
+enum Verdict {
+    Good,
+    OnBound,
+    Poor,
+}
 
 /// A solution with its classification, computed only when needed (the global test of
 /// `acceptable`, or the estimate finally kept).
@@ -102,17 +119,23 @@ fn classify_free(
     classify(plant, layout, measured, &solution.z, &vec![false; layout.n])
 }
 
-fn acceptable(plant: &Plant, layout: &Layout, measured: &[Measured], best: &mut Settled) -> bool {
+fn verdict(plant: &Plant, layout: &Layout, measured: &[Measured], best: &mut Settled) -> Verdict {
     let solution = &best.0;
-    // A state resting on a bound is also suspect: from a poor start the iteration can pin a
-    // flow at zero and settle in a minimum of the boundary.
-    if solution.status != SolveStatus::Converged || solution.at_bound.iter().any(|&b| b) {
-        return false;
+    if solution.status != SolveStatus::Converged {
+        return Verdict::Poor;
     }
     let classification = best
         .1
         .get_or_insert_with(|| classify_free(plant, layout, measured, solution));
-    global_test(solution.objective, classification.redundancy, plant.alpha).passed
+    if !global_test(solution.objective, classification.redundancy, plant.alpha).passed {
+        Verdict::Poor
+    } else if solution.at_bound.iter().any(|&b| b) {
+        // A state resting on a bound is also suspect: from a poor start the iteration can pin
+        // a flow at zero and settle in a minimum of the boundary.
+        Verdict::OnBound
+    } else {
+        Verdict::Good
+    }
 }
 
 fn better(a: &Settled, b: &Settled) -> bool {
