@@ -3,6 +3,8 @@
 //! - `fenwick/reconcile_period`: one period of the Fenwick Reach methanol loop
 //!   (tests/data/fenwick-methanol.toml, 15 streams × 6 components, 26 meters) with noisy
 //!   readings: estimate, classification, every σ and the report.
+//! - `fenwick/with_gross_error`: the same period with a gross error of +8σ on the make-up gas
+//!   flow meter FR3-FI-101 (redundant), so that fault identification runs too.
 //! - `estimate/N`: generated networks of N streams × 8 components (benches/common/network.rs):
 //!   Layout::new + start::initial_point + solve::solve with the default options.
 //! - `estimate_10_iterations/N`: the same, capped at 10 Gauss–Newton iterations (what a run
@@ -89,11 +91,48 @@ fn fenwick(c: &mut Criterion) {
         report.objective.unwrap_or(f64::NAN),
         report.redundancy
     );
+    let faulty = period(with_gross_error(
+        &plant,
+        noisy_values(&plant, &exact_values(&plant, &layout, &z), NOISE_SEED),
+    ));
+    let faulty_report = reconcile_period(&plant, &faulty);
+    eprintln!(
+        "fenwick/with_gross_error: status {:?}, objective {:.2}, faults {:?}",
+        faulty_report.status,
+        faulty_report.objective.unwrap_or(f64::NAN),
+        faulty_report
+            .faults
+            .iter()
+            .map(|f| f.candidates.clone())
+            .collect::<Vec<_>>()
+    );
     let mut group = c.benchmark_group("fenwick");
     group.bench_function("reconcile_period", |b| {
         b.iter(|| reconcile_period(black_box(&plant), black_box(&input)))
     });
+    group.bench_function("with_gross_error", |b| {
+        b.iter(|| reconcile_period(black_box(&plant), black_box(&faulty)))
+    });
     group.finish();
+}
+
+/// Meter whose value gets the gross error in `fenwick/with_gross_error`, and its size in σ.
+const GROSS_ERROR_METER: &str = "FR3-FI-101";
+const GROSS_ERROR_SIGMAS: f64 = 8.0;
+
+fn with_gross_error(
+    plant: &Plant,
+    mut values: Vec<reconcile::period::MeterValue>,
+) -> Vec<reconcile::period::MeterValue> {
+    let v = values
+        .iter_mut()
+        .find(|v| plant.meters[v.meter].tag == GROSS_ERROR_METER)
+        .expect("the Fenwick loop has the make-up flow meter");
+    let sigma = plant.meters[v.meter]
+        .sigma_for(v.value)
+        .expect("positive σ");
+    v.value += GROSS_ERROR_SIGMAS * sigma;
+    values
 }
 
 fn networks(c: &mut Criterion) {
@@ -180,7 +219,13 @@ fn probe() {
         black_box(reconcile_period(&plant, &input));
     }
     let t_all = t.elapsed() / runs;
-    println!("fenwick: estimate {t_est:?} ({} iterations), classify {t_cls:?}, reconcile_period {t_all:?}", s.iterations);
+    let faulty = period(with_gross_error(&plant, input.values.clone()));
+    let t = Instant::now();
+    for _ in 0..runs {
+        black_box(reconcile_period(&plant, &faulty));
+    }
+    let t_fault = t.elapsed() / runs;
+    println!("fenwick: estimate {t_est:?} ({} iterations), classify {t_cls:?}, reconcile_period {t_all:?}, with gross error {t_fault:?}", s.iterations);
     let sizes: Vec<usize> = std::env::var("LOOPBAL_BENCH_PROBE_SIZES")
         .ok()
         .map(|s| s.split(',').filter_map(|x| x.trim().parse().ok()).collect())

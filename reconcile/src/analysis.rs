@@ -309,14 +309,7 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
     let tests = redundant.iter().filter(|&&r| r).count();
     let critical = measurement_test_critical(plant.alpha, tests);
     let gt = global_test(sol.objective, c.redundancy, plant.alpha);
-    report.global_test = Some(GlobalTestReport {
-        statistic: gt.statistic,
-        critical: gt.critical,
-        alpha: gt.alpha,
-        dof: gt.dof,
-        p_value: gt.p_value,
-        passed: gt.passed,
-    });
+    report.global_test = Some(gt);
     report.measurement_test = Some(MeasurementTestReport {
         critical,
         alpha_per_test: sidak(plant.alpha, tests.max(1)),

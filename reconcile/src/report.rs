@@ -21,18 +21,8 @@ pub enum ReportStatus {
     NoData,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct GlobalTestReport {
-    /// Minimised objective J = Σ((y − ŷ)/σ)².
-    pub statistic: f64,
-    /// χ²_{1−α}(ν).
-    pub critical: f64,
-    pub alpha: f64,
-    /// Degrees of freedom ν (the degree of redundancy).
-    pub dof: usize,
-    pub p_value: f64,
-    pub passed: bool,
-}
+/// The global test as reported.
+pub type GlobalTestReport = crate::stats::GlobalTest;
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct MeasurementTestReport {

@@ -131,20 +131,37 @@ struct Kkt {
     n: usize,
     p: usize,
     k: Triplets,
+    /// ‖K‖∞ of the unregularised matrix (δ = 0), for the refinement's residual test.
+    norm: f64,
     factor: Factor,
 }
 
 enum Factor {
+    /// LDLᵀ of the quasi-definite matrix, held in the symbolic cache: its identity there.
+    Ldl(u64),
+    /// Fallback when the LDLᵀ fails or its refinement does not converge: sparse LU with
+    /// threshold partial pivoting.
     Sparse(SparseLu),
     /// Fallback when the sparse LU refuses the matrix: dense LU with full pivoting.
     Dense(nalgebra::linalg::FullPivLU<f64, nalgebra::Dyn, nalgebra::Dyn>),
 }
+
+/// Refinement steps of an LDLᵀ solution at most (each must at least halve the residual), and
+/// the residual it must reach, relative to ‖K‖∞ ‖x‖∞ + ‖b‖∞: otherwise the step is taken from
+/// the LU.
+const LDL_REFINEMENTS: usize = 8;
+const LDL_TOLERANCE: f64 = 1e-14;
 
 impl Kkt {
     /// Assemble and factorise the KKT matrix at z with the variables in `fixed` held where
     /// they are. Fixed variables and the curvature (zero when not in use) keep their entries as
     /// explicit zeros, so the pattern, and with it the fill-reducing ordering and symbolic
     /// analysis in `cache`, stays the same for the whole solve.
+    ///
+    /// With the (1,1) block JᵀJ + C + εI positive definite the matrix is symmetric
+    /// quasi-definite, and an LDLᵀ with a fixed fill-reducing ordering and no pivoting exists
+    /// for it (Vanderbei 1995); it is tried first, and refactorised numerically in the cached
+    /// pattern. The LU is the fallback.
     fn new(
         layout: &Layout,
         gj: &Triplets,
@@ -191,16 +208,81 @@ impl Kkt {
         for row in 0..p {
             k.push(n + row, n + row, -DELTA);
         }
-        let factor = match SparseLu::with_symbolic(&k, cache) {
+        let mut rows = vec![0.0; n + p];
+        for &(r, _, v) in &k.entries {
+            rows[r] += v.abs();
+        }
+        let norm = norm_inf(&rows);
+        let factor = match Symbolic::for_matrix(cache, &k).factor_ldl(&k, n) {
+            Some(id) => Factor::Ldl(id),
+            None => Kkt::lu(&k, cache),
+        };
+        Some(Kkt {
+            n,
+            p,
+            k,
+            norm,
+            factor,
+        })
+    }
+
+    fn lu(k: &Triplets, cache: &mut Option<Symbolic>) -> Factor {
+        match SparseLu::with_symbolic(k, cache) {
             Some(lu) => Factor::Sparse(lu),
             None => Factor::Dense(k.to_dense().full_piv_lu()),
-        };
-        Some(Kkt { n, p, k, factor })
+        }
+    }
+
+    /// b − K x for the unregularised KKT matrix (δ = 0).
+    fn residual(&self, b: &[f64], x: &[f64]) -> Vec<f64> {
+        let mut kx = self.k.mul_vec(x);
+        for row in 0..self.p {
+            kx[self.n + row] += DELTA * x[self.n + row];
+        }
+        b.iter().zip(&kx).map(|(b, a)| b - a).collect()
+    }
+
+    /// K x = b from the LDLᵀ `id` with iterative refinement against the unregularised matrix,
+    /// which removes both δ and QDLDL's dynamic regularisation; `None` when the refinement does
+    /// not reach the residual tolerance.
+    fn solve_ldl(&self, id: u64, b: &[f64], cache: &mut Option<Symbolic>) -> Option<Vec<f64>> {
+        let sym = cache.as_mut()?;
+        let mut x = b.to_vec();
+        if !sym.solve_ldl(id, &mut x) {
+            return None;
+        }
+        let size = norm_inf(b);
+        let mut previous = f64::INFINITY;
+        for step in 0..=LDL_REFINEMENTS {
+            let mut res = self.residual(b, &x);
+            let r = norm_inf(&res);
+            if !r.is_finite() || !norm_inf(&x).is_finite() {
+                return None;
+            }
+            if r <= LDL_TOLERANCE * (self.norm * norm_inf(&x) + size) {
+                return Some(x);
+            }
+            // Stagnation: a singular matrix with an inconsistent right-hand side (dependent
+            // constraint rows), where only the LU's δ-regularised answer is the expected one.
+            if step == LDL_REFINEMENTS || r > 0.5 * previous {
+                break;
+            }
+            previous = r;
+            sym.solve_ldl(id, &mut res);
+            x.iter_mut().zip(&res).for_each(|(a, d)| *a += d);
+        }
+        None
     }
 
     /// The step for the gradient `top` and constraint values g.
-    fn step(&self, top: &[f64], g: &[f64], fixed: &[bool]) -> Option<Step> {
-        let (n, p) = (self.n, self.p);
+    fn step(
+        &mut self,
+        top: &[f64],
+        g: &[f64],
+        fixed: &[bool],
+        cache: &mut Option<Symbolic>,
+    ) -> Option<Step> {
+        let n = self.n;
         let mut rhs = top.to_vec();
         for (i, &f) in fixed.iter().enumerate() {
             if f {
@@ -208,6 +290,12 @@ impl Kkt {
             }
         }
         rhs.extend(g.iter().map(|x| -x));
+        if let Factor::Ldl(id) = self.factor {
+            match self.solve_ldl(id, &rhs, cache) {
+                Some(sol) => return Kkt::finish(n, sol),
+                None => self.factor = Kkt::lu(&self.k, cache),
+            }
+        }
         let sol = match &self.factor {
             Factor::Sparse(lu) => {
                 // Iterative refinement against the unregularised KKT matrix (δ = 0): the −δI
@@ -215,11 +303,7 @@ impl Kkt {
                 // would settle the iteration where g = δλ instead of g = 0.
                 let mut x = lu.solve(&rhs);
                 for _ in 0..3 {
-                    let mut kx = self.k.mul_vec(&x);
-                    for row in 0..p {
-                        kx[n + row] += DELTA * x[n + row];
-                    }
-                    let res: Vec<f64> = rhs.iter().zip(&kx).map(|(b, a)| b - a).collect();
+                    let res = self.residual(&rhs, &x);
                     let dx = lu.solve(&res);
                     x.iter_mut().zip(&dx).for_each(|(a, d)| *a += d);
                 }
@@ -229,7 +313,12 @@ impl Kkt {
                 .solve(&nalgebra::DVector::from_vec(rhs))?
                 .as_slice()
                 .to_vec(),
+            Factor::Ldl(_) => unreachable!("replaced above"),
         };
+        Kkt::finish(n, sol)
+    }
+
+    fn finish(n: usize, sol: Vec<f64>) -> Option<Step> {
         if sol.iter().any(|v| !v.is_finite()) {
             return None;
         }
@@ -328,10 +417,10 @@ pub fn solve_with(
         let mut released = vec![false; n];
         let mut locked = vec![false; n];
         for _ in 0..(2 * n + 2) {
-            let Some(system) = Kkt::new(layout, &gj, &j_rows, &fixed, &curvature, cache) else {
+            let Some(mut system) = Kkt::new(layout, &gj, &j_rows, &fixed, &curvature, cache) else {
                 break;
             };
-            let Some(s) = system.step(&jtr, &g, &fixed) else {
+            let Some(s) = system.step(&jtr, &g, &fixed, cache) else {
                 break;
             };
             let snapshot = fixed.clone();
@@ -460,12 +549,12 @@ pub fn solve_with(
             let g_trial = constraints(plant, layout, &full, None);
             let zero = vec![0.0; n];
             // The same matrix as the step's: its factorisation serves again.
-            let soc = match &kkt {
+            let soc = match &mut kkt {
                 Some((system, built_for)) if *built_for == fixed => {
-                    system.step(&zero, &g_trial, &fixed)
+                    system.step(&zero, &g_trial, &fixed, cache)
                 }
                 _ => Kkt::new(layout, &gj, &j_rows, &fixed, &curvature, cache)
-                    .and_then(|system| system.step(&zero, &g_trial, &fixed)),
+                    .and_then(|mut system| system.step(&zero, &g_trial, &fixed, cache)),
             };
             if let Some(soc) = soc {
                 let corrected = project((0..n).map(|i| full[i] + soc.dz[i]).collect());

@@ -1,7 +1,7 @@
 //! The tests of DOMAIN.md §6: the global test on the objective and the measurement test on the
 //! normalised adjustments, with the Šidák correction.
 
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 use statrs::distribution::{ChiSquared, ContinuousCDF, Normal};
 
 /// Upper critical value χ²_{1−α}(ν) of the chi-squared distribution.
@@ -45,11 +45,14 @@ pub fn measurement_test_critical(alpha: f64, tests: usize) -> f64 {
     normal_quantile(1.0 - sidak(alpha, tests.max(1)) / 2.0)
 }
 
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct GlobalTest {
+    /// Minimised objective J = Σ((y − ŷ)/σ)².
     pub statistic: f64,
+    /// χ²_{1−α}(ν).
     pub critical: f64,
     pub alpha: f64,
+    /// Degrees of freedom ν (the degree of redundancy).
     pub dof: usize,
     pub p_value: f64,
     pub passed: bool,
