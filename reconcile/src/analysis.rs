@@ -43,7 +43,14 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     // The KKT pattern depends only on the plant and the meters measured: restarts share its
     // symbolic analysis.
     let mut kkt = None;
-    let mut best = settle(plant, &layout, &measured, start.clone(), &mut kkt);
+    let mut best = settle(
+        plant,
+        &layout,
+        &measured,
+        start.clone(),
+        &mut kkt,
+        SolveOptions::default().max_iterations,
+    );
     // Bilinear problems are not convex: from a poor start the iteration can stall or settle in
     // a local minimum. When the estimate did not converge or fails the global test, try up to
     // RESTARTS deterministic restarts around the first start and keep the best converged one;
@@ -53,17 +60,32 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     loop {
         let limit = match verdict(plant, &layout, &measured, &mut best) {
             Verdict::Good => break,
-            Verdict::OnBound => RESTARTS_ON_BOUND,
-            Verdict::Poor => RESTARTS,
+            Verdict::OnBound | Verdict::FailsGlobalTest => FEW_RESTARTS,
+            Verdict::NotConverged => RESTARTS,
         };
         if restarts >= limit {
             break;
         }
         restarts += 1;
         let alternative = perturbed_start(&start, &layout, restarts as u64);
-        let candidate = settle(plant, &layout, &measured, alternative, &mut kkt);
+        let candidate = settle(
+            plant,
+            &layout,
+            &measured,
+            alternative,
+            &mut kkt,
+            RESTART_ITERATIONS,
+        );
+        // A converged restart that lands on the same objective confirms the minimum: a gross
+        // error, not a poor start, is what fails the global test; stop looking.
+        let confirms = candidate.0.status == SolveStatus::Converged
+            && best.0.status == SolveStatus::Converged
+            && (candidate.0.objective - best.0.objective).abs() <= 1e-6 * (1.0 + best.0.objective);
         if better(&candidate, &best) {
             best = candidate;
+        }
+        if confirms {
+            break;
         }
     }
     let (solution, classification) = best;
@@ -78,15 +100,18 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     }
 }
 
-/// Restarts tried when the estimate did not converge or fails the global test.
+/// Restarts tried when the estimate did not converge.
 const RESTARTS: usize = 6;
-/// Restarts tried when the estimate only rests on a bound.
-const RESTARTS_ON_BOUND: usize = 2;
+/// Restarts tried when the estimate converged but rests on a bound or fails the global test.
+const FEW_RESTARTS: usize = 2;
+/// Iteration limit of a restart: a good start converges in a handful.
+const RESTART_ITERATIONS: usize = 40;
 
 enum Verdict {
     Good,
     OnBound,
-    Poor,
+    FailsGlobalTest,
+    NotConverged,
 }
 
 /// A solution with its classification, computed only when needed (the global test of
@@ -99,8 +124,12 @@ fn settle(
     measured: &[Measured],
     start: Vec<f64>,
     kkt: &mut Option<Symbolic>,
+    max_iterations: usize,
 ) -> Settled {
-    let options = SolveOptions::default();
+    let options = SolveOptions {
+        max_iterations,
+        ..SolveOptions::default()
+    };
     (
         solve_with(plant, layout, measured, start, options, kkt),
         None,
@@ -122,13 +151,13 @@ fn classify_free(
 fn verdict(plant: &Plant, layout: &Layout, measured: &[Measured], best: &mut Settled) -> Verdict {
     let solution = &best.0;
     if solution.status != SolveStatus::Converged {
-        return Verdict::Poor;
+        return Verdict::NotConverged;
     }
     let classification = best
         .1
         .get_or_insert_with(|| classify_free(plant, layout, measured, solution));
     if !global_test(solution.objective, classification.redundancy, plant.alpha).passed {
-        Verdict::Poor
+        Verdict::FailsGlobalTest
     } else if solution.at_bound.iter().any(|&b| b) {
         // A state resting on a bound is also suspect: from a poor start the iteration can pin
         // a flow at zero and settle in a minimum of the boundary.
