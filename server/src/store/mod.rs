@@ -1,0 +1,295 @@
+//! Storage for the service, behind one seam: [`Store`] is an enum of backends, so PostgreSQL
+//! can be added as a variant later without touching the handlers that call it. Each group of
+//! tables has its own module (`plants`, `readings`, `tokens`, `runs`) holding the SQLite
+//! implementation of its methods; this file holds the enum, opening and the shared helpers.
+//!
+//! Every instant is stored as integer milliseconds since the Unix epoch (migrations/0001 says
+//! why). SQL is written only with bound parameters.
+
+use std::collections::BTreeMap;
+use std::str::FromStr;
+use std::time::Duration;
+
+use chrono::{DateTime, TimeZone, Utc};
+use reconcile::{ModelSpec, Reading};
+use sqlx::sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePool, SqlitePoolOptions};
+use sqlx::{Sqlite, Transaction};
+
+mod plants;
+mod readings;
+mod runs;
+#[cfg(test)]
+mod tests;
+mod tokens;
+
+pub use plants::{MeterRow, ModelRevision, PlantRow};
+pub use readings::{IngestCounts, StoredReading};
+pub use runs::{NewRun, RunRow};
+pub use tokens::{Grant, NewToken, Role};
+
+/// Why a storage call failed.
+#[derive(Debug, thiserror::Error)]
+pub enum StoreError {
+    #[error("unsupported database URL \"{0}\" (only sqlite: URLs or file paths for now)")]
+    UnsupportedUrl(String),
+    #[error("no plant named \"{0}\"")]
+    NoPlant(String),
+    #[error("a plant named \"{0}\" already exists")]
+    PlantExists(String),
+    #[error("period of {0} s is not a positive length")]
+    InvalidPeriod(i64),
+    #[error("stored data is corrupt: {0}")]
+    Corrupt(String),
+    #[error("database: {0}")]
+    Database(#[from] sqlx::Error),
+    #[error("migrating the database: {0}")]
+    Migrate(#[from] sqlx::migrate::MigrateError),
+}
+
+pub type Result<T> = std::result::Result<T, StoreError>;
+
+/// The schema, embedded in the binary and applied at start-up.
+static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("../migrations");
+
+/// The service's storage. Handlers hold one of these and never see the backend.
+#[derive(Debug, Clone)]
+pub enum Store {
+    Sqlite(SqliteStore),
+}
+
+/// SQLite through a connection pool. Writers serialise on SQLite's single write lock; the busy
+/// timeout makes a second writer wait for it instead of failing at once.
+#[derive(Debug, Clone)]
+pub struct SqliteStore {
+    pool: SqlitePool,
+}
+
+/// How long a writer waits for SQLite's write lock before giving up.
+const BUSY_TIMEOUT: Duration = Duration::from_secs(10);
+
+impl Store {
+    /// Open the database at `url` (`sqlite:PATH`, `sqlite://PATH`, or a bare file path),
+    /// creating the file and its schema on first start and applying any newer migrations.
+    pub async fn open(url: &str) -> Result<Store> {
+        let options = if url.starts_with("sqlite:") {
+            SqliteConnectOptions::from_str(url)?
+        } else if url.contains("://") {
+            return Err(StoreError::UnsupportedUrl(url.to_string()));
+        } else {
+            SqliteConnectOptions::new().filename(url)
+        };
+        let options = options
+            .create_if_missing(true)
+            // WAL lets readers (reports, dashboards) go on while a batch of readings is
+            // written; NORMAL sync is durable across application crashes in WAL mode.
+            .journal_mode(SqliteJournalMode::Wal)
+            .synchronous(sqlx::sqlite::SqliteSynchronous::Normal)
+            .foreign_keys(true)
+            .busy_timeout(BUSY_TIMEOUT);
+        let pool = SqlitePoolOptions::new().connect_with(options).await?;
+        MIGRATOR.run(&pool).await?;
+        Ok(Store::Sqlite(SqliteStore { pool }))
+    }
+
+    pub async fn close(&self) {
+        match self {
+            Store::Sqlite(s) => s.pool.close().await,
+        }
+    }
+
+    pub async fn create_plant(&self, name: &str) -> Result<PlantRow> {
+        match self {
+            Store::Sqlite(s) => s.create_plant(name).await,
+        }
+    }
+
+    pub async fn plant(&self, name: &str) -> Result<Option<PlantRow>> {
+        match self {
+            Store::Sqlite(s) => s.plant(name).await,
+        }
+    }
+
+    pub async fn plants(&self) -> Result<Vec<PlantRow>> {
+        match self {
+            Store::Sqlite(s) => s.plants().await,
+        }
+    }
+
+    /// Store a new, immutable model revision and its meters; returns its number (1, 2, ...).
+    /// The caller has validated `spec` (reconcile::Plant::new) first.
+    pub async fn put_model_revision(
+        &self,
+        plant: &PlantRow,
+        spec: &ModelSpec,
+        source: &str,
+        effective_from: DateTime<Utc>,
+    ) -> Result<i64> {
+        match self {
+            Store::Sqlite(s) => {
+                s.put_model_revision(plant, spec, source, effective_from)
+                    .await
+            }
+        }
+    }
+
+    /// The revision in effect at `at`: the latest effective_from not after `at`, and of two
+    /// with the same effective_from the later revision.
+    pub async fn current_model(
+        &self,
+        plant: &PlantRow,
+        at: DateTime<Utc>,
+    ) -> Result<Option<ModelRevision>> {
+        match self {
+            Store::Sqlite(s) => s.current_model(plant, at).await,
+        }
+    }
+
+    pub async fn model_revision(
+        &self,
+        plant: &PlantRow,
+        revision: i64,
+    ) -> Result<Option<ModelRevision>> {
+        match self {
+            Store::Sqlite(s) => s.model_revision(plant, revision).await,
+        }
+    }
+
+    pub async fn list_revisions(&self, plant: &PlantRow) -> Result<Vec<ModelRevision>> {
+        match self {
+            Store::Sqlite(s) => s.list_revisions(plant).await,
+        }
+    }
+
+    pub async fn meters(&self, plant: &PlantRow, revision: i64) -> Result<Vec<MeterRow>> {
+        match self {
+            Store::Sqlite(s) => s.meters(plant, revision).await,
+        }
+    }
+
+    /// Store a batch of checked readings in one transaction, idempotently by (plant, tag,
+    /// time), and mark the period of every new or changed reading dirty. `ranges` holds the
+    /// instrument range [lo, hi] of each tag that has one; a reading outside it is flagged.
+    pub async fn ingest_readings(
+        &self,
+        plant: &PlantRow,
+        readings: &[Reading],
+        period_seconds: i64,
+        ranges: &BTreeMap<String, [f64; 2]>,
+    ) -> Result<IngestCounts> {
+        match self {
+            Store::Sqlite(s) => {
+                s.ingest_readings(plant, readings, period_seconds, ranges)
+                    .await
+            }
+        }
+    }
+
+    /// Readings with `from <= time < to`, by time then tag.
+    pub async fn readings_in(
+        &self,
+        plant: &PlantRow,
+        from: DateTime<Utc>,
+        to: DateTime<Utc>,
+    ) -> Result<Vec<StoredReading>> {
+        match self {
+            Store::Sqlite(s) => s.readings_in(plant, from, to).await,
+        }
+    }
+
+    /// Dirty periods of a plant with the instant each was last marked, oldest period first.
+    pub async fn dirty_periods(
+        &self,
+        plant: &PlantRow,
+    ) -> Result<Vec<(DateTime<Utc>, DateTime<Utc>)>> {
+        match self {
+            Store::Sqlite(s) => s.dirty_periods(plant).await,
+        }
+    }
+
+    /// Clear a dirty mark unless it was set after `marked_up_to` (readings that arrived while
+    /// the period was being run keep it dirty). Returns whether it was cleared.
+    pub async fn clear_dirty(
+        &self,
+        plant: &PlantRow,
+        period_start: DateTime<Utc>,
+        marked_up_to: DateTime<Utc>,
+    ) -> Result<bool> {
+        match self {
+            Store::Sqlite(s) => s.clear_dirty(plant, period_start, marked_up_to).await,
+        }
+    }
+
+    /// A new API token: the plaintext is in the answer and nowhere else.
+    pub async fn create_token(&self, role: Role, plant: Option<&str>) -> Result<NewToken> {
+        match self {
+            Store::Sqlite(s) => s.create_token(role, plant).await,
+        }
+    }
+
+    /// What a presented token grants, if it is known and not revoked.
+    pub async fn verify_token(&self, token: &str) -> Result<Option<Grant>> {
+        match self {
+            Store::Sqlite(s) => s.verify_token(token).await,
+        }
+    }
+
+    pub async fn revoke_token(&self, id: i64) -> Result<bool> {
+        match self {
+            Store::Sqlite(s) => s.revoke_token(id).await,
+        }
+    }
+
+    /// Record a run of a period; it becomes the period's current run, the earlier ones stay
+    /// as history. Returns the run's id.
+    pub async fn record_run(&self, plant: &PlantRow, run: &NewRun) -> Result<i64> {
+        match self {
+            Store::Sqlite(s) => s.record_run(plant, run).await,
+        }
+    }
+
+    pub async fn current_run(
+        &self,
+        plant: &PlantRow,
+        period_start: DateTime<Utc>,
+    ) -> Result<Option<RunRow>> {
+        match self {
+            Store::Sqlite(s) => s.current_run(plant, period_start).await,
+        }
+    }
+
+    /// Every run of a period, oldest first.
+    pub async fn run_history(
+        &self,
+        plant: &PlantRow,
+        period_start: DateTime<Utc>,
+    ) -> Result<Vec<RunRow>> {
+        match self {
+            Store::Sqlite(s) => s.run_history(plant, period_start).await,
+        }
+    }
+}
+
+impl SqliteStore {
+    /// A write transaction that takes SQLite's write lock at BEGIN: a deferred one that reads
+    /// first could fail to upgrade when another writer commits in between, and the busy
+    /// timeout does not retry that.
+    async fn write(&self) -> Result<Transaction<'static, Sqlite>> {
+        Ok(self.pool.begin_with("BEGIN IMMEDIATE").await?)
+    }
+}
+
+/// An instant as stored: milliseconds since the Unix epoch.
+pub(crate) fn to_ms(t: DateTime<Utc>) -> i64 {
+    t.timestamp_millis()
+}
+
+pub(crate) fn from_ms(ms: i64) -> Result<DateTime<Utc>> {
+    Utc.timestamp_millis_opt(ms)
+        .single()
+        .ok_or_else(|| StoreError::Corrupt(format!("instant {ms} ms is out of range")))
+}
+
+/// The clock is read here only, so every row written by one call shares one instant.
+pub(crate) fn now_ms() -> i64 {
+    to_ms(Utc::now())
+}

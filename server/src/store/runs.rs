@@ -1,0 +1,118 @@
+//! Runs of the engine on a period: every run is kept, one per period is current.
+
+use chrono::{DateTime, Utc};
+use sqlx::types::Json;
+use sqlx::Row;
+
+use super::{from_ms, now_ms, to_ms, PlantRow, Result, SqliteStore};
+
+/// A run to record: what it ran on and what it answered.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NewRun {
+    pub period_start: DateTime<Utc>,
+    /// The model revision it used.
+    pub revision: i64,
+    pub engine_version: String,
+    /// The report's status ("solved", "no_data", ...).
+    pub status: String,
+    pub report: serde_json::Value,
+    /// The period's meter values as the engine saw them, so a run can be explained and
+    /// repeated after later readings replaced them.
+    pub inputs: serde_json::Value,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct RunRow {
+    pub id: i64,
+    pub run: NewRun,
+    pub created_at: DateTime<Utc>,
+    pub current: bool,
+}
+
+const COLUMNS: &str = "id, period_start, revision, engine_version, status, report_json, \
+                       inputs_json, created_at, current";
+
+impl SqliteStore {
+    pub(super) async fn record_run(&self, plant: &PlantRow, run: &NewRun) -> Result<i64> {
+        let start = to_ms(run.period_start);
+        // Demoting the old current run and inserting the new one in one transaction keeps
+        // exactly one current run per period (the partial unique index runs_current holds
+        // the database to at most one).
+        let mut tx = self.write().await?;
+        sqlx::query(
+            "UPDATE runs SET current = 0
+             WHERE plant_id = ? AND period_start = ? AND current = 1",
+        )
+        .bind(plant.id)
+        .bind(start)
+        .execute(&mut *tx)
+        .await?;
+        let id: i64 = sqlx::query_scalar(
+            "INSERT INTO runs (plant_id, period_start, revision, engine_version, status,
+                               report_json, inputs_json, created_at, current)
+             VALUES (?, ?, ?, ?, ?, ?, ?, ?, 1) RETURNING id",
+        )
+        .bind(plant.id)
+        .bind(start)
+        .bind(run.revision)
+        .bind(&run.engine_version)
+        .bind(&run.status)
+        .bind(Json(&run.report))
+        .bind(Json(&run.inputs))
+        .bind(now_ms())
+        .fetch_one(&mut *tx)
+        .await?;
+        tx.commit().await?;
+        Ok(id)
+    }
+
+    pub(super) async fn current_run(
+        &self,
+        plant: &PlantRow,
+        period_start: DateTime<Utc>,
+    ) -> Result<Option<RunRow>> {
+        let row = sqlx::query(&format!(
+            "SELECT {COLUMNS} FROM runs
+             WHERE plant_id = ? AND period_start = ? AND current = 1"
+        ))
+        .bind(plant.id)
+        .bind(to_ms(period_start))
+        .fetch_optional(&self.pool)
+        .await?;
+        row.map(|r| run_row(&r)).transpose()
+    }
+
+    pub(super) async fn run_history(
+        &self,
+        plant: &PlantRow,
+        period_start: DateTime<Utc>,
+    ) -> Result<Vec<RunRow>> {
+        let rows = sqlx::query(&format!(
+            "SELECT {COLUMNS} FROM runs
+             WHERE plant_id = ? AND period_start = ? ORDER BY id"
+        ))
+        .bind(plant.id)
+        .bind(to_ms(period_start))
+        .fetch_all(&self.pool)
+        .await?;
+        rows.iter().map(run_row).collect()
+    }
+}
+
+fn run_row(r: &sqlx::sqlite::SqliteRow) -> Result<RunRow> {
+    let Json(report): Json<serde_json::Value> = r.try_get("report_json")?;
+    let Json(inputs): Json<serde_json::Value> = r.try_get("inputs_json")?;
+    Ok(RunRow {
+        id: r.try_get("id")?,
+        run: NewRun {
+            period_start: from_ms(r.try_get("period_start")?)?,
+            revision: r.try_get("revision")?,
+            engine_version: r.try_get("engine_version")?,
+            status: r.try_get("status")?,
+            report,
+            inputs,
+        },
+        created_at: from_ms(r.try_get("created_at")?)?,
+        current: r.try_get("current")?,
+    })
+}
