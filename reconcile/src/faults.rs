@@ -147,7 +147,7 @@ pub fn identify(plant: &Plant, est: &Estimate) -> Identification {
 
     while dof > 0 && !global_test(r.dot(&r), dof, plant.alpha).passed {
         // GLR of every hypothesis still open.
-        let mut best: Option<(usize, f64)> = None;
+        let mut statistics: Vec<Option<f64>> = vec![None; hyps.len()];
         let mut signatures: Vec<Option<DVector<f64>>> = vec![None; hyps.len()];
         for (h, hyp) in hyps.iter().enumerate() {
             if accepted[h] {
@@ -158,13 +158,22 @@ pub fn identify(plant: &Plant, est: &Estimate) -> Identification {
             if fwf <= DETECTABLE * hyp.f.dot(&hyp.f) {
                 continue;
             }
-            let t = wf.dot(&r).powi(2) / fwf;
-            if best.is_none_or(|(_, tb)| t > tb) {
-                best = Some((h, t));
-            }
+            statistics[h] = Some(wf.dot(&r).powi(2) / fwf);
             signatures[h] = Some(wf);
         }
-        let Some((h, t)) = best else { break };
+        let Some(t_max) = statistics.iter().flatten().copied().reduce(f64::max) else {
+            break;
+        };
+        // The strongest hypothesis; among ties within rounding (equivalent members have equal
+        // statistics in exact arithmetic), the first in model order, so the same data always
+        // head the group with the same member.
+        let Some((h, t)) = statistics
+            .iter()
+            .enumerate()
+            .find_map(|(k, s)| s.filter(|&tk| tk >= t_max * (1.0 - 1e-9)).map(|tk| (k, tk)))
+        else {
+            break;
+        };
         if t <= critical {
             break;
         }
