@@ -27,7 +27,7 @@ use crate::analysis::Estimate;
 use crate::equations::{constraints, Row};
 use crate::model::Plant;
 use crate::report::{Fault, FaultCandidate, FaultKind};
-use crate::solve::scaled_measurements;
+use crate::solve::{scaled_measurements, scaled_residuals};
 use crate::sparse::Triplets;
 use crate::stats::{chi2_critical, global_test, normal_quantile, sidak};
 
@@ -76,7 +76,7 @@ fn hypotheses(plant: &Plant, est: &Estimate) -> Vec<Hypothesis> {
     if g.nrows() == 0 {
         return out;
     }
-    let svd = g.clone().svd(true, true);
+    let svd = g.svd(true, true);
     for (u, unit) in plant.units.iter().enumerate() {
         let mut inflow = vec![0.0; plant.components.len()];
         for &s in &unit.inlets {
@@ -124,13 +124,12 @@ pub fn identify(plant: &Plant, est: &Estimate) -> Identification {
         return result;
     }
     let mut w: DMatrix<f64> = c.scaled_adjustment_covariance();
-    let r0 = DVector::from_iterator(
-        m,
-        est.measured
-            .iter()
-            .enumerate()
-            .map(|(k, meas)| (meas.value - est.reconciled(plant, k).0) / meas.sigma),
-    );
+    let r0 = DVector::from_vec(scaled_residuals(
+        plant,
+        &est.layout,
+        &est.measured,
+        &est.solution.z,
+    ));
     let mut r = &w * &r0;
     let mut dof = c.redundancy;
     if global_test(r.dot(&r), dof, plant.alpha).passed {
