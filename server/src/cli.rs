@@ -1,10 +1,13 @@
-//! The command line (FORMATS.md, "The binary"). Only the file commands exist so far; `serve`,
-//! `demo` and `token` arrive with the HTTP service.
+//! The command line (FORMATS.md, "The binary"). `demo` arrives with its own issue.
 
+use std::net::SocketAddr;
 use std::path::PathBuf;
 
 use chrono::{DateTime, Utc};
-use clap::{Parser, Subcommand};
+use clap::{Args, Parser, Subcommand, ValueEnum};
+
+/// The database when none is given: a SQLite file in the working directory.
+pub const DEFAULT_DATABASE: &str = "loopbal.sqlite";
 
 #[derive(Debug, Parser)]
 #[command(
@@ -41,6 +44,57 @@ pub enum Command {
         #[arg(long, value_name = "TIME", value_parser = parse_time)]
         period_to: Option<DateTime<Utc>>,
     },
+    /// Run the HTTP service.
+    Serve {
+        /// Address and port to listen on.
+        #[arg(long, value_name = "ADDR", default_value = "127.0.0.1:8080", env = "LOOPBAL_LISTEN")]
+        listen: SocketAddr,
+        #[command(flatten)]
+        database: DatabaseArg,
+        /// Largest request body accepted, in bytes (a readings batch, a model).
+        #[arg(long, value_name = "BYTES", default_value_t = 64 * 1024 * 1024, env = "LOOPBAL_MAX_BODY_BYTES")]
+        max_body_bytes: usize,
+        /// Seconds before an unanswered request is abandoned with 408.
+        #[arg(long, value_name = "SECONDS", default_value_t = 60, env = "LOOPBAL_REQUEST_TIMEOUT",
+              value_parser = clap::value_parser!(u64).range(1..=3600))]
+        request_timeout: u64,
+    },
+    /// API tokens.
+    Token {
+        #[command(subcommand)]
+        command: TokenCommand,
+    },
+}
+
+#[derive(Debug, Args)]
+pub struct DatabaseArg {
+    /// The database: a SQLite file path or `sqlite:` URL; created with its schema if absent.
+    #[arg(long, value_name = "URL", default_value = DEFAULT_DATABASE, env = "LOOPBAL_DATABASE_URL")]
+    pub database: String,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum TokenCommand {
+    /// Make a new token and print it once: only its hash is stored.
+    Create {
+        /// What the token may do: ingest (post readings), read (models, reports, figures,
+        /// meters), maintain (technicians' notes), admin (everything).
+        #[arg(long, value_enum)]
+        role: RoleArg,
+        /// Limit the token to one plant (every plant when absent).
+        #[arg(long, value_name = "PLANT")]
+        plant: Option<String>,
+        #[command(flatten)]
+        database: DatabaseArg,
+    },
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum RoleArg {
+    Ingest,
+    Read,
+    Maintain,
+    Admin,
 }
 
 fn parse_time(text: &str) -> Result<DateTime<Utc>, String> {

@@ -2,47 +2,13 @@
 //! them into the exit status of FORMATS.md (0 success, 1 failed run, 2 bad input) with the
 //! message on stderr.
 
-use std::fmt;
 use std::io::Write;
 use std::process::ExitCode;
 
 use clap::Parser;
 
-mod cli;
-mod model_file;
-mod readings;
-mod readings_csv;
-mod run;
-// The service's storage; the HTTP handlers that call it come in the next step of issue 4,
-// until then only its tests do.
-#[allow(dead_code)]
-mod store;
-mod summary;
-
-use cli::{Cli, Command};
-
-/// The user's input is at fault (exit status 2). Each line names the file and the line or
-/// item; anything else that stops a command is a failed run (exit status 1).
-#[derive(Debug)]
-pub struct BadInput(Vec<String>);
-
-impl BadInput {
-    pub fn new(line: String) -> BadInput {
-        BadInput(vec![line])
-    }
-
-    pub fn lines(lines: Vec<String>) -> BadInput {
-        BadInput(lines)
-    }
-}
-
-impl fmt::Display for BadInput {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(&self.0.join("\n"))
-    }
-}
-
-impl std::error::Error for BadInput {}
+use loopbal_server::cli::{Cli, Command, RoleArg, TokenCommand};
+use loopbal_server::{api, model_file, run, serve, store, summary, BadInput};
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
@@ -59,6 +25,33 @@ fn main() -> ExitCode {
             from: *period_from,
             to: *period_to,
         }),
+        Command::Serve {
+            listen,
+            database,
+            max_body_bytes,
+            request_timeout,
+        } => {
+            serve::init_tracing();
+            runtime().and_then(|rt| {
+                rt.block_on(serve::serve(serve::Options {
+                    listen: *listen,
+                    database: database.database.clone(),
+                    limits: api::Limits {
+                        max_body_bytes: *max_body_bytes,
+                        request_timeout: std::time::Duration::from_secs(*request_timeout),
+                    },
+                }))
+            })
+            .map(|()| ExitCode::SUCCESS)
+        }
+        Command::Token {
+            command:
+                TokenCommand::Create {
+                    role,
+                    plant,
+                    database,
+                },
+        } => token_create(*role, plant.as_deref(), &database.database),
     };
     match result {
         Ok(code) => code,
@@ -80,5 +73,39 @@ fn check_model(path: &std::path::Path) -> anyhow::Result<ExitCode> {
     let mut stdout = std::io::stdout().lock();
     write!(stdout, "{}: {}", path.display(), summary::summary(&plant))?;
     stdout.flush()?;
+    Ok(ExitCode::SUCCESS)
+}
+
+fn runtime() -> anyhow::Result<tokio::runtime::Runtime> {
+    Ok(tokio::runtime::Builder::new_multi_thread()
+        .enable_all()
+        .build()?)
+}
+
+fn token_create(role: RoleArg, plant: Option<&str>, database: &str) -> anyhow::Result<ExitCode> {
+    use store::Role;
+    let role = match role {
+        RoleArg::Ingest => Role::Ingest,
+        RoleArg::Read => Role::Read,
+        RoleArg::Maintain => Role::Maintain,
+        RoleArg::Admin => Role::Admin,
+    };
+    if let Some(p) = plant {
+        api::check_plant_name(p).map_err(|e| BadInput::new(format!("--plant: {}", e.detail)))?;
+    }
+    let made = runtime()?.block_on(async {
+        let store = store::Store::open(database).await?;
+        let made = store.create_token(role, plant).await;
+        store.close().await;
+        made
+    })?;
+    // The token on stdout alone, so `TOKEN=$(loopbal token create ...)` works; the rest on
+    // stderr.
+    println!("{}", made.token);
+    let scope = plant.map_or("every plant".to_string(), |p| format!("plant {p}"));
+    eprintln!(
+        "token {} with role {} for {scope} stored (hashed) in {database}; this is the only time it is shown",
+        made.id, made.role
+    );
     Ok(ExitCode::SUCCESS)
 }

@@ -49,6 +49,8 @@ pub enum Problem {
     FieldCount { found: usize, expected: usize },
     #[error("is not UTF-8 text")]
     NotUtf8,
+    #[error("repeats the tag and time of {earlier}, which is kept")]
+    Repeated { earlier: Place },
     #[error("is not an object with tag, time, value and quality")]
     NotAnObject,
     #[error("{field} must be {expected}")]
@@ -119,42 +121,63 @@ pub fn detect(path: &Path, bytes: &[u8]) -> Format {
 }
 
 pub fn parse(bytes: &[u8], format: Format, plant: &Plant) -> Result<Readings, ReadingsError> {
+    let sorted = sort(bytes, format, &|tag| plant.meter_index(tag).is_some())?;
+    if !sorted.bad.is_empty() {
+        return Err(ReadingsError::Bad(sorted.bad));
+    }
+    let mut readings: Vec<Reading> = Vec::new();
+    let mut places: Vec<Place> = Vec::new();
+    let mut replaced = Vec::new();
+    // (tag, instant) → index in `readings`: two spellings of one instant are one reading, and
+    // in a file the later line wins (a file is edited by hand; its last word counts).
+    let mut seen: HashMap<(String, DateTime<Utc>), usize> = HashMap::new();
+    for (place, reading) in sorted.good {
+        let key = (reading.tag.clone(), reading.time);
+        if let Some(&i) = seen.get(&key) {
+            replaced.push(Replacement {
+                later: place,
+                earlier: places[i],
+            });
+            readings[i] = reading;
+            places[i] = place;
+        } else {
+            seen.insert(key, readings.len());
+            readings.push(reading);
+            places.push(place);
+        }
+    }
+    Ok(Readings { readings, replaced })
+}
+
+/// A batch split into the readings that passed every check, in the order given, and the bad
+/// ones with all their problems. Repeats of one (tag, instant) are left to the caller.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Sorted {
+    pub good: Vec<(Place, Reading)>,
+    pub bad: Vec<BadReading>,
+}
+
+/// Check every reading of a body; `known` says whether a tag belongs to a meter. Fails as a
+/// whole only when the body has no readable structure (no header, not JSON, wrong shape).
+pub fn sort(
+    bytes: &[u8],
+    format: Format,
+    known: &dyn Fn(&str) -> bool,
+) -> Result<Sorted, ReadingsError> {
     let body = bytes.strip_prefix(BOM).unwrap_or(bytes);
     let raw = match format {
         Format::Csv => crate::readings_csv::raw_readings(body)?,
         Format::Json => raw_json(body)?,
     };
-    let mut readings: Vec<Reading> = Vec::new();
-    let mut places: Vec<Place> = Vec::new();
+    let mut good = Vec::with_capacity(raw.len());
     let mut bad = Vec::new();
-    let mut replaced = Vec::new();
-    // (tag, instant) → index in `readings`: two spellings of one instant are one reading.
-    let mut seen: HashMap<(String, DateTime<Utc>), usize> = HashMap::new();
     for (place, fields) in raw {
-        match fields.and_then(|f| check(&f, plant)) {
-            Ok(reading) => {
-                let key = (reading.tag.clone(), reading.time);
-                if let Some(&i) = seen.get(&key) {
-                    replaced.push(Replacement {
-                        later: place,
-                        earlier: places[i],
-                    });
-                    readings[i] = reading;
-                    places[i] = place;
-                } else {
-                    seen.insert(key, readings.len());
-                    readings.push(reading);
-                    places.push(place);
-                }
-            }
+        match fields.and_then(|f| check(&f, known)) {
+            Ok(reading) => good.push((place, reading)),
             Err(problems) => bad.push(BadReading { place, problems }),
         }
     }
-    if bad.is_empty() {
-        Ok(Readings { readings, replaced })
-    } else {
-        Err(ReadingsError::Bad(bad))
-    }
+    Ok(Sorted { good, bad })
 }
 
 /// A value as found in the file, before it is checked.
@@ -178,12 +201,12 @@ pub struct RawFields {
 pub type RawReading = (Place, Result<RawFields, Vec<Problem>>);
 
 /// Check every field, collecting all problems of the reading rather than the first.
-fn check(f: &RawFields, plant: &Plant) -> Result<Reading, Vec<Problem>> {
+fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Problem>> {
     let mut problems = Vec::new();
     let tag = f.tag.trim();
     if tag.is_empty() {
         problems.push(Problem::EmptyTag);
-    } else if plant.meter_index(tag).is_none() {
+    } else if !known(tag) {
         problems.push(Problem::UnknownTag(tag.to_string()));
     }
     let time_text = f.time.trim();

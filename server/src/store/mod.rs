@@ -91,6 +91,16 @@ impl Store {
         Ok(Store::Sqlite(SqliteStore { pool }))
     }
 
+    /// Does the database answer?
+    pub async fn ping(&self) -> Result<()> {
+        match self {
+            Store::Sqlite(s) => {
+                sqlx::query("SELECT 1").execute(&s.pool).await?;
+                Ok(())
+            }
+        }
+    }
+
     pub async fn close(&self) {
         match self {
             Store::Sqlite(s) => s.pool.close().await,

@@ -1,0 +1,335 @@
+//! The HTTP API of FORMATS.md: axum handlers that turn requests into store and engine calls
+//! and back. Every route is registered through `utoipa_axum::routes!`, so the OpenAPI document
+//! served at `/api/v1/openapi.json` is generated from the same list the router serves.
+
+use std::sync::{Arc, OnceLock};
+use std::time::{Duration, Instant};
+
+use axum::body::Body;
+use axum::extract::{MatchedPath, Request, State};
+use axum::http::{header, HeaderValue, StatusCode};
+use axum::middleware::{self, Next};
+use axum::response::{IntoResponse, Response};
+use axum::Router;
+use tower_http::timeout::TimeoutLayer;
+use tower_http::trace::TraceLayer;
+use utoipa::openapi::security::{HttpAuthScheme, HttpBuilder, SecurityScheme};
+use utoipa::{Modify, OpenApi};
+use utoipa_axum::router::OpenApiRouter;
+use utoipa_axum::routes;
+
+use crate::metrics::Metrics;
+use crate::store::Store;
+
+pub mod auth;
+mod models;
+pub mod problem;
+mod readings;
+
+use problem::Problem;
+
+/// Limits of the HTTP layer.
+#[derive(Debug, Clone, Copy)]
+pub struct Limits {
+    /// Largest request body accepted (readings batches, models).
+    pub max_body_bytes: usize,
+    /// A request not answered in this time gets 408.
+    pub request_timeout: Duration,
+}
+
+impl Default for Limits {
+    fn default() -> Limits {
+        Limits {
+            max_body_bytes: 64 * 1024 * 1024,
+            request_timeout: Duration::from_secs(60),
+        }
+    }
+}
+
+/// What every handler shares.
+#[derive(Clone)]
+pub struct AppState {
+    pub store: Store,
+    pub metrics: Arc<Metrics>,
+    pub limits: Limits,
+    openapi: Arc<OnceLock<String>>,
+}
+
+impl AppState {
+    pub fn new(store: Store, limits: Limits) -> AppState {
+        AppState {
+            store,
+            metrics: Arc::new(Metrics::default()),
+            limits,
+            openapi: Arc::new(OnceLock::new()),
+        }
+    }
+}
+
+#[derive(OpenApi)]
+#[openapi(
+    info(
+        title = "loopbal",
+        description = "Data reconciliation of plant recycle loops: plant models, historian \
+                       readings, reconciled balances and meter health. Errors are RFC 9457 \
+                       problem details (application/problem+json). Results inform decisions \
+                       on hazardous plant: site procedures, local codes and licensed \
+                       engineering judgement take precedence."
+    ),
+    modifiers(&BearerScheme),
+    tags(
+        (name = "models", description = "Plant models and their revisions"),
+        (name = "readings", description = "Historian readings"),
+        (name = "service", description = "Liveness, metrics and this description"),
+    )
+)]
+struct ApiDoc;
+
+struct BearerScheme;
+
+impl Modify for BearerScheme {
+    fn modify(&self, openapi: &mut utoipa::openapi::OpenApi) {
+        let components = openapi.components.get_or_insert_with(Default::default);
+        components.add_security_scheme(
+            "token",
+            SecurityScheme::Http(HttpBuilder::new().scheme(HttpAuthScheme::Bearer).build()),
+        );
+    }
+}
+
+/// The router and the OpenAPI document of every route it serves.
+pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
+    let (routes, openapi) = OpenApiRouter::with_openapi(ApiDoc::openapi())
+        .routes(routes!(healthz))
+        .routes(routes!(metrics))
+        .routes(routes!(openapi_json))
+        .routes(routes!(models::put_model, models::get_model))
+        .routes(routes!(models::list_revisions))
+        .routes(routes!(readings::post_readings))
+        .split_for_parts();
+    let text = serde_json::to_string_pretty(&openapi).unwrap_or_default();
+    let _ = state.openapi.set(text);
+    let limits = state.limits;
+    let router = routes
+        .fallback(not_found)
+        .layer(axum::extract::DefaultBodyLimit::max(limits.max_body_bytes))
+        // Innermost first: the timeout's 408 and axum's own plain-text rejections are turned
+        // into problem details, then counted and traced with their final status.
+        .layer(TimeoutLayer::with_status_code(
+            StatusCode::REQUEST_TIMEOUT,
+            limits.request_timeout,
+        ))
+        .layer(middleware::from_fn(problem_details))
+        .layer(middleware::from_fn_with_state(state.clone(), observe))
+        .layer(
+            TraceLayer::new_for_http()
+                .make_span_with(|req: &Request<Body>| {
+                    let route = req
+                        .extensions()
+                        .get::<MatchedPath>()
+                        .map(|p| p.as_str().to_string())
+                        .unwrap_or_else(|| "unmatched".into());
+                    // Only the method, the route template and the plant: never headers (the
+                    // token) or bodies (reading values).
+                    tracing::info_span!(
+                        "request",
+                        method = %req.method(),
+                        route = %route,
+                        plant = %plant_of(req.uri().path()),
+                        status = tracing::field::Empty,
+                        latency_ms = tracing::field::Empty,
+                    )
+                })
+                .on_request(())
+                .on_response(
+                    |res: &Response, latency: Duration, span: &tracing::Span| {
+                        span.record("status", res.status().as_u16());
+                        span.record("latency_ms", latency.as_secs_f64() * 1e3);
+                        tracing::info!("answered");
+                    },
+                ),
+        )
+        .with_state(state);
+    (router, openapi)
+}
+
+/// The plant named in an `/api/v1/plants/{plant}/...` path, or "-".
+fn plant_of(path: &str) -> &str {
+    path.strip_prefix("/api/v1/plants/")
+        .and_then(|rest| rest.split('/').next())
+        .filter(|p| !p.is_empty())
+        .unwrap_or("-")
+}
+
+/// Count every answer by route template and status.
+async fn observe(State(state): State<AppState>, req: Request, next: Next) -> Response {
+    let start = Instant::now();
+    let method = req.method().to_string();
+    let route = req
+        .extensions()
+        .get::<MatchedPath>()
+        .map(|p| p.as_str().to_string())
+        .unwrap_or_else(|| "unmatched".into());
+    let response = next.run(req).await;
+    state
+        .metrics
+        .request(&method, &route, response.status().as_u16(), start.elapsed());
+    response
+}
+
+/// Error answers that did not come from our handlers (axum's rejections, 405, 408, 413) are
+/// rewritten as problem details, keeping their message as the detail.
+async fn problem_details(req: Request, next: Next) -> Response {
+    let method = req.method().clone();
+    let response = next.run(req).await;
+    let status = response.status();
+    if !(status.is_client_error() || status.is_server_error()) {
+        return response;
+    }
+    let is_problem = response
+        .headers()
+        .get(header::CONTENT_TYPE)
+        .is_some_and(|v| v.as_bytes() == problem::CONTENT_TYPE.as_bytes());
+    if is_problem {
+        return response;
+    }
+    let (parts, body) = response.into_parts();
+    let text = axum::body::to_bytes(body, 4096).await.unwrap_or_default();
+    let text = String::from_utf8_lossy(&text).trim().to_string();
+    let detail = match status {
+        StatusCode::METHOD_NOT_ALLOWED => {
+            let allowed = parts
+                .headers
+                .get(header::ALLOW)
+                .and_then(|v| v.to_str().ok())
+                .filter(|v| !v.is_empty())
+                .map(|v| format!("; it takes {v}"))
+                .unwrap_or_default();
+            format!("this path does not take {method}{allowed}")
+        }
+        StatusCode::REQUEST_TIMEOUT => "the request took too long and was abandoned".into(),
+        StatusCode::PAYLOAD_TOO_LARGE => "the request body is larger than the service accepts".into(),
+        _ if text.is_empty() => status.canonical_reason().unwrap_or("error").to_string(),
+        _ => text,
+    };
+    let mut answer = Problem::new(status, "http", detail).into_response();
+    if let Some(allow) = parts.headers.get(header::ALLOW) {
+        answer.headers_mut().insert(header::ALLOW, allow.clone());
+    }
+    answer
+}
+
+async fn not_found() -> Problem {
+    Problem::not_found("no such path; the API is described at /api/v1/openapi.json")
+}
+
+/// Liveness: the process answers and its database does.
+#[utoipa::path(
+    get,
+    path = "/healthz",
+    tag = "service",
+    responses(
+        (status = 200, description = "The service and its database answer", body = String, content_type = "text/plain"),
+        (status = 503, description = "The database does not answer", body = Problem, content_type = "application/problem+json"),
+    )
+)]
+async fn healthz(State(state): State<AppState>) -> Result<&'static str, Problem> {
+    state
+        .store
+        .ping()
+        .await
+        .map_err(|_| Problem::unavailable("the database does not answer"))?;
+    Ok("ok\n")
+}
+
+/// Counters and latency histograms in the Prometheus text format.
+#[utoipa::path(
+    get,
+    path = "/metrics",
+    tag = "service",
+    responses((status = 200, description = "Prometheus text exposition format 0.0.4", body = String, content_type = "text/plain; version=0.0.4"))
+)]
+async fn metrics(State(state): State<AppState>) -> Response {
+    let mut response = state.metrics.render().into_response();
+    response.headers_mut().insert(
+        header::CONTENT_TYPE,
+        HeaderValue::from_static("text/plain; version=0.0.4; charset=utf-8"),
+    );
+    response
+}
+
+/// This document: the OpenAPI 3 description of every route.
+#[utoipa::path(
+    get,
+    path = "/api/v1/openapi.json",
+    tag = "service",
+    responses((status = 200, description = "OpenAPI 3.1 document", body = Object, content_type = "application/json"))
+)]
+async fn openapi_json(State(state): State<AppState>) -> Response {
+    let text = state.openapi.get().cloned().unwrap_or_default();
+    let mut response = text.into_response();
+    response.headers_mut().insert(
+        header::CONTENT_TYPE,
+        HeaderValue::from_static("application/json"),
+    );
+    response
+}
+
+#[cfg(test)]
+mod tests {
+    use super::plant_of;
+
+    #[test]
+    fn plant_is_read_from_the_path() {
+        assert_eq!(plant_of("/api/v1/plants/kestrel/readings"), "kestrel");
+        assert_eq!(plant_of("/api/v1/plants/"), "-");
+        assert_eq!(plant_of("/healthz"), "-");
+    }
+}
+
+/// The media type of the body, lower case, without parameters (`text/csv; charset=utf-8` is
+/// `text/csv`).
+pub(crate) fn media_type(headers: &axum::http::HeaderMap) -> Option<String> {
+    let value = headers.get(header::CONTENT_TYPE)?.to_str().ok()?;
+    let media = value.split(';').next()?.trim().to_ascii_lowercase();
+    (!media.is_empty()).then_some(media)
+}
+
+/// The body, or the problem of reading it (over the size limit, cut off).
+pub(crate) fn body_bytes(
+    body: Result<axum::body::Bytes, axum::extract::rejection::BytesRejection>,
+    state: &AppState,
+) -> Result<axum::body::Bytes, Problem> {
+    body.map_err(|e| {
+        if e.status() == StatusCode::PAYLOAD_TOO_LARGE {
+            Problem::new(
+                StatusCode::PAYLOAD_TOO_LARGE,
+                "too-large",
+                format!(
+                    "the body is over the limit of {} bytes; send smaller batches",
+                    state.limits.max_body_bytes
+                ),
+            )
+        } else {
+            Problem::new(e.status(), "unreadable-body", format!("the body could not be read: {e}"))
+        }
+    })
+}
+
+/// Plant names are path segments and file-system-safe: 1 to 64 of letters, digits, `.`, `_`
+/// and `-`, not starting with a dot.
+pub fn check_plant_name(name: &str) -> Result<(), Problem> {
+    let ok = (1..=64).contains(&name.len())
+        && !name.starts_with('.')
+        && name
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || matches!(c, '.' | '_' | '-'));
+    if ok {
+        Ok(())
+    } else {
+        Err(Problem::bad_request(format!(
+            "plant name \"{name}\" must be 1 to 64 letters, digits, '.', '_' or '-', not \
+             starting with '.'"
+        )))
+    }
+}

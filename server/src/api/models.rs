@@ -1,0 +1,270 @@
+//! Plant models: `PUT` stores a new immutable revision after the engine's validator has passed
+//! it; `GET` answers the revision in effect now; `/model/revisions` lists them all.
+
+use axum::body::Bytes;
+use axum::extract::rejection::BytesRejection;
+use axum::extract::{Path, Query, State};
+use axum::http::{header, HeaderMap, HeaderValue, StatusCode};
+use axum::response::{IntoResponse, Response};
+use axum::Json;
+use chrono::{DateTime, SecondsFormat, Utc};
+use reconcile::{ModelError, ModelSpec, Plant};
+use serde::{Deserialize, Serialize};
+use utoipa::{IntoParams, ToSchema};
+
+use super::auth::Caller;
+use super::problem::{ItemError, Problem};
+use super::{body_bytes, check_plant_name, media_type, AppState};
+use crate::store::{ModelRevision, Role, StoreError};
+
+#[derive(Debug, Deserialize, IntoParams)]
+pub struct PutModelQuery {
+    /// When the revision takes effect (RFC 3339); now when absent. Periods starting at or
+    /// after it are reconciled with it.
+    effective_from: Option<String>,
+}
+
+/// A stored revision, without its model.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct RevisionSummary {
+    pub plant: String,
+    pub revision: i64,
+    /// RFC 3339, UTC.
+    pub effective_from: String,
+    /// RFC 3339, UTC.
+    pub created_at: String,
+    pub streams: usize,
+    pub meters: usize,
+    pub units: usize,
+}
+
+/// A revision with its model.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct RevisionBody {
+    #[serde(flatten)]
+    pub summary: RevisionSummary,
+    /// The model as JSON (the structure of the model file).
+    #[schema(value_type = Object)]
+    pub model: ModelSpec,
+    /// The model exactly as it was sent (TOML or JSON, with its comments).
+    pub source: String,
+}
+
+fn rfc3339(t: DateTime<Utc>) -> String {
+    t.to_rfc3339_opts(SecondsFormat::Secs, true)
+}
+
+fn summary(plant: &str, rev: &ModelRevision) -> RevisionSummary {
+    RevisionSummary {
+        plant: plant.to_string(),
+        revision: rev.revision,
+        effective_from: rfc3339(rev.effective_from),
+        created_at: rfc3339(rev.created_at),
+        streams: rev.spec.streams.len(),
+        meters: rev.spec.meters.len(),
+        units: rev.spec.units.len(),
+    }
+}
+
+/// Store a new model revision.
+///
+/// The body is the model file of FORMATS.md as TOML (`application/toml`) or JSON
+/// (`application/json`). It is validated in full: an invalid model gets 422 with every problem
+/// listed by the item it names, and nothing is stored. The plant is created by its first model.
+#[utoipa::path(
+    put,
+    path = "/api/v1/plants/{plant}/model",
+    tag = "models",
+    params(("plant" = String, Path, description = "Plant name: letters, digits, '.', '_' or '-'"), PutModelQuery),
+    request_body(description = "The model file", content((String = "application/toml"), (Object = "application/json"))),
+    responses(
+        (status = 201, description = "Stored as a new revision", body = RevisionSummary),
+        (status = 400, description = "Malformed request (plant name, time, not UTF-8)", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The token's role is not admin, or it is for another plant", body = Problem, content_type = "application/problem+json"),
+        (status = 413, description = "Body over the size limit", body = Problem, content_type = "application/problem+json"),
+        (status = 415, description = "Neither TOML nor JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "The model is invalid; `errors` lists every problem", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("token" = []))
+)]
+pub async fn put_model(
+    State(state): State<AppState>,
+    caller: Caller,
+    Path(plant): Path<String>,
+    Query(query): Query<PutModelQuery>,
+    headers: HeaderMap,
+    body: Result<Bytes, BytesRejection>,
+) -> Result<Response, Problem> {
+    check_plant_name(&plant)?;
+    caller.require(Role::Admin, &plant)?;
+    let effective_from = match query.effective_from.as_deref() {
+        None => Utc::now(),
+        Some(text) => DateTime::parse_from_rfc3339(text.trim())
+            .map(|t| t.with_timezone(&Utc))
+            .map_err(|e| {
+                Problem::bad_request(format!(
+                    "effective_from \"{text}\" is not an RFC 3339 time such as \
+                     2026-03-02T05:00:00Z ({e})"
+                ))
+            })?,
+    };
+    let bytes = body_bytes(body, &state)?;
+    let text = std::str::from_utf8(&bytes).map_err(|e| {
+        let at = e.valid_up_to();
+        let line = bytes[..at].iter().filter(|&&b| b == b'\n').count() + 1;
+        Problem::bad_request(format!(
+            "the model is not UTF-8 text (invalid byte at line {line}, offset {at})"
+        ))
+    })?;
+    let parsed = match media_type(&headers).as_deref() {
+        Some("application/json") => ModelSpec::from_json(text),
+        Some(m) if m.ends_with("+json") => ModelSpec::from_json(text),
+        Some("application/toml" | "text/toml" | "text/x-toml") => ModelSpec::from_toml(text),
+        other => {
+            return Err(Problem::unsupported_media(format!(
+                "a model is sent as application/toml or application/json, not {}",
+                other.unwrap_or("a body without Content-Type")
+            )))
+        }
+    };
+    let spec = parsed.map_err(invalid_model)?;
+    if spec.name != plant {
+        return Err(Problem::unprocessable(format!(
+            "the model is named \"{}\" but was sent to plant \"{plant}\"; a model is stored \
+             under its own name, so send it to /api/v1/plants/{}/model or rename it",
+            spec.name, spec.name
+        ))
+        .with_errors(vec![ItemError {
+            item: "name".into(),
+            message: format!("\"{}\" differs from the plant \"{plant}\" in the path", spec.name),
+        }]));
+    }
+    // The engine's validator decides; a model it refuses is never stored.
+    Plant::new(spec.clone()).map_err(invalid_model)?;
+    let row = match state.store.plant(&plant).await? {
+        Some(row) => row,
+        None => match state.store.create_plant(&plant).await {
+            Ok(row) => row,
+            // Another request created it in between: use that one.
+            Err(StoreError::PlantExists(_)) => state
+                .store
+                .plant(&plant)
+                .await?
+                .ok_or_else(Problem::internal)?,
+            Err(e) => return Err(e.into()),
+        },
+    };
+    let revision = state
+        .store
+        .put_model_revision(&row, &spec, text, effective_from)
+        .await?;
+    let stored = state
+        .store
+        .model_revision(&row, revision)
+        .await?
+        .ok_or_else(Problem::internal)?;
+    tracing::info!(plant = %plant, revision, "model revision stored");
+    let mut response = (StatusCode::CREATED, Json(summary(&plant, &stored))).into_response();
+    if let Ok(location) = HeaderValue::from_str(&format!("/api/v1/plants/{plant}/model")) {
+        response.headers_mut().insert(header::LOCATION, location);
+    }
+    Ok(response)
+}
+
+fn invalid_model(e: ModelError) -> Problem {
+    match e {
+        ModelError::Syntax { format, message } => {
+            let first = message.lines().next().unwrap_or("").trim().to_string();
+            Problem::unprocessable(format!("the model is not valid {format}: {first}"))
+                .with_errors(vec![ItemError {
+                    item: "body".into(),
+                    message: message.trim_end().to_string(),
+                }])
+        }
+        ModelError::Invalid(problems) => Problem::unprocessable(format!(
+            "the model has {} problem(s); each is listed in errors",
+            problems.len()
+        ))
+        .with_errors(
+            problems
+                .into_iter()
+                .map(|p| ItemError {
+                    item: p.item,
+                    message: p.message,
+                })
+                .collect(),
+        ),
+    }
+}
+
+/// The model revision in effect now.
+#[utoipa::path(
+    get,
+    path = "/api/v1/plants/{plant}/model",
+    tag = "models",
+    params(("plant" = String, Path, description = "Plant name")),
+    responses(
+        (status = 200, description = "The revision in effect now, with its model", body = RevisionBody),
+        (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No such plant, or no revision in effect yet", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("token" = []))
+)]
+pub async fn get_model(
+    State(state): State<AppState>,
+    caller: Caller,
+    Path(plant): Path<String>,
+) -> Result<Json<RevisionBody>, Problem> {
+    caller.require(Role::Read, &plant)?;
+    let row = state
+        .store
+        .plant(&plant)
+        .await?
+        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))?;
+    let rev = state
+        .store
+        .current_model(&row, Utc::now())
+        .await?
+        .ok_or_else(|| {
+            Problem::not_found(format!(
+                "plant \"{plant}\" has no model revision in effect now (see /model/revisions)"
+            ))
+        })?;
+    Ok(Json(RevisionBody {
+        summary: summary(&plant, &rev),
+        model: rev.spec,
+        source: rev.source,
+    }))
+}
+
+/// Every model revision of a plant, oldest first.
+#[utoipa::path(
+    get,
+    path = "/api/v1/plants/{plant}/model/revisions",
+    tag = "models",
+    params(("plant" = String, Path, description = "Plant name")),
+    responses(
+        (status = 200, description = "The revisions, oldest first", body = [RevisionSummary]),
+        (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No such plant", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("token" = []))
+)]
+pub async fn list_revisions(
+    State(state): State<AppState>,
+    caller: Caller,
+    Path(plant): Path<String>,
+) -> Result<Json<Vec<RevisionSummary>>, Problem> {
+    caller.require(Role::Read, &plant)?;
+    let row = state
+        .store
+        .plant(&plant)
+        .await?
+        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))?;
+    let mut revisions = state.store.list_revisions(&row).await?;
+    revisions.sort_by_key(|r| r.revision);
+    Ok(Json(revisions.iter().map(|r| summary(&plant, r)).collect()))
+}

@@ -1,0 +1,136 @@
+//! Errors as RFC 9457 problem details: `application/problem+json` with a machine-readable
+//! `type`, a short `title`, the HTTP `status` and a human sentence in `detail`. Where one
+//! request has several things wrong (a model, a batch of readings), `errors` lists each with
+//! the item it names.
+
+use axum::http::{header, HeaderValue, StatusCode};
+use axum::response::{IntoResponse, Response};
+use serde::Serialize;
+use utoipa::ToSchema;
+
+use crate::store::StoreError;
+
+pub const CONTENT_TYPE: &str = "application/problem+json";
+
+/// An RFC 9457 problem details object.
+#[derive(Debug, Clone, Serialize, ToSchema)]
+pub struct Problem {
+    /// A URI naming the kind of problem (`urn:loopbal:problem:...`); stable for scripts.
+    #[serde(rename = "type")]
+    pub kind: String,
+    /// A short summary of the kind of problem.
+    pub title: String,
+    /// The HTTP status code.
+    pub status: u16,
+    /// What went wrong on this request, as a sentence.
+    pub detail: String,
+    /// Each problem of the item sent, when there are several (model problems, for example).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub errors: Vec<ItemError>,
+    /// Sent with 401: how to authenticate.
+    #[serde(skip)]
+    pub challenge: bool,
+}
+
+/// One problem of an item in the request body.
+#[derive(Debug, Clone, Serialize, ToSchema)]
+pub struct ItemError {
+    /// The item at fault: a model id, a field, a line.
+    pub item: String,
+    pub message: String,
+}
+
+impl Problem {
+    pub fn new(status: StatusCode, kind: &str, detail: impl Into<String>) -> Problem {
+        Problem {
+            kind: format!("urn:loopbal:problem:{kind}"),
+            title: status.canonical_reason().unwrap_or("Error").to_string(),
+            status: status.as_u16(),
+            detail: detail.into(),
+            errors: Vec::new(),
+            challenge: false,
+        }
+    }
+
+    pub fn with_errors(mut self, errors: Vec<ItemError>) -> Problem {
+        self.errors = errors;
+        self
+    }
+
+    pub fn bad_request(detail: impl Into<String>) -> Problem {
+        Problem::new(StatusCode::BAD_REQUEST, "bad-request", detail)
+    }
+
+    pub fn not_found(detail: impl Into<String>) -> Problem {
+        Problem::new(StatusCode::NOT_FOUND, "not-found", detail)
+    }
+
+    pub fn unauthorized(detail: impl Into<String>) -> Problem {
+        let mut p = Problem::new(StatusCode::UNAUTHORIZED, "unauthorized", detail);
+        p.challenge = true;
+        p
+    }
+
+    pub fn forbidden(detail: impl Into<String>) -> Problem {
+        Problem::new(StatusCode::FORBIDDEN, "forbidden", detail)
+    }
+
+    pub fn unsupported_media(detail: impl Into<String>) -> Problem {
+        Problem::new(
+            StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            "unsupported-media-type",
+            detail,
+        )
+    }
+
+    pub fn unprocessable(detail: impl Into<String>) -> Problem {
+        Problem::new(StatusCode::UNPROCESSABLE_ENTITY, "invalid-content", detail)
+    }
+
+    /// A failure of ours, not the client's: the detail stays generic (the log has the cause).
+    pub fn internal() -> Problem {
+        Problem::new(
+            StatusCode::INTERNAL_SERVER_ERROR,
+            "internal",
+            "the service could not complete the request; it has been logged",
+        )
+    }
+
+    /// The store is busy or unreachable: the client may retry.
+    pub fn unavailable(detail: impl Into<String>) -> Problem {
+        Problem::new(StatusCode::SERVICE_UNAVAILABLE, "unavailable", detail)
+    }
+}
+
+impl IntoResponse for Problem {
+    fn into_response(self) -> Response {
+        let status = StatusCode::from_u16(self.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
+        let body = serde_json::to_vec(&self).unwrap_or_default();
+        let mut response = (status, body).into_response();
+        let headers = response.headers_mut();
+        headers.insert(header::CONTENT_TYPE, HeaderValue::from_static(CONTENT_TYPE));
+        if self.challenge {
+            headers.insert(
+                header::WWW_AUTHENTICATE,
+                HeaderValue::from_static("Bearer realm=\"loopbal\""),
+            );
+        }
+        response
+    }
+}
+
+impl From<StoreError> for Problem {
+    fn from(e: StoreError) -> Problem {
+        match e {
+            StoreError::NoPlant(name) => Problem::not_found(format!("no plant named \"{name}\"")),
+            StoreError::Database(sqlx::Error::PoolTimedOut) => {
+                tracing::warn!(error = %e, "store busy");
+                Problem::unavailable("the database is busy; retry shortly")
+            }
+            other => {
+                tracing::error!(error = %other, "store failure");
+                Problem::internal()
+            }
+        }
+    }
+}

@@ -1,0 +1,198 @@
+//! A batch of readings from a historian, from body to store: every line checked (known tag,
+//! RFC 3339 time, finite value, quality word), repeats within the batch refused, the good
+//! lines stored in one transaction, and an answer that accounts for every line.
+//!
+//! HTTP-free, so the service, the demo and the benchmarks post batches the same way.
+
+use std::collections::{BTreeMap, HashMap};
+
+use chrono::{DateTime, Utc};
+use reconcile::{Quality, Reading};
+use serde::Serialize;
+use utoipa::ToSchema;
+
+use crate::readings::{self, BadReading, Format, Place, Problem, ReadingsError};
+use crate::store::{PlantRow, Store, StoreError};
+
+/// At most this many rejected lines are listed one by one; the count covers them all.
+pub const MAX_LISTED_REJECTIONS: usize = 10_000;
+
+/// The meters a batch may name: every tag of every model revision of the plant (a reading
+/// outlives the revision it was taken under), with the instrument range of the latest
+/// revision that has one, and the plant's current period length for dirty marks.
+#[derive(Debug, Clone)]
+pub struct Catalogue {
+    ranges: HashMap<String, Option<[f64; 2]>>,
+    period_seconds: i64,
+}
+
+impl Catalogue {
+    /// `None` when the plant has no model yet.
+    pub async fn load(store: &Store, plant: &PlantRow) -> Result<Option<Catalogue>, StoreError> {
+        let revisions = store.list_revisions(plant).await?;
+        let Some(latest) = revisions.iter().max_by_key(|r| r.revision) else {
+            return Ok(None);
+        };
+        let period_seconds = reconcile::model::parse_period(&latest.spec.period)
+            .ok_or_else(|| StoreError::Corrupt(format!(
+                "revision {} has period \"{}\"",
+                latest.revision, latest.spec.period
+            )))?;
+        let mut ranges = HashMap::new();
+        let mut by_revision: Vec<_> = revisions.iter().collect();
+        by_revision.sort_by_key(|r| r.revision);
+        // Later revisions overwrite earlier ones: the latest range of a tag counts.
+        for rev in by_revision {
+            for m in &rev.spec.meters {
+                ranges.insert(m.tag.clone(), m.range);
+            }
+        }
+        Ok(Some(Catalogue {
+            ranges,
+            period_seconds,
+        }))
+    }
+
+    pub fn knows(&self, tag: &str) -> bool {
+        self.ranges.contains_key(tag)
+    }
+
+    fn range_map(&self) -> BTreeMap<String, [f64; 2]> {
+        self.ranges
+            .iter()
+            .filter_map(|(tag, r)| r.map(|r| (tag.clone(), r)))
+            .collect()
+    }
+
+    fn out_of_range(&self, r: &Reading) -> bool {
+        matches!(self.ranges.get(&r.tag), Some(Some([lo, hi])) if !(*lo..=*hi).contains(&r.value))
+    }
+}
+
+/// One refused line and every reason for it.
+#[derive(Debug, Clone, Serialize, ToSchema)]
+pub struct Rejection {
+    /// Physical line of a CSV body (the header is line 1).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub line: Option<u64>,
+    /// Index in the `readings` array of a JSON body.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub index: Option<usize>,
+    pub reasons: Vec<String>,
+}
+
+/// What a batch did to the store, line by line accounted.
+#[derive(Debug, Clone, Default, Serialize, ToSchema)]
+pub struct IngestAnswer {
+    /// Readings new to the store.
+    pub accepted: usize,
+    /// Stored readings whose value or quality this batch changed (their periods will be run
+    /// again).
+    pub replaced: usize,
+    /// Identical resends: already stored exactly so, nothing changed.
+    pub unchanged: usize,
+    /// Lines refused; each is listed in `rejections` (up to 10,000).
+    pub rejected: usize,
+    /// Stored readings outside their meter's instrument range: kept and flagged.
+    pub out_of_range: usize,
+    /// Stored readings with quality `bad`: kept, not used in any balance.
+    pub bad_quality: usize,
+    pub rejections: Vec<Rejection>,
+}
+
+/// Why a batch as a whole was refused (nothing stored).
+#[derive(Debug, thiserror::Error)]
+pub enum BatchError {
+    #[error("{0}")]
+    Unreadable(String),
+    #[error(transparent)]
+    Store(#[from] StoreError),
+}
+
+/// Check a body (CPU work: call it off the async threads for big bodies).
+pub fn check_batch(body: &[u8], format: Format, catalogue: &Catalogue) -> Result<Checked, BatchError> {
+    let sorted = readings::sort(body, format, &|tag| catalogue.knows(tag)).map_err(|e| match e {
+        ReadingsError::File(msg) => BatchError::Unreadable(msg),
+        ReadingsError::Bad(_) => BatchError::Unreadable("unreadable batch".into()),
+    })?;
+    let mut bad = sorted.bad;
+    let mut good = Vec::with_capacity(sorted.good.len());
+    // A second line for one (tag, instant) in one batch is refused, not silently preferred:
+    // which of two conflicting values is right is the historian's call. A later batch that
+    // resends the instant is a correction and replaces it.
+    let mut first: HashMap<(String, DateTime<Utc>), Place> = HashMap::new();
+    for (place, reading) in sorted.good {
+        match first.get(&(reading.tag.clone(), reading.time)) {
+            Some(&earlier) => bad.push(BadReading {
+                place,
+                problems: vec![Problem::Repeated { earlier }],
+            }),
+            None => {
+                first.insert((reading.tag.clone(), reading.time), place);
+                good.push(reading);
+            }
+        }
+    }
+    bad.sort_by_key(|b| match b.place {
+        Place::Line(n) => n,
+        Place::Index(i) => i as u64,
+    });
+    Ok(Checked { good, bad })
+}
+
+/// A checked batch: the readings to store and the refused lines.
+#[derive(Debug)]
+pub struct Checked {
+    pub good: Vec<Reading>,
+    pub bad: Vec<BadReading>,
+}
+
+/// Store the good readings of a checked batch in one transaction and account for every line.
+pub async fn store_batch(
+    store: &Store,
+    plant: &PlantRow,
+    catalogue: &Catalogue,
+    checked: Checked,
+) -> Result<IngestAnswer, BatchError> {
+    let counts = if checked.good.is_empty() {
+        Default::default()
+    } else {
+        store
+            .ingest_readings(
+                plant,
+                &checked.good,
+                catalogue.period_seconds,
+                &catalogue.range_map(),
+            )
+            .await?
+    };
+    let rejections = checked
+        .bad
+        .iter()
+        .take(MAX_LISTED_REJECTIONS)
+        .map(|b| {
+            let (line, index) = match b.place {
+                Place::Line(n) => (Some(n), None),
+                Place::Index(i) => (None, Some(i)),
+            };
+            Rejection {
+                line,
+                index,
+                reasons: b.problems.iter().map(|p| p.to_string()).collect(),
+            }
+        })
+        .collect();
+    Ok(IngestAnswer {
+        accepted: counts.accepted,
+        replaced: counts.replaced,
+        unchanged: counts.unchanged,
+        rejected: checked.bad.len(),
+        out_of_range: checked.good.iter().filter(|r| catalogue.out_of_range(r)).count(),
+        bad_quality: checked
+            .good
+            .iter()
+            .filter(|r| r.quality == Quality::Bad)
+            .count(),
+        rejections,
+    })
+}

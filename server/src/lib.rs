@@ -1,0 +1,41 @@
+//! loopbal's shell: the command line, the HTTP service, storage and scheduling around the
+//! `reconcile` engine. The binary (`main.rs`) is a thin edge over this library, so benchmarks
+//! and tests can start the service in-process.
+
+use std::fmt;
+
+pub mod api;
+pub mod cli;
+pub mod ingest;
+pub mod metrics;
+pub mod model_file;
+pub mod readings;
+pub mod readings_csv;
+pub mod run;
+pub mod serve;
+pub mod store;
+pub mod summary;
+
+/// The user's input is at fault (exit status 2). Each line names the file and the line or
+/// item; anything else that stops a command is a failed run (exit status 1).
+#[derive(Debug)]
+pub struct BadInput(Vec<String>);
+
+impl BadInput {
+    pub fn new(line: String) -> BadInput {
+        BadInput(vec![line])
+    }
+
+    pub fn lines(lines: Vec<String>) -> BadInput {
+        BadInput(lines)
+    }
+}
+
+impl fmt::Display for BadInput {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&self.0.join("\n"))
+    }
+}
+
+impl std::error::Error for BadInput {}
+

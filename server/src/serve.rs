@@ -1,0 +1,80 @@
+//! `loopbal serve`: open (or create) the database, bind, serve until SIGINT or SIGTERM, then
+//! finish the requests in flight, close the database and exit.
+
+use std::net::SocketAddr;
+
+use anyhow::Context;
+use tokio::net::TcpListener;
+
+use crate::api::{self, AppState, Limits};
+use crate::store::Store;
+
+pub struct Options {
+    pub listen: SocketAddr,
+    pub database: String,
+    pub limits: Limits,
+}
+
+/// Log lines go to stderr; `RUST_LOG` chooses what (default: info for loopbal, warn for the
+/// libraries).
+pub fn init_tracing() {
+    let filter = tracing_subscriber::EnvFilter::try_from_default_env()
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("loopbal=info,tower_http=warn,warn"));
+    let _ = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr)
+        .with_ansi(std::io::IsTerminal::is_terminal(&std::io::stderr()))
+        .try_init();
+}
+
+pub async fn serve(opts: Options) -> anyhow::Result<()> {
+    let store = Store::open(&opts.database)
+        .await
+        .with_context(|| format!("opening the database {}", opts.database))?;
+    let state = AppState::new(store.clone(), opts.limits);
+    let (router, _) = api::router(state);
+    let listener = TcpListener::bind(opts.listen)
+        .await
+        .with_context(|| format!("listening on {}", opts.listen))?;
+    let addr = listener.local_addr()?;
+    // One plain line on stdout for scripts and tests that started us on port 0.
+    println!("loopbal: listening on http://{addr}");
+    tracing::info!(%addr, database = %opts.database, "serving");
+    axum::serve(listener, router)
+        .with_graceful_shutdown(shutdown_signal())
+        .await
+        .context("serving HTTP")?;
+    // Every request has been answered and every transaction committed or rolled back; close
+    // the pool so SQLite checkpoints its write-ahead log.
+    store.close().await;
+    tracing::info!("stopped");
+    Ok(())
+}
+
+async fn shutdown_signal() {
+    let interrupt = async {
+        if let Err(e) = tokio::signal::ctrl_c().await {
+            tracing::error!(error = %e, "cannot listen for SIGINT");
+            std::future::pending::<()>().await;
+        }
+    };
+    #[cfg(unix)]
+    let terminate = async {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut s) => {
+                s.recv().await;
+            }
+            Err(e) => {
+                tracing::error!(error = %e, "cannot listen for SIGTERM");
+                std::future::pending::<()>().await;
+            }
+        }
+    };
+    #[cfg(not(unix))]
+    let terminate = std::future::pending::<()>();
+    tokio::select! {
+        _ = interrupt => {},
+        _ = terminate => {},
+    }
+    tracing::info!("shutting down: finishing requests in flight");
+}
