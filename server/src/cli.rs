@@ -58,6 +58,15 @@ pub enum Command {
         #[arg(long, value_name = "SECONDS", default_value_t = 60, env = "LOOPBAL_REQUEST_TIMEOUT",
               value_parser = clap::value_parser!(u64).range(1..=3600))]
         request_timeout: u64,
+        /// Seconds after a period's end before it is reconciled (late readings of the hour
+        /// arrive in this time); a period whose readings change later is run again.
+        #[arg(long, value_name = "SECONDS", default_value_t = 300, env = "LOOPBAL_RUN_GRACE")]
+        run_grace: u64,
+        /// Seconds between the scheduler's looks for due periods (it also wakes on every batch
+        /// that changes stored readings).
+        #[arg(long, value_name = "SECONDS", default_value_t = 30, env = "LOOPBAL_RUN_TICK",
+              value_parser = clap::value_parser!(u64).range(1..=86400))]
+        run_tick: u64,
     },
     /// API tokens.
     Token {

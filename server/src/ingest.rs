@@ -4,7 +4,7 @@
 //!
 //! HTTP-free, so the service, the demo and the benchmarks post batches the same way.
 
-use std::collections::{BTreeMap, HashMap};
+use std::collections::{HashMap, HashSet};
 
 use chrono::{DateTime, Utc};
 use reconcile::{Quality, Reading};
@@ -18,54 +18,88 @@ use crate::store::{PlantRow, Store, StoreError};
 pub const MAX_LISTED_REJECTIONS: usize = 10_000;
 
 /// The meters a batch may name: every tag of every model revision of the plant (a reading
-/// outlives the revision it was taken under), with the instrument range of the latest
-/// revision that has one, and the plant's current period length for dirty marks.
+/// outlives the revision it was taken under). A reading's instrument range is that of the
+/// revision in effect at its time (see [`in_effect`]).
 #[derive(Debug, Clone)]
 pub struct Catalogue {
-    ranges: HashMap<String, Option<[f64; 2]>>,
+    known: HashSet<String>,
+    /// (effective_from, revision, ranges of the revision's meters), in the order of [`in_effect`].
+    revisions: Vec<(DateTime<Utc>, i64, HashMap<String, [f64; 2]>)>,
     period_seconds: i64,
+}
+
+/// Which revision applies at `t`: the one with the latest `effective_from` not after `t` (of
+/// two with the same instant, the higher number); before the first revision takes effect,
+/// the earliest one, since a plant's first model also describes the history a historian
+/// back-fills. `revisions` holds (effective_from, number) pairs in any order.
+pub fn in_effect(revisions: &[(DateTime<Utc>, i64)], t: DateTime<Utc>) -> Option<usize> {
+    let by_key = |i: &usize| revisions[*i];
+    (0..revisions.len())
+        .filter(|&i| revisions[i].0 <= t)
+        .max_by_key(by_key)
+        .or_else(|| (0..revisions.len()).min_by_key(by_key))
 }
 
 impl Catalogue {
     /// `None` when the plant has no model yet.
     pub async fn load(store: &Store, plant: &PlantRow) -> Result<Option<Catalogue>, StoreError> {
         let revisions = store.list_revisions(plant).await?;
-        let Some(latest) = revisions.iter().max_by_key(|r| r.revision) else {
+        let keys: Vec<(DateTime<Utc>, i64)> =
+            revisions.iter().map(|r| (r.effective_from, r.revision)).collect();
+        let Some(now) = in_effect(&keys, Utc::now()) else {
             return Ok(None);
         };
-        let period_seconds = reconcile::model::parse_period(&latest.spec.period)
-            .ok_or_else(|| StoreError::Corrupt(format!(
+        let current = &revisions[now];
+        let period_seconds = reconcile::model::parse_period(&current.spec.period).ok_or_else(|| {
+            StoreError::Corrupt(format!(
                 "revision {} has period \"{}\"",
-                latest.revision, latest.spec.period
-            )))?;
-        let mut ranges = HashMap::new();
-        let mut by_revision: Vec<_> = revisions.iter().collect();
-        by_revision.sort_by_key(|r| r.revision);
-        // Later revisions overwrite earlier ones: the latest range of a tag counts.
-        for rev in by_revision {
-            for m in &rev.spec.meters {
-                ranges.insert(m.tag.clone(), m.range);
-            }
-        }
+                current.revision, current.spec.period
+            ))
+        })?;
+        let known = revisions
+            .iter()
+            .flat_map(|r| r.spec.meters.iter().map(|m| m.tag.clone()))
+            .collect();
+        let revisions = revisions
+            .iter()
+            .map(|r| {
+                let ranges = r
+                    .spec
+                    .meters
+                    .iter()
+                    .filter_map(|m| m.range.map(|range| (m.tag.clone(), range)))
+                    .collect();
+                (r.effective_from, r.revision, ranges)
+            })
+            .collect();
         Ok(Some(Catalogue {
-            ranges,
+            known,
+            revisions,
             period_seconds,
         }))
     }
 
     pub fn knows(&self, tag: &str) -> bool {
-        self.ranges.contains_key(tag)
+        self.known.contains(tag)
     }
 
-    fn range_map(&self) -> BTreeMap<String, [f64; 2]> {
-        self.ranges
-            .iter()
-            .filter_map(|(tag, r)| r.map(|r| (tag.clone(), r)))
-            .collect()
+    /// Ranges of the revision in effect now. (Interim: the store flags by one map per batch
+    /// until it takes a flag per reading.)
+    fn ranges_now(&self) -> std::collections::BTreeMap<String, [f64; 2]> {
+        let keys: Vec<(DateTime<Utc>, i64)> =
+            self.revisions.iter().map(|(t, n, _)| (*t, *n)).collect();
+        in_effect(&keys, Utc::now())
+            .map(|i| self.revisions[i].2.iter().map(|(k, v)| (k.clone(), *v)).collect())
+            .unwrap_or_default()
     }
 
-    fn out_of_range(&self, r: &Reading) -> bool {
-        matches!(self.ranges.get(&r.tag), Some(Some([lo, hi])) if !(*lo..=*hi).contains(&r.value))
+    /// Outside the range its meter has in the revision in effect at the reading's time.
+    pub fn out_of_range(&self, r: &Reading) -> bool {
+        let keys: Vec<(DateTime<Utc>, i64)> =
+            self.revisions.iter().map(|(t, n, _)| (*t, *n)).collect();
+        in_effect(&keys, r.time)
+            .and_then(|i| self.revisions[i].2.get(&r.tag))
+            .is_some_and(|[lo, hi]| !(*lo..=*hi).contains(&r.value))
     }
 }
 
@@ -154,6 +188,7 @@ pub async fn store_batch(
     catalogue: &Catalogue,
     checked: Checked,
 ) -> Result<IngestAnswer, BatchError> {
+    let out_of_range: Vec<bool> = checked.good.iter().map(|r| catalogue.out_of_range(r)).collect();
     let counts = if checked.good.is_empty() {
         Default::default()
     } else {
@@ -162,7 +197,7 @@ pub async fn store_batch(
                 plant,
                 &checked.good,
                 catalogue.period_seconds,
-                &catalogue.range_map(),
+                &catalogue.ranges_now(),
             )
             .await?
     };
@@ -187,7 +222,7 @@ pub async fn store_batch(
         replaced: counts.replaced,
         unchanged: counts.unchanged,
         rejected: checked.bad.len(),
-        out_of_range: checked.good.iter().filter(|r| catalogue.out_of_range(r)).count(),
+        out_of_range: out_of_range.iter().filter(|&&f| f).count(),
         bad_quality: checked
             .good
             .iter()
@@ -195,4 +230,28 @@ pub async fn store_batch(
             .count(),
         rejections,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use chrono::TimeZone;
+
+    use super::*;
+
+    fn t(day: u32) -> DateTime<Utc> {
+        Utc.with_ymd_and_hms(2026, 3, day, 0, 0, 0).unwrap()
+    }
+
+    #[test]
+    fn the_revision_in_effect_is_the_latest_started_and_the_first_covers_the_past() {
+        // Revision 1 from the 10th, 2 from the 20th, 3 also from the 20th, 4 from the 5th
+        // (a late correction of the early history).
+        let revs = [(t(10), 1), (t(20), 2), (t(20), 3), (t(5), 4)];
+        assert_eq!(in_effect(&revs, t(1)), Some(3), "before all: the earliest (revision 4)");
+        assert_eq!(in_effect(&revs, t(5)), Some(3));
+        assert_eq!(in_effect(&revs, t(12)), Some(0));
+        assert_eq!(in_effect(&revs, t(20)), Some(2), "same instant: the higher number");
+        assert_eq!(in_effect(&revs, t(28)), Some(2));
+        assert_eq!(in_effect(&[], t(28)), None);
+    }
 }

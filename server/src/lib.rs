@@ -12,6 +12,7 @@ pub mod model_file;
 pub mod readings;
 pub mod readings_csv;
 pub mod run;
+pub mod schedule;
 pub mod serve;
 pub mod store;
 pub mod summary;

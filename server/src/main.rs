@@ -30,6 +30,8 @@ fn main() -> ExitCode {
             database,
             max_body_bytes,
             request_timeout,
+            run_grace,
+            run_tick,
         } => {
             serve::init_tracing();
             runtime().and_then(|rt| {
@@ -39,6 +41,10 @@ fn main() -> ExitCode {
                     limits: api::Limits {
                         max_body_bytes: *max_body_bytes,
                         request_timeout: std::time::Duration::from_secs(*request_timeout),
+                    },
+                    schedule: loopbal_server::schedule::Schedule {
+                        grace: std::time::Duration::from_secs(*run_grace),
+                        tick: std::time::Duration::from_secs(*run_tick),
                     },
                 }))
             })

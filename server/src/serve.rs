@@ -7,12 +7,14 @@ use anyhow::Context;
 use tokio::net::TcpListener;
 
 use crate::api::{self, AppState, Limits};
+use crate::schedule::{self, Schedule};
 use crate::store::Store;
 
 pub struct Options {
     pub listen: SocketAddr,
     pub database: String,
     pub limits: Limits,
+    pub schedule: Schedule,
 }
 
 /// Log lines go to stderr; `RUST_LOG` chooses what (default: info for loopbal, warn for the
@@ -32,6 +34,13 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
         .await
         .with_context(|| format!("opening the database {}", opts.database))?;
     let state = AppState::new(store.clone(), opts.limits);
+    let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
+    let worker = tokio::spawn(schedule::worker(
+        state.clone(),
+        opts.schedule,
+        state.wake.clone(),
+        stop_rx,
+    ));
     let (router, _) = api::router(state);
     let listener = TcpListener::bind(opts.listen)
         .await
@@ -44,6 +53,11 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
         .with_graceful_shutdown(shutdown_signal())
         .await
         .context("serving HTTP")?;
+    // The worker finishes the run it is in (its report is stored whole) and stops.
+    let _ = stop_tx.send(true);
+    if let Err(e) = worker.await {
+        tracing::error!(error = %e, "the scheduler ended abnormally");
+    }
     // Every request has been answered and every transaction committed or rolled back; close
     // the pool so SQLite checkpoints its write-ahead log.
     store.close().await;

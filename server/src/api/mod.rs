@@ -23,8 +23,9 @@ use crate::store::Store;
 
 pub mod auth;
 mod models;
+mod periods;
 pub mod problem;
-mod readings;
+pub(crate) mod readings;
 
 use problem::Problem;
 
@@ -52,6 +53,8 @@ pub struct AppState {
     pub store: Store,
     pub metrics: Arc<Metrics>,
     pub limits: Limits,
+    /// Wakes the scheduler when a batch changed stored readings.
+    pub wake: Arc<tokio::sync::Notify>,
     openapi: Arc<OnceLock<String>>,
 }
 
@@ -61,6 +64,7 @@ impl AppState {
             store,
             metrics: Arc::new(Metrics::default()),
             limits,
+            wake: Arc::new(tokio::sync::Notify::new()),
             openapi: Arc::new(OnceLock::new()),
         }
     }
@@ -80,6 +84,7 @@ impl AppState {
     tags(
         (name = "models", description = "Plant models and their revisions"),
         (name = "readings", description = "Historian readings"),
+        (name = "periods", description = "Period runs and their reports"),
         (name = "service", description = "Liveness, metrics and this description"),
     )
 )]
@@ -105,13 +110,23 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
         .routes(routes!(openapi_json))
         .routes(routes!(models::put_model, models::get_model))
         .routes(routes!(models::list_revisions))
-        .routes(routes!(readings::post_readings))
+        .routes(routes!(readings::post_readings, readings::get_readings))
+        .routes(routes!(periods::list_periods))
+        .routes(routes!(periods::get_period))
+        .routes(routes!(periods::rerun_period))
         .split_for_parts();
     let text = serde_json::to_string_pretty(&openapi).unwrap_or_default();
     let _ = state.openapi.set(text);
     let limits = state.limits;
     let router = routes
         .fallback(not_found)
+        // A panic in a handler is a bug of ours: answer 500 as a problem and keep serving.
+        .layer(tower_http::catch_panic::CatchPanicLayer::custom(
+            |_: Box<dyn std::any::Any + Send + 'static>| {
+                tracing::error!("a handler panicked");
+                Problem::internal().into_response()
+            },
+        ))
         .layer(axum::extract::DefaultBodyLimit::max(limits.max_body_bytes))
         // Innermost first: the timeout's 408 and axum's own plain-text rejections are turned
         // into problem details, then counted and traced with their final status.
@@ -332,4 +347,10 @@ pub fn check_plant_name(name: &str) -> Result<(), Problem> {
              starting with '.'"
         )))
     }
+}
+
+/// A query string that does not fit its parameters (checked after the token, so a caller
+/// without the right role learns nothing about them).
+pub(crate) fn query_problem(e: axum::extract::rejection::QueryRejection) -> Problem {
+    Problem::bad_request(format!("the query string is not as expected: {}", e.body_text()))
 }

@@ -2,7 +2,7 @@
 //! it; `GET` answers the revision in effect now; `/model/revisions` lists them all.
 
 use axum::body::Bytes;
-use axum::extract::rejection::BytesRejection;
+use axum::extract::rejection::{BytesRejection, QueryRejection};
 use axum::extract::{Path, Query, State};
 use axum::http::{header, HeaderMap, HeaderValue, StatusCode};
 use axum::response::{IntoResponse, Response};
@@ -92,12 +92,13 @@ pub async fn put_model(
     State(state): State<AppState>,
     caller: Caller,
     Path(plant): Path<String>,
-    Query(query): Query<PutModelQuery>,
+    query: Result<Query<PutModelQuery>, QueryRejection>,
     headers: HeaderMap,
     body: Result<Bytes, BytesRejection>,
 ) -> Result<Response, Problem> {
     check_plant_name(&plant)?;
     caller.require(Role::Admin, &plant)?;
+    let Query(query) = query.map_err(super::query_problem)?;
     let effective_from = match query.effective_from.as_deref() {
         None => Utc::now(),
         Some(text) => DateTime::parse_from_rfc3339(text.trim())

@@ -1,10 +1,14 @@
 //! `POST /api/v1/plants/{plant}/readings`: a historian's batch, CSV or JSON.
 
 use axum::body::Bytes;
-use axum::extract::rejection::BytesRejection;
-use axum::extract::{Path, State};
+use axum::extract::rejection::{BytesRejection, QueryRejection};
+use axum::extract::{Path, Query, State};
 use axum::http::HeaderMap;
 use axum::Json;
+use chrono::{DateTime, SecondsFormat, Utc};
+use reconcile::Quality;
+use serde::{Deserialize, Serialize};
+use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
 use super::problem::Problem;
@@ -83,6 +87,9 @@ pub async fn post_readings(
     let answer = ingest::store_batch(&state.store, &row, &catalogue, checked)
         .await
         .map_err(batch_problem)?;
+    if answer.accepted + answer.replaced > 0 {
+        state.wake.notify_one();
+    }
     state.metrics.readings(
         answer.accepted,
         answer.replaced,
@@ -106,4 +113,125 @@ fn batch_problem(e: BatchError) -> Problem {
         }
         BatchError::Store(e) => e.into(),
     }
+}
+
+/// Most readings one query answers; a longer range is refused with advice to narrow it.
+const MAX_READINGS_PER_QUERY: usize = 200_000;
+
+#[derive(Debug, Deserialize, IntoParams)]
+pub struct ReadingsQuery {
+    /// Start of the range, RFC 3339, inclusive.
+    from: String,
+    /// End of the range, RFC 3339, exclusive.
+    to: String,
+    /// Only this tag.
+    tag: Option<String>,
+}
+
+/// A reading as stored.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct StoredReadingBody {
+    pub tag: String,
+    /// RFC 3339, UTC.
+    pub time: String,
+    pub value: f64,
+    /// good, uncertain or bad.
+    pub quality: String,
+    /// Outside the meter's instrument range when it was stored.
+    pub out_of_range: bool,
+    /// When the service stored this value (RFC 3339, UTC).
+    pub received_at: String,
+}
+
+#[derive(Debug, Serialize, ToSchema)]
+pub struct ReadingsBody {
+    pub plant: String,
+    pub from: String,
+    pub to: String,
+    pub readings: Vec<StoredReadingBody>,
+}
+
+pub(crate) fn parse_time(name: &str, text: &str) -> Result<DateTime<Utc>, Problem> {
+    DateTime::parse_from_rfc3339(text.trim())
+        .map(|t| t.with_timezone(&Utc))
+        .map_err(|e| {
+            Problem::bad_request(format!(
+                "{name} \"{text}\" is not an RFC 3339 time such as 2026-03-02T05:00:00Z ({e})"
+            ))
+        })
+}
+
+fn rfc3339(t: DateTime<Utc>) -> String {
+    t.to_rfc3339_opts(SecondsFormat::AutoSi, true)
+}
+
+/// The stored readings of a time range, by time then tag: what the historian sent, with the
+/// flags the service set (out of range) and when each arrived.
+#[utoipa::path(
+    get,
+    path = "/api/v1/plants/{plant}/readings",
+    tag = "readings",
+    params(("plant" = String, Path, description = "Plant name"), ReadingsQuery),
+    responses(
+        (status = 200, description = "The readings of the range", body = ReadingsBody),
+        (status = 400, description = "A time is not RFC 3339, or from is not before to", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No such plant", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "More than 200,000 readings in the range", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("token" = []))
+)]
+pub async fn get_readings(
+    State(state): State<AppState>,
+    caller: Caller,
+    Path(plant): Path<String>,
+    query: Result<Query<ReadingsQuery>, QueryRejection>,
+) -> Result<Json<ReadingsBody>, Problem> {
+    caller.require(Role::Read, &plant)?;
+    let Query(query) = query.map_err(super::query_problem)?;
+    let from = parse_time("from", &query.from)?;
+    let to = parse_time("to", &query.to)?;
+    if from >= to {
+        return Err(Problem::bad_request(format!(
+            "from ({}) must be before to ({})",
+            query.from, query.to
+        )));
+    }
+    let row = state
+        .store
+        .plant(&plant)
+        .await?
+        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))?;
+    let stored = state.store.readings_in(&row, from, to).await?;
+    let readings: Vec<StoredReadingBody> = stored
+        .into_iter()
+        .filter(|s| query.tag.as_deref().is_none_or(|t| t == s.reading.tag))
+        .map(|s| StoredReadingBody {
+            quality: match s.reading.quality {
+                Quality::Good => "good",
+                Quality::Uncertain => "uncertain",
+                Quality::Bad => "bad",
+            }
+            .to_string(),
+            tag: s.reading.tag,
+            time: rfc3339(s.reading.time),
+            value: s.reading.value,
+            out_of_range: s.out_of_range,
+            received_at: rfc3339(s.received_at),
+        })
+        .collect();
+    if readings.len() > MAX_READINGS_PER_QUERY {
+        return Err(Problem::unprocessable(format!(
+            "the range holds {} readings, more than the {MAX_READINGS_PER_QUERY} one answer \
+             carries; ask for a shorter range or one tag",
+            readings.len()
+        )));
+    }
+    Ok(Json(ReadingsBody {
+        plant,
+        from: rfc3339(from),
+        to: rfc3339(to),
+        readings,
+    }))
 }

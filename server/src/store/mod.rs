@@ -24,7 +24,7 @@ mod tokens;
 
 pub use plants::{MeterRow, ModelRevision, PlantRow};
 pub use readings::{IngestCounts, StoredReading};
-pub use runs::{NewRun, RunRow};
+pub use runs::{NewRun, RunRow, RunSummary};
 pub use tokens::{Grant, NewToken, Role};
 
 /// Why a storage call failed.
@@ -264,6 +264,18 @@ impl Store {
     ) -> Result<Option<RunRow>> {
         match self {
             Store::Sqlite(s) => s.current_run(plant, period_start).await,
+        }
+    }
+
+    /// The current run of every period starting in `[from, to)`, oldest first.
+    pub async fn current_runs(
+        &self,
+        plant: &PlantRow,
+        from: DateTime<Utc>,
+        to: DateTime<Utc>,
+    ) -> Result<Vec<RunSummary>> {
+        match self {
+            Store::Sqlite(s) => s.current_runs(plant, from, to).await,
         }
     }
 

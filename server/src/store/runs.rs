@@ -21,6 +21,18 @@ pub struct NewRun {
     pub inputs: serde_json::Value,
 }
 
+/// A current run without its report and inputs, for listings.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RunSummary {
+    pub id: i64,
+    pub period_start: DateTime<Utc>,
+    pub revision: i64,
+    pub status: String,
+    pub created_at: DateTime<Utc>,
+    /// How many runs the period has had, this one included.
+    pub runs: i64,
+}
+
 #[derive(Debug, Clone, PartialEq)]
 pub struct RunRow {
     pub id: i64,
@@ -80,6 +92,40 @@ impl SqliteStore {
         .fetch_optional(&self.pool)
         .await?;
         row.map(|r| run_row(&r)).transpose()
+    }
+
+    /// The current run of every period starting in `[from, to)`, oldest first.
+    pub(super) async fn current_runs(
+        &self,
+        plant: &PlantRow,
+        from: DateTime<Utc>,
+        to: DateTime<Utc>,
+    ) -> Result<Vec<RunSummary>> {
+        let rows = sqlx::query(
+            "SELECT r.id, r.period_start, r.revision, r.status, r.created_at,
+                    (SELECT COUNT(*) FROM runs h
+                     WHERE h.plant_id = r.plant_id AND h.period_start = r.period_start) AS runs
+             FROM runs r
+             WHERE r.plant_id = ? AND r.current = 1 AND r.period_start >= ? AND r.period_start < ?
+             ORDER BY r.period_start",
+        )
+        .bind(plant.id)
+        .bind(to_ms(from))
+        .bind(to_ms(to))
+        .fetch_all(&self.pool)
+        .await?;
+        rows.iter()
+            .map(|r| {
+                Ok(RunSummary {
+                    id: r.try_get("id")?,
+                    period_start: from_ms(r.try_get("period_start")?)?,
+                    revision: r.try_get("revision")?,
+                    status: r.try_get("status")?,
+                    created_at: from_ms(r.try_get("created_at")?)?,
+                    runs: r.try_get("runs")?,
+                })
+            })
+            .collect()
     }
 
     pub(super) async fn run_history(

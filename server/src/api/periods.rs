@@ -1,0 +1,304 @@
+//! Periods and their runs: the listing with each period's status, the report of one period,
+//! and an administrator's request to run a period again now.
+
+use axum::extract::rejection::QueryRejection;
+use axum::extract::{Path, Query, State};
+use axum::Json;
+use chrono::{DateTime, SecondsFormat, TimeDelta, Utc};
+use serde::{Deserialize, Serialize};
+use utoipa::{IntoParams, ToSchema};
+
+use super::auth::Caller;
+use super::problem::Problem;
+use super::readings::parse_time;
+use super::AppState;
+use crate::schedule::{self, RunError};
+use crate::store::{PlantRow, Role};
+
+/// Most periods one listing covers (a leap year of hours is 8,784).
+const MAX_PERIODS: i64 = 10_000;
+
+fn rfc3339(t: DateTime<Utc>) -> String {
+    t.to_rfc3339_opts(SecondsFormat::Secs, true)
+}
+
+#[derive(Debug, Deserialize, IntoParams)]
+pub struct RangeQuery {
+    /// Start of the range, RFC 3339, inclusive.
+    from: String,
+    /// End of the range, RFC 3339, exclusive.
+    to: String,
+}
+
+/// One period of the listing.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct PeriodStatus {
+    /// RFC 3339, UTC.
+    pub start: String,
+    pub end: String,
+    /// The current report's status (solved, unobservable, not_converged, infeasible, no_data),
+    /// `pending` when readings arrived but the period has not been run yet, or `no_readings`.
+    pub status: String,
+    /// Readings changed since the current run (or since none): a run is due.
+    pub rerun_due: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub run_id: Option<i64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub revision: Option<i64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub run_at: Option<String>,
+    /// Runs of this period so far (history included).
+    pub runs: i64,
+}
+
+#[derive(Debug, Serialize, ToSchema)]
+pub struct PeriodList {
+    pub plant: String,
+    pub period_seconds: i64,
+    pub periods: Vec<PeriodStatus>,
+}
+
+async fn plant_row(state: &AppState, plant: &str) -> Result<PlantRow, Problem> {
+    state
+        .store
+        .plant(plant)
+        .await?
+        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))
+}
+
+fn run_problem(e: RunError) -> Problem {
+    match e {
+        RunError::NoModel(p) => Problem::new(
+            axum::http::StatusCode::CONFLICT,
+            "no-model",
+            format!("plant \"{p}\" has no model yet: PUT its model first"),
+        ),
+        RunError::Store(e) => e.into(),
+        RunError::Engine(e) => {
+            tracing::error!(error = %e, "engine failure");
+            Problem::internal()
+        }
+    }
+}
+
+/// Every period of a range with the status of its run.
+#[utoipa::path(
+    get,
+    path = "/api/v1/plants/{plant}/periods",
+    tag = "periods",
+    params(("plant" = String, Path, description = "Plant name"), RangeQuery),
+    responses(
+        (status = 200, description = "Each period of the range, oldest first", body = PeriodList),
+        (status = 400, description = "A time is not RFC 3339, or from is not before to", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No such plant", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "The plant has no model", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "The range holds more than 10,000 periods", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("token" = []))
+)]
+pub async fn list_periods(
+    State(state): State<AppState>,
+    caller: Caller,
+    Path(plant): Path<String>,
+    query: Result<Query<RangeQuery>, QueryRejection>,
+) -> Result<Json<PeriodList>, Problem> {
+    caller.require(Role::Read, &plant)?;
+    let Query(query) = query.map_err(super::query_problem)?;
+    let from = parse_time("from", &query.from)?;
+    let to = parse_time("to", &query.to)?;
+    if from >= to {
+        return Err(Problem::bad_request("from must be before to"));
+    }
+    let row = plant_row(&state, &plant).await?;
+    let (model, _) = schedule::model_at(&state.store, &row, to)
+        .await
+        .map_err(run_problem)?;
+    let secs = model.period_seconds;
+    let first = reconcile::period::period_start(from, secs);
+    let count = (to - first).num_seconds().div_euclid(secs) + 1;
+    if count > MAX_PERIODS {
+        return Err(Problem::unprocessable(format!(
+            "the range holds {count} periods, more than the {MAX_PERIODS} one answer lists; \
+             ask for a shorter range"
+        )));
+    }
+    let runs = state.store.current_runs(&row, first, to).await?;
+    let dirty = state.store.dirty_periods(&row).await?;
+    let mut periods = Vec::new();
+    let mut start = first;
+    while start < to {
+        let end = start + TimeDelta::seconds(secs);
+        let run = runs.iter().find(|r| r.period_start == start);
+        let due = dirty.iter().any(|(s, _)| *s == start);
+        let status = match (run, due) {
+            (Some(r), _) => r.status.clone(),
+            (None, true) => "pending".to_string(),
+            (None, false) => "no_readings".to_string(),
+        };
+        periods.push(PeriodStatus {
+            start: rfc3339(start),
+            end: rfc3339(end),
+            status,
+            rerun_due: due,
+            run_id: run.map(|r| r.id),
+            revision: run.map(|r| r.revision),
+            run_at: run.map(|r| rfc3339(r.created_at)),
+            runs: run.map_or(0, |r| r.runs),
+        });
+        start = end;
+    }
+    Ok(Json(PeriodList {
+        plant,
+        period_seconds: secs,
+        periods,
+    }))
+}
+
+/// The current run of one period: its report (FORMATS.md, "The report of one period"), what it
+/// ran on, and when.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct PeriodRun {
+    pub plant: String,
+    pub start: String,
+    pub run_id: i64,
+    pub revision: i64,
+    pub engine_version: String,
+    pub status: String,
+    pub run_at: String,
+    /// Runs of this period so far; the earlier ones are kept as history.
+    pub runs: usize,
+    /// Readings changed since this run: a new run is due.
+    pub rerun_due: bool,
+    /// Meter values the engine used, missing tags, unsteady tags.
+    #[schema(value_type = Object)]
+    pub inputs: serde_json::Value,
+    /// The period's report.
+    #[schema(value_type = Object)]
+    pub report: serde_json::Value,
+}
+
+/// The period's start from the path, checked against the plant's period grid.
+async fn period_start(
+    state: &AppState,
+    row: &PlantRow,
+    text: &str,
+) -> Result<DateTime<Utc>, Problem> {
+    let start = parse_time("start", text)?;
+    let (model, _) = schedule::model_at(&state.store, row, start)
+        .await
+        .map_err(run_problem)?;
+    let aligned = reconcile::period::period_start(start, model.period_seconds);
+    if aligned != start {
+        return Err(Problem::bad_request(format!(
+            "{text} is not the start of a period; periods of plant \"{}\" are {} s long, \
+             aligned to UTC, so the period containing it starts at {}",
+            row.name,
+            model.period_seconds,
+            rfc3339(aligned)
+        )));
+    }
+    Ok(start)
+}
+
+async fn current(state: &AppState, row: &PlantRow, start: DateTime<Utc>) -> Result<PeriodRun, Problem> {
+    let history = state.store.run_history(row, start).await?;
+    let Some(run) = history.iter().rev().find(|r| r.current) else {
+        return Err(Problem::not_found(format!(
+            "period {} of plant \"{}\" has not been run (see /periods for its status)",
+            rfc3339(start),
+            row.name
+        )));
+    };
+    let due = state
+        .store
+        .dirty_periods(row)
+        .await?
+        .iter()
+        .any(|(s, _)| *s == start);
+    Ok(PeriodRun {
+        plant: row.name.clone(),
+        start: rfc3339(start),
+        run_id: run.id,
+        revision: run.run.revision,
+        engine_version: run.run.engine_version.clone(),
+        status: run.run.status.clone(),
+        run_at: rfc3339(run.created_at),
+        runs: history.len(),
+        rerun_due: due,
+        inputs: run.run.inputs.clone(),
+        report: run.run.report.clone(),
+    })
+}
+
+/// The report of one period: its current run.
+#[utoipa::path(
+    get,
+    path = "/api/v1/plants/{plant}/periods/{start}",
+    tag = "periods",
+    params(
+        ("plant" = String, Path, description = "Plant name"),
+        ("start" = String, Path, description = "The period's start, RFC 3339 (e.g. 2026-03-02T05:00:00Z)"),
+    ),
+    responses(
+        (status = 200, description = "The current run with its report", body = PeriodRun),
+        (status = 400, description = "Not an RFC 3339 time, or not the start of a period", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No such plant, or the period has not been run", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("token" = []))
+)]
+pub async fn get_period(
+    State(state): State<AppState>,
+    caller: Caller,
+    Path((plant, start)): Path<(String, String)>,
+) -> Result<Json<PeriodRun>, Problem> {
+    caller.require(Role::Read, &plant)?;
+    let row = plant_row(&state, &plant).await?;
+    let start = period_start(&state, &row, &start).await?;
+    Ok(Json(current(&state, &row, start).await?))
+}
+
+/// Run one period again now, whatever its state; answers the new current run.
+#[utoipa::path(
+    post,
+    path = "/api/v1/plants/{plant}/periods/{start}/reconcile",
+    tag = "periods",
+    params(
+        ("plant" = String, Path, description = "Plant name"),
+        ("start" = String, Path, description = "The period's start, RFC 3339"),
+    ),
+    responses(
+        (status = 200, description = "The new current run with its report", body = PeriodRun),
+        (status = 400, description = "Not an RFC 3339 time, or not the start of a period", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The token's role is not admin, or it is for another plant", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No such plant", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "The plant has no model", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("token" = []))
+)]
+pub async fn rerun_period(
+    State(state): State<AppState>,
+    caller: Caller,
+    Path((plant, start)): Path<(String, String)>,
+) -> Result<Json<PeriodRun>, Problem> {
+    caller.require(Role::Admin, &plant)?;
+    let row = plant_row(&state, &plant).await?;
+    let start = period_start(&state, &row, &start).await?;
+    let mark = state
+        .store
+        .dirty_periods(&row)
+        .await?
+        .into_iter()
+        .find(|(s, _)| *s == start);
+    schedule::run_period(&state, &row, start)
+        .await
+        .map_err(run_problem)?;
+    if let Some((_, marked_at)) = mark {
+        state.store.clear_dirty(&row, start, marked_at).await?;
+    }
+    Ok(Json(current(&state, &row, start).await?))
+}

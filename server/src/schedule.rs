@@ -1,0 +1,284 @@
+//! Hourly runs: a background worker reconciles every period whose inputs changed (its dirty
+//! mark) once the period is closed — its end plus a grace delay has passed, so the historian's
+//! late readings of the hour are in — and again whenever a reading of it is added or replaced.
+//! The solve itself runs on a blocking thread so requests keep flowing.
+//!
+//! A run is: the model revision in effect at the period's start, the period's stored readings,
+//! each meter's mean of good and uncertain readings, the steadiness screen, the engine, and the
+//! whole report stored as a new current run (earlier runs stay as history).
+
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+
+use chrono::{DateTime, TimeDelta, Utc};
+use reconcile::{PeriodInput, Plant, Reading, Report};
+use serde::Serialize;
+use tokio::sync::{watch, Notify};
+
+use crate::api::AppState;
+use crate::ingest::in_effect;
+use crate::store::{NewRun, PlantRow, Store, StoreError};
+
+/// When the worker runs periods.
+#[derive(Debug, Clone, Copy)]
+pub struct Schedule {
+    /// A period is closed this long after its end.
+    pub grace: Duration,
+    /// How often the worker looks for due periods (it also wakes on every stored batch).
+    pub tick: Duration,
+}
+
+impl Default for Schedule {
+    fn default() -> Schedule {
+        Schedule {
+            grace: Duration::from_secs(300),
+            tick: Duration::from_secs(30),
+        }
+    }
+}
+
+/// A meter whose readings within one period spread over more than this many σ makes the
+/// period unsteady. The range of n independent normal readings exceeds 8σ with probability
+/// below 10⁻³ for n up to a few hundred (tables of the studentised range), so a wider spread
+/// means the process moved within the period, not noise.
+pub const UNSTEADY_SPREAD_SIGMAS: f64 = 8.0;
+
+/// The period's inputs as the engine saw them, stored with every run.
+#[derive(Debug, Clone, Serialize)]
+pub struct RunInputs {
+    pub revision: i64,
+    /// Readings found in the period, of any quality.
+    pub readings: usize,
+    pub meters: Vec<MeterInput>,
+    /// Tags of the revision with no usable reading in the period (unmeasured this period).
+    pub missing: Vec<String>,
+    /// Tags whose readings spread beyond the steadiness screen.
+    pub unsteady: Vec<String>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct MeterInput {
+    pub tag: String,
+    /// Mean of the good and uncertain readings, in the meter's uom.
+    pub value: f64,
+    pub readings: usize,
+    pub used_uncertain: bool,
+    pub spread: f64,
+}
+
+/// Why a period could not be run.
+#[derive(Debug, thiserror::Error)]
+pub enum RunError {
+    #[error("plant \"{0}\" has no model")]
+    NoModel(String),
+    #[error(transparent)]
+    Store(#[from] StoreError),
+    #[error("the engine stopped unexpectedly: {0}")]
+    Engine(String),
+}
+
+/// The outcome of one run.
+#[derive(Debug, Clone)]
+pub struct RunOutcome {
+    pub run_id: i64,
+    pub report: Report,
+    pub inputs: RunInputs,
+}
+
+/// Run one period now and store the run as its current one.
+pub async fn run_period(
+    state: &AppState,
+    plant: &PlantRow,
+    start: DateTime<Utc>,
+) -> Result<RunOutcome, RunError> {
+    let began = Instant::now();
+    let (model, revision) = model_at(&state.store, plant, start).await?;
+    let end = start + TimeDelta::seconds(model.period_seconds);
+    let stored = state.store.readings_in(plant, start, end).await?;
+    let readings: Vec<Reading> = stored.into_iter().map(|s| s.reading).collect();
+    let model = Arc::new(model);
+    let engine_model = Arc::clone(&model);
+    let (report, inputs) = tokio::task::spawn_blocking(move || {
+        let input = period_input(&engine_model, &readings, start);
+        let (unsteady, warnings) = steadiness(&engine_model, &input);
+        let mut report = reconcile::reconcile_period(&engine_model, &input);
+        report.warnings.extend(warnings);
+        let inputs = run_inputs(&engine_model, &input, revision, readings.len(), unsteady);
+        (report, inputs)
+    })
+    .await
+    .map_err(|e| RunError::Engine(e.to_string()))?;
+    let status = serde_json::to_value(report.status)
+        .ok()
+        .and_then(|v| v.as_str().map(str::to_string))
+        .unwrap_or_else(|| "unknown".into());
+    let run = NewRun {
+        period_start: start,
+        revision,
+        engine_version: reconcile::ENGINE_VERSION.to_string(),
+        status: status.clone(),
+        report: serde_json::to_value(&report)
+            .map_err(|e| RunError::Engine(format!("report does not serialise: {e}")))?,
+        inputs: serde_json::to_value(&inputs)
+            .map_err(|e| RunError::Engine(format!("inputs do not serialise: {e}")))?,
+    };
+    let run_id = state.store.record_run(plant, &run).await?;
+    state.metrics.run(&status, began.elapsed());
+    tracing::info!(plant = %plant.name, period = %start, status = %status, "period run");
+    Ok(RunOutcome {
+        run_id,
+        report,
+        inputs,
+    })
+}
+
+/// The validated model of the revision in effect at `t`, and its number.
+pub async fn model_at(
+    store: &Store,
+    plant: &PlantRow,
+    t: DateTime<Utc>,
+) -> Result<(Plant, i64), RunError> {
+    let revisions = store.list_revisions(plant).await?;
+    let keys: Vec<_> = revisions
+        .iter()
+        .map(|r| (r.effective_from, r.revision))
+        .collect();
+    let i = in_effect(&keys, t).ok_or_else(|| RunError::NoModel(plant.name.clone()))?;
+    let rev = &revisions[i];
+    let model = Plant::new(rev.spec.clone()).map_err(|e| {
+        StoreError::Corrupt(format!(
+            "revision {} of plant {} no longer validates: {e}",
+            rev.revision, plant.name
+        ))
+    })?;
+    Ok((model, rev.revision))
+}
+
+/// The period's input: each meter's mean of its good and uncertain readings.
+fn period_input(plant: &Plant, readings: &[Reading], start: DateTime<Utc>) -> PeriodInput {
+    reconcile::group_readings(plant, readings)
+        .into_iter()
+        .find(|p| p.start == start)
+        .unwrap_or_else(|| PeriodInput {
+            start,
+            end: start + TimeDelta::seconds(plant.period_seconds),
+            values: Vec::new(),
+        })
+}
+
+/// Tags whose readings within the period spread beyond the screen, with a warning for each.
+fn steadiness(plant: &Plant, input: &PeriodInput) -> (Vec<String>, Vec<String>) {
+    let mut unsteady = Vec::new();
+    let mut warnings = Vec::new();
+    for v in &input.values {
+        let meter = &plant.meters[v.meter];
+        let Some(sigma) = meter.sigma_for(v.value) else {
+            continue;
+        };
+        if v.readings >= 2 && v.spread > UNSTEADY_SPREAD_SIGMAS * sigma {
+            warnings.push(format!(
+                "unsteady: meter \"{}\" spread {:.4} {} within the period, {:.1} σ (screen {} σ); \
+                 the period is reconciled on its mean, but the loop was moving",
+                meter.tag,
+                v.spread,
+                meter.uom,
+                v.spread / sigma,
+                UNSTEADY_SPREAD_SIGMAS
+            ));
+            unsteady.push(meter.tag.clone());
+        }
+    }
+    (unsteady, warnings)
+}
+
+fn run_inputs(
+    plant: &Plant,
+    input: &PeriodInput,
+    revision: i64,
+    readings: usize,
+    unsteady: Vec<String>,
+) -> RunInputs {
+    let meters: Vec<MeterInput> = input
+        .values
+        .iter()
+        .map(|v| MeterInput {
+            tag: plant.meters[v.meter].tag.clone(),
+            value: v.value,
+            readings: v.readings,
+            used_uncertain: v.used_uncertain,
+            spread: v.spread,
+        })
+        .collect();
+    let missing = plant
+        .meters
+        .iter()
+        .filter(|m| !meters.iter().any(|v| v.tag == m.tag))
+        .map(|m| m.tag.clone())
+        .collect();
+    RunInputs {
+        revision,
+        readings,
+        meters,
+        missing,
+        unsteady,
+    }
+}
+
+/// Run every closed dirty period of every plant, oldest first; returns how many ran.
+pub async fn run_due(state: &AppState, schedule: &Schedule) -> Result<usize, RunError> {
+    let mut ran = 0;
+    let now = Utc::now();
+    let grace = TimeDelta::from_std(schedule.grace).unwrap_or(TimeDelta::zero());
+    for plant in state.store.plants().await? {
+        let dirty = state.store.dirty_periods(&plant).await?;
+        if dirty.is_empty() {
+            continue;
+        }
+        let Ok((model, _)) = model_at(&state.store, &plant, now).await else {
+            continue;
+        };
+        let period = TimeDelta::seconds(model.period_seconds);
+        for (start, marked_at) in dirty {
+            if start + period + grace > now {
+                continue;
+            }
+            match run_period(state, &plant, start).await {
+                Ok(_) => {
+                    // A reading that arrived during the run marked the period again after
+                    // `marked_at`: the mark stays and the period runs once more.
+                    state.store.clear_dirty(&plant, start, marked_at).await?;
+                    ran += 1;
+                }
+                Err(RunError::Store(e)) => return Err(e.into()),
+                Err(e) => {
+                    tracing::error!(plant = %plant.name, period = %start, error = %e, "period run failed");
+                }
+            }
+        }
+    }
+    Ok(ran)
+}
+
+/// The background worker: runs due periods on every tick and whenever `wake` is notified,
+/// until `stop` turns true. A run in progress is finished before it stops.
+pub async fn worker(
+    state: AppState,
+    schedule: Schedule,
+    wake: Arc<Notify>,
+    mut stop: watch::Receiver<bool>,
+) {
+    loop {
+        if *stop.borrow() {
+            break;
+        }
+        if let Err(e) = run_due(&state, &schedule).await {
+            tracing::error!(error = %e, "scheduler pass failed; retrying on the next tick");
+        }
+        tokio::select! {
+            _ = tokio::time::sleep(schedule.tick) => {}
+            _ = wake.notified() => {}
+            _ = stop.changed() => {}
+        }
+    }
+    tracing::info!("scheduler stopped");
+}

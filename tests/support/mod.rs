@@ -1,0 +1,176 @@
+//! The real `loopbal` binary as a service on a free loopback port with a temporary SQLite
+//! file, for end-to-end tests that talk HTTP to it as a historian or an engineer would.
+
+#![allow(dead_code)] // each test file uses its own part of the harness
+
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+use std::process::{Child, ChildStdout, Command, Stdio};
+use std::time::{Duration, Instant};
+
+pub const BIN: &str = env!("CARGO_BIN_EXE_loopbal");
+
+pub const KESTREL: &str = concat!(
+    env!("CARGO_MANIFEST_DIR"),
+    "/../tests/data/kestrel-loop.toml"
+);
+
+/// A running `loopbal serve`. Dropping it kills the process.
+pub struct Server {
+    child: Option<Child>,
+    // Kept open so a later line on stdout never meets a closed pipe.
+    _stdout: BufReader<ChildStdout>,
+    pub base: String,
+    pub database: PathBuf,
+    extra: Vec<String>,
+}
+
+impl Server {
+    /// Start on `database` (created if absent) with extra `serve` options.
+    pub fn start(database: &Path, extra: &[&str]) -> Server {
+        Server::start_logging(database, extra, "warn")
+    }
+
+    /// As `start`, with `RUST_LOG` set to `log`; the log goes to `server.log` beside the
+    /// database (a file, so a chatty server never blocks on a full pipe).
+    pub fn start_logging(database: &Path, extra: &[&str], log: &str) -> Server {
+        let log_file = std::fs::OpenOptions::new()
+            .create(true)
+            .append(true)
+            .open(log_path(database))
+            .expect("open the server log");
+        let mut child = Command::new(BIN)
+            .arg("serve")
+            .arg("--listen")
+            .arg("127.0.0.1:0")
+            .arg("--database")
+            .arg(database)
+            .args(extra)
+            .env("RUST_LOG", log)
+            .stdin(Stdio::null())
+            .stdout(Stdio::piped())
+            .stderr(Stdio::from(log_file))
+            .spawn()
+            .expect("start loopbal serve");
+        let mut stdout = BufReader::new(child.stdout.take().expect("stdout piped"));
+        let mut line = String::new();
+        stdout
+            .read_line(&mut line)
+            .expect("read the listening line");
+        let Some(base) = line.trim().strip_prefix("loopbal: listening on ") else {
+            let _ = child.kill();
+            let _ = child.wait();
+            let err = std::fs::read_to_string(log_path(database)).unwrap_or_default();
+            panic!("server did not start: stdout {line:?}, stderr {err}");
+        };
+        Server {
+            base: base.to_string(),
+            child: Some(child),
+            _stdout: stdout,
+            database: database.to_path_buf(),
+            extra: extra.iter().map(|s| s.to_string()).collect(),
+        }
+    }
+
+    /// Everything the server has logged so far.
+    pub fn log(&self) -> String {
+        std::fs::read_to_string(log_path(&self.database)).unwrap_or_default()
+    }
+
+    pub fn url(&self, path: &str) -> String {
+        format!("{}{path}", self.base)
+    }
+
+    pub fn pid(&self) -> u32 {
+        self.child.as_ref().expect("running").id()
+    }
+
+    /// SIGTERM, then wait (at most 30 s) for a clean exit; returns whether it exited 0.
+    pub fn stop(mut self) -> bool {
+        let mut child = self.child.take().expect("running");
+        let _ = Command::new("kill")
+            .arg("-TERM")
+            .arg(child.id().to_string())
+            .status();
+        let deadline = Instant::now() + Duration::from_secs(30);
+        loop {
+            if let Some(status) = child.try_wait().expect("wait") {
+                return status.success();
+            }
+            if Instant::now() > deadline {
+                let _ = child.kill();
+                let _ = child.wait();
+                return false;
+            }
+            std::thread::sleep(Duration::from_millis(20));
+        }
+    }
+
+    /// Stop (SIGTERM) and return everything the server logged.
+    pub fn stop_and_log(self) -> String {
+        let path = log_path(&self.database);
+        self.stop();
+        std::fs::read_to_string(path).unwrap_or_default()
+    }
+
+    /// Stop and start again on the same database with the same options.
+    pub fn restart(self) -> Server {
+        let database = self.database.clone();
+        let extra = self.extra.clone();
+        assert!(self.stop(), "the server exits 0 on SIGTERM");
+        let extra: Vec<&str> = extra.iter().map(String::as_str).collect();
+        Server::start(&database, &extra)
+    }
+}
+
+impl Drop for Server {
+    fn drop(&mut self) {
+        if let Some(mut child) = self.child.take() {
+            let _ = child.kill();
+            let _ = child.wait();
+        }
+    }
+}
+
+fn log_path(database: &Path) -> PathBuf {
+    database.with_extension("log")
+}
+
+/// `loopbal token create` on the database: the printed token.
+pub fn token(database: &Path, role: &str, plant: Option<&str>) -> String {
+    let mut cmd = Command::new(BIN);
+    cmd.args(["token", "create", "--role", role, "--database"])
+        .arg(database);
+    if let Some(p) = plant {
+        cmd.args(["--plant", p]);
+    }
+    let out = cmd.output().expect("run loopbal token create");
+    assert!(
+        out.status.success(),
+        "token create failed: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let token = String::from_utf8(out.stdout).expect("utf-8").trim().to_string();
+    assert!(token.starts_with("lb_"), "token {token:?}");
+    token
+}
+
+/// The kestrel model file's text.
+pub fn kestrel_model() -> String {
+    std::fs::read_to_string(KESTREL).expect("read kestrel model")
+}
+
+/// The tags of the kestrel model with a plausible value for each (mid-range of its meter).
+pub const KESTREL_TAGS: [(&str, f64); 11] = [
+    ("KP2-FI-101", 20_500.0),
+    ("KP2-AI-102", 0.30),
+    ("KP2-AI-103", 74.1),
+    ("KP2-AI-104", 0.85),
+    ("KP2-FI-201", 5_400.0),
+    ("KP2-AI-202", 4.1),
+    ("KP2-FI-301", 13.2),
+    ("KP2-FI-401", 48.0),
+    ("KP2-AI-402", 5.0),
+    ("KP2-AI-403", 13.0),
+    ("KP2-FI-501", 4_300.0),
+];
