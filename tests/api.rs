@@ -397,7 +397,7 @@ async fn a_new_revision_leaves_stored_readings_alone() {
 }
 
 /// Every secured operation of the API with the role FORMATS.md gives it.
-const SECURED: [(&str, &str, &str); 8] = [
+const SECURED: [(&str, &str, &str); 10] = [
     ("put", "/api/v1/plants/{plant}/model", "admin"),
     ("get", "/api/v1/plants/{plant}/model", "read"),
     ("get", "/api/v1/plants/{plant}/model/revisions", "read"),
@@ -406,6 +406,8 @@ const SECURED: [(&str, &str, &str); 8] = [
     ("get", "/api/v1/plants/{plant}/periods", "read"),
     ("get", "/api/v1/plants/{plant}/periods/{start}", "read"),
     ("post", "/api/v1/plants/{plant}/periods/{start}/reconcile", "admin"),
+    ("get", "/api/v1/plants/{plant}/figures", "read"),
+    ("get", "/api/v1/plants/{plant}/balances", "read"),
 ];
 const OPEN: [(&str, &str); 3] = [
     ("get", "/healthz"),

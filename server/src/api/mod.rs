@@ -22,6 +22,8 @@ use crate::metrics::Metrics;
 use crate::store::Store;
 
 pub mod auth;
+mod balances;
+mod figures;
 mod models;
 mod periods;
 pub mod problem;
@@ -85,6 +87,7 @@ impl AppState {
         (name = "models", description = "Plant models and their revisions"),
         (name = "readings", description = "Historian readings"),
         (name = "periods", description = "Period runs and their reports"),
+        (name = "results", description = "Loop figures as time series and balances over a range"),
         (name = "service", description = "Liveness, metrics and this description"),
     )
 )]
@@ -114,6 +117,8 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
         .routes(routes!(periods::list_periods))
         .routes(routes!(periods::get_period))
         .routes(routes!(periods::rerun_period))
+        .routes(routes!(figures::get_figures))
+        .routes(routes!(balances::get_balances))
         .split_for_parts();
     let text = serde_json::to_string_pretty(&openapi).unwrap_or_default();
     let _ = state.openapi.set(text);

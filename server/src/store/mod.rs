@@ -279,6 +279,20 @@ impl Store {
         }
     }
 
+    /// The named top-level fields of the current report of every period starting in
+    /// `[from, to)`, oldest first, each as an object of those fields.
+    pub async fn current_reports(
+        &self,
+        plant: &PlantRow,
+        from: DateTime<Utc>,
+        to: DateTime<Utc>,
+        fields: &[&str],
+    ) -> Result<Vec<(DateTime<Utc>, serde_json::Value)>> {
+        match self {
+            Store::Sqlite(s) => s.current_reports(plant, from, to, fields).await,
+        }
+    }
+
     /// Every run of a period, oldest first.
     pub async fn run_history(
         &self,
