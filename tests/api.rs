@@ -394,10 +394,29 @@ async fn a_new_revision_leaves_stored_readings_alone() {
     assert_eq!(numbers, [1, 2, 3]);
     assert_eq!(list[2]["effective_from"], "2099-01-01T00:00:00Z");
 
+    // A new reading is judged by the range of the revision in effect at its time: revision 2
+    // from noon of the 2nd, revision 1 before it.
+    let late = "tag,time,value\nKP2-FI-401,2026-03-03T00:00:00Z,48\nKP2-FI-401,2026-03-01T00:00:00Z,48\n";
+    let answer = json_ok(post(&c, &s, &t.ingest, late, "text/csv").await).await;
+    assert_eq!(answer["out_of_range"], 1, "{answer}");
+    let flags: Vec<(String, bool)> =
+        readings(&c, &s, &t.read, "2026-03-01T00:00:00Z", "2026-03-04T00:00:00Z")
+            .await
+            .iter()
+            .filter(|r| r["tag"] == "KP2-FI-401" && !r["time"].as_str().unwrap().starts_with("2026-03-02"))
+            .map(|r| (r["time"].as_str().unwrap().to_string(), r["out_of_range"].as_bool().unwrap()))
+            .collect();
+    assert_eq!(
+        flags,
+        [
+            ("2026-03-01T00:00:00Z".to_string(), false),
+            ("2026-03-03T00:00:00Z".to_string(), true)
+        ]
+    );
 }
 
 /// Every secured operation of the API with the role FORMATS.md gives it.
-const SECURED: [(&str, &str, &str); 10] = [
+const SECURED: [(&str, &str, &str); 13] = [
     ("put", "/api/v1/plants/{plant}/model", "admin"),
     ("get", "/api/v1/plants/{plant}/model", "read"),
     ("get", "/api/v1/plants/{plant}/model/revisions", "read"),
@@ -408,6 +427,9 @@ const SECURED: [(&str, &str, &str); 10] = [
     ("post", "/api/v1/plants/{plant}/periods/{start}/reconcile", "admin"),
     ("get", "/api/v1/plants/{plant}/figures", "read"),
     ("get", "/api/v1/plants/{plant}/balances", "read"),
+    ("get", "/api/v1/plants/{plant}/meters", "read"),
+    ("get", "/api/v1/plants/{plant}/meters/{tag}", "read"),
+    ("post", "/api/v1/plants/{plant}/meters/{tag}/notes", "maintain"),
 ];
 const OPEN: [(&str, &str); 3] = [
     ("get", "/healthz"),
@@ -416,7 +438,8 @@ const OPEN: [(&str, &str); 3] = [
 ];
 
 fn request(c: &Client, s: &Server, method: &str, path: &str, plant: &str) -> reqwest::RequestBuilder {
-    let url = s.url(&path.replace("{plant}", plant).replace("{start}", "2026-03-02T05:00:00Z"));
+    let url = s.url(&path.replace("{plant}", plant).replace("{start}", "2026-03-02T05:00:00Z")
+        .replace("{tag}", "KP2-FI-101"));
     match method {
         "get" => c.get(url),
         "put" => c.put(url),

@@ -19,7 +19,7 @@ use chrono::{DateTime, TimeZone, Utc};
 use loopbal_server::api::{router, AppState, Limits};
 use loopbal_server::ingest::{self, Catalogue};
 use loopbal_server::readings::Format;
-use loopbal_server::store::{Role, Store};
+use loopbal_server::store::{outside, Role, Store};
 use reconcile::{ModelSpec, Quality, Reading};
 use sqlx::sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePoolOptions, SqliteSynchronous};
 
@@ -387,7 +387,7 @@ async fn run() {
     for batch in &new[..done] {
         let t = Instant::now();
         let counts = direct
-            .ingest_readings(&plant, batch, 3600, &ranges)
+            .ingest_readings(&plant, batch, 3600, &outside(&ranges))
             .await
             .expect("ingest directly");
         let dt = t.elapsed();

@@ -83,16 +83,6 @@ impl Catalogue {
         self.known.contains(tag)
     }
 
-    /// Ranges of the revision in effect now. (Interim: the store flags by one map per batch
-    /// until it takes a flag per reading.)
-    fn ranges_now(&self) -> std::collections::BTreeMap<String, [f64; 2]> {
-        let keys: Vec<(DateTime<Utc>, i64)> =
-            self.revisions.iter().map(|(t, n, _)| (*t, *n)).collect();
-        in_effect(&keys, Utc::now())
-            .map(|i| self.revisions[i].2.iter().map(|(k, v)| (k.clone(), *v)).collect())
-            .unwrap_or_default()
-    }
-
     /// Outside the range its meter has in the revision in effect at the reading's time.
     pub fn out_of_range(&self, r: &Reading) -> bool {
         let keys: Vec<(DateTime<Utc>, i64)> =
@@ -197,7 +187,7 @@ pub async fn store_batch(
                 plant,
                 &checked.good,
                 catalogue.period_seconds,
-                &catalogue.ranges_now(),
+                &|r: &Reading| catalogue.out_of_range(r),
             )
             .await?
     };

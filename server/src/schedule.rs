@@ -11,11 +11,15 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use chrono::{DateTime, TimeDelta, Utc};
-use reconcile::{PeriodInput, Plant, Reading, Report};
+use std::collections::{BTreeMap, HashMap};
+
+use reconcile::solve::Measured;
+use reconcile::{PeriodInput, Plant, Quality, Reading, Report};
 use serde::Serialize;
 use tokio::sync::{watch, Notify};
 
 use crate::api::AppState;
+use crate::health::MeterPeriod;
 use crate::ingest::in_effect;
 use crate::store::{NewRun, PlantRow, Store, StoreError};
 
@@ -95,16 +99,24 @@ pub async fn run_period(
     let (model, revision) = model_at(&state.store, plant, start).await?;
     let end = start + TimeDelta::seconds(model.period_seconds);
     let stored = state.store.readings_in(plant, start, end).await?;
+    // Per tag: (bad readings, readings outside the instrument range), for the health screens.
+    let mut screens: HashMap<String, (i64, i64)> = HashMap::new();
+    for s in &stored {
+        let e = screens.entry(s.reading.tag.clone()).or_default();
+        e.0 += i64::from(s.reading.quality == Quality::Bad);
+        e.1 += i64::from(s.out_of_range);
+    }
     let readings: Vec<Reading> = stored.into_iter().map(|s| s.reading).collect();
     let model = Arc::new(model);
     let engine_model = Arc::clone(&model);
-    let (report, inputs) = tokio::task::spawn_blocking(move || {
+    let (report, inputs, correlations) = tokio::task::spawn_blocking(move || {
         let input = period_input(&engine_model, &readings, start);
         let (unsteady, warnings) = steadiness(&engine_model, &input);
         let mut report = reconcile::reconcile_period(&engine_model, &input);
         report.warnings.extend(warnings);
+        let correlations = adjustment_correlations(&engine_model, &input);
         let inputs = run_inputs(&engine_model, &input, revision, readings.len(), unsteady);
-        (report, inputs)
+        (report, inputs, correlations)
     })
     .await
     .map_err(|e| RunError::Engine(e.to_string()))?;
@@ -112,7 +124,9 @@ pub async fn run_period(
         .ok()
         .and_then(|v| v.as_str().map(str::to_string))
         .unwrap_or_else(|| "unknown".into());
+    let meters = meter_rows(&report, start, &screens, correlations);
     let run = NewRun {
+        meters,
         period_start: start,
         revision,
         engine_version: reconcile::ENGINE_VERSION.to_string(),
@@ -130,6 +144,91 @@ pub async fn run_period(
         report,
         inputs,
     })
+}
+
+/// Each meter's figures of a report, for its health record.
+fn meter_rows(
+    report: &Report,
+    start: DateTime<Utc>,
+    screens: &HashMap<String, (i64, i64)>,
+    mut correlations: HashMap<String, BTreeMap<String, f64>>,
+) -> Vec<(String, MeterPeriod)> {
+    report
+        .meters
+        .iter()
+        .map(|m| {
+            let (bad, out) = screens.get(&m.tag).copied().unwrap_or_default();
+            (
+                m.tag.clone(),
+                MeterPeriod {
+                    period_start: start,
+                    measured: m.measured,
+                    reconciled: m.reconciled,
+                    sigma: m.sigma,
+                    adjustment: m.adjustment,
+                    adjustment_sigma: m.adjustment_sigma,
+                    normalized: m.normalized_adjustment,
+                    redundant: m.redundant,
+                    flagged: m.suspect || m.measurement_test_failed,
+                    readings: m.readings as i64,
+                    bad_readings: bad,
+                    out_of_range_readings: out,
+                    correlations: correlations.remove(&m.tag).unwrap_or_default(),
+                },
+            )
+        })
+        .collect()
+}
+
+/// Smallest |ρ| kept in a meter's record.
+const KEPT_CORRELATION: f64 = 0.2;
+
+/// Correlations of the meters' adjustments this period: ρᵢⱼ = Cᵢⱼ / √(Cᵢᵢ Cⱼⱼ) with C the
+/// covariance of the σ-scaled adjustments at the estimate. Under a bias in meter j the
+/// expected normalised adjustment of meter i is ρᵢⱼ times that of j, which is how meter health
+/// tells the biased meter from those its balances drag along. Only |ρ| ≥ 0.2 is kept.
+fn adjustment_correlations(plant: &Plant, input: &PeriodInput) -> HashMap<String, BTreeMap<String, f64>> {
+    // The same values and σ the period's estimate used (reconcile::reconcile_period).
+    let measured: Vec<Measured> = input
+        .values
+        .iter()
+        .filter(|v| v.value.is_finite())
+        .filter_map(|v| {
+            let sigma = plant.meters[v.meter].sigma_for(v.value)?;
+            Some(Measured {
+                meter: v.meter,
+                value: v.value,
+                sigma,
+            })
+        })
+        .collect();
+    let mut out: HashMap<String, BTreeMap<String, f64>> = HashMap::new();
+    if measured.len() < 2 {
+        return out;
+    }
+    let estimate = reconcile::estimate(plant, measured);
+    let c = estimate.classification.scaled_adjustment_covariance();
+    let m = estimate.measured.len();
+    if c.nrows() != m || c.ncols() != m {
+        return out;
+    }
+    for i in 0..m {
+        for j in 0..m {
+            let (cii, cjj) = (c[(i, i)], c[(j, j)]);
+            if i == j || cii <= 1e-9 || cjj <= 1e-9 {
+                continue;
+            }
+            let rho = (c[(i, j)] / (cii * cjj).sqrt()).clamp(-1.0, 1.0);
+            if rho.is_finite() && rho.abs() >= KEPT_CORRELATION {
+                let (ti, tj) = (
+                    &plant.meters[estimate.measured[i].meter].tag,
+                    &plant.meters[estimate.measured[j].meter].tag,
+                );
+                out.entry(ti.clone()).or_default().insert(tj.clone(), rho);
+            }
+        }
+    }
+    out
 }
 
 /// The validated model of the revision in effect at `t`, and its number.

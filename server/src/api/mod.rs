@@ -24,6 +24,7 @@ use crate::store::Store;
 pub mod auth;
 mod balances;
 mod figures;
+mod meters;
 mod models;
 mod periods;
 pub mod problem;
@@ -87,6 +88,7 @@ impl AppState {
         (name = "models", description = "Plant models and their revisions"),
         (name = "readings", description = "Historian readings"),
         (name = "periods", description = "Period runs and their reports"),
+        (name = "meters", description = "Meter health and technicians' notes"),
         (name = "results", description = "Loop figures as time series and balances over a range"),
         (name = "service", description = "Liveness, metrics and this description"),
     )
@@ -117,6 +119,9 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
         .routes(routes!(periods::list_periods))
         .routes(routes!(periods::get_period))
         .routes(routes!(periods::rerun_period))
+        .routes(routes!(meters::list_meters))
+        .routes(routes!(meters::get_meter))
+        .routes(routes!(meters::post_note))
         .routes(routes!(figures::get_figures))
         .routes(routes!(balances::get_balances))
         .split_for_parts();

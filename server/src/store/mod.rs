@@ -6,7 +6,6 @@
 //! Every instant is stored as integer milliseconds since the Unix epoch (migrations/0001 says
 //! why). SQL is written only with bound parameters.
 
-use std::collections::BTreeMap;
 use std::str::FromStr;
 use std::time::Duration;
 
@@ -15,6 +14,7 @@ use reconcile::{ModelSpec, Reading};
 use sqlx::sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePool, SqlitePoolOptions};
 use sqlx::{Sqlite, Transaction};
 
+mod meters;
 mod plants;
 mod readings;
 mod runs;
@@ -22,8 +22,9 @@ mod runs;
 mod tests;
 mod tokens;
 
+pub use meters::{MeterNote, NoteKind};
 pub use plants::{MeterRow, ModelRevision, PlantRow};
-pub use readings::{IngestCounts, StoredReading};
+pub use readings::{outside, IngestCounts, OutOfRange, StoredReading};
 pub use runs::{NewRun, RunRow, RunSummary};
 pub use tokens::{Grant, NewToken, Role};
 
@@ -177,18 +178,18 @@ impl Store {
     }
 
     /// Store a batch of checked readings in one transaction, idempotently by (plant, tag,
-    /// time), and mark the period of every new or changed reading dirty. `ranges` holds the
-    /// instrument range [lo, hi] of each tag that has one; a reading outside it is flagged.
+    /// time), and mark the period of every new or changed reading dirty. A reading for which
+    /// `out_of_range` holds is stored flagged.
     pub async fn ingest_readings(
         &self,
         plant: &PlantRow,
         readings: &[Reading],
         period_seconds: i64,
-        ranges: &BTreeMap<String, [f64; 2]>,
+        out_of_range: OutOfRange<'_>,
     ) -> Result<IngestCounts> {
         match self {
             Store::Sqlite(s) => {
-                s.ingest_readings(plant, readings, period_seconds, ranges)
+                s.ingest_readings(plant, readings, period_seconds, out_of_range)
                     .await
             }
         }
@@ -290,6 +291,41 @@ impl Store {
     ) -> Result<Vec<(DateTime<Utc>, serde_json::Value)>> {
         match self {
             Store::Sqlite(s) => s.current_reports(plant, from, to, fields).await,
+        }
+    }
+
+    /// Meter records of `[from, to)` (one tag, or all), by tag then period.
+    pub async fn meter_periods(
+        &self,
+        plant: &PlantRow,
+        tag: Option<&str>,
+        from: DateTime<Utc>,
+        to: DateTime<Utc>,
+    ) -> Result<Vec<(String, crate::health::MeterPeriod)>> {
+        match self {
+            Store::Sqlite(s) => s.meter_periods(plant, tag, from, to).await,
+        }
+    }
+
+    /// Record a technician's note.
+    pub async fn add_note(
+        &self,
+        plant: &PlantRow,
+        tag: &str,
+        kind: NoteKind,
+        text: &str,
+        effective_at: DateTime<Utc>,
+        token_id: Option<i64>,
+    ) -> Result<MeterNote> {
+        match self {
+            Store::Sqlite(s) => s.add_note(plant, tag, kind, text, effective_at, token_id).await,
+        }
+    }
+
+    /// Notes of a plant (of one tag when given), oldest effective first.
+    pub async fn notes(&self, plant: &PlantRow, tag: Option<&str>) -> Result<Vec<MeterNote>> {
+        match self {
+            Store::Sqlite(s) => s.notes(plant, tag).await,
         }
     }
 

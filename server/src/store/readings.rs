@@ -152,13 +152,26 @@ fn runs(readings: &[Reading]) -> Vec<&[Reading]> {
     runs
 }
 
+/// Whether a reading lies outside its meter's instrument range (the caller knows which model
+/// revision judges each reading).
+pub type OutOfRange<'a> = &'a (dyn Fn(&Reading) -> bool + Sync);
+
+/// The range check of one map of instrument ranges by tag.
+pub fn outside(ranges: &BTreeMap<String, [f64; 2]>) -> impl Fn(&Reading) -> bool + Sync + '_ {
+    move |r| {
+        ranges
+            .get(&r.tag)
+            .is_some_and(|[lo, hi]| !(*lo..=*hi).contains(&r.value))
+    }
+}
+
 impl SqliteStore {
     pub(super) async fn ingest_readings(
         &self,
         plant: &PlantRow,
         readings: &[Reading],
         period_seconds: i64,
-        ranges: &BTreeMap<String, [f64; 2]>,
+        out_of_range: OutOfRange<'_>,
     ) -> Result<IngestCounts> {
         if period_seconds <= 0 {
             return Err(StoreError::InvalidPeriod(period_seconds));
@@ -214,9 +227,7 @@ impl SqliteStore {
             let mut upsert =
                 sqlx::query(upsert_text.as_deref().unwrap_or(&full.upsert)).persistent(is_full);
             for r in run {
-                let out_of_range = ranges
-                    .get(&r.tag)
-                    .is_some_and(|[lo, hi]| !(*lo..=*hi).contains(&r.value));
+                let out_of_range = out_of_range(r);
                 upsert = upsert
                     .bind(plant.id)
                     .bind(r.tag.as_str())
@@ -361,7 +372,7 @@ mod tests {
         let periods = n.div_ceil(2);
         assert!(periods > MARKS_PER_STATEMENT);
 
-        let counts = store.ingest_readings(&plant, &batch, 3600, &ranges).await.unwrap();
+        let counts = store.ingest_readings(&plant, &batch, 3600, &outside(&ranges)).await.unwrap();
         assert_eq!((counts.accepted, counts.replaced, counts.unchanged), (n, 0, 0));
         let dirty = store.dirty_periods(&plant).await.unwrap();
         assert_eq!(dirty.len(), periods);
@@ -389,7 +400,7 @@ mod tests {
             again[i].value += 1.0;
         }
         again[7].quality = Quality::Uncertain;
-        let counts = store.ingest_readings(&plant, &again, 3600, &ranges).await.unwrap();
+        let counts = store.ingest_readings(&plant, &again, 3600, &outside(&ranges)).await.unwrap();
         assert_eq!(
             (counts.accepted, counts.replaced, counts.unchanged),
             (0, 5, n - 5)
@@ -419,7 +430,7 @@ mod tests {
             value: repeats[0].value + 1.0,
             ..repeats[0].clone()
         };
-        let counts = store.ingest_readings(&plant, &batch, 3600, &ranges).await.unwrap();
+        let counts = store.ingest_readings(&plant, &batch, 3600, &outside(&ranges)).await.unwrap();
         let m = batch.len();
         assert_eq!(
             (counts.accepted, counts.replaced, counts.unchanged),
@@ -456,7 +467,7 @@ mod tests {
                 r.value += period as f64;
             }
             store
-                .ingest_readings(&plant, &batch, period, &BTreeMap::new())
+                .ingest_readings(&plant, &batch, period, &|_: &Reading| false)
                 .await
                 .unwrap();
             let mut want: Vec<_> = batch.iter().map(|r| period_start(r.time, period)).collect();

@@ -19,6 +19,9 @@ pub struct NewRun {
     /// The period's meter values as the engine saw them, so a run can be explained and
     /// repeated after later readings replaced them.
     pub inputs: serde_json::Value,
+    /// Each meter's figures in this run, for its health record (replacing the period's
+    /// earlier rows).
+    pub meters: Vec<(String, crate::health::MeterPeriod)>,
 }
 
 /// A current run without its report and inputs, for listings.
@@ -74,6 +77,7 @@ impl SqliteStore {
         .bind(now_ms())
         .fetch_one(&mut *tx)
         .await?;
+        super::meters::write_meter_periods(&mut tx, plant, id, &run.meters).await?;
         tx.commit().await?;
         Ok(id)
     }
@@ -193,6 +197,7 @@ fn run_row(r: &sqlx::sqlite::SqliteRow) -> Result<RunRow> {
             status: r.try_get("status")?,
             report,
             inputs,
+            meters: Vec::new(),
         },
         created_at: from_ms(r.try_get("created_at")?)?,
         current: r.try_get("current")?,

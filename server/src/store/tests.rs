@@ -1,5 +1,7 @@
 //! The store against a real SQLite file in a temporary directory.
 
+use std::collections::BTreeMap;
+
 use reconcile::Quality;
 
 use super::*;
@@ -150,7 +152,7 @@ async fn readings_are_idempotent_and_changes_mark_their_period() {
         reading("FT-1", "2026-03-02T06:10:00Z", 51.0, Quality::Good),
     ];
     let first = store
-        .ingest_readings(&plant, &batch, 3600, &ranges())
+        .ingest_readings(&plant, &batch, 3600, &outside(&ranges()))
         .await
         .unwrap();
     assert_eq!(
@@ -175,7 +177,7 @@ async fn readings_are_idempotent_and_changes_mark_their_period() {
     let mut again = batch.clone();
     again[0].time = t("2026-03-02T07:00:00+02:00");
     let second = store
-        .ingest_readings(&plant, &again, 3600, &ranges())
+        .ingest_readings(&plant, &again, 3600, &outside(&ranges()))
         .await
         .unwrap();
     assert_eq!(
@@ -192,7 +194,7 @@ async fn readings_are_idempotent_and_changes_mark_their_period() {
     let mut fixed = batch.clone();
     fixed[2].value = 52.5;
     let third = store
-        .ingest_readings(&plant, &fixed, 3600, &ranges())
+        .ingest_readings(&plant, &fixed, 3600, &outside(&ranges()))
         .await
         .unwrap();
     assert_eq!(
@@ -217,7 +219,7 @@ async fn readings_are_idempotent_and_changes_mark_their_period() {
     let stale = dirty[0].1;
     fixed[2].quality = Quality::Uncertain;
     store
-        .ingest_readings(&plant, &fixed, 3600, &ranges())
+        .ingest_readings(&plant, &fixed, 3600, &outside(&ranges()))
         .await
         .unwrap();
     assert!(!store.clear_dirty(&plant, dirty[0].0, stale).await.unwrap());
@@ -234,7 +236,7 @@ async fn out_of_range_and_bad_readings_are_stored_and_flagged() {
         reading("FT-2", "2026-03-02T05:00:00Z", -3.0, Quality::Bad),
     ];
     let counts = store
-        .ingest_readings(&plant, &batch, 3600, &ranges())
+        .ingest_readings(&plant, &batch, 3600, &outside(&ranges()))
         .await
         .unwrap();
     assert_eq!(counts.accepted, 3);
@@ -276,7 +278,7 @@ async fn a_failing_batch_leaves_nothing_written() {
         reading("FT-2", "2026-03-02T07:00:00Z", 48.0, Quality::Good),
     ];
     let err = store
-        .ingest_readings(&plant, &batch, 3600, &ranges())
+        .ingest_readings(&plant, &batch, 3600, &outside(&ranges()))
         .await
         .expect_err("NOT NULL must refuse NaN");
     assert!(err.to_string().contains("NOT NULL"), "{err}");
@@ -337,6 +339,7 @@ async fn runs_keep_history_with_one_current_per_period() {
         status: status.to_string(),
         report: serde_json::json!({ "status": status }),
         inputs: serde_json::json!([{ "tag": "FT-1", "value": 50.0 }]),
+        meters: Vec::new(),
     };
     let five = "2026-03-02T05:00:00Z";
     let first = store
