@@ -793,8 +793,27 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
         p[2]["runs"] == 2 && p[2]["rerun_due"] == false
     })
     .await;
+    // Exactly one new run, of that period only, even after the worker has looked again.
+    tokio::time::sleep(Duration::from_millis(2500)).await;
+    let periods = wait_for_periods(&c, &s, &t.read, plant, from, to, |_| true).await;
+    let runs: Vec<i64> = periods.iter().map(|p| p["runs"].as_i64().unwrap()).collect();
+    assert_eq!(runs, [0, 1, 2, 1, 1, 0]);
     let hour1 = json_ok(get("2026-06-01T01:00:00Z").await.unwrap()).await;
     assert_eq!(hour1["runs"], 2);
+    // The new report differs as it should: the measured purge flow is the corrected one, and
+    // the reconciled flow moved towards it.
+    let before = json_ok(get("2026-06-01T02:00:00Z").await.unwrap()).await;
+    let purge = |r: &Value| {
+        r["report"]["meters"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|m| m["tag"] == "FI-4")
+            .unwrap()["reconciled"]
+            .as_f64()
+            .unwrap()
+    };
+    assert!(purge(&hour1) > purge(&before), "{} vs {}", purge(&hour1), purge(&before));
     let fi4 = hour1["report"]["meters"]
         .as_array()
         .unwrap()

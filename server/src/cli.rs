@@ -67,6 +67,10 @@ pub enum Command {
         #[arg(long, value_name = "SECONDS", default_value_t = 30, env = "LOOPBAL_RUN_TICK",
               value_parser = clap::value_parser!(u64).range(1..=86400))]
         run_tick: u64,
+        /// Periods reconciled at once (default: one per core).
+        #[arg(long, value_name = "N", env = "LOOPBAL_RUN_WORKERS",
+              value_parser = clap::value_parser!(u64).range(1..=256))]
+        run_workers: Option<u64>,
     },
     /// API tokens.
     Token {

@@ -32,6 +32,7 @@ fn main() -> ExitCode {
             request_timeout,
             run_grace,
             run_tick,
+            run_workers,
         } => {
             serve::init_tracing();
             runtime().and_then(|rt| {
@@ -45,6 +46,8 @@ fn main() -> ExitCode {
                     schedule: loopbal_server::schedule::Schedule {
                         grace: std::time::Duration::from_secs(*run_grace),
                         tick: std::time::Duration::from_secs(*run_tick),
+                        workers: run_workers
+                            .map_or_else(loopbal_server::schedule::default_workers, |n| n as usize),
                     },
                 }))
             })

@@ -30,6 +30,8 @@ pub struct Schedule {
     pub grace: Duration,
     /// How often the worker looks for due periods (it also wakes on every stored batch).
     pub tick: Duration,
+    /// Periods run at once (each solve on its own blocking thread).
+    pub workers: usize,
 }
 
 impl Default for Schedule {
@@ -37,8 +39,14 @@ impl Default for Schedule {
         Schedule {
             grace: Duration::from_secs(300),
             tick: Duration::from_secs(30),
+            workers: default_workers(),
         }
     }
+}
+
+/// One worker per core.
+pub fn default_workers() -> usize {
+    std::thread::available_parallelism().map_or(1, |n| n.get())
 }
 
 /// A meter whose readings within one period spread over more than this many σ makes the
@@ -323,11 +331,12 @@ fn run_inputs(
     }
 }
 
-/// Run every closed dirty period of every plant, oldest first; returns how many ran.
+/// Run every closed dirty period of every plant, oldest first, up to `schedule.workers` at a
+/// time; returns how many ran.
 pub async fn run_due(state: &AppState, schedule: &Schedule) -> Result<usize, RunError> {
-    let mut ran = 0;
     let now = Utc::now();
     let grace = TimeDelta::from_std(schedule.grace).unwrap_or(TimeDelta::zero());
+    let mut due = Vec::new();
     for plant in state.store.plants().await? {
         let dirty = state.store.dirty_periods(&plant).await?;
         if dirty.is_empty() {
@@ -338,20 +347,40 @@ pub async fn run_due(state: &AppState, schedule: &Schedule) -> Result<usize, Run
         };
         let period = TimeDelta::seconds(model.period_seconds);
         for (start, marked_at) in dirty {
-            if start + period + grace > now {
-                continue;
+            if start + period + grace <= now {
+                due.push((plant.clone(), start, marked_at));
             }
-            match run_period(state, &plant, start).await {
-                Ok(_) => {
-                    // A reading that arrived during the run marked the period again after
-                    // `marked_at`: the mark stays and the period runs once more.
-                    state.store.clear_dirty(&plant, start, marked_at).await?;
-                    ran += 1;
-                }
-                Err(RunError::Store(e)) => return Err(e.into()),
-                Err(e) => {
-                    tracing::error!(plant = %plant.name, period = %start, error = %e, "period run failed");
-                }
+        }
+    }
+    let mut ran = 0;
+    let mut pending = due.into_iter();
+    let mut running = tokio::task::JoinSet::new();
+    loop {
+        while running.len() < schedule.workers.max(1) {
+            let Some((plant, start, marked_at)) = pending.next() else {
+                break;
+            };
+            let state = state.clone();
+            running.spawn(async move {
+                let outcome = run_period(&state, &plant, start).await;
+                (plant, start, marked_at, outcome)
+            });
+        }
+        let Some(joined) = running.join_next().await else {
+            break;
+        };
+        let (plant, start, marked_at, outcome) =
+            joined.map_err(|e| RunError::Engine(e.to_string()))?;
+        match outcome {
+            Ok(_) => {
+                // A reading that arrived during the run marked the period again after
+                // `marked_at`: the mark stays and the period runs once more.
+                state.store.clear_dirty(&plant, start, marked_at).await?;
+                ran += 1;
+            }
+            Err(RunError::Store(e)) => return Err(e.into()),
+            Err(e) => {
+                tracing::error!(plant = %plant.name, period = %start, error = %e, "period run failed");
             }
         }
     }
@@ -380,4 +409,93 @@ pub async fn worker(
         }
     }
     tracing::info!("scheduler stopped");
+}
+
+#[cfg(test)]
+mod tests {
+    use reconcile::period::MeterValue;
+
+    use super::*;
+
+    const MODEL: &str = r#"
+name = "tee"
+[[component]]
+id = "A"
+molar_mass = 2.0
+[[unit]]
+id = "n"
+kind = "node"
+[[stream]]
+id = "in"
+from = "outside"
+to = "n"
+[[stream]]
+id = "out"
+from = "n"
+to = "outside"
+[[meter]]
+tag = "F-1"
+stream = "in"
+quantity = "molar_flow"
+uom = "kmol/h"
+sigma = 1.0
+[[meter]]
+tag = "F-2"
+stream = "out"
+quantity = "molar_flow"
+uom = "kmol/h"
+sigma = 1.0
+"#;
+
+    #[test]
+    fn a_spread_beyond_eight_sigma_makes_the_period_unsteady() {
+        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let value = |meter, spread| MeterValue {
+            meter,
+            value: 100.0,
+            readings: 4,
+            used_uncertain: false,
+            spread,
+        };
+        let start = Utc::now();
+        let input = PeriodInput {
+            start,
+            end: start,
+            values: vec![value(0, 7.9), value(1, 8.1)],
+        };
+        let (unsteady, warnings) = steadiness(&plant, &input);
+        assert_eq!(unsteady, ["F-2"]);
+        assert!(warnings[0].contains("F-2") && warnings[0].contains("8.1 σ"), "{warnings:?}");
+        // One reading has no spread to judge.
+        let input = PeriodInput {
+            start,
+            end: start,
+            values: vec![MeterValue {
+                readings: 1,
+                ..value(0, 50.0)
+            }],
+        };
+        assert!(steadiness(&plant, &input).0.is_empty());
+    }
+
+    #[test]
+    fn run_inputs_list_the_missing_tags() {
+        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let start = Utc::now();
+        let input = PeriodInput {
+            start,
+            end: start,
+            values: vec![MeterValue {
+                meter: 1,
+                value: 3.0,
+                readings: 2,
+                used_uncertain: true,
+                spread: 0.1,
+            }],
+        };
+        let inputs = run_inputs(&plant, &input, 4, 3, vec![]);
+        assert_eq!(inputs.missing, ["F-1"]);
+        assert_eq!(inputs.meters[0].tag, "F-2");
+        assert_eq!(inputs.revision, 4);
+    }
 }
