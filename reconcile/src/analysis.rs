@@ -205,8 +205,7 @@ fn start_without_suspects(
     best: &Settled,
 ) -> Option<Vec<f64>> {
     let classification = best.1.as_ref()?;
-    let found =
-        crate::faults::identify_at(plant, layout, measured, &best.0.z, classification);
+    let found = crate::faults::identify_at(plant, layout, measured, &best.0.z, classification);
     if found.suspect_tags.is_empty() {
         return None;
     }

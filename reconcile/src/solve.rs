@@ -563,16 +563,7 @@ pub fn solve_with(
             j_rows[row].push((col, v));
         }
         let Some((mut step, mut kkt)) = qp_step(
-            layout,
-            &gj,
-            &j,
-            &j_rows,
-            &jtr,
-            &g,
-            &z,
-            &mut fixed,
-            &curvature,
-            cache,
+            layout, &gj, &j, &j_rows, &jtr, &g, &z, &mut fixed, &curvature, cache,
         ) else {
             status = SolveStatus::NotConverged;
             break;
@@ -629,7 +620,9 @@ pub fn solve_with(
             // be small where the point is not stationary (its model is not convex there).
             if !plain {
                 // Usually from the factorisation in hand, by refinement; else factorised.
-                let refined = kkt.0.step_without(&step, &jtr, &g, &fixed, &curvature, cache);
+                let refined = kkt
+                    .0
+                    .step_without(&step, &jtr, &g, &fixed, &curvature, cache);
                 // (The plain step, not the curved one, is taken if the point is not stationary.)
                 plain = match refined {
                     Some(gn) => {
