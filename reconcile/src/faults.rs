@@ -83,7 +83,7 @@ fn hypotheses(plant: &Plant, est: &Basis) -> Vec<Hypothesis> {
     if gj.nrows == 0 {
         return out;
     }
-    let solver = ConstraintSolver::new(&gj);
+    let solver = ConstraintSolver::new(&gj, c);
     for (u, unit) in plant.units.iter().enumerate() {
         let mut inflow = vec![0.0; plant.components.len()];
         for &s in &unit.inlets {
@@ -115,7 +115,7 @@ fn hypotheses(plant: &Plant, est: &Basis) -> Vec<Hypothesis> {
 /// Solutions z_d of G z_d = d for the leak signatures. The GLR statistic, the magnitude and the
 /// collinearity test see only W f, and W annihilates J times any direction of the null space
 /// of G, so any solution serves; the minimum-norm one is used where G is dense.
-enum ConstraintSolver {
+enum ConstraintSolver<'a> {
     /// z = Q R⁻ᵀ d from a Householder QR Gᵀ = Q R: the minimum-norm solution when G has full
     /// row rank, many times cheaper than the SVD (Golub & Van Loan, *Matrix Computations*, 4th
     /// ed., §5.6).
@@ -123,14 +123,19 @@ enum ConstraintSolver {
     /// The SVD's minimum-norm solution (singular values below 1e-12 dropped), when R shows a
     /// possible rank deficiency (dependent rows).
     Svd(nalgebra::SVD<f64, nalgebra::Dyn, nalgebra::Dyn>),
+    /// Large networks: the solution of the KKT system of the sparse classification.
+    Sparse(&'a crate::covariance::SparseCovariance),
 }
 
 /// A diagonal entry of R this much smaller than the largest counts as a possible rank
 /// deficiency, and the SVD decides instead (as in classify.rs).
 const QR_RANK_GUARD: f64 = 1e-7;
 
-impl ConstraintSolver {
-    fn new(gj: &Triplets) -> ConstraintSolver {
+impl<'a> ConstraintSolver<'a> {
+    fn new(gj: &Triplets, c: &'a Classification) -> ConstraintSolver<'a> {
+        if let Some(sparse) = &c.sparse {
+            return ConstraintSolver::Sparse(sparse);
+        }
         let g = gj.to_dense();
         if g.nrows() <= g.ncols() {
             let qr = g.transpose().qr();
@@ -153,6 +158,7 @@ impl ConstraintSolver {
                 Some((q * y).as_slice().to_vec())
             }
             ConstraintSolver::Svd(svd) => svd.solve(d, 1e-12).ok().map(|x| x.as_slice().to_vec()),
+            ConstraintSolver::Sparse(sparse) => Some(sparse.constraint_solution(d.as_slice())),
         }
     }
 }
@@ -199,8 +205,15 @@ pub fn identify_at(
     if m == 0 || c.redundancy == 0 {
         return result;
     }
-    let mut w: DMatrix<f64> = c.scaled_adjustment_covariance();
     let r0 = DVector::from_vec(scaled_residuals(plant, est.layout, est.measured, est.z));
+    if c.sparse.is_some() && global_test(r0.dot(&r0), c.redundancy, plant.alpha).passed {
+        // Large networks: W costs one solve per meter; the objective (the report's global
+        // test) decides first. (At the solution W r0 = r0 up to the solver's tolerance.)
+        result.compensated_objective = r0.dot(&r0);
+        result.compensated_dof = c.redundancy;
+        return result;
+    }
+    let mut w: DMatrix<f64> = c.scaled_adjustment_covariance();
     let mut r = &w * &r0;
     let mut dof = c.redundancy;
     if global_test(r.dot(&r), dof, plant.alpha).passed {

@@ -535,4 +535,3 @@ fn non_redundant_meter_on_a_known_hard_plant() {
         }
     }
 }
-
