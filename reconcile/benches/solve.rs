@@ -9,7 +9,13 @@
 //!   Layout::new + start::initial_point + solve::solve with the default options.
 //! - `estimate_10_iterations/N`: the same, capped at 10 Gauss–Newton iterations (what a run
 //!   costs when it converges in the usual 5–10).
-//! - `classify/N`: the dense classification and covariance at the solution.
+//! - `classify/N`: classification and covariance at the solution as a period computes them
+//!   (every variable free): the dense projection below `classify::SPARSE_THRESHOLD` states,
+//!   the sparse KKT path from there on (all the networks here); `classify_dense/100` the dense
+//!   path on the 100-stream network for comparison.
+//! - `period/N`: the whole analysis of one period on the network of N streams with noisy
+//!   readings: `reconcile_period` (estimate with its restarts, classification, every σ, the
+//!   tests, identification when the global test fails, loop figures, the report).
 //!
 //! Run with `cargo bench -p reconcile --bench solve`. `LOOPBAL_BENCH_PROBE=1` instead times each
 //! case once and prints iterations and status, without criterion.
@@ -22,16 +28,17 @@ use std::time::{Duration, Instant};
 use common::network::{network, Network};
 use common::{exact_values, fenwick_true_state, noisy_values, period, FenwickConditions, FENWICK};
 use criterion::{criterion_group, BenchmarkId, Criterion};
-use reconcile::classify::classify;
+use reconcile::classify::{classify, classify_dense};
 use reconcile::equations::Layout;
 use reconcile::model::Plant;
 use reconcile::solve::{solve, Measured, Solution, SolveOptions};
 use reconcile::start::initial_point;
 use reconcile::{parse_plant, reconcile_period};
 
-/// Network sizes (streams) timed for the estimate, and for the dense classification.
+/// Network sizes (streams) timed for the estimate, the classification and the whole period.
 const ESTIMATE_SIZES: [usize; 4] = [100, 250, 500, 2000];
-const CLASSIFY_SIZES: [usize; 2] = [100, 250];
+const CLASSIFY_SIZES: [usize; 4] = [100, 250, 500, 2000];
+const PERIOD_SIZES: [usize; 2] = [500, 2000];
 /// Seed of the readings' noise. With seed 0 the Fenwick period converges (in 9 iterations).
 const NOISE_SEED: u64 = 0;
 const NETWORK_SEED: u64 = 7;
@@ -186,8 +193,49 @@ fn networks(c: &mut Criterion) {
     for &size in &CLASSIFY_SIZES {
         let (net, m) = noisy_network(size);
         let (layout, s) = estimate(&net.plant, &m, capped());
+        let free = vec![false; layout.n];
         group.bench_with_input(BenchmarkId::from_parameter(size), &size, |b, _| {
-            b.iter(|| classify(black_box(&net.plant), &layout, &m, &s.z, &s.at_bound))
+            b.iter(|| classify(black_box(&net.plant), &layout, &m, &s.z, &free))
+        });
+    }
+    group.finish();
+
+    let mut group = c.benchmark_group("classify_dense");
+    group
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(5));
+    let (net, m) = noisy_network(100);
+    let (layout, s) = estimate(&net.plant, &m, capped());
+    let free = vec![false; layout.n];
+    group.bench_function(BenchmarkId::from_parameter(100), |b| {
+        b.iter(|| classify_dense(black_box(&net.plant), &layout, &m, &s.z, &free))
+    });
+    group.finish();
+
+    let mut group = c.benchmark_group("period");
+    group
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(8));
+    for &size in &PERIOD_SIZES {
+        let net = network(size, NETWORK_SEED);
+        let input = period(noisy_values(
+            &net.plant,
+            &exact_values(&net.plant, &net.layout, &net.z),
+            NOISE_SEED,
+        ));
+        let report = reconcile_period(&net.plant, &input);
+        eprintln!(
+            "period/{size}: status {:?}, {} iterations, redundancy {}, global test passed {:?}, {} faults",
+            report.status,
+            report.iterations,
+            report.redundancy,
+            report.global_test.map(|g| g.passed),
+            report.faults.len()
+        );
+        group.bench_with_input(BenchmarkId::from_parameter(size), &size, |b, _| {
+            b.iter(|| reconcile_period(black_box(&net.plant), black_box(&input)))
         });
     }
     group.finish();
@@ -239,10 +287,18 @@ fn probe() {
         let _ = estimate(&net.plant, &m, capped());
         let t_cap = t.elapsed();
         let t = Instant::now();
-        let c = classify(&net.plant, &layout, &m, &s.z, &s.at_bound);
+        let c = classify(&net.plant, &layout, &m, &s.z, &vec![false; layout.n]);
         let t_cls = t.elapsed();
+        let input = period(noisy_values(
+            &net.plant,
+            &exact_values(&net.plant, &net.layout, &net.z),
+            NOISE_SEED,
+        ));
+        let t = Instant::now();
+        let report = reconcile_period(&net.plant, &input);
+        let t_period = t.elapsed();
         println!(
-            "{size} streams ({} states, {} equations, {} meters): estimate {:?} ({:?}, {} iterations), 10 iterations {:?}, classify {:?} (redundancy {}, {} unobservable directions)",
+            "{size} streams ({} states, {} equations, {} meters): estimate {:?} ({:?}, {} iterations), 10 iterations {:?}, classify {:?} ({} path, redundancy {}, {} unobservable directions), whole period {:?} ({:?}, global test {}, {} faults, {} restarts)",
             net.layout.n,
             net.layout.rows.len(),
             m.len(),
@@ -251,8 +307,14 @@ fn probe() {
             s.iterations,
             t_cap,
             t_cls,
+            if c.sparse.is_some() { "sparse" } else { "dense" },
             c.redundancy,
-            c.unobservable.ncols()
+            c.unobservable.ncols(),
+            t_period,
+            report.status,
+            report.global_test.map_or("none".into(), |g| if g.passed { "passed".to_string() } else { "failed".to_string() }),
+            report.faults.len(),
+            report.diagnostics.as_ref().map_or(0, |d| d.restarts),
         );
     }
 }

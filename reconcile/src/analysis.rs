@@ -57,8 +57,11 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     // when it only rests on a bound (often a genuine optimum with a small flow at zero), try
     // fewer.
     let mut restarts = 0;
+    // Seeds of the perturbed starts, in the order they are used.
+    let mut perturbed = 0;
     loop {
-        let limit = match verdict(plant, &layout, &measured, &mut best) {
+        let verdict = verdict(plant, &layout, &measured, &mut best);
+        let limit = match verdict {
             Verdict::Good => break,
             Verdict::OnBound | Verdict::FailsGlobalTest => FEW_RESTARTS,
             Verdict::NotConverged => RESTARTS,
@@ -67,7 +70,22 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
             break;
         }
         restarts += 1;
-        let alternative = perturbed_start(&start, &layout, restarts as u64);
+        // A converged estimate that fails the global test: the first restart starts from
+        // the meters that identification does not suspect. A gross error corrupts the start
+        // (flows are propagated from the meters), so this is the start most likely to reach
+        // another minimum if there is one; where there is none (the usual case: a gross
+        // error, not a poor start, fails the test) it lands on the same objective in a few
+        // iterations and confirms the minimum, where a perturbed start would take many.
+        let informed = match verdict {
+            Verdict::FailsGlobalTest if restarts == 1 => {
+                start_without_suspects(plant, &layout, &measured, &best)
+            }
+            _ => None,
+        };
+        let alternative = informed.unwrap_or_else(|| {
+            perturbed += 1;
+            perturbed_start(&start, &layout, perturbed)
+        });
         let candidate = settle(
             plant,
             &layout,
@@ -81,11 +99,12 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
         let confirms = candidate.0.status == SolveStatus::Converged
             && best.0.status == SolveStatus::Converged
             && (candidate.0.objective - best.0.objective).abs() <= 1e-6 * (1.0 + best.0.objective);
+        if confirms {
+            // The same minimum within rounding: the incumbent stays, with its classification.
+            break;
+        }
         if better(&candidate, &best) {
             best = candidate;
-        }
-        if confirms {
-            break;
         }
     }
     let (solution, classification) = best;
@@ -174,6 +193,28 @@ fn better(a: &Settled, b: &Settled) -> bool {
         (false, true) => false,
         _ => a.0.objective < b.0.objective,
     }
+}
+
+/// The initial point from the measured meters less those that identification (on `best`, a
+/// converged estimate with its classification) names in a fault group; `None` when it names
+/// no meter.
+fn start_without_suspects(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    best: &Settled,
+) -> Option<Vec<f64>> {
+    let classification = best.1.as_ref()?;
+    let found = crate::faults::identify_at(plant, layout, measured, &best.0.z, classification);
+    if found.suspect_tags.is_empty() {
+        return None;
+    }
+    let trusted: Vec<Measured> = measured
+        .iter()
+        .filter(|m| !found.suspect_tags.contains(&plant.meters[m.meter].tag))
+        .copied()
+        .collect();
+    Some(initial_point(plant, layout, &trusted))
 }
 
 /// The start with every flow scaled by a factor in [1/3, 3] and split fractions redrawn, from

@@ -12,10 +12,13 @@
 //!   adjustments is I − U_r U_rᵀ, and meter i is redundant iff 1 − (U_r U_rᵀ)_ii > 0;
 //! - the degree of redundancy is ν = m − r.
 //!
-//! This is the dense path, meant for loops of up to a few hundred states.
+//! This is the dense path, meant for loops of up to a few hundred states. From
+//! SPARSE_THRESHOLD states on, `classify` takes the sparse path of covariance.rs (the same
+//! quantities from one sparse LDLᵀ of the KKT matrix).
 
 use nalgebra::DMatrix;
 
+use crate::covariance::SparseCovariance;
 use crate::equations::{constraints, Layout};
 use crate::model::Plant;
 use crate::solve::{scaled_measurements, Measured};
@@ -28,6 +31,9 @@ const RANK_TOLERANCE: f64 = 1e-9;
 const OBSERVABILITY_TOLERANCE: f64 = 1e-7;
 /// A meter is redundant when the variance of its scaled adjustment exceeds this.
 pub const REDUNDANCY_TOLERANCE: f64 = 1e-8;
+/// From this many states on (and with no variable held at a bound), classification takes the
+/// sparse path: the dense one grows as n³ (0.16 s at 823 states, 3.6 s at 2 074).
+pub const SPARSE_THRESHOLD: usize = 600;
 
 #[derive(Debug, Clone)]
 pub struct Classification {
@@ -39,6 +45,9 @@ pub struct Classification {
     pub u: DMatrix<f64>,
     /// ν = m − rank(J N).
     pub redundancy: usize,
+    /// On the sparse path: the covariance from the KKT factorisation, and then `l` and `u`
+    /// are empty (n × 0, m × 0).
+    pub sparse: Option<SparseCovariance>,
 }
 
 /// Dense columns of a triplet matrix restricted to `cols`.
@@ -166,6 +175,54 @@ pub fn classify(
     z: &[f64],
     at_bound: &[bool],
 ) -> Classification {
+    if layout.n >= SPARSE_THRESHOLD && !at_bound.iter().any(|&b| b) {
+        if let Some(c) = classify_sparse(plant, layout, measured, z) {
+            return c;
+        }
+    }
+    classify_dense(plant, layout, measured, z, at_bound)
+}
+
+/// The sparse path (covariance.rs), with every variable free; `None` when the factorisation
+/// fails.
+pub fn classify_sparse(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+) -> Option<Classification> {
+    let mut gj = Triplets::new(layout.rows.len(), layout.n);
+    constraints(plant, layout, z, Some(&mut gj));
+    let (_, j) = scaled_measurements(plant, layout, measured, z);
+    // The σ of every stream quantity and meter needs the covariances among one stream's
+    // flows, and a split fraction those among its splitter's fractions.
+    let mut blocks: Vec<Vec<usize>> = (0..plant.streams.len())
+        .map(|s| layout.stream_flows(plant, s).collect())
+        .collect();
+    for u in &plant.units {
+        let splits: Vec<usize> = u.outlets.iter().filter_map(|&o| layout.split(o)).collect();
+        if splits.len() > 1 {
+            blocks.push(splits);
+        }
+    }
+    let sparse = SparseCovariance::factorise(&gj, &j, &blocks)?;
+    Some(Classification {
+        unobservable: sparse.unobservable,
+        l: DMatrix::zeros(layout.n, 0),
+        u: DMatrix::zeros(measured.len(), 0),
+        redundancy: sparse.redundancy,
+        sparse: Some(sparse.covariance),
+    })
+}
+
+/// The dense path: projection on the null space of G and an SVD of J N.
+pub fn classify_dense(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+    at_bound: &[bool],
+) -> Classification {
     let n = layout.n;
     let free: Vec<usize> = (0..n).filter(|&i| !at_bound[i]).collect();
     let mut map = vec![None; n];
@@ -254,6 +311,7 @@ pub fn classify(
         l: embed(&l_free),
         u,
         redundancy: m - rank,
+        sparse: None,
     }
 }
 
@@ -270,20 +328,39 @@ impl Classification {
         })
     }
 
-    /// Lᵀa: the covariance of two functions is the dot product of their projections.
+    /// Lᵀa: the covariance of two functions is the dot product of their projections. Dense
+    /// path only (empty on the sparse path, where `sigma` reads the covariance directly).
     pub fn project(&self, a: &[(usize, f64)]) -> Vec<f64> {
         (0..self.l.ncols())
             .map(|k| a.iter().map(|&(i, v)| v * self.l[(i, k)]).sum())
             .collect()
     }
 
+    /// Covariance of two linear functions with gradients `a` and `b`.
+    pub fn covariance(&self, a: &[(usize, f64)], b: &[(usize, f64)]) -> f64 {
+        if let Some(sparse) = &self.sparse {
+            return sparse.covariance(a, b);
+        }
+        self.project(a)
+            .iter()
+            .zip(self.project(b))
+            .map(|(x, y)| x * y)
+            .sum()
+    }
+
     /// Standard deviation of a linear function with gradient `a`.
     pub fn sigma(&self, a: &[(usize, f64)]) -> f64 {
+        if let Some(sparse) = &self.sparse {
+            return sparse.variance(a).sqrt();
+        }
         self.project(a).iter().map(|x| x * x).sum::<f64>().sqrt()
     }
 
     /// (U Uᵀ)_ii: the share of meter i's variance its reconciled value keeps.
     pub fn leverage(&self, i: usize) -> f64 {
+        if let Some(sparse) = &self.sparse {
+            return sparse.leverage(i).min(1.0);
+        }
         self.u.row(i).iter().map(|x| x * x).sum::<f64>().min(1.0)
     }
 
@@ -299,6 +376,10 @@ impl Classification {
     /// Covariance of the σ-scaled adjustments, I − U Uᵀ (m × m): the seam for fault
     /// identification, whose bias signatures live in this space.
     pub fn scaled_adjustment_covariance(&self) -> DMatrix<f64> {
+        if let Some(sparse) = &self.sparse {
+            let h = sparse.hat_matrix();
+            return DMatrix::identity(h.nrows(), h.nrows()) - h;
+        }
         let m = self.u.nrows();
         DMatrix::identity(m, m) - &self.u * self.u.transpose()
     }

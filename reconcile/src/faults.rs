@@ -24,10 +24,11 @@
 use nalgebra::{DMatrix, DVector};
 
 use crate::analysis::Estimate;
-use crate::equations::{constraints, Row};
+use crate::classify::Classification;
+use crate::equations::{constraints, Layout, Row};
 use crate::model::Plant;
 use crate::report::{Fault, FaultCandidate, FaultKind};
-use crate::solve::{scaled_measurements, scaled_residuals};
+use crate::solve::{scaled_measurements, scaled_residuals, Measured};
 use crate::sparse::Triplets;
 use crate::stats::{chi2_critical, global_test, normal_quantile, sidak};
 
@@ -49,9 +50,17 @@ struct Hypothesis {
     unit_factor: f64,
 }
 
-fn hypotheses(plant: &Plant, est: &Estimate) -> Vec<Hypothesis> {
+/// What identification reads of an estimate.
+struct Basis<'a> {
+    layout: &'a Layout,
+    measured: &'a [Measured],
+    z: &'a [f64],
+    classification: &'a Classification,
+}
+
+fn hypotheses(plant: &Plant, est: &Basis) -> Vec<Hypothesis> {
     let m = est.measured.len();
-    let c = &est.classification;
+    let c = est.classification;
     let mut out = Vec::new();
     for (k, meas) in est.measured.iter().enumerate() {
         if c.is_redundant(k) {
@@ -66,17 +75,15 @@ fn hypotheses(plant: &Plant, est: &Estimate) -> Vec<Hypothesis> {
         }
     }
     // Leaks: G z_d = d, f = J z_d.
-    let layout = &est.layout;
-    let z = &est.solution.z;
+    let layout = est.layout;
+    let z = est.z;
     let mut gj = Triplets::new(layout.rows.len(), layout.n);
     constraints(plant, layout, z, Some(&mut gj));
-    let (_, jt) = scaled_measurements(plant, layout, &est.measured, z);
-    let g = gj.to_dense();
-    let j = jt.to_dense();
-    if g.nrows() == 0 {
+    let (_, jt) = scaled_measurements(plant, layout, est.measured, z);
+    if gj.nrows == 0 {
         return out;
     }
-    let svd = g.svd(true, true);
+    let solver = ConstraintSolver::new(&gj, c);
     for (u, unit) in plant.units.iter().enumerate() {
         let mut inflow = vec![0.0; plant.components.len()];
         for &s in &unit.inlets {
@@ -92,17 +99,68 @@ fn hypotheses(plant: &Plant, est: &Estimate) -> Vec<Hypothesis> {
             Row::Balance { unit, component } if unit == u => inflow[component] / total,
             _ => 0.0,
         });
-        let Ok(zd) = svd.solve(&d, 1e-12) else {
+        let Some(zd) = solver.solve(&d) else {
             continue;
         };
         out.push(Hypothesis {
             kind: FaultKind::Leak,
             id: unit.id.clone(),
-            f: &j * zd,
+            f: DVector::from_vec(jt.mul_vec(&zd)),
             unit_factor: 1.0,
         });
     }
     out
+}
+
+/// Solutions z_d of G z_d = d for the leak signatures. The GLR statistic, the magnitude and the
+/// collinearity test see only W f, and W annihilates J times any direction of the null space
+/// of G, so any solution serves; the minimum-norm one is used where G is dense.
+enum ConstraintSolver<'a> {
+    /// z = Q R⁻ᵀ d from a Householder QR Gᵀ = Q R: the minimum-norm solution when G has full
+    /// row rank, many times cheaper than the SVD (Golub & Van Loan, *Matrix Computations*, 4th
+    /// ed., §5.6).
+    Qr(nalgebra::DMatrix<f64>, nalgebra::DMatrix<f64>),
+    /// The SVD's minimum-norm solution (singular values below 1e-12 dropped), when R shows a
+    /// possible rank deficiency (dependent rows).
+    Svd(nalgebra::SVD<f64, nalgebra::Dyn, nalgebra::Dyn>),
+    /// Large networks: the solution of the KKT system of the sparse classification.
+    Sparse(&'a crate::covariance::SparseCovariance),
+}
+
+/// A diagonal entry of R this much smaller than the largest counts as a possible rank
+/// deficiency, and the SVD decides instead (as in classify.rs).
+const QR_RANK_GUARD: f64 = 1e-7;
+
+impl<'a> ConstraintSolver<'a> {
+    fn new(gj: &Triplets, c: &'a Classification) -> ConstraintSolver<'a> {
+        if let Some(sparse) = &c.sparse {
+            return ConstraintSolver::Sparse(sparse);
+        }
+        let g = gj.to_dense();
+        if g.nrows() <= g.ncols() {
+            let qr = g.transpose().qr();
+            let r = qr.r();
+            let diag = r.diagonal();
+            let (lo, hi) = diag.iter().fold((f64::INFINITY, 0.0f64), |(lo, hi), &x| {
+                (lo.min(x.abs()), hi.max(x.abs()))
+            });
+            if lo > QR_RANK_GUARD * hi {
+                return ConstraintSolver::Qr(qr.q(), r);
+            }
+        }
+        ConstraintSolver::Svd(g.svd(true, true))
+    }
+
+    fn solve(&self, d: &DVector<f64>) -> Option<Vec<f64>> {
+        match self {
+            ConstraintSolver::Qr(q, r) => {
+                let y = r.transpose().solve_lower_triangular(d)?;
+                Some((q * y).as_slice().to_vec())
+            }
+            ConstraintSolver::Svd(svd) => svd.solve(d, 1e-12).ok().map(|x| x.as_slice().to_vec()),
+            ConstraintSolver::Sparse(sparse) => Some(sparse.constraint_solution(d.as_slice())),
+        }
+    }
 }
 
 /// Result of identification: the accepted faults and the tags the report should mark suspect.
@@ -117,19 +175,45 @@ pub struct Identification {
 
 /// Serial compensation on the estimate's residuals.
 pub fn identify(plant: &Plant, est: &Estimate) -> Identification {
-    let m = est.measured.len();
-    let c = &est.classification;
-    let mut result = Identification::default();
-    if m == 0 || c.redundancy == 0 {
-        return result;
-    }
-    let mut w: DMatrix<f64> = c.scaled_adjustment_covariance();
-    let r0 = DVector::from_vec(scaled_residuals(
+    identify_at(
         plant,
         &est.layout,
         &est.measured,
         &est.solution.z,
-    ));
+        &est.classification,
+    )
+}
+
+/// `identify` on the parts of an estimate: a solution z of the measured values with its
+/// classification.
+pub fn identify_at(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+    classification: &Classification,
+) -> Identification {
+    let est = &Basis {
+        layout,
+        measured,
+        z,
+        classification,
+    };
+    let m = est.measured.len();
+    let c = est.classification;
+    let mut result = Identification::default();
+    if m == 0 || c.redundancy == 0 {
+        return result;
+    }
+    let r0 = DVector::from_vec(scaled_residuals(plant, est.layout, est.measured, est.z));
+    if c.sparse.is_some() && global_test(r0.dot(&r0), c.redundancy, plant.alpha).passed {
+        // Large networks: W costs one solve per meter; the objective (the report's global
+        // test) decides first. (At the solution W r0 = r0 up to the solver's tolerance.)
+        result.compensated_objective = r0.dot(&r0);
+        result.compensated_dof = c.redundancy;
+        return result;
+    }
+    let mut w: DMatrix<f64> = c.scaled_adjustment_covariance();
     let mut r = &w * &r0;
     let mut dof = c.redundancy;
     if global_test(r.dot(&r), dof, plant.alpha).passed {

@@ -129,13 +129,29 @@ impl Builder<'_> {
             return;
         }
         let f = a.value(self.z()) / den;
-        let grad = a
+        let grad: Vec<(usize, f64)> = a
             .clone()
             .plus(b, -f)
             .grad()
             .into_iter()
             .map(|(i, v)| (i, scale * v / den))
             .collect();
+        let c = &self.est.classification;
+        if c.sparse.is_some() && f.is_finite() && c.is_observable(&grad) {
+            // Var(a/b) = (aᵀPa − 2f aᵀPb + f² bᵀPb) / b², in parts: a denominator such as the
+            // fresh-feed total recurs in many figures, and its P b is solved for once.
+            let (ga, gb) = (a.grad(), b.grad());
+            let var = c.covariance(&ga, &ga) - 2.0 * f * c.covariance(&ga, &gb)
+                + f * f * c.covariance(&gb, &gb);
+            self.out.push(Figure {
+                name: name.into(),
+                subject,
+                uom: uom.into(),
+                value: Some(scale * f),
+                sigma: Some((scale / den).abs() * var.max(0.0).sqrt()),
+            });
+            return;
+        }
         self.push(name, subject, uom, scale * f, grad);
     }
 }
@@ -334,6 +350,7 @@ fn split_fraction(layout: &Layout, unit: &crate::model::Unit, outlet: usize) -> 
 fn raw_component_flow(
     plant: &Plant,
     values: &BTreeMap<usize, (f64, f64)>,
+    on_stream: &[Vec<usize>],
     s: usize,
     c: usize,
 ) -> Option<(f64, f64)> {
@@ -341,8 +358,9 @@ fn raw_component_flow(
         return Some((0.0, 0.0));
     }
     let on = |q: Quantity, comp: Option<usize>| {
-        plant.meters.iter().enumerate().find_map(|(mi, m)| {
-            let fits = m.stream == s && m.quantity == q && m.component == comp && m.basis.is_none();
+        on_stream[s].iter().find_map(|&mi| {
+            let m = &plant.meters[mi];
+            let fits = m.quantity == q && m.component == comp && m.basis.is_none();
             let (v, sd) = values.get(&mi).copied()?;
             let f = m.uom.factor_from_base();
             fits.then_some((v / f, sd / f))
@@ -369,6 +387,11 @@ pub fn raw_imbalances(plant: &Plant, est: &Estimate) -> Vec<Figure> {
         .iter()
         .map(|m| (m.meter, (m.value, m.sigma)))
         .collect();
+    // The meters of each stream, in model order (the first that fits is used).
+    let mut on_stream: Vec<Vec<usize>> = vec![Vec::new(); plant.streams.len()];
+    for (mi, m) in plant.meters.iter().enumerate() {
+        on_stream[m.stream].push(mi);
+    }
     let mut out = Vec::new();
     for unit in &plant.units {
         for (c, comp) in plant.components.iter().enumerate() {
@@ -393,7 +416,7 @@ pub fn raw_imbalances(plant: &Plant, est: &Estimate) -> Vec<Figure> {
                 .map(|s| (s, 1.0))
                 .chain(unit.outlets.iter().map(|s| (s, -1.0)))
             {
-                match raw_component_flow(plant, &values, s, c) {
+                match raw_component_flow(plant, &values, &on_stream, s, c) {
                     Some((v, sd)) => {
                         total += sign * v;
                         var += sd * sd;

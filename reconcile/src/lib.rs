@@ -6,6 +6,7 @@
 
 pub mod analysis;
 pub mod classify;
+pub mod covariance;
 pub mod equations;
 pub mod faults;
 pub mod figures;

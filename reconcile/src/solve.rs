@@ -56,6 +56,13 @@ pub struct Solution {
 /// Regularisation of the constraint block of the KKT matrix (removed by refinement).
 const DELTA: f64 = 1e-10;
 
+/// The iteration ends when the balances are met and the plain Gauss–Newton step would move no
+/// reconciled meter value by more than this many σ (stationarity, see `solve_with`).
+const STATIONARY: f64 = 1e-7;
+/// The same with a step that has stopped shrinking relative to z, or an objective that has
+/// stopped changing: the rest is rounding, and at most this many σ.
+const STATIONARY_ROUNDING: f64 = 1e-6;
+
 /// Settings of the iteration.
 #[derive(Debug, Clone, Copy)]
 pub struct SolveOptions {
@@ -151,6 +158,9 @@ enum Factor {
 /// the LU.
 const LDL_REFINEMENTS: usize = 8;
 const LDL_TOLERANCE: f64 = 1e-14;
+/// Refinement steps at most for the plain Gauss–Newton step from the factorisation with the
+/// constraint curvature (`Kkt::step_without`).
+const PLAIN_REFINEMENTS: usize = 12;
 
 impl Kkt {
     /// Assemble and factorise the KKT matrix at z with the variables in `fixed` held where
@@ -318,6 +328,69 @@ impl Kkt {
         Kkt::finish(n, sol)
     }
 
+    /// One solve with the factorisation held, without refinement.
+    fn solve_raw(&self, b: &[f64], cache: &mut Option<Symbolic>) -> Option<Vec<f64>> {
+        match &self.factor {
+            Factor::Ldl(id) => {
+                let mut x = b.to_vec();
+                cache.as_mut()?.solve_ldl(*id, &mut x).then_some(x)
+            }
+            Factor::Sparse(lu) => Some(lu.solve(b)),
+            Factor::Dense(lu) => lu
+                .solve(&nalgebra::DVector::from_column_slice(b))
+                .map(|x| x.as_slice().to_vec()),
+        }
+    }
+
+    /// The step of the same working set without the curvature `curvature` (the plain
+    /// Gauss–Newton KKT matrix K − C), from this matrix's factorisation by iterative
+    /// refinement, starting at this matrix's step `from`: x ← x + K⁻¹ (b − (K − C) x). It
+    /// converges when C is small beside the rest of K, as it is near a solution; `None`
+    /// otherwise (the caller factorises K − C then).
+    fn step_without(
+        &self,
+        from: &Step,
+        top: &[f64],
+        g: &[f64],
+        fixed: &[bool],
+        curvature: &[(usize, usize, f64)],
+        cache: &mut Option<Symbolic>,
+    ) -> Option<Step> {
+        let n = self.n;
+        let mut rhs = top.to_vec();
+        for (i, &f) in fixed.iter().enumerate() {
+            if f {
+                rhs[i] = 0.0;
+            }
+        }
+        rhs.extend(g.iter().map(|x| -x));
+        let mut x: Vec<f64> = from.dz.iter().chain(&from.lambda).copied().collect();
+        let size = norm_inf(&rhs);
+        let mut previous = f64::INFINITY;
+        for _ in 0..PLAIN_REFINEMENTS {
+            let mut res = self.residual(&rhs, &x);
+            for &(a, b, v) in curvature {
+                if !fixed[a] && !fixed[b] {
+                    res[a] += v * x[b];
+                }
+            }
+            let r = norm_inf(&res);
+            if !r.is_finite() {
+                return None;
+            }
+            if r <= LDL_TOLERANCE * (self.norm * norm_inf(&x) + size) {
+                return Kkt::finish(n, x);
+            }
+            if r > 0.5 * previous {
+                return None;
+            }
+            previous = r;
+            let dx = self.solve_raw(&res, cache)?;
+            x.iter_mut().zip(&dx).for_each(|(a, d)| *a += d);
+        }
+        None
+    }
+
     fn finish(n: usize, sol: Vec<f64>) -> Option<Step> {
         if sol.iter().any(|v| !v.is_finite()) {
             return None;
@@ -355,6 +428,85 @@ fn constraint_curvature(
     out
 }
 
+/// The step of one iteration's quadratic model with the working set: every variable on a bound
+/// is fixed, less those whose bound multiplier has the wrong sign (they want to move
+/// inwards). Returns the step and the factorised KKT matrix with the working set it was built
+/// for; `fixed` is left as the final working set.
+#[allow(clippy::too_many_arguments)]
+fn qp_step(
+    layout: &Layout,
+    gj: &Triplets,
+    j: &Triplets,
+    j_rows: &[Vec<(usize, f64)>],
+    jtr: &[f64],
+    g: &[f64],
+    z: &[f64],
+    fixed: &mut [bool],
+    curvature: &[(usize, usize, f64)],
+    cache: &mut Option<Symbolic>,
+) -> Option<(Step, (Kkt, Vec<bool>))> {
+    let n = layout.n;
+    for i in 0..n {
+        fixed[i] = z[i] == layout.lower[i] || z[i] == layout.upper[i];
+    }
+    let mut step = None;
+    let mut kkt = None;
+    // Variables released in this iteration's working-set loop: one that the next step
+    // pushes outwards again is fixed for good, which ends any cycle.
+    let mut released = vec![false; n];
+    let mut locked = vec![false; n];
+    for _ in 0..(2 * n + 2) {
+        let Some(mut system) = Kkt::new(layout, gj, j_rows, fixed, curvature, cache) else {
+            break;
+        };
+        let Some(s) = system.step(jtr, g, fixed, cache) else {
+            break;
+        };
+        let snapshot = fixed.to_vec();
+        // A free variable on its bound that the step would push outwards joins the set.
+        let mut changed = false;
+        for i in 0..n {
+            let outwards = (z[i] == layout.lower[i] && s.dz[i] < 0.0)
+                || (z[i] == layout.upper[i] && s.dz[i] > 0.0);
+            if !fixed[i] && outwards {
+                fixed[i] = true;
+                changed = true;
+                locked[i] = released[i];
+            }
+        }
+        if !changed {
+            // QP stationarity: (JᵀJ + Σλ∇²g) Δz + Gᵀλ − Jᵀr = μ, with μ ≥ 0 at a lower
+            // bound and μ ≤ 0 at an upper bound; release the variable whose μ is most wrong.
+            let mut hdz = j.tr_mul_vec(&j.mul_vec(&s.dz));
+            for &(a, b, v) in curvature {
+                hdz[a] += v * s.dz[b];
+            }
+            let gtl = gj.tr_mul_vec(&s.lambda);
+            let mut worst: Option<(usize, f64)> = None;
+            for i in (0..n).filter(|&i| fixed[i] && !locked[i]) {
+                let m = hdz[i] + gtl[i] - jtr[i];
+                let wrong = if z[i] == layout.lower[i] { -m } else { m };
+                if wrong > 1e-12 * (1.0 + jtr[i].abs() + gtl[i].abs())
+                    && worst.is_none_or(|(_, w)| wrong > w)
+                {
+                    worst = Some((i, wrong));
+                }
+            }
+            if let Some((i, _)) = worst {
+                fixed[i] = false;
+                released[i] = true;
+                changed = true;
+            }
+        }
+        step = Some(s);
+        kkt = Some((system, snapshot));
+        if !changed {
+            break;
+        }
+    }
+    Some((step?, kkt?))
+}
+
 /// Minimise Σ((y − h(z))/σ)² subject to g(z) = 0 and the layout's bounds, from `start`.
 pub fn solve(
     plant: &Plant,
@@ -389,87 +541,61 @@ pub fn solve_with(
     // Multipliers of the previous iteration, for the constraint curvature of the Lagrangian.
     let mut lambda: Vec<f64> = vec![0.0; layout.rows.len()];
     let mut history: Vec<(f64, f64, f64, usize)> = Vec::new();
+    // After a step with the constraint curvature that the line search refused, the next
+    // iteration takes the plain Gauss–Newton step.
+    let mut force_plain = false;
 
     while iterations < options.max_iterations {
         iterations += 1;
         let mut gj = Triplets::new(layout.rows.len(), n);
         let g = constraints(plant, layout, &z, Some(&mut gj));
         let (r, j) = scaled_measurements(plant, layout, measured, &z);
-        // The working set: every variable on a bound, less those whose bound multiplier in
-        // this iteration's QP has the wrong sign (they want to move inwards).
-        for i in 0..n {
-            fixed[i] = z[i] == layout.lower[i] || z[i] == layout.upper[i];
-        }
         // Newton on the constraints: add Σ_k λ_k ∇²g_k, from the bilinear splitter rows
         // (∂²/∂φ∂n_in = −1), once the constraints are nearly met; far from them the plain
         // Gauss–Newton matrix is the safer model.
         let near = norm_inf(&g) <= 1e-3 * flow_scale(layout, &z);
-        let curvature = constraint_curvature(plant, layout, near.then_some(&lambda[..]));
+        let curved = near && !force_plain && lambda.iter().any(|&l| l != 0.0);
+        let mut curvature = constraint_curvature(plant, layout, curved.then_some(&lambda[..]));
+        force_plain = false;
         let jtr = j.tr_mul_vec(&r);
         let mut j_rows: Vec<Vec<(usize, f64)>> = vec![Vec::new(); j.nrows];
         for &(row, col, v) in &j.entries {
             j_rows[row].push((col, v));
         }
-        let mut step = None;
-        let mut kkt = None;
-        // Variables released in this iteration's working-set loop: one that the next step
-        // pushes outwards again is fixed for good, which ends any cycle.
-        let mut released = vec![false; n];
-        let mut locked = vec![false; n];
-        for _ in 0..(2 * n + 2) {
-            let Some(mut system) = Kkt::new(layout, &gj, &j_rows, &fixed, &curvature, cache) else {
-                break;
-            };
-            let Some(s) = system.step(&jtr, &g, &fixed, cache) else {
-                break;
-            };
-            let snapshot = fixed.clone();
-            // A free variable on its bound that the step would push outwards joins the set.
-            let mut changed = false;
-            for i in 0..n {
-                let outwards = (z[i] == layout.lower[i] && s.dz[i] < 0.0)
-                    || (z[i] == layout.upper[i] && s.dz[i] > 0.0);
-                if !fixed[i] && outwards {
-                    fixed[i] = true;
-                    changed = true;
-                    locked[i] = released[i];
-                }
-            }
-            if !changed {
-                // QP stationarity: (JᵀJ + Σλ∇²g) Δz + Gᵀλ − Jᵀr = μ, with μ ≥ 0 at a lower
-                // bound and μ ≤ 0 at an upper bound; release the variable whose μ is most wrong.
-                let mut hdz = j.tr_mul_vec(&j.mul_vec(&s.dz));
-                for &(a, b, v) in &curvature {
-                    hdz[a] += v * s.dz[b];
-                }
-                let gtl = gj.tr_mul_vec(&s.lambda);
-                let mut worst: Option<(usize, f64)> = None;
-                for i in (0..n).filter(|&i| fixed[i] && !locked[i]) {
-                    let m = hdz[i] + gtl[i] - jtr[i];
-                    let wrong = if z[i] == layout.lower[i] { -m } else { m };
-                    if wrong > 1e-12 * (1.0 + jtr[i].abs() + gtl[i].abs())
-                        && worst.is_none_or(|(_, w)| wrong > w)
-                    {
-                        worst = Some((i, wrong));
-                    }
-                }
-                if let Some((i, _)) = worst {
-                    fixed[i] = false;
-                    released[i] = true;
-                    changed = true;
-                }
-            }
-            step = Some(s);
-            kkt = Some((system, snapshot));
-            if !changed {
-                break;
-            }
-        }
-        let Some(step) = step else {
+        let Some((mut step, mut kkt)) = qp_step(
+            layout, &gj, &j, &j_rows, &jtr, &g, &z, &mut fixed, &curvature, cache,
+        ) else {
             status = SolveStatus::NotConverged;
             break;
         };
-        lambda.clone_from(&step.lambda);
+        // The curvature term Σλ∇²g is indefinite: on the null space of G the model with it
+        // need not be convex, and its step then need not descend (Nocedal & Wright §18.3,
+        // where the Hessian is modified to be positive definite on that space). The plain
+        // Gauss–Newton matrix JᵀJ is positive semidefinite, and its step always descends: it
+        // replaces a step whose first-order change of the merit is not negative.
+        let mut plain = !curved;
+        let use_plain = |step: &mut Step,
+                         kkt: &mut (Kkt, Vec<bool>),
+                         curvature: &mut Vec<_>,
+                         fixed: &mut [bool],
+                         cache: &mut Option<Symbolic>| {
+            let flat = constraint_curvature(plant, layout, None);
+            let gn = qp_step(layout, &gj, &j, &j_rows, &jtr, &g, &z, fixed, &flat, cache);
+            match gn {
+                Some((s, k)) => {
+                    (*step, *kkt, *curvature) = (s, k, flat);
+                    true
+                }
+                None => false,
+            }
+        };
+        if curved {
+            let mu_trial = f64::max(mu, 2.0 * norm_inf(&step.lambda) + 1.0);
+            let slope = -(0..n).map(|i| jtr[i] * step.dz[i]).sum::<f64>() - mu_trial * norm_1(&g);
+            if slope >= 0.0 {
+                plain = use_plain(&mut step, &mut kkt, &mut curvature, &mut fixed, cache);
+            }
+        }
         let scale = flow_scale(layout, &z);
         let g_inf = norm_inf(&g);
         let step_rel = (0..n)
@@ -477,8 +603,7 @@ pub fn solve_with(
             .fold(0.0, f64::max);
         // How far the step would move the reconciled values, in units of their σ: along
         // unobservable directions the step length means nothing, this measure stays exact.
-        let moves = norm_inf(&j.mul_vec(&step.dz));
-        let flat = moves <= 1e-7;
+        let mut moves = norm_inf(&j.mul_vec(&step.dz));
         // Stagnation: the objective has stopped changing over two iterations with the
         // balances met; what remains of the step is rounding in poorly determined directions.
         let objective: f64 = r.iter().map(|x| x * x).sum();
@@ -486,13 +611,42 @@ pub fn solve_with(
             let before = history[history.len() - 2].1;
             (before - objective).abs() <= 1e-12 * (1.0 + objective)
         };
-        if g_inf <= options.constraint_tolerance * scale
-            && (step_rel <= options.step_tolerance || flat || stagnant)
-        {
-            last_step = step_rel;
-            status = SolveStatus::Converged;
-            break;
+        let feasible = g_inf <= options.constraint_tolerance * scale;
+        if feasible && (step_rel <= options.step_tolerance || moves <= STATIONARY || stagnant) {
+            // Stationarity is judged on the plain Gauss–Newton step: with the balances met,
+            // J Δz is the projection of the scaled residuals on the directions the model
+            // allows (the reduced gradient in the metric of JᵀJ), zero exactly at a stationary
+            // point of the objective on g(z) = 0. The step with the constraint curvature can
+            // be small where the point is not stationary (its model is not convex there).
+            if !plain {
+                // Usually from the factorisation in hand, by refinement; else factorised.
+                let refined = kkt
+                    .0
+                    .step_without(&step, &jtr, &g, &fixed, &curvature, cache);
+                // (The plain step, not the curved one, is taken if the point is not stationary.)
+                plain = match refined {
+                    Some(gn) => {
+                        step = gn;
+                        true
+                    }
+                    None => use_plain(&mut step, &mut kkt, &mut curvature, &mut fixed, cache),
+                };
+                if plain {
+                    moves = norm_inf(&j.mul_vec(&step.dz));
+                }
+            }
+            // A small relative step or an objective that stopped changing is taken as the end
+            // only when what remains is at most STATIONARY_ROUNDING σ.
+            if moves <= STATIONARY
+                || ((step_rel <= options.step_tolerance || stagnant)
+                    && moves <= STATIONARY_ROUNDING)
+            {
+                last_step = step_rel;
+                status = SolveStatus::Converged;
+                break;
+            }
         }
+        lambda.clone_from(&step.lambda);
 
         // Longest step that keeps the free variables within their bounds.
         let mut alpha_max: f64 = 1.0;
@@ -549,12 +703,11 @@ pub fn solve_with(
             let g_trial = constraints(plant, layout, &full, None);
             let zero = vec![0.0; n];
             // The same matrix as the step's: its factorisation serves again.
-            let soc = match &mut kkt {
-                Some((system, built_for)) if *built_for == fixed => {
-                    system.step(&zero, &g_trial, &fixed, cache)
-                }
-                _ => Kkt::new(layout, &gj, &j_rows, &fixed, &curvature, cache)
-                    .and_then(|mut system| system.step(&zero, &g_trial, &fixed, cache)),
+            let soc = if kkt.1 == fixed {
+                kkt.0.step(&zero, &g_trial, &fixed, cache)
+            } else {
+                Kkt::new(layout, &gj, &j_rows, &fixed, &curvature, cache)
+                    .and_then(|mut system| system.step(&zero, &g_trial, &fixed, cache))
             };
             if let Some(soc) = soc {
                 let corrected = project((0..n).map(|i| full[i] + soc.dz[i]).collect());
@@ -599,10 +752,17 @@ pub fn solve_with(
             .fold(0.0, f64::max);
         z = trial;
         if alpha < 1e-10 && alpha_max > 1e-10 {
-            // The line search found no descent. With the balances met and a step that would
-            // move no reconciled value by more than 1e-5 σ, that is rounding at the optimum;
-            // otherwise the linearisation no longer helps and the iteration has failed.
-            if g_inf <= options.constraint_tolerance * scale && moves <= 1e-5 {
+            if !plain {
+                // The step with the constraint curvature found no descent: the plain
+                // Gauss–Newton step, which descends, is tried next.
+                force_plain = true;
+                continue;
+            }
+            // The line search found no descent along the Gauss–Newton step. With the balances
+            // met and a step that would move no reconciled value by more than 1e-5 σ, that is
+            // rounding at the optimum; otherwise the linearisation no longer helps and the
+            // iteration has failed.
+            if feasible && moves <= 1e-5 {
                 status = SolveStatus::Converged;
             }
             break;
