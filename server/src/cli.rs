@@ -72,6 +72,28 @@ pub enum Command {
               value_parser = clap::value_parser!(u64).range(1..=256))]
         run_workers: Option<u64>,
     },
+    /// The whole job on an invented methanol loop: a fresh database, the service, some days of
+    /// simulated hourly readings posted over HTTP, a summary, then serve until Ctrl-C.
+    Demo {
+        /// Address and port of the demo's service (port 0: any free port).
+        #[arg(long, value_name = "ADDR", default_value = "127.0.0.1:8080")]
+        listen: SocketAddr,
+        /// Create the demo database here (must not exist); a temporary folder by default.
+        #[arg(long, value_name = "PATH")]
+        database: Option<PathBuf>,
+        /// Days of hourly readings to simulate.
+        #[arg(long, default_value_t = 4)]
+        days: usize,
+        /// Seed of the simulated noise.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Stop after the summary instead of serving.
+        #[arg(long)]
+        no_serve: bool,
+        /// Print the summary as JSON.
+        #[arg(long)]
+        json: bool,
+    },
     /// API tokens.
     Token {
         #[command(subcommand)]

@@ -133,7 +133,7 @@ fn pooled_bias(periods: &[&MeterPeriod]) -> Option<(f64, f64)> {
         let (Some(a), Some(sa), Some(s)) = (p.adjustment, p.adjustment_sigma, p.sigma) else {
             continue;
         };
-        if !(sa > 0.0 && s > 0.0) || !p.redundant {
+        if !(sa > 0.0 && s > 0.0) || !p.redundant || p.normalized.is_none() {
             continue;
         }
         // b̂ₕ = −a σ²/σ_a² with weight σ_a²/σ⁴: Σ w b̂ = Σ −a/σ², Σ w = Σ σ_a²/σ⁴.
@@ -249,9 +249,11 @@ fn frozen_run(record: &[MeterPeriod]) -> usize {
 pub const NEIGHBOUR_CORRELATION: f64 = 0.3;
 
 /// Of meters that reached `suspect` and share evidence (|ρ| ≥ [`NEIGHBOUR_CORRELATION`]), keep
-/// `suspect` only for those with the strongest pooled evidence; the others go to `watch`,
-/// naming the meter that explains them. Two suspects whose pooled evidence differs by less than
-/// its noise, 2 √(2 (1 − |ρ|)) (the σ of the difference of two unit normals of correlation
+/// `suspect` only for those with the strongest evidence; the others go to `watch`, naming the
+/// meter that explains them. `evidence(i, j)` gives both meters' evidence over the same
+/// periods (Σ d / √n from the earlier of their evidence starts: a drift grows, so evidence over
+/// different windows does not compare). Two suspects whose evidence differs by less than its
+/// noise, 2 √(2 (1 − |ρ|)) (twice the σ of the difference of two unit normals of correlation
 /// ρ), cannot be told apart by the meter set: both stay `suspect`, each naming the other, and
 /// neither is singled out. `correlation(i, j)` is the correlation of their adjustments, when
 /// known.
@@ -259,8 +261,8 @@ pub fn attribute(
     tags: &[String],
     health: &mut [Health],
     correlation: &dyn Fn(usize, usize) -> Option<f64>,
+    evidence: &dyn Fn(usize, usize) -> (f64, f64),
 ) {
-    let strength = |h: &Health| h.bias_z.map_or(0.0, f64::abs);
     let suspects: Vec<usize> = (0..health.len())
         .filter(|&i| health[i].status == Status::Suspect)
         .collect();
@@ -274,29 +276,31 @@ pub fn attribute(
             if rho < NEIGHBOUR_CORRELATION {
                 continue;
             }
-            let gap = strength(&health[j]) - strength(&health[i]);
+            let (zi, zj) = evidence(i, j);
+            let gap = zj.abs() - zi.abs();
             let noise = 2.0 * (2.0 * (1.0 - rho).max(0.0)).sqrt();
             if gap.abs() <= noise {
                 if !health[i].equivalent.contains(&tags[j]) {
                     health[i].equivalent.push(tags[j].clone());
                 }
             } else if gap > 0.0 {
-                demoted.push((i, j));
+                demoted.push((i, j, zi, zj));
             }
         }
     }
-    for (i, j) in demoted {
+    for (i, j, zi, zj) in demoted {
         if health[i].status != Status::Suspect {
             continue;
         }
         health[i].status = Status::Watch;
         health[i].equivalent.clear();
         health[i].reason = format!(
-            "{}; but a bias in {} explains the evidence better (pooled |z| {:.1} against {:.1})",
+            "{}; but a bias in {} explains the evidence better (over the same periods |z| {:.1} \
+             against {:.1})",
             health[i].reason,
             tags[j],
-            strength(&health[j]),
-            strength(&health[i])
+            zj.abs(),
+            zi.abs()
         );
     }
     for h in health.iter_mut() {
@@ -419,23 +423,24 @@ mod tests {
         let gap = health[0].bias_z.unwrap().abs() - health[1].bias_z.unwrap().abs();
         assert!(gap > 1.0, "the first is clearly stronger: {gap}");
         let tags = vec!["A".to_string(), "B".to_string()];
-        attribute(&tags, &mut health, &|_, _| Some(0.6));
+        let z: Vec<f64> = health.iter().map(|h| h.bias_z.unwrap()).collect();
+        let evidence = |i: usize, j: usize| (z[i], z[j]);
+        attribute(&tags, &mut health, &|_, _| Some(0.6), &evidence);
         assert_eq!(health[0].status, Status::Suspect);
         assert_eq!(health[1].status, Status::Watch);
         assert!(health[1].reason.contains("a bias in A explains"), "{}", health[1].reason);
         // Meters whose adjustments do not correlate are judged alone.
         let mut health = fresh();
-        attribute(&tags, &mut health, &|_, _| Some(0.1));
+        attribute(&tags, &mut health, &|_, _| Some(0.1), &evidence);
         assert!(health.iter().all(|h| h.status == Status::Suspect));
         let mut health = fresh();
-        attribute(&tags, &mut health, &|_, _| None);
+        attribute(&tags, &mut health, &|_, _| None, &evidence);
         assert!(health.iter().all(|h| h.status == Status::Suspect));
         // Nearly equivalent meters (ρ = 0.999: noise of the gap 2 √0.002 ≈ 0.09) are still
         // told apart by a gap of several units; at ρ = 1 − 1e-6 only a gap under 0.003 is
         // noise. With equal evidence both stay suspect, each naming the other.
         let mut health = fresh();
-        health[1].bias_z = health[0].bias_z;
-        attribute(&tags, &mut health, &|_, _| Some(-0.999));
+        attribute(&tags, &mut health, &|_, _| Some(-0.999), &|_, _| (9.0, -9.0));
         assert!(health.iter().all(|h| h.status == Status::Suspect));
         assert_eq!(health[0].equivalent, ["B"]);
         assert_eq!(health[1].equivalent, ["A"]);

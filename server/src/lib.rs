@@ -6,6 +6,7 @@ use std::fmt;
 
 pub mod api;
 pub mod cli;
+pub mod demo;
 pub mod health;
 pub mod ingest;
 pub mod metrics;

@@ -53,6 +53,32 @@ fn main() -> ExitCode {
             })
             .map(|()| ExitCode::SUCCESS)
         }
+        Command::Demo {
+            listen,
+            database,
+            days,
+            seed,
+            no_serve,
+            json,
+        } => {
+            // Quiet unless asked: the summary is the output.
+            if std::env::var_os("RUST_LOG").is_none() {
+                std::env::set_var("RUST_LOG", "warn");
+            }
+            serve::init_tracing();
+            runtime()
+                .and_then(|rt| {
+                    rt.block_on(loopbal_server::demo::run(loopbal_server::demo::Options {
+                        listen: *listen,
+                        database: database.clone(),
+                        days: *days,
+                        seed: *seed,
+                        serve: !*no_serve,
+                        json: *json,
+                    }))
+                })
+                .map(|()| ExitCode::SUCCESS)
+        }
         Command::Token {
             command:
                 TokenCommand::Create {

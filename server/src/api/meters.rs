@@ -119,6 +119,25 @@ fn correlation(records: &[(String, MeterPeriod)], a: &str, b: &str) -> Option<f6
         .find_map(|(_, p)| p.correlations.get(b).copied())
 }
 
+/// Σ d / √n of a meter's normalised adjustments from `since` on: its evidence over a window
+/// shared with another meter.
+fn common_evidence(
+    records: &[(String, MeterPeriod)],
+    tag: &str,
+    since: Option<DateTime<Utc>>,
+) -> f64 {
+    let (sum, n) = records
+        .iter()
+        .filter(|(t, p)| t == tag && since.is_none_or(|s| p.period_start >= s) && p.redundant)
+        .filter_map(|(_, p)| p.normalized)
+        .fold((0.0, 0usize), |(s, n), d| (s + d, n + 1));
+    if n == 0 {
+        0.0
+    } else {
+        sum / (n as f64).sqrt()
+    }
+}
+
 /// Every meter's health, worst first.
 #[utoipa::path(
     get,
@@ -148,7 +167,7 @@ pub async fn list_meters(
         .meter_periods(&row, None, DateTime::<Utc>::MIN_UTC, DateTime::<Utc>::MAX_UTC)
         .await?;
     let tags: Vec<String> = spec.meters.iter().map(|m| m.tag.clone()).collect();
-    let mut healths: Vec<Health> = tags
+    let healths: Vec<Health> = tags
         .iter()
         .map(|tag| {
             let since = resets(&notes, tag);
@@ -160,9 +179,22 @@ pub async fn list_meters(
             health::assess(&record)
         })
         .collect();
-    health::attribute(&tags, &mut healths, &|i, j| {
-        correlation(&records, &tags[i], &tags[j])
-    });
+    let evidence = |i: usize, j: usize| {
+        let since = [&healths[i], &healths[j]]
+            .iter()
+            .filter_map(|h| h.evidence_since)
+            .min();
+        let z = |tag: &str| common_evidence(&records, tag, since);
+        (z(&tags[i]), z(&tags[j]))
+    };
+    let mut attributed = healths.clone();
+    health::attribute(
+        &tags,
+        &mut attributed,
+        &|i, j| correlation(&records, &tags[i], &tags[j]),
+        &evidence,
+    );
+    let healths = attributed;
     let mut meters: Vec<MeterHealth> = spec
         .meters
         .iter()
