@@ -406,6 +406,7 @@ fn range(days: usize) -> (String, String) {
 
 fn num(v: &Value) -> String {
     match v.as_f64() {
+        Some(x) if x.abs() < 5e-5 => "0".into(),
         Some(x) if x.abs() >= 1000.0 => format!("{x:.0}"),
         Some(x) if x.abs() >= 10.0 => format!("{x:.1}"),
         Some(x) if x.abs() >= 0.1 => format!("{x:.3}"),
