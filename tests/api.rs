@@ -9,16 +9,9 @@ use std::time::Duration;
 
 use reqwest::{Client, Response, StatusCode};
 use serde_json::{json, Value};
-use support::{kestrel_model, token, Server, KESTREL_TAGS};
+use support::{client, json_ok, kestrel_model, problem, token, Server, KESTREL_TAGS};
 
 const PLANT: &str = "kestrel-kp2";
-
-fn client() -> Client {
-    Client::builder()
-        .timeout(Duration::from_secs(60))
-        .build()
-        .expect("http client")
-}
 
 struct Tokens {
     admin: String,
@@ -59,33 +52,6 @@ async fn post(c: &Client, s: &Server, tok: &str, body: &str, ctype: &str) -> Res
         .send()
         .await
         .expect("POST readings")
-}
-
-async fn json_ok(r: Response) -> Value {
-    let status = r.status();
-    let text = r.text().await.expect("body");
-    assert_eq!(status, StatusCode::OK, "{text}");
-    serde_json::from_str(&text).expect("JSON answer")
-}
-
-/// A problem details answer: checks the media type and the status, returns the object.
-async fn problem(r: Response, status: StatusCode) -> Value {
-    assert_eq!(r.status(), status);
-    let ctype = r
-        .headers()
-        .get("content-type")
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("")
-        .to_string();
-    assert_eq!(ctype, "application/problem+json");
-    let body: Value = r.json().await.expect("problem JSON");
-    assert_eq!(body["status"], status.as_u16());
-    assert!(
-        body["detail"].as_str().is_some_and(|d| !d.is_empty()),
-        "{body}"
-    );
-    assert!(body["type"].as_str().is_some_and(|t| t.starts_with("urn:")), "{body}");
-    body
 }
 
 /// Hourly readings of every kestrel tag for one UTC day, the value scaled by `scale`.
@@ -657,30 +623,14 @@ async fn the_log_has_requests_but_no_token_and_no_reading_value() {
 /// The purge-design loop's readings for `hours` hours from 2026-06-01T00:00Z, from the engine's
 /// simulator (noise at each meter's σ, fixed seed), as CSV.
 fn purge_design_csv(hours: usize, skip: &dyn Fn(&str, usize) -> bool) -> (String, String) {
-    use reconcile::simulate::{readings, steady_state, ReadingPlan, Spec};
+    use reconcile::simulate::{readings, steady_state, ReadingPlan};
     let model = std::fs::read_to_string(concat!(
         env!("CARGO_MANIFEST_DIR"),
         "/../tests/data/purge-design.toml"
     ))
     .unwrap();
     let plant = reconcile::parse_plant(&model).unwrap();
-    let argon = 400.0 * 0.005 / 0.995;
-    let mut specs: Vec<Spec> = [("N2", 100.0), ("H2", 300.0), ("Ar", argon)]
-        .into_iter()
-        .map(|(c, v)| Spec::ComponentFlow {
-            stream: "feed".into(),
-            component: c.into(),
-            value: 3.6 * v,
-        })
-        .collect();
-    specs.push(Spec::Conversion {
-        reaction: "synthesis".into(),
-        value: 0.625,
-    });
-    specs.push(Spec::Extent {
-        reaction: "synthesis".into(),
-        value: 3.6 * 95.0,
-    });
+    let specs = support::purge_design_specs();
     let z = steady_state(&plant, &specs).unwrap();
     let start = chrono::DateTime::parse_from_rfc3339("2026-06-01T00:00:00Z")
         .unwrap()

@@ -6,6 +6,8 @@ use std::process::{Command, Output};
 
 use serde_json::Value;
 
+mod support;
+
 const KESTREL: &str = concat!(
     env!("CARGO_MANIFEST_DIR"),
     "/../tests/data/kestrel-loop.toml"
@@ -902,30 +904,14 @@ fn usage_errors_exit_2() {
 /// figures and each redundant meter's detectable bias.
 #[test]
 fn a_biased_meter_in_the_readings_is_named_with_its_bias() {
-    use reconcile::simulate::{readings, steady_state, MeterFault, ReadingPlan, Spec};
+    use reconcile::simulate::{readings, steady_state, MeterFault, ReadingPlan};
     let dir = tempfile::tempdir().unwrap();
     let model_text = std::fs::read_to_string(
         Path::new(env!("CARGO_MANIFEST_DIR")).join("../tests/data/purge-design.toml"),
     )
     .unwrap();
     let plant = reconcile::parse_plant(&model_text).unwrap();
-    let argon = 400.0 * 0.005 / 0.995;
-    let mut specs: Vec<Spec> = [("N2", 100.0), ("H2", 300.0), ("Ar", argon)]
-        .into_iter()
-        .map(|(c, v)| Spec::ComponentFlow {
-            stream: "feed".into(),
-            component: c.into(),
-            value: 3.6 * v,
-        })
-        .collect();
-    specs.push(Spec::Conversion {
-        reaction: "synthesis".into(),
-        value: 0.625,
-    });
-    specs.push(Spec::Extent {
-        reaction: "synthesis".into(),
-        value: 3.6 * 95.0,
-    });
+    let specs = support::purge_design_specs();
     let z = steady_state(&plant, &specs).unwrap();
     // FI-4, the purge flow meter (σ 1 mol/s), reads 8 mol/s high from hour 2 on.
     let plan = ReadingPlan {

@@ -9,7 +9,7 @@ mod support;
 use std::time::Duration;
 
 use chrono::{DateTime, TimeDelta, Utc};
-use reconcile::simulate::{readings, steady_state, MeterFault, ReadingPlan, Spec};
+use reconcile::simulate::{readings, steady_state, MeterFault, ReadingPlan};
 use reqwest::{Client, StatusCode};
 use serde_json::{json, Value};
 use support::{token, Server};
@@ -46,23 +46,7 @@ fn week_start() -> DateTime<Utc> {
 /// reading per meter per hour, noise at each meter's σ from `seed`, with `faults`.
 fn simulated_csv(start_hour: usize, hours: usize, seed: u64, faults: Vec<MeterFault>) -> String {
     let plant = reconcile::parse_plant(&model_text()).unwrap();
-    let argon = 400.0 * 0.005 / 0.995;
-    let mut specs: Vec<Spec> = [("N2", 100.0), ("H2", 300.0), ("Ar", argon)]
-        .into_iter()
-        .map(|(c, v)| Spec::ComponentFlow {
-            stream: "feed".into(),
-            component: c.into(),
-            value: 3.6 * v,
-        })
-        .collect();
-    specs.push(Spec::Conversion {
-        reaction: "synthesis".into(),
-        value: 0.625,
-    });
-    specs.push(Spec::Extent {
-        reaction: "synthesis".into(),
-        value: 3.6 * 95.0,
-    });
+    let specs = support::purge_design_specs();
     let z = steady_state(&plant, &specs).unwrap();
     let plan = ReadingPlan {
         start: week_start() + TimeDelta::hours(start_hour as i64),

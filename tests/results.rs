@@ -7,9 +7,9 @@ mod support;
 use std::collections::BTreeMap;
 use std::time::Duration;
 
-use reqwest::{Client, Response, StatusCode};
+use reqwest::{Client, StatusCode};
 use serde_json::Value;
-use support::{token, Server};
+use support::{client, json_ok, problem, token, Server};
 
 const PLANT: &str = "purge-design";
 /// Four simulated hours, 00:00 to 04:00; the range around them has an unrun hour at each end.
@@ -19,68 +19,19 @@ const END: &str = "2026-06-01T04:00:00Z";
 const BEFORE: &str = "2026-05-31T23:00:00Z";
 const AFTER: &str = "2026-06-01T05:00:00Z";
 
-fn client() -> Client {
-    Client::builder()
-        .timeout(Duration::from_secs(60))
-        .build()
-        .expect("http client")
-}
-
-async fn json_ok(r: Response) -> Value {
-    let status = r.status();
-    let text = r.text().await.expect("body");
-    assert_eq!(status, StatusCode::OK, "{text}");
-    serde_json::from_str(&text).expect("JSON answer")
-}
-
-/// A problem details answer: checks the media type and the status, returns the object.
-async fn problem(r: Response, status: StatusCode) -> Value {
-    assert_eq!(r.status(), status);
-    let ctype = r
-        .headers()
-        .get("content-type")
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("")
-        .to_string();
-    assert_eq!(ctype, "application/problem+json");
-    let body: Value = r.json().await.expect("problem JSON");
-    assert_eq!(body["status"], status.as_u16());
-    assert!(
-        body["detail"].as_str().is_some_and(|d| !d.is_empty()),
-        "{body}"
-    );
-    body
-}
-
 /// The purge-design loop: its model text, the simulator's readings of `HOURS` hours from
 /// START (noise at each meter's σ, fixed seed; none of a tag in an hour where `skip` says so)
 /// as CSV, and the figures of the noise-free steady state (noise-free data reconciles to
 /// itself, so these are the true values).
 fn purge_design(skip: &dyn Fn(&str, usize) -> bool) -> (String, String, Vec<Value>) {
-    use reconcile::simulate::{exact_values, readings, steady_state, ReadingPlan, Spec};
+    use reconcile::simulate::{exact_values, readings, steady_state, ReadingPlan};
     let model = std::fs::read_to_string(concat!(
         env!("CARGO_MANIFEST_DIR"),
         "/../tests/data/purge-design.toml"
     ))
     .unwrap();
     let plant = reconcile::parse_plant(&model).unwrap();
-    let argon = 400.0 * 0.005 / 0.995;
-    let mut specs: Vec<Spec> = [("N2", 100.0), ("H2", 300.0), ("Ar", argon)]
-        .into_iter()
-        .map(|(c, v)| Spec::ComponentFlow {
-            stream: "feed".into(),
-            component: c.into(),
-            value: 3.6 * v,
-        })
-        .collect();
-    specs.push(Spec::Conversion {
-        reaction: "synthesis".into(),
-        value: 0.625,
-    });
-    specs.push(Spec::Extent {
-        reaction: "synthesis".into(),
-        value: 3.6 * 95.0,
-    });
+    let specs = support::purge_design_specs();
     let z = steady_state(&plant, &specs).unwrap();
     let start = chrono::DateTime::parse_from_rfc3339(START)
         .unwrap()

@@ -174,3 +174,68 @@ pub const KESTREL_TAGS: [(&str, f64); 11] = [
     ("KP2-AI-403", 13.0),
     ("KP2-FI-501", 4_300.0),
 ];
+
+/// An HTTP client for the tests: generous timeout, keep-alive.
+pub fn client() -> reqwest::Client {
+    reqwest::Client::builder()
+        .timeout(Duration::from_secs(60))
+        .build()
+        .expect("http client")
+}
+
+/// A 200 answer's JSON (the body is shown when the status is not 200).
+pub async fn json_ok(r: reqwest::Response) -> serde_json::Value {
+    let status = r.status();
+    let text = r.text().await.expect("body");
+    assert_eq!(status, reqwest::StatusCode::OK, "{text}");
+    serde_json::from_str(&text).expect("JSON answer")
+}
+
+/// A problem details answer: checks the media type, the status, a sentence in `detail` and a
+/// URN `type`; returns the object.
+pub async fn problem(r: reqwest::Response, status: reqwest::StatusCode) -> serde_json::Value {
+    assert_eq!(r.status(), status);
+    let ctype = r
+        .headers()
+        .get("content-type")
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("")
+        .to_string();
+    assert_eq!(ctype, "application/problem+json");
+    let body: serde_json::Value = r.json().await.expect("problem JSON");
+    assert_eq!(body["status"], status.as_u16());
+    assert!(
+        body["detail"].as_str().is_some_and(|d| !d.is_empty()),
+        "{body}"
+    );
+    assert!(
+        body["type"].as_str().is_some_and(|t| t.starts_with("urn:")),
+        "{body}"
+    );
+    body
+}
+
+/// How the purge-design loop (tests/data/purge-design.toml) is run in the tests: a fresh feed
+/// of 400 mol/s of N2 and H2 in stoichiometric ratio with 0.5 mol % argon, 62.5 % single-pass
+/// conversion, and a purge that holds the extent at 95 mol/s (values in kmol/h).
+pub fn purge_design_specs() -> Vec<reconcile::simulate::Spec> {
+    use reconcile::simulate::Spec;
+    let argon = 400.0 * 0.005 / 0.995;
+    let mut specs: Vec<Spec> = [("N2", 100.0), ("H2", 300.0), ("Ar", argon)]
+        .into_iter()
+        .map(|(c, v)| Spec::ComponentFlow {
+            stream: "feed".into(),
+            component: c.into(),
+            value: 3.6 * v,
+        })
+        .collect();
+    specs.push(Spec::Conversion {
+        reaction: "synthesis".into(),
+        value: 0.625,
+    });
+    specs.push(Spec::Extent {
+        reaction: "synthesis".into(),
+        value: 3.6 * 95.0,
+    });
+    specs
+}

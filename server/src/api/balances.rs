@@ -31,7 +31,8 @@ use serde::{Deserialize, Serialize};
 use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
-use super::figures::{corrupt, rfc3339, PeriodRange, NO_RUN};
+use super::figures::{corrupt, PeriodRange, NO_RUN};
+use super::rfc3339;
 use super::problem::Problem;
 use super::AppState;
 use crate::store::Role;

@@ -12,15 +12,15 @@ use axum::extract::{Path, Query, State};
 use axum::http::{header, HeaderMap, HeaderValue, StatusCode};
 use axum::response::{IntoResponse, Response};
 use axum::Json;
-use chrono::{DateTime, SecondsFormat, TimeDelta, Utc};
+use chrono::{DateTime, TimeDelta, Utc};
 use serde::{Deserialize, Serialize};
 use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
 use super::problem::Problem;
 use super::readings::parse_time;
-use super::AppState;
-use crate::schedule::{self, RunError};
+use super::{rfc3339, run_problem, AppState};
+use crate::schedule;
 use crate::store::{PlantRow, Role};
 
 /// Most periods one answer covers (a leap year of hours is 8,784).
@@ -28,10 +28,6 @@ pub(super) const MAX_PERIODS: i64 = 10_000;
 
 /// The status of a period of the range that has no run.
 pub(super) const NO_RUN: &str = "no_run";
-
-pub(super) fn rfc3339(t: DateTime<Utc>) -> String {
-    t.to_rfc3339_opts(SecondsFormat::Secs, true)
-}
 
 /// The periods a range query covers, on the grid of the model in effect at its end (as the
 /// period listing has them).
@@ -85,21 +81,6 @@ impl PeriodRange {
             period_seconds: secs,
             starts,
         })
-    }
-}
-
-fn run_problem(e: RunError) -> Problem {
-    match e {
-        RunError::NoModel(p) => Problem::new(
-            StatusCode::CONFLICT,
-            "no-model",
-            format!("plant \"{p}\" has no model yet: PUT its model first"),
-        ),
-        RunError::Store(e) => e.into(),
-        RunError::Engine(e) => {
-            tracing::error!(error = %e, "engine failure");
-            Problem::internal()
-        }
     }
 }
 

@@ -6,7 +6,7 @@ use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
 use axum::Json;
-use chrono::{DateTime, SecondsFormat, Utc};
+use chrono::{DateTime, Utc};
 use reconcile::ModelSpec;
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
@@ -14,13 +14,9 @@ use utoipa::ToSchema;
 use super::auth::Caller;
 use super::problem::Problem;
 use super::readings::parse_time;
-use super::AppState;
+use super::{plant_row, rfc3339, AppState};
 use crate::health::{self, Health, MeterPeriod, CUSUM_K, CUSUM_SUSPECT, CUSUM_WATCH};
 use crate::store::{MeterNote, NoteKind, PlantRow, Role};
-
-fn rfc3339(t: DateTime<Utc>) -> String {
-    t.to_rfc3339_opts(SecondsFormat::Secs, true)
-}
 
 /// A note as answered.
 #[derive(Debug, Serialize, ToSchema)]
@@ -74,14 +70,6 @@ pub struct MeterList {
     /// Worst first: suspect, frozen, out of range, watch, missing, untestable, ok; by
     /// statistic within a status.
     pub meters: Vec<MeterHealth>,
-}
-
-async fn plant_row(state: &AppState, plant: &str) -> Result<PlantRow, Problem> {
-    state
-        .store
-        .plant(plant)
-        .await?
-        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))
 }
 
 async fn current_spec(state: &AppState, row: &PlantRow) -> Result<ModelSpec, Problem> {

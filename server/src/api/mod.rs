@@ -364,3 +364,37 @@ pub fn check_plant_name(name: &str) -> Result<(), Problem> {
 pub(crate) fn query_problem(e: axum::extract::rejection::QueryRejection) -> Problem {
     Problem::bad_request(format!("the query string is not as expected: {}", e.body_text()))
 }
+
+/// An instant as the API writes it: RFC 3339 in UTC, whole seconds.
+pub(crate) fn rfc3339(t: chrono::DateTime<chrono::Utc>) -> String {
+    t.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
+}
+
+/// The stored plant of a path, or 404 naming it.
+pub(crate) async fn plant_row(
+    state: &AppState,
+    plant: &str,
+) -> Result<crate::store::PlantRow, Problem> {
+    state
+        .store
+        .plant(plant)
+        .await?
+        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))
+}
+
+/// Why a period could not be run, as a problem.
+pub(crate) fn run_problem(e: crate::schedule::RunError) -> Problem {
+    use crate::schedule::RunError;
+    match e {
+        RunError::NoModel(p) => Problem::new(
+            StatusCode::CONFLICT,
+            "no-model",
+            format!("plant \"{p}\" has no model yet: PUT its model first"),
+        ),
+        RunError::Store(e) => e.into(),
+        RunError::Engine(e) => {
+            tracing::error!(error = %e, "engine failure");
+            Problem::internal()
+        }
+    }
+}

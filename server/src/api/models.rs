@@ -7,14 +7,14 @@ use axum::extract::{Path, Query, State};
 use axum::http::{header, HeaderMap, HeaderValue, StatusCode};
 use axum::response::{IntoResponse, Response};
 use axum::Json;
-use chrono::{DateTime, SecondsFormat, Utc};
+use chrono::{DateTime, Utc};
 use reconcile::{ModelError, ModelSpec, Plant};
 use serde::{Deserialize, Serialize};
 use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
 use super::problem::{ItemError, Problem};
-use super::{body_bytes, check_plant_name, media_type, AppState};
+use super::{body_bytes, check_plant_name, media_type, rfc3339, AppState};
 use crate::store::{ModelRevision, Role, StoreError};
 
 #[derive(Debug, Deserialize, IntoParams)]
@@ -48,10 +48,6 @@ pub struct RevisionBody {
     pub model: ModelSpec,
     /// The model exactly as it was sent (TOML or JSON, with its comments).
     pub source: String,
-}
-
-fn rfc3339(t: DateTime<Utc>) -> String {
-    t.to_rfc3339_opts(SecondsFormat::Secs, true)
 }
 
 fn summary(plant: &str, rev: &ModelRevision) -> RevisionSummary {

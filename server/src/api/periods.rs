@@ -4,23 +4,19 @@
 use axum::extract::rejection::QueryRejection;
 use axum::extract::{Path, Query, State};
 use axum::Json;
-use chrono::{DateTime, SecondsFormat, TimeDelta, Utc};
+use chrono::{DateTime, TimeDelta, Utc};
 use serde::{Deserialize, Serialize};
 use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
 use super::problem::Problem;
 use super::readings::parse_time;
-use super::AppState;
-use crate::schedule::{self, RunError};
+use super::{plant_row, rfc3339, run_problem, AppState};
+use crate::schedule;
 use crate::store::{PlantRow, Role};
 
 /// Most periods one listing covers (a leap year of hours is 8,784).
 const MAX_PERIODS: i64 = 10_000;
-
-fn rfc3339(t: DateTime<Utc>) -> String {
-    t.to_rfc3339_opts(SecondsFormat::Secs, true)
-}
 
 #[derive(Debug, Deserialize, IntoParams)]
 pub struct RangeQuery {
@@ -56,29 +52,6 @@ pub struct PeriodList {
     pub plant: String,
     pub period_seconds: i64,
     pub periods: Vec<PeriodStatus>,
-}
-
-async fn plant_row(state: &AppState, plant: &str) -> Result<PlantRow, Problem> {
-    state
-        .store
-        .plant(plant)
-        .await?
-        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))
-}
-
-fn run_problem(e: RunError) -> Problem {
-    match e {
-        RunError::NoModel(p) => Problem::new(
-            axum::http::StatusCode::CONFLICT,
-            "no-model",
-            format!("plant \"{p}\" has no model yet: PUT its model first"),
-        ),
-        RunError::Store(e) => e.into(),
-        RunError::Engine(e) => {
-            tracing::error!(error = %e, "engine failure");
-            Problem::internal()
-        }
-    }
 }
 
 /// Every period of a range with the status of its run.
