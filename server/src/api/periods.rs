@@ -11,12 +11,10 @@ use utoipa::{IntoParams, ToSchema};
 use super::auth::Caller;
 use super::problem::Problem;
 use super::readings::parse_time;
+use super::figures::PeriodRange;
 use super::{plant_row, rfc3339, run_problem, AppState};
 use crate::schedule;
 use crate::store::{PlantRow, Role};
-
-/// Most periods one listing covers (a leap year of hours is 8,784).
-const MAX_PERIODS: i64 = 10_000;
 
 #[derive(Debug, Deserialize, IntoParams)]
 pub struct RangeQuery {
@@ -79,29 +77,14 @@ pub async fn list_periods(
 ) -> Result<Json<PeriodList>, Problem> {
     caller.require(Role::Read, &plant)?;
     let Query(query) = query.map_err(super::query_problem)?;
-    let from = parse_time("from", &query.from)?;
-    let to = parse_time("to", &query.to)?;
-    if from >= to {
-        return Err(Problem::bad_request("from must be before to"));
-    }
-    let row = plant_row(&state, &plant).await?;
-    let (model, _) = schedule::model_at(&state.store, &row, to)
-        .await
-        .map_err(run_problem)?;
-    let secs = model.period_seconds;
-    let first = reconcile::period::period_start(from, secs);
-    let count = (to - first).num_seconds().div_euclid(secs) + 1;
-    if count > MAX_PERIODS {
-        return Err(Problem::unprocessable(format!(
-            "the range holds {count} periods, more than the {MAX_PERIODS} one answer lists; \
-             ask for a shorter range"
-        )));
-    }
-    let runs = state.store.current_runs(&row, first, to).await?;
-    let dirty = state.store.dirty_periods(&row).await?;
+    // The same grid as the figures and balances of a range.
+    let range = PeriodRange::resolve(&state, &plant, &query.from, &query.to).await?;
+    let secs = range.period_seconds;
+    let first = range.starts.first().copied().unwrap_or(range.from);
+    let runs = state.store.current_runs(&range.row, first, range.to).await?;
+    let dirty = state.store.dirty_periods(&range.row).await?;
     let mut periods = Vec::new();
-    let mut start = first;
-    while start < to {
+    for &start in &range.starts {
         let end = start + TimeDelta::seconds(secs);
         let run = runs.iter().find(|r| r.period_start == start);
         let due = dirty.iter().any(|(s, _)| *s == start);
@@ -120,7 +103,6 @@ pub async fn list_periods(
             run_at: run.map(|r| rfc3339(r.created_at)),
             runs: run.map_or(0, |r| r.runs),
         });
-        start = end;
     }
     Ok(Json(PeriodList {
         plant,
