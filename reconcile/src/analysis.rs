@@ -348,9 +348,21 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
     let c = &est.classification;
     let z = &sol.z;
     let layout = &est.layout;
+    // The tests judge the adjustments the estimate made. With a state held at a bound those
+    // adjustments respect the bound, so their covariance must too: the tests (global and
+    // measurement tests, identification) classify with the active bounds fixed, while the σ
+    // of states keep the free classification (a state resting on a bound is not thereby
+    // known). Without it the normalised adjustments of such a period are not N(0, 1).
+    let fixed;
+    let t: &Classification = if sol.at_bound.iter().any(|&b| b) {
+        fixed = classify(plant, layout, &est.measured, z, &sol.at_bound);
+        &fixed
+    } else {
+        c
+    };
     report.iterations = sol.iterations;
     report.objective = Some(sol.objective);
-    report.redundancy = c.redundancy;
+    report.redundancy = t.redundancy;
     report.diagnostics = Some(Diagnostics {
         constraint_residual: sol.constraint_residual,
         last_step: sol.last_step,
@@ -375,10 +387,10 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
     }
 
     // Meters and the measurement test.
-    let redundant: Vec<bool> = (0..est.measured.len()).map(|k| c.is_redundant(k)).collect();
+    let redundant: Vec<bool> = (0..est.measured.len()).map(|k| t.is_redundant(k)).collect();
     let tests = redundant.iter().filter(|&&r| r).count();
     let critical = measurement_test_critical(plant.alpha, tests);
-    let gt = global_test(sol.objective, c.redundancy, plant.alpha);
+    let gt = global_test(sol.objective, t.redundancy, plant.alpha);
     report.global_test = Some(gt);
     report.measurement_test = Some(MeasurementTestReport {
         critical,
@@ -415,7 +427,7 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
             entry.reconciled_sigma = Some(m.sigma * c.leverage(k).sqrt());
             if redundant[k] {
                 let adjustment = h - m.value;
-                let sd = m.sigma * c.adjustment_variance(k).sqrt();
+                let sd = m.sigma * t.adjustment_variance(k).sqrt();
                 entry.adjustment = Some(adjustment);
                 entry.adjustment_sigma = Some(sd);
                 let d = adjustment / sd;
@@ -423,7 +435,7 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
                 entry.measurement_test_failed = d.abs() > critical;
                 entry.detectable_bias = crate::faults::detectable_bias(
                     m.sigma,
-                    c.adjustment_variance(k),
+                    t.adjustment_variance(k),
                     critical,
                     0.90,
                 );
@@ -537,7 +549,8 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
     }
 
     if sol.status == SolveStatus::Converged {
-        let identified = crate::faults::identify(plant, est);
+        let identified =
+            crate::faults::identify_at(plant, &est.layout, &est.measured, &sol.z, t);
         for entry in report.meters.iter_mut() {
             entry.suspect = identified.suspect_tags.contains(&entry.tag);
         }

@@ -161,13 +161,6 @@ fn meter_rows(
     screens: &HashMap<String, (i64, i64)>,
     mut correlations: HashMap<String, BTreeMap<String, f64>>,
 ) -> Vec<(String, MeterPeriod)> {
-    // With a state held at a bound the adjustments are not those of the unconstrained
-    // linearisation that gives σ_a, so their normalised values mean nothing that period: the
-    // record keeps the adjustment and leaves the period out of the meter's statistic.
-    let bound_active = report
-        .diagnostics
-        .as_ref()
-        .is_some_and(|d| !d.at_bound.is_empty());
     report
         .meters
         .iter()
@@ -182,7 +175,7 @@ fn meter_rows(
                     sigma: m.sigma,
                     adjustment: m.adjustment,
                     adjustment_sigma: m.adjustment_sigma,
-                    normalized: m.normalized_adjustment.filter(|_| !bound_active),
+                    normalized: m.normalized_adjustment,
                     redundant: m.redundant,
                     flagged: m.suspect || m.measurement_test_failed,
                     readings: m.readings as i64,
