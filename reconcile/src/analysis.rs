@@ -353,8 +353,12 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
     // measurement tests, identification) classify with the active bounds fixed, while the σ
     // of states keep the free classification (a state resting on a bound is not thereby
     // known). Without it the normalised adjustments of such a period are not N(0, 1).
+    // (Dense only: a large network on a bound keeps the free classification for its tests
+    // rather than a dense one of thousands of states.)
     let fixed;
-    let t: &Classification = if sol.at_bound.iter().any(|&b| b) {
+    let t: &Classification = if layout.n < crate::classify::SPARSE_THRESHOLD
+        && sol.at_bound.iter().any(|&b| b)
+    {
         fixed = classify(plant, layout, &est.measured, z, &sol.at_bound);
         &fixed
     } else {
