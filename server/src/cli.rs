@@ -103,7 +103,8 @@ pub enum Command {
 
 #[derive(Debug, Args)]
 pub struct DatabaseArg {
-    /// The database: a SQLite file path or `sqlite:` URL; created with its schema if absent.
+    /// The database: a SQLite file path or `sqlite:` URL, created with its schema if absent;
+    /// or a `postgres://` URL of an existing PostgreSQL database (its schema is created).
     #[arg(long, value_name = "URL", default_value = DEFAULT_DATABASE, env = "LOOPBAL_DATABASE_URL")]
     pub database: String,
 }

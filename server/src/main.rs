@@ -139,8 +139,8 @@ fn token_create(role: RoleArg, plant: Option<&str>, database: &str) -> anyhow::R
     println!("{}", made.token);
     let scope = plant.map_or("every plant".to_string(), |p| format!("plant {p}"));
     eprintln!(
-        "token {} with role {} for {scope} stored (hashed) in {database}; this is the only time it is shown",
-        made.id, made.role
+        "token {} with role {} for {scope} stored (hashed) in {}; this is the only time it is shown",
+        made.id, made.role, store::redacted(database)
     );
     Ok(ExitCode::SUCCESS)
 }

@@ -8,7 +8,7 @@ use tokio::net::TcpListener;
 
 use crate::api::{self, AppState, Limits};
 use crate::schedule::{self, Schedule};
-use crate::store::Store;
+use crate::store::{redacted, Store};
 
 pub struct Options {
     pub listen: SocketAddr,
@@ -32,7 +32,7 @@ pub fn init_tracing() {
 pub async fn serve(opts: Options) -> anyhow::Result<()> {
     let store = Store::open(&opts.database)
         .await
-        .with_context(|| format!("opening the database {}", opts.database))?;
+        .with_context(|| format!("opening the database {}", redacted(&opts.database)))?;
     let state = AppState::new(store.clone(), opts.limits);
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
     let worker = tokio::spawn(schedule::worker(
@@ -48,7 +48,7 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
     let addr = listener.local_addr()?;
     // One plain line on stdout for scripts and tests that started us on port 0.
     println!("loopbal: listening on http://{addr}");
-    tracing::info!(%addr, database = %opts.database, "serving");
+    tracing::info!(%addr, database = %redacted(&opts.database), "serving");
     axum::serve(listener, router)
         .with_graceful_shutdown(shutdown_signal())
         .await

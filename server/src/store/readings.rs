@@ -27,7 +27,7 @@ pub struct StoredReading {
     pub out_of_range: bool,
 }
 
-fn quality_str(q: Quality) -> &'static str {
+pub(super) fn quality_str(q: Quality) -> &'static str {
     match q {
         Quality::Good => "good",
         Quality::Uncertain => "uncertain",
@@ -129,17 +129,17 @@ fn full_size() -> &'static FullSize {
     })
 }
 
-/// The batch cut into runs of at most `READINGS_PER_STATEMENT` readings with no (tag, instant)
-/// twice in one run: within a statement the probe sees the table as it was before the
-/// statement, so a repeat must wait for the next statement to see its predecessor, as it
-/// would with one statement per reading.
-fn runs(readings: &[Reading]) -> Vec<&[Reading]> {
-    let mut runs = Vec::with_capacity(readings.len() / READINGS_PER_STATEMENT + 1);
-    let mut keys: HashSet<(&str, i64)> = HashSet::with_capacity(READINGS_PER_STATEMENT);
+/// The batch cut into runs of at most `per_statement` readings with no (tag, instant) twice in
+/// one run: within a statement the probe sees the table as it was before the statement (and
+/// PostgreSQL's upsert refuses to touch one row twice), so a repeat must wait for the next
+/// statement to see its predecessor, as it would with one statement per reading.
+pub(super) fn runs(readings: &[Reading], per_statement: usize) -> Vec<&[Reading]> {
+    let mut runs = Vec::with_capacity(readings.len() / per_statement + 1);
+    let mut keys: HashSet<(&str, i64)> = HashSet::with_capacity(per_statement.min(readings.len()));
     let mut start = 0;
     for (i, r) in readings.iter().enumerate() {
         let key = (r.tag.as_str(), to_ms(r.time));
-        if i - start == READINGS_PER_STATEMENT || keys.contains(&key) {
+        if i - start == per_statement || keys.contains(&key) {
             runs.push(&readings[start..i]);
             start = i;
             keys.clear();
@@ -187,7 +187,7 @@ impl SqliteStore {
         // rolls it back. BEGIN IMMEDIATE holds the write lock throughout, so what the probe
         // finds is what the upsert that follows it meets.
         let mut tx = self.write().await?;
-        for run in runs(readings) {
+        for run in runs(readings, READINGS_PER_STATEMENT) {
             let is_full = run.len() == READINGS_PER_STATEMENT;
             // A shorter run's one-off text is prepared for this call only, so it does not push
             // the full-size statements out of sqlx's statement cache.
@@ -339,13 +339,45 @@ impl SqliteStore {
 
 #[cfg(test)]
 mod tests {
-    //! Batches longer than one statement: chunk edges must not change what a batch does.
+    //! Batches longer than one statement: chunk edges must not change what a batch does. On
+    //! both backends, as in store/tests.rs.
 
     use chrono::TimeZone;
     use reconcile::period::period_start;
 
-    use super::super::Store;
+    use super::super::tests::Scratch;
     use super::*;
+
+    #[tokio::test]
+    async fn long_batches_on_sqlite() {
+        long_batches_count_and_mark_as_one_statement_per_reading_would(Scratch::sqlite().await)
+            .await
+    }
+
+    #[tokio::test]
+    #[cfg_attr(
+        not(loopbal_postgres_tests),
+        ignore = "set LOOPBAL_TEST_POSTGRES_URL to run it on PostgreSQL"
+    )]
+    async fn long_batches_on_postgres() {
+        long_batches_count_and_mark_as_one_statement_per_reading_would(Scratch::postgres().await)
+            .await
+    }
+
+    #[tokio::test]
+    async fn periods_before_1970_on_sqlite() {
+        periods_are_marked_as_the_engine_floors_them_before_1970_too(Scratch::sqlite().await).await
+    }
+
+    #[tokio::test]
+    #[cfg_attr(
+        not(loopbal_postgres_tests),
+        ignore = "set LOOPBAL_TEST_POSTGRES_URL to run it on PostgreSQL"
+    )]
+    async fn periods_before_1970_on_postgres() {
+        periods_are_marked_as_the_engine_floors_them_before_1970_too(Scratch::postgres().await)
+            .await
+    }
 
     fn hourly(n: usize, tags: &[&str]) -> Vec<Reading> {
         let start = Utc.with_ymd_and_hms(2026, 3, 1, 0, 0, 0).unwrap();
@@ -359,12 +391,8 @@ mod tests {
             .collect()
     }
 
-    #[tokio::test]
-    async fn long_batches_count_and_mark_as_one_statement_per_reading_would() {
-        let dir = tempfile::tempdir().expect("temporary directory");
-        let store = Store::open(&dir.path().join("t.db").to_string_lossy())
-            .await
-            .expect("open");
+    async fn long_batches_count_and_mark_as_one_statement_per_reading_would(db: Scratch) {
+        let store = &db.store;
         let plant = store.create_plant("west").await.unwrap();
         let ranges = BTreeMap::from([("FT-1".to_string(), [0.0, 100.0])]);
         let n = 2 * READINGS_PER_STATEMENT + 203;
@@ -438,12 +466,8 @@ mod tests {
         );
     }
 
-    #[tokio::test]
-    async fn periods_are_marked_as_the_engine_floors_them_before_1970_too() {
-        let dir = tempfile::tempdir().expect("temporary directory");
-        let store = Store::open(&dir.path().join("t.db").to_string_lossy())
-            .await
-            .expect("open");
+    async fn periods_are_marked_as_the_engine_floors_them_before_1970_too(db: Scratch) {
+        let store = &db.store;
         let plant = store.create_plant("west").await.unwrap();
         let times = [
             "1969-12-31T23:59:59.999Z",

@@ -84,15 +84,20 @@ fn hex(bytes: &[u8]) -> String {
     })
 }
 
-fn hash(token: &str) -> String {
+pub(super) fn hash(token: &str) -> String {
     hex(&Sha256::digest(token.as_bytes()))
+}
+
+/// A fresh token's plaintext: the prefix and 256 random bits from the OS, in hex.
+pub(super) fn new_secret() -> String {
+    let mut secret = [0u8; 32];
+    rand::rngs::OsRng.fill_bytes(&mut secret);
+    format!("{PREFIX}{}", hex(&secret))
 }
 
 impl SqliteStore {
     pub(super) async fn create_token(&self, role: Role, plant: Option<&str>) -> Result<NewToken> {
-        let mut secret = [0u8; 32];
-        rand::rngs::OsRng.fill_bytes(&mut secret);
-        let token = format!("{PREFIX}{}", hex(&secret));
+        let token = new_secret();
         let id: i64 = sqlx::query_scalar(
             "INSERT INTO api_tokens (hash, role, plant, created_at) VALUES (?, ?, ?, ?)
              RETURNING id",
