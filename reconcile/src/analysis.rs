@@ -25,6 +25,33 @@ pub struct Estimate {
 }
 
 impl Estimate {
+    /// Correlations ρᵢⱼ = Cᵢⱼ / √(Cᵢᵢ Cⱼⱼ) of the measured meters' adjustments (i, j index
+    /// `measured`, i ≠ j), C the covariance of the σ-scaled adjustments; only |ρ| ≥ `min_abs`
+    /// and meters with adjustment variance. Under a bias in meter j the expected normalised
+    /// adjustment of meter i is ρᵢⱼ times that of j. Empty when the classification holds no
+    /// dense covariance (the sparse path).
+    pub fn adjustment_correlations(&self, min_abs: f64) -> Vec<(usize, usize, f64)> {
+        let c = self.classification.scaled_adjustment_covariance();
+        let m = self.measured.len();
+        let mut out = Vec::new();
+        if c.nrows() != m || c.ncols() != m {
+            return out;
+        }
+        for i in 0..m {
+            for j in (0..m).filter(|&j| j != i) {
+                let (cii, cjj) = (c[(i, i)], c[(j, j)]);
+                if cii <= 1e-9 || cjj <= 1e-9 {
+                    continue;
+                }
+                let rho = (c[(i, j)] / (cii * cjj).sqrt()).clamp(-1.0, 1.0);
+                if rho.is_finite() && rho.abs() >= min_abs {
+                    out.push((i, j, rho));
+                }
+            }
+        }
+        out
+    }
+
     /// Reconciled value of measured meter k (index into `measured`) and its gradient.
     pub fn reconciled(&self, plant: &Plant, k: usize) -> (f64, Vec<(usize, f64)>) {
         measurement(
@@ -238,8 +265,20 @@ fn perturbed_start(start: &[f64], layout: &Layout, seed: u64) -> Vec<f64> {
     z
 }
 
+/// A period's report and the estimate behind it (none when no meter gave a usable value).
+pub struct Analysis {
+    pub report: Report,
+    pub estimate: Option<Estimate>,
+}
+
 /// Reconcile one period and build its report.
 pub fn reconcile_period(plant: &Plant, input: &PeriodInput) -> Report {
+    analyse_period(plant, input).report
+}
+
+/// [`reconcile_period`], keeping the estimate for callers that need more of it than the
+/// report holds (the service's meter records use its adjustment correlations).
+pub fn analyse_period(plant: &Plant, input: &PeriodInput) -> Analysis {
     let mut warnings = Vec::new();
     let mut measured = Vec::new();
     for v in &input.values {
@@ -303,11 +342,17 @@ pub fn reconcile_period(plant: &Plant, input: &PeriodInput) -> Report {
             .iter()
             .map(|m| unmeasured_meter(plant, m))
             .collect();
-        return report;
+        return Analysis {
+            report,
+            estimate: None,
+        };
     }
     let est = estimate(plant, measured);
     fill_report(plant, input, &est, &mut report);
-    report
+    Analysis {
+        report,
+        estimate: Some(est),
+    }
 }
 
 fn unmeasured_meter(plant: &Plant, m: &crate::model::Meter) -> MeterReport {

@@ -21,7 +21,7 @@ pub mod stats;
 pub mod uom;
 mod validate;
 
-pub use analysis::{estimate, reconcile_period, Estimate};
+pub use analysis::{analyse_period, estimate, reconcile_period, Analysis, Estimate};
 pub use model::{parse_plant, ModelError, ModelProblem, ModelSpec, Plant};
 pub use period::{group_readings, PeriodInput, Quality, Reading};
 pub use report::{Report, ReportStatus};

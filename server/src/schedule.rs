@@ -13,8 +13,7 @@ use std::time::{Duration, Instant};
 use chrono::{DateTime, TimeDelta, Utc};
 use std::collections::{BTreeMap, HashMap};
 
-use reconcile::solve::Measured;
-use reconcile::{PeriodInput, Plant, Quality, Reading, Report};
+use reconcile::{Analysis, PeriodInput, Plant, Quality, Reading, Report};
 use serde::Serialize;
 use tokio::sync::{watch, Notify};
 
@@ -120,9 +119,10 @@ pub async fn run_period(
     let (report, inputs, correlations) = tokio::task::spawn_blocking(move || {
         let input = period_input(&engine_model, &readings, start);
         let (unsteady, warnings) = steadiness(&engine_model, &input);
-        let mut report = reconcile::reconcile_period(&engine_model, &input);
+        let analysis = reconcile::analyse_period(&engine_model, &input);
+        let correlations = correlations_by_tag(&engine_model, &analysis);
+        let mut report = analysis.report;
         report.warnings.extend(warnings);
-        let correlations = adjustment_correlations(&engine_model, &input);
         let inputs = run_inputs(&engine_model, &input, revision, readings.len(), unsteady);
         (report, inputs, correlations)
     })
@@ -191,50 +191,17 @@ fn meter_rows(
 /// Smallest |ρ| kept in a meter's record.
 const KEPT_CORRELATION: f64 = 0.2;
 
-/// Correlations of the meters' adjustments this period: ρᵢⱼ = Cᵢⱼ / √(Cᵢᵢ Cⱼⱼ) with C the
-/// covariance of the σ-scaled adjustments at the estimate. Under a bias in meter j the
-/// expected normalised adjustment of meter i is ρᵢⱼ times that of j, which is how meter health
-/// tells the biased meter from those its balances drag along. Only |ρ| ≥ 0.2 is kept.
-fn adjustment_correlations(plant: &Plant, input: &PeriodInput) -> HashMap<String, BTreeMap<String, f64>> {
-    // The same values and σ the period's estimate used (reconcile::reconcile_period).
-    let measured: Vec<Measured> = input
-        .values
-        .iter()
-        .filter(|v| v.value.is_finite())
-        .filter_map(|v| {
-            let sigma = plant.meters[v.meter].sigma_for(v.value)?;
-            Some(Measured {
-                meter: v.meter,
-                value: v.value,
-                sigma,
-            })
-        })
-        .collect();
+/// Each measured meter's adjustment correlations this period, by tag (see
+/// `reconcile::Estimate::adjustment_correlations`): how a bias in it would show elsewhere,
+/// which is how meter health tells the biased meter from those its balances drag along.
+fn correlations_by_tag(plant: &Plant, analysis: &Analysis) -> HashMap<String, BTreeMap<String, f64>> {
     let mut out: HashMap<String, BTreeMap<String, f64>> = HashMap::new();
-    if measured.len() < 2 {
+    let Some(est) = &analysis.estimate else {
         return out;
-    }
-    let estimate = reconcile::estimate(plant, measured);
-    let c = estimate.classification.scaled_adjustment_covariance();
-    let m = estimate.measured.len();
-    if c.nrows() != m || c.ncols() != m {
-        return out;
-    }
-    for i in 0..m {
-        for j in 0..m {
-            let (cii, cjj) = (c[(i, i)], c[(j, j)]);
-            if i == j || cii <= 1e-9 || cjj <= 1e-9 {
-                continue;
-            }
-            let rho = (c[(i, j)] / (cii * cjj).sqrt()).clamp(-1.0, 1.0);
-            if rho.is_finite() && rho.abs() >= KEPT_CORRELATION {
-                let (ti, tj) = (
-                    &plant.meters[estimate.measured[i].meter].tag,
-                    &plant.meters[estimate.measured[j].meter].tag,
-                );
-                out.entry(ti.clone()).or_default().insert(tj.clone(), rho);
-            }
-        }
+    };
+    let tag = |k: usize| plant.meters[est.measured[k].meter].tag.clone();
+    for (i, j, rho) in est.adjustment_correlations(KEPT_CORRELATION) {
+        out.entry(tag(i)).or_default().insert(tag(j), rho);
     }
     out
 }
