@@ -102,8 +102,19 @@ pub async fn run_period(
     plant: &PlantRow,
     start: DateTime<Utc>,
 ) -> Result<RunOutcome, RunError> {
-    let began = Instant::now();
     let (model, revision) = model_at(&state.store, plant, start).await?;
+    run_period_with(state, plant, start, model, revision).await
+}
+
+/// [`run_period`] with the model already resolved.
+async fn run_period_with(
+    state: &AppState,
+    plant: &PlantRow,
+    start: DateTime<Utc>,
+    model: Arc<Plant>,
+    revision: i64,
+) -> Result<RunOutcome, RunError> {
+    let began = Instant::now();
     let end = start + TimeDelta::seconds(model.period_seconds);
     let stored = state.store.readings_in(plant, start, end).await?;
     // Per tag: (bad readings, readings outside the instrument range), for the health screens.
@@ -114,7 +125,6 @@ pub async fn run_period(
         e.1 += i64::from(s.out_of_range);
     }
     let readings: Vec<Reading> = stored.into_iter().map(|s| s.reading).collect();
-    let model = Arc::new(model);
     let engine_model = Arc::clone(&model);
     let (report, inputs, correlations) = tokio::task::spawn_blocking(move || {
         let input = period_input(&engine_model, &readings, start);
@@ -206,26 +216,51 @@ fn correlations_by_tag(plant: &Plant, analysis: &Analysis) -> HashMap<String, BT
     out
 }
 
+/// A plant's model revisions, each validated once: which one applies at a time.
+pub struct Models {
+    plant: String,
+    /// (effective_from, revision number, validated model).
+    revisions: Vec<(DateTime<Utc>, i64, Arc<Plant>)>,
+}
+
+impl Models {
+    pub async fn load(store: &Store, plant: &PlantRow) -> Result<Models, RunError> {
+        let revisions = store
+            .list_revisions(plant)
+            .await?
+            .into_iter()
+            .map(|rev| {
+                let model = Plant::new(rev.spec).map_err(|e| {
+                    StoreError::Corrupt(format!(
+                        "revision {} of plant {} no longer validates: {e}",
+                        rev.revision, plant.name
+                    ))
+                })?;
+                Ok((rev.effective_from, rev.revision, Arc::new(model)))
+            })
+            .collect::<Result<_, StoreError>>()?;
+        Ok(Models {
+            plant: plant.name.clone(),
+            revisions,
+        })
+    }
+
+    /// The model in effect at `t` (see `ingest::in_effect`) and its revision number.
+    pub fn at(&self, t: DateTime<Utc>) -> Result<(Arc<Plant>, i64), RunError> {
+        let keys: Vec<_> = self.revisions.iter().map(|(f, n, _)| (*f, *n)).collect();
+        let i = in_effect(&keys, t).ok_or_else(|| RunError::NoModel(self.plant.clone()))?;
+        let (_, revision, model) = &self.revisions[i];
+        Ok((Arc::clone(model), *revision))
+    }
+}
+
 /// The validated model of the revision in effect at `t`, and its number.
 pub async fn model_at(
     store: &Store,
     plant: &PlantRow,
     t: DateTime<Utc>,
-) -> Result<(Plant, i64), RunError> {
-    let revisions = store.list_revisions(plant).await?;
-    let keys: Vec<_> = revisions
-        .iter()
-        .map(|r| (r.effective_from, r.revision))
-        .collect();
-    let i = in_effect(&keys, t).ok_or_else(|| RunError::NoModel(plant.name.clone()))?;
-    let rev = &revisions[i];
-    let model = Plant::new(rev.spec.clone()).map_err(|e| {
-        StoreError::Corrupt(format!(
-            "revision {} of plant {} no longer validates: {e}",
-            rev.revision, plant.name
-        ))
-    })?;
-    Ok((model, rev.revision))
+) -> Result<(Arc<Plant>, i64), RunError> {
+    Models::load(store, plant).await?.at(t)
 }
 
 /// The period's input: each meter's mean of its good and uncertain readings.
@@ -309,13 +344,20 @@ pub async fn run_due(state: &AppState, schedule: &Schedule) -> Result<usize, Run
         if dirty.is_empty() {
             continue;
         }
-        let Ok((model, _)) = model_at(&state.store, &plant, now).await else {
+        // Revisions are read and validated once per plant and pass, not once per period.
+        let models = match Models::load(&state.store, &plant).await {
+            Ok(models) => models,
+            Err(RunError::Store(e)) => return Err(e.into()),
+            Err(_) => continue,
+        };
+        let Ok((current, _)) = models.at(now) else {
             continue;
         };
-        let period = TimeDelta::seconds(model.period_seconds);
+        let period = TimeDelta::seconds(current.period_seconds);
         for (start, marked_at) in dirty {
             if start + period + grace <= now {
-                due.push((plant.clone(), start, marked_at));
+                let (model, revision) = models.at(start)?;
+                due.push((plant.clone(), start, marked_at, model, revision));
             }
         }
     }
@@ -324,12 +366,12 @@ pub async fn run_due(state: &AppState, schedule: &Schedule) -> Result<usize, Run
     let mut running = tokio::task::JoinSet::new();
     loop {
         while running.len() < schedule.workers.max(1) {
-            let Some((plant, start, marked_at)) = pending.next() else {
+            let Some((plant, start, marked_at, model, revision)) = pending.next() else {
                 break;
             };
             let state = state.clone();
             running.spawn(async move {
-                let outcome = run_period(&state, &plant, start).await;
+                let outcome = run_period_with(&state, &plant, start, model, revision).await;
                 (plant, start, marked_at, outcome)
             });
         }
