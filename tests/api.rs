@@ -34,7 +34,14 @@ fn fresh(extra: &[&str]) -> (tempfile::TempDir, Server, Tokens) {
     (dir, server, tokens)
 }
 
-async fn put_model(c: &Client, s: &Server, tok: &str, plant: &str, body: &str, ctype: &str) -> Response {
+async fn put_model(
+    c: &Client,
+    s: &Server,
+    tok: &str,
+    plant: &str,
+    body: &str,
+    ctype: &str,
+) -> Response {
     c.put(s.url(&format!("/api/v1/plants/{plant}/model")))
         .bearer_auth(tok)
         .header("content-type", ctype)
@@ -107,7 +114,15 @@ fn counts(answer: &Value) -> [u64; 4] {
 async fn a_historians_life() {
     let (_dir, s, t) = fresh(&[]);
     let c = client();
-    let r = put_model(&c, &s, &t.admin, PLANT, &kestrel_model(), "application/toml").await;
+    let r = put_model(
+        &c,
+        &s,
+        &t.admin,
+        PLANT,
+        &kestrel_model(),
+        "application/toml",
+    )
+    .await;
     assert_eq!(r.status(), StatusCode::CREATED);
     let created: Value = r.json().await.expect("JSON");
     assert_eq!(created["revision"], 1);
@@ -118,18 +133,27 @@ async fn a_historians_life() {
     let answer = json_ok(post(&c, &s, &t.ingest, &csv(&day1), "text/csv").await).await;
     assert_eq!(counts(&answer), [264, 0, 0, 0], "{answer}");
     let day2 = day_rows("2026-03-03", 1.01);
-    let answer = json_ok(post(&c, &s, &t.ingest, &json_batch(&day2), "application/json").await).await;
+    let answer =
+        json_ok(post(&c, &s, &t.ingest, &json_batch(&day2), "application/json").await).await;
     assert_eq!(counts(&answer), [264, 0, 0, 0], "{answer}");
 
     // The same batch again changes nothing.
-    let answer = json_ok(post(&c, &s, &t.ingest, &csv(&day1), "text/csv; charset=utf-8").await).await;
+    let answer =
+        json_ok(post(&c, &s, &t.ingest, &csv(&day1), "text/csv; charset=utf-8").await).await;
     assert_eq!(counts(&answer), [0, 0, 264, 0], "{answer}");
 
     // A correction replaces one value; the rest of the day is untouched.
     let correction = "tag,time,value\nKP2-FI-101,2026-03-02T05:00:00+00:00,20999.5\n";
     let answer = json_ok(post(&c, &s, &t.ingest, correction, "text/csv").await).await;
     assert_eq!(counts(&answer), [0, 1, 0, 0], "{answer}");
-    let stored = readings(&c, &s, &t.read, "2026-03-02T00:00:00Z", "2026-03-03T00:00:00Z").await;
+    let stored = readings(
+        &c,
+        &s,
+        &t.read,
+        "2026-03-02T00:00:00Z",
+        "2026-03-03T00:00:00Z",
+    )
+    .await;
     assert_eq!(stored.len(), 264);
     let corrected: Vec<&Value> = stored
         .iter()
@@ -154,14 +178,20 @@ KP2-FI-501,2026-03-04T00:00:00Z,4300,bad
 ";
     let answer = json_ok(post(&c, &s, &t.ingest, mixed, "text/csv").await).await;
     assert_eq!(counts(&answer), [4, 0, 0, 6], "{answer}");
-    assert_eq!(answer["out_of_range"], 1, "KP2-FI-401 has range 0-200 kmol/h");
+    assert_eq!(
+        answer["out_of_range"], 1,
+        "KP2-FI-401 has range 0-200 kmol/h"
+    );
     assert_eq!(answer["bad_quality"], 1);
     let expected = [
         (3, "unknown tag \"KP2-XX-999\""),
         (4, "time \"2026-03-04 noon\" is not RFC 3339"),
         (5, "not a finite number"),
         (6, "value is empty"),
-        (7, "quality \"excellent\" is not one of good, uncertain, bad"),
+        (
+            7,
+            "quality \"excellent\" is not one of good, uncertain, bad",
+        ),
         (8, "repeats the tag and time of line 2"),
     ];
     let rejections = answer["rejections"].as_array().expect("rejections");
@@ -175,9 +205,19 @@ KP2-FI-501,2026-03-04T00:00:00Z,4300,bad
             .map(|x| x.as_str().expect("text"))
             .collect();
         let reasons = reasons.join("; ");
-        assert!(reasons.contains(reason), "line {line}: {reasons} lacks {reason}");
+        assert!(
+            reasons.contains(reason),
+            "line {line}: {reasons} lacks {reason}"
+        );
     }
-    let day3 = readings(&c, &s, &t.read, "2026-03-04T00:00:00Z", "2026-03-05T00:00:00Z").await;
+    let day3 = readings(
+        &c,
+        &s,
+        &t.read,
+        "2026-03-04T00:00:00Z",
+        "2026-03-05T00:00:00Z",
+    )
+    .await;
     let tags: BTreeSet<&str> = day3.iter().map(|r| r["tag"].as_str().unwrap()).collect();
     assert_eq!(
         tags,
@@ -209,14 +249,24 @@ KP2-FI-501,2026-03-04T00:00:00Z,4300,bad
     assert_eq!(indices, [1, 2, 3]);
 
     // The counters follow: 264 + 264 + 4 + 1 new, 1 replaced, 264 unchanged, 9 rejected.
-    let metrics = c.get(s.url("/metrics")).send().await.unwrap().text().await.unwrap();
+    let metrics = c
+        .get(s.url("/metrics"))
+        .send()
+        .await
+        .unwrap()
+        .text()
+        .await
+        .unwrap();
     for line in [
         "loopbal_readings_accepted_total 533",
         "loopbal_readings_replaced_total 1",
         "loopbal_readings_unchanged_total 264",
         "loopbal_readings_rejected_total 9",
     ] {
-        assert!(metrics.lines().any(|l| l == line), "missing {line} in\n{metrics}");
+        assert!(
+            metrics.lines().any(|l| l == line),
+            "missing {line} in\n{metrics}"
+        );
     }
 }
 
@@ -261,7 +311,13 @@ async fn an_invalid_model_is_refused_with_every_problem_and_nothing_is_stored() 
     let errors = body["errors"].as_array().expect("errors listed");
     let items: Vec<String> = errors
         .iter()
-        .map(|e| format!("{}: {}", e["item"].as_str().unwrap(), e["message"].as_str().unwrap()))
+        .map(|e| {
+            format!(
+                "{}: {}",
+                e["item"].as_str().unwrap(),
+                e["message"].as_str().unwrap()
+            )
+        })
         .collect();
     for needle in ["nowhere", "T-2", "tee"] {
         assert!(
@@ -272,7 +328,15 @@ async fn an_invalid_model_is_refused_with_every_problem_and_nothing_is_stored() 
     assert!(errors.len() >= 3, "{items:?}");
 
     // Not TOML at all: the syntax error is reported with its position.
-    let r = put_model(&c, &s, &t.admin, PLANT, "name = \n[[unit", "application/toml").await;
+    let r = put_model(
+        &c,
+        &s,
+        &t.admin,
+        PLANT,
+        "name = \n[[unit",
+        "application/toml",
+    )
+    .await;
     let body = problem(r, StatusCode::UNPROCESSABLE_ENTITY).await;
     assert!(body["detail"].as_str().unwrap().contains("TOML"), "{body}");
 
@@ -286,7 +350,15 @@ async fn an_invalid_model_is_refused_with_every_problem_and_nothing_is_stored() 
     problem(r, StatusCode::UNSUPPORTED_MEDIA_TYPE).await;
 
     // A model sent to a plant of another name.
-    let r = put_model(&c, &s, &t.admin, "kestrel-kp3", &kestrel_model(), "application/toml").await;
+    let r = put_model(
+        &c,
+        &s,
+        &t.admin,
+        "kestrel-kp3",
+        &kestrel_model(),
+        "application/toml",
+    )
+    .await;
     let body = problem(r, StatusCode::UNPROCESSABLE_ENTITY).await;
     assert_eq!(body["errors"][0]["item"], "name");
 
@@ -312,7 +384,9 @@ async fn a_new_revision_leaves_stored_readings_alone() {
             .body(body)
             .send()
     };
-    let r = put_from(kestrel_model(), "2026-03-01T00:00:00Z").await.unwrap();
+    let r = put_from(kestrel_model(), "2026-03-01T00:00:00Z")
+        .await
+        .unwrap();
     assert_eq!(r.status(), StatusCode::CREATED);
     let day = day_rows("2026-03-02", 1.0);
     json_ok(post(&c, &s, &t.ingest, &csv(&day), "text/csv").await).await;
@@ -324,13 +398,20 @@ async fn a_new_revision_leaves_stored_readings_alone() {
         .replace("range = [0.0, 200.0]", "range = [0.0, 10.0]")
         .replace("sigma = 40.0", "sigma = 35.0");
     assert_ne!(revised, kestrel_model());
-    let r = put_from(revised.clone(), "2026-03-02T12:00:00Z").await.unwrap();
+    let r = put_from(revised.clone(), "2026-03-02T12:00:00Z")
+        .await
+        .unwrap();
     assert_eq!(r.status(), StatusCode::CREATED);
     let after = readings(&c, &s, &t.read, from, to).await;
-    assert_eq!(before, after, "stored readings are not re-judged by a new revision");
+    assert_eq!(
+        before, after,
+        "stored readings are not re-judged by a new revision"
+    );
 
     // Revision 3 takes effect in the future: revision 2 stays the one in effect.
-    let r = put_from(kestrel_model(), "2099-01-01T00:00:00Z").await.unwrap();
+    let r = put_from(kestrel_model(), "2099-01-01T00:00:00Z")
+        .await
+        .unwrap();
     assert_eq!(r.status(), StatusCode::CREATED);
     let current = json_ok(
         c.get(s.url(&format!("/api/v1/plants/{PLANT}/model")))
@@ -362,16 +443,27 @@ async fn a_new_revision_leaves_stored_readings_alone() {
 
     // A new reading is judged by the range of the revision in effect at its time: revision 2
     // from noon of the 2nd, revision 1 before it.
-    let late = "tag,time,value\nKP2-FI-401,2026-03-03T00:00:00Z,48\nKP2-FI-401,2026-03-01T00:00:00Z,48\n";
+    let late =
+        "tag,time,value\nKP2-FI-401,2026-03-03T00:00:00Z,48\nKP2-FI-401,2026-03-01T00:00:00Z,48\n";
     let answer = json_ok(post(&c, &s, &t.ingest, late, "text/csv").await).await;
     assert_eq!(answer["out_of_range"], 1, "{answer}");
-    let flags: Vec<(String, bool)> =
-        readings(&c, &s, &t.read, "2026-03-01T00:00:00Z", "2026-03-04T00:00:00Z")
-            .await
-            .iter()
-            .filter(|r| r["tag"] == "KP2-FI-401" && !r["time"].as_str().unwrap().starts_with("2026-03-02"))
-            .map(|r| (r["time"].as_str().unwrap().to_string(), r["out_of_range"].as_bool().unwrap()))
-            .collect();
+    let flags: Vec<(String, bool)> = readings(
+        &c,
+        &s,
+        &t.read,
+        "2026-03-01T00:00:00Z",
+        "2026-03-04T00:00:00Z",
+    )
+    .await
+    .iter()
+    .filter(|r| r["tag"] == "KP2-FI-401" && !r["time"].as_str().unwrap().starts_with("2026-03-02"))
+    .map(|r| {
+        (
+            r["time"].as_str().unwrap().to_string(),
+            r["out_of_range"].as_bool().unwrap(),
+        )
+    })
+    .collect();
     assert_eq!(
         flags,
         [
@@ -390,12 +482,20 @@ const SECURED: [(&str, &str, &str); 13] = [
     ("get", "/api/v1/plants/{plant}/readings", "read"),
     ("get", "/api/v1/plants/{plant}/periods", "read"),
     ("get", "/api/v1/plants/{plant}/periods/{start}", "read"),
-    ("post", "/api/v1/plants/{plant}/periods/{start}/reconcile", "admin"),
+    (
+        "post",
+        "/api/v1/plants/{plant}/periods/{start}/reconcile",
+        "admin",
+    ),
     ("get", "/api/v1/plants/{plant}/figures", "read"),
     ("get", "/api/v1/plants/{plant}/balances", "read"),
     ("get", "/api/v1/plants/{plant}/meters", "read"),
     ("get", "/api/v1/plants/{plant}/meters/{tag}", "read"),
-    ("post", "/api/v1/plants/{plant}/meters/{tag}/notes", "maintain"),
+    (
+        "post",
+        "/api/v1/plants/{plant}/meters/{tag}/notes",
+        "maintain",
+    ),
 ];
 const OPEN: [(&str, &str); 3] = [
     ("get", "/healthz"),
@@ -403,9 +503,19 @@ const OPEN: [(&str, &str); 3] = [
     ("get", "/api/v1/openapi.json"),
 ];
 
-fn request(c: &Client, s: &Server, method: &str, path: &str, plant: &str) -> reqwest::RequestBuilder {
-    let url = s.url(&path.replace("{plant}", plant).replace("{start}", "2026-03-02T05:00:00Z")
-        .replace("{tag}", "KP2-FI-101"));
+fn request(
+    c: &Client,
+    s: &Server,
+    method: &str,
+    path: &str,
+    plant: &str,
+) -> reqwest::RequestBuilder {
+    let url = s.url(
+        &path
+            .replace("{plant}", plant)
+            .replace("{start}", "2026-03-02T05:00:00Z")
+            .replace("{tag}", "KP2-FI-101"),
+    );
     match method {
         "get" => c.get(url),
         "put" => c.put(url),
@@ -423,7 +533,11 @@ async fn every_endpoint_needs_a_suitable_token_and_the_openapi_document_lists_ev
 
     // The document parses as OpenAPI 3 and lists exactly the routes served.
     let doc = json_ok(c.get(s.url("/api/v1/openapi.json")).send().await.unwrap()).await;
-    assert!(doc["openapi"].as_str().unwrap().starts_with("3."), "{}", doc["openapi"]);
+    assert!(
+        doc["openapi"].as_str().unwrap().starts_with("3."),
+        "{}",
+        doc["openapi"]
+    );
     let mut documented = BTreeSet::new();
     for (path, item) in doc["paths"].as_object().expect("paths") {
         for method in ["get", "put", "post", "delete", "patch"] {
@@ -436,13 +550,20 @@ async fn every_endpoint_needs_a_suitable_token_and_the_openapi_document_lists_ev
     let expected: BTreeSet<(String, String, bool)> = SECURED
         .iter()
         .map(|(m, p, _)| (m.to_string(), p.to_string(), true))
-        .chain(OPEN.iter().map(|(m, p)| (m.to_string(), p.to_string(), false)))
+        .chain(
+            OPEN.iter()
+                .map(|(m, p)| (m.to_string(), p.to_string(), false)),
+        )
         .collect();
     assert_eq!(documented, expected);
 
     for (method, path) in OPEN {
         let r = request(&c, &s, method, path, PLANT).send().await.unwrap();
-        assert_eq!(r.status(), StatusCode::OK, "{method} {path} without a token");
+        assert_eq!(
+            r.status(),
+            StatusCode::OK,
+            "{method} {path} without a token"
+        );
     }
     let roles = [
         ("admin", &t.admin),
@@ -459,7 +580,10 @@ async fn every_endpoint_needs_a_suitable_token_and_the_openapi_document_lists_ev
                 req = req.header("authorization", a);
             }
             let r = req.send().await.unwrap();
-            assert!(r.headers().contains_key("www-authenticate"), "{method} {path}");
+            assert!(
+                r.headers().contains_key("www-authenticate"),
+                "{method} {path}"
+            );
             problem(r, StatusCode::UNAUTHORIZED).await;
         }
         // Every role but the one needed (and admin): 403.
@@ -467,7 +591,11 @@ async fn every_endpoint_needs_a_suitable_token_and_the_openapi_document_lists_ev
             if name == role || name == "admin" {
                 continue;
             }
-            let r = request(&c, &s, method, path, PLANT).bearer_auth(tok).send().await.unwrap();
+            let r = request(&c, &s, method, path, PLANT)
+                .bearer_auth(tok)
+                .send()
+                .await
+                .unwrap();
             let body = problem(r, StatusCode::FORBIDDEN).await;
             assert!(body["detail"].as_str().unwrap().contains(role), "{body}");
         }
@@ -485,9 +613,27 @@ async fn every_endpoint_needs_a_suitable_token_and_the_openapi_document_lists_ev
 async fn acknowledged_data_survives_a_restart_and_shutdown_finishes_requests_in_flight() {
     let (_dir, s, t) = fresh(&[]);
     let c = client();
-    let r = put_model(&c, &s, &t.admin, PLANT, &kestrel_model(), "application/toml").await;
+    let r = put_model(
+        &c,
+        &s,
+        &t.admin,
+        PLANT,
+        &kestrel_model(),
+        "application/toml",
+    )
+    .await;
     assert_eq!(r.status(), StatusCode::CREATED);
-    json_ok(post(&c, &s, &t.ingest, &csv(&day_rows("2026-03-02", 1.0)), "text/csv").await).await;
+    json_ok(
+        post(
+            &c,
+            &s,
+            &t.ingest,
+            &csv(&day_rows("2026-03-02", 1.0)),
+            "text/csv",
+        )
+        .await,
+    )
+    .await;
     let (from, to) = ("2026-03-01T00:00:00Z", "2026-04-01T00:00:00Z");
     let before = readings(&c, &s, &t.read, from, to).await;
     assert_eq!(before.len(), 264);
@@ -542,7 +688,15 @@ async fn bad_requests_get_problem_details_and_change_nothing() {
     // Readings for a plant that does not exist yet.
     let r = post(&c, &s, &t.ingest, "tag,time,value\n", "text/csv").await;
     problem(r, StatusCode::NOT_FOUND).await;
-    let r = put_model(&c, &s, &t.admin, PLANT, &kestrel_model(), "application/toml").await;
+    let r = put_model(
+        &c,
+        &s,
+        &t.admin,
+        PLANT,
+        &kestrel_model(),
+        "application/toml",
+    )
+    .await;
     assert_eq!(r.status(), StatusCode::CREATED);
 
     let big = csv(&day_rows("2026-03-02", 1.0));
@@ -560,7 +714,11 @@ async fn bad_requests_get_problem_details_and_change_nothing() {
     let r = post(&c, &s, &t.ingest, "", "text/csv").await;
     problem(r, StatusCode::BAD_REQUEST).await;
     let r = post(&c, &s, &t.ingest, "tag,time,value\n\u{0}\u{ff}", "text/csv").await;
-    assert!(r.status().is_client_error() || r.status() == StatusCode::OK, "{}", r.status());
+    assert!(
+        r.status().is_client_error() || r.status() == StatusCode::OK,
+        "{}",
+        r.status()
+    );
 
     let r = c
         .get(s.url(&format!("/api/v1/plants/{PLANT}/readings")))
@@ -579,7 +737,11 @@ async fn bad_requests_get_problem_details_and_change_nothing() {
     problem(r, StatusCode::BAD_REQUEST).await;
     let r = c.get(s.url("/api/v1/nothing")).send().await.unwrap();
     problem(r, StatusCode::NOT_FOUND).await;
-    let r = c.delete(s.url(&format!("/api/v1/plants/{PLANT}/model"))).send().await.unwrap();
+    let r = c
+        .delete(s.url(&format!("/api/v1/plants/{PLANT}/model")))
+        .send()
+        .await
+        .unwrap();
     problem(r, StatusCode::METHOD_NOT_ALLOWED).await;
     let r = c
         .put(s.url("/api/v1/plants/..%2Fetc/model"))
@@ -592,7 +754,14 @@ async fn bad_requests_get_problem_details_and_change_nothing() {
     assert!(r.status().is_client_error(), "{}", r.status());
 
     // Nothing of the above was stored.
-    let stored = readings(&c, &s, &t.read, "1970-01-01T00:00:00Z", "9999-01-01T00:00:00Z").await;
+    let stored = readings(
+        &c,
+        &s,
+        &t.read,
+        "1970-01-01T00:00:00Z",
+        "9999-01-01T00:00:00Z",
+    )
+    .await;
     assert!(stored.is_empty(), "{stored:?}");
     let health = c.get(s.url("/healthz")).send().await.unwrap();
     assert_eq!(health.status(), StatusCode::OK);
@@ -614,7 +783,10 @@ async fn the_log_has_requests_but_no_token_and_no_reading_value() {
     assert_eq!(r.status(), StatusCode::UNAUTHORIZED);
     let s_log = s.stop_and_log();
     assert!(s_log.contains("/api/v1/plants/{plant}/readings"), "{s_log}");
-    assert!(s_log.contains("kestrel-kp2"), "the plant is in the request span");
+    assert!(
+        s_log.contains("kestrel-kp2"),
+        "the plant is in the request span"
+    );
     assert!(!s_log.contains(&admin[3..]), "a token is in the log");
     assert!(!s_log.contains("4242"), "a presented token is in the log");
     assert!(!s_log.contains("20417.12"), "a reading value is in the log");
@@ -653,8 +825,15 @@ fn purge_design_csv(hours: usize, skip: &dyn Fn(&str, usize) -> bool) -> (String
 }
 
 /// Poll the period listing until `done` holds for it (at most 60 s).
-async fn wait_for_periods(c: &Client, s: &Server, tok: &str, plant: &str, from: &str, to: &str,
-                          done: impl Fn(&[Value]) -> bool) -> Vec<Value> {
+async fn wait_for_periods(
+    c: &Client,
+    s: &Server,
+    tok: &str,
+    plant: &str,
+    from: &str,
+    to: &str,
+    done: impl Fn(&[Value]) -> bool,
+) -> Vec<Value> {
     let deadline = std::time::Instant::now() + Duration::from_secs(60);
     loop {
         let r = c
@@ -669,7 +848,10 @@ async fn wait_for_periods(c: &Client, s: &Server, tok: &str, plant: &str, from: 
         if done(&periods) {
             return periods;
         }
-        assert!(std::time::Instant::now() < deadline, "periods never settled: {periods:?}");
+        assert!(
+            std::time::Instant::now() < deadline,
+            "periods never settled: {periods:?}"
+        );
         tokio::time::sleep(Duration::from_millis(200)).await;
     }
 }
@@ -696,7 +878,9 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
 
     let (from, to) = ("2026-05-31T23:00:00Z", "2026-06-01T05:00:00Z");
     let periods = wait_for_periods(&c, &s, &t.read, plant, from, to, |p| {
-        p[1..5].iter().all(|x| x["runs"] == 1 && x["rerun_due"] == false)
+        p[1..5]
+            .iter()
+            .all(|x| x["runs"] == 1 && x["rerun_due"] == false)
     })
     .await;
     assert_eq!(periods.len(), 6);
@@ -715,10 +899,18 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
     let hour0 = json_ok(get("2026-06-01T00:00:00Z").await.unwrap()).await;
     assert_eq!(hour0["report"]["status"], "solved");
     assert_eq!(hour0["report"]["plant"], plant);
-    assert!(hour0["report"]["caution"].as_str().unwrap().contains("procedures"));
+    assert!(hour0["report"]["caution"]
+        .as_str()
+        .unwrap()
+        .contains("procedures"));
     assert_eq!(hour0["inputs"]["meters"].as_array().unwrap().len(), 9);
     let hour3 = json_ok(get("2026-06-01T03:00:00Z").await.unwrap()).await;
-    assert_eq!(hour3["inputs"]["missing"], json!(["FI-4"]), "{}", hour3["inputs"]);
+    assert_eq!(
+        hour3["inputs"]["missing"],
+        json!(["FI-4"]),
+        "{}",
+        hour3["inputs"]
+    );
     let fi4 = hour3["report"]["meters"]
         .as_array()
         .unwrap()
@@ -746,7 +938,10 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
     // Exactly one new run, of that period only, even after the worker has looked again.
     tokio::time::sleep(Duration::from_millis(2500)).await;
     let periods = wait_for_periods(&c, &s, &t.read, plant, from, to, |_| true).await;
-    let runs: Vec<i64> = periods.iter().map(|p| p["runs"].as_i64().unwrap()).collect();
+    let runs: Vec<i64> = periods
+        .iter()
+        .map(|p| p["runs"].as_i64().unwrap())
+        .collect();
     assert_eq!(runs, [0, 1, 2, 1, 1, 0]);
     let hour1 = json_ok(get("2026-06-01T01:00:00Z").await.unwrap()).await;
     assert_eq!(hour1["runs"], 2);
@@ -763,7 +958,12 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
             .as_f64()
             .unwrap()
     };
-    assert!(purge(&hour1) > purge(&before), "{} vs {}", purge(&hour1), purge(&before));
+    assert!(
+        purge(&hour1) > purge(&before),
+        "{} vs {}",
+        purge(&hour1),
+        purge(&before)
+    );
     let fi4 = hour1["report"]["meters"]
         .as_array()
         .unwrap()
@@ -774,7 +974,9 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
 
     // An administrator runs hour 0 again on demand.
     let r = c
-        .post(s.url(&format!("/api/v1/plants/{plant}/periods/2026-06-01T00:00:00Z/reconcile")))
+        .post(s.url(&format!(
+            "/api/v1/plants/{plant}/periods/2026-06-01T00:00:00Z/reconcile"
+        )))
         .bearer_auth(&t.admin)
         .send()
         .await
@@ -786,11 +988,24 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
     // Not a period start, and a period never run.
     let r = get("2026-06-01T00:30:00Z").await.unwrap();
     let body = problem(r, StatusCode::BAD_REQUEST).await;
-    assert!(body["detail"].as_str().unwrap().contains("2026-06-01T00:00:00Z"), "{body}");
+    assert!(
+        body["detail"]
+            .as_str()
+            .unwrap()
+            .contains("2026-06-01T00:00:00Z"),
+        "{body}"
+    );
     let r = get("2026-06-02T00:00:00Z").await.unwrap();
     problem(r, StatusCode::NOT_FOUND).await;
 
-    let metrics = c.get(s.url("/metrics")).send().await.unwrap().text().await.unwrap();
+    let metrics = c
+        .get(s.url("/metrics"))
+        .send()
+        .await
+        .unwrap()
+        .text()
+        .await
+        .unwrap();
     let solved: u64 = metrics
         .lines()
         .find_map(|l| l.strip_prefix("loopbal_runs_total{status=\"solved\"} "))

@@ -14,7 +14,13 @@ fn demo(extra: &[&str]) -> std::process::Output {
     let dir = tempfile::tempdir().unwrap();
     let db = dir.path().join("demo.sqlite");
     Command::new(BIN)
-        .args(["demo", "--no-serve", "--listen", "127.0.0.1:0", "--database"])
+        .args([
+            "demo",
+            "--no-serve",
+            "--listen",
+            "127.0.0.1:0",
+            "--database",
+        ])
         .arg(&db)
         .args(extra)
         .output()
@@ -44,13 +50,21 @@ fn true_figures() -> Vec<Value> {
             .collect(),
     };
     let report = reconcile::reconcile_period(&plant, &input);
-    serde_json::to_value(&report.figures).unwrap().as_array().unwrap().clone()
+    serde_json::to_value(&report.figures)
+        .unwrap()
+        .as_array()
+        .unwrap()
+        .clone()
 }
 
 #[test]
 fn the_demo_finds_the_biased_meter_watches_the_drifting_one_and_blames_no_other() {
     let out = demo(&["--json"]);
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let s: Value = serde_json::from_slice(&out.stdout).expect("JSON summary");
     assert_eq!(s["plant"], scenario::PLANT_NAME);
     assert_eq!(s["periods"], 96);
@@ -67,9 +81,19 @@ fn the_demo_finds_the_biased_meter_watches_the_drifting_one_and_blames_no_other(
             .unwrap_or_else(|| "ok".into())
     };
     assert_eq!(status(scenario::BIASED), "suspect", "{meters:#?}");
-    let biased = meters.iter().find(|m| m["tag"] == scenario::BIASED).unwrap();
-    let (b, sb) = (biased["bias"].as_f64().unwrap(), biased["bias_sigma"].as_f64().unwrap());
-    assert!((b - scenario::BIAS).abs() <= 3.0 * sb, "bias {b} ± {sb}, true {}", scenario::BIAS);
+    let biased = meters
+        .iter()
+        .find(|m| m["tag"] == scenario::BIASED)
+        .unwrap();
+    let (b, sb) = (
+        biased["bias"].as_f64().unwrap(),
+        biased["bias_sigma"].as_f64().unwrap(),
+    );
+    assert!(
+        (b - scenario::BIAS).abs() <= 3.0 * sb,
+        "bias {b} ± {sb}, true {}",
+        scenario::BIAS
+    );
     let drifting = status(scenario::DRIFTING);
     assert!(drifting == "watch" || drifting == "suspect", "{drifting}");
     for m in meters {
@@ -84,7 +108,9 @@ fn the_demo_finds_the_biased_meter_watches_the_drifting_one_and_blames_no_other(
     let figures = s["figures"].as_array().unwrap();
     assert!(figures.len() >= 10, "{figures:?}");
     for f in figures {
-        let Some(value) = f["value"].as_f64() else { continue };
+        let Some(value) = f["value"].as_f64() else {
+            continue;
+        };
         let sigma = f["sigma"].as_f64().unwrap();
         let t = truth
             .iter()
@@ -103,7 +129,11 @@ fn the_demo_finds_the_biased_meter_watches_the_drifting_one_and_blames_no_other(
 #[test]
 fn the_text_summary_reads_as_a_report_and_refuses_an_existing_database() {
     let out = demo(&["--days", "2"]);
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let text = String::from_utf8(out.stdout).unwrap();
     for needle in [
         "Meters to look at",
@@ -119,11 +149,21 @@ fn the_text_summary_reads_as_a_report_and_refuses_an_existing_database() {
     let db = dir.path().join("taken.sqlite");
     std::fs::write(&db, b"not a demo").unwrap();
     let out = Command::new(BIN)
-        .args(["demo", "--no-serve", "--listen", "127.0.0.1:0", "--database"])
+        .args([
+            "demo",
+            "--no-serve",
+            "--listen",
+            "127.0.0.1:0",
+            "--database",
+        ])
         .arg(&db)
         .output()
         .unwrap();
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("taken.sqlite"));
-    assert_eq!(std::fs::read(&db).unwrap(), b"not a demo", "the file is left alone");
+    assert_eq!(
+        std::fs::read(&db).unwrap(),
+        b"not a demo",
+        "the file is left alone"
+    );
 }

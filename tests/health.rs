@@ -82,7 +82,10 @@ impl Service {
             read: token(&db, "read", None),
             maintain: token(&db, "maintain", None),
             server: Server::start(&db, &["--run-grace", "0", "--run-tick", "1"]),
-            client: Client::builder().timeout(Duration::from_secs(60)).build().unwrap(),
+            client: Client::builder()
+                .timeout(Duration::from_secs(60))
+                .build()
+                .unwrap(),
             _dir: dir,
         };
         let r = s
@@ -199,7 +202,9 @@ async fn a_small_bias_turns_its_meter_suspect_within_two_days_and_no_other() {
         "suspect from hour {first_suspect}, the bias from hour {BIAS_FROM_HOUR}"
     );
     assert!(
-        history[..BIAS_FROM_HOUR].iter().all(|p| p["level"] != "suspect"),
+        history[..BIAS_FROM_HOUR]
+            .iter()
+            .all(|p| p["level"] != "suspect"),
         "suspect before the bias"
     );
 
@@ -207,7 +212,10 @@ async fn a_small_bias_turns_its_meter_suspect_within_two_days_and_no_other() {
     let biased = meter(&list, BIASED);
     assert_eq!(biased["status"], "suspect", "{biased}");
     assert_eq!(list["meters"][0]["tag"], BIASED, "the suspect ranks first");
-    let (b, sb) = (biased["bias"].as_f64().unwrap(), biased["bias_sigma"].as_f64().unwrap());
+    let (b, sb) = (
+        biased["bias"].as_f64().unwrap(),
+        biased["bias_sigma"].as_f64().unwrap(),
+    );
     assert!(
         (b - bias).abs() <= 2.0 * sb,
         "pooled bias {b} ± {sb} mol/s, true {bias}"
@@ -238,7 +246,10 @@ async fn a_small_bias_turns_its_meter_suspect_within_two_days_and_no_other() {
     // The readings role may not write notes.
     let r = s
         .client
-        .post(s.server.url(&format!("/api/v1/plants/{PLANT}/meters/{BIASED}/notes")))
+        .post(
+            s.server
+                .url(&format!("/api/v1/plants/{PLANT}/meters/{BIASED}/notes")),
+        )
         .bearer_auth(&s.read)
         .json(&json!({"kind": "checked"}))
         .send()
@@ -251,7 +262,10 @@ async fn a_small_bias_turns_its_meter_suspect_within_two_days_and_no_other() {
     assert_eq!(detail["history"].as_array().unwrap().len(), 24);
     assert_eq!(detail["status"], "ok", "{}", detail["reason"]);
     assert_eq!(detail["notes"][0]["kind"], "recalibrated");
-    assert_eq!(detail["history_since"], end.to_rfc3339().replace("+00:00", "Z"));
+    assert_eq!(
+        detail["history_since"],
+        end.to_rfc3339().replace("+00:00", "Z")
+    );
 }
 
 #[tokio::test]
@@ -280,9 +294,24 @@ async fn frozen_out_of_range_and_missing_meters_are_reported_as_such() {
     assert_eq!(answer["out_of_range"], 1, "FI-3 has a range: {answer}");
     s.wait_until_run(12).await;
     let list = s.get("/meters").await;
-    assert_eq!(meter(&list, "FI-5")["status"], "frozen", "{}", meter(&list, "FI-5"));
-    assert_eq!(meter(&list, "AI-4")["status"], "missing", "{}", meter(&list, "AI-4"));
-    assert_eq!(meter(&list, "FI-3")["status"], "out_of_range", "{}", meter(&list, "FI-3"));
+    assert_eq!(
+        meter(&list, "FI-5")["status"],
+        "frozen",
+        "{}",
+        meter(&list, "FI-5")
+    );
+    assert_eq!(
+        meter(&list, "AI-4")["status"],
+        "missing",
+        "{}",
+        meter(&list, "AI-4")
+    );
+    assert_eq!(
+        meter(&list, "FI-3")["status"],
+        "out_of_range",
+        "{}",
+        meter(&list, "FI-3")
+    );
     // The hour without AI-4 was still reconciled.
     let hour = s.get("/periods/2026-06-01T11:00:00Z").await;
     assert_ne!(hour["report"]["status"], "no_data");

@@ -401,14 +401,13 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
     // (Dense only: a large network on a bound keeps the free classification for its tests
     // rather than a dense one of thousands of states.)
     let fixed;
-    let t: &Classification = if layout.n < crate::classify::SPARSE_THRESHOLD
-        && sol.at_bound.iter().any(|&b| b)
-    {
-        fixed = classify(plant, layout, &est.measured, z, &sol.at_bound);
-        &fixed
-    } else {
-        c
-    };
+    let t: &Classification =
+        if layout.n < crate::classify::SPARSE_THRESHOLD && sol.at_bound.iter().any(|&b| b) {
+            fixed = classify(plant, layout, &est.measured, z, &sol.at_bound);
+            &fixed
+        } else {
+            c
+        };
     report.iterations = sol.iterations;
     report.objective = Some(sol.objective);
     report.redundancy = t.redundancy;
@@ -598,8 +597,7 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
     }
 
     if sol.status == SolveStatus::Converged {
-        let identified =
-            crate::faults::identify_at(plant, &est.layout, &est.measured, &sol.z, t);
+        let identified = crate::faults::identify_at(plant, &est.layout, &est.measured, &sol.z, t);
         for entry in report.meters.iter_mut() {
             entry.suspect = identified.suspect_tags.contains(&entry.tag);
         }

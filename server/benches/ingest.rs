@@ -29,7 +29,10 @@ const QUICK_BATCHES: usize = 3;
 /// The first pass (new readings) stops early after this long; later passes use its count.
 const TIME_LIMIT: Duration = Duration::from_secs(60);
 const TARGET: f64 = 100_000.0;
-const MODEL_PATH: &str = concat!(env!("CARGO_MANIFEST_DIR"), "/../tests/data/fenwick-methanol.toml");
+const MODEL_PATH: &str = concat!(
+    env!("CARGO_MANIFEST_DIR"),
+    "/../tests/data/fenwick-methanol.toml"
+);
 
 /// A meter of the model and where its readings sit.
 struct Meter {
@@ -74,7 +77,13 @@ impl Noise {
 /// `count` readings from the `first`-th on: reading i is meter i mod m at hour i / m, so a
 /// batch covers consecutive hours of every meter. Values are rounded to 4 significant
 /// decimals as a historian would send them; `shift` makes a changed resend.
-fn readings(meters: &[Meter], start: DateTime<Utc>, first: usize, count: usize, shift: f64) -> Vec<Reading> {
+fn readings(
+    meters: &[Meter],
+    start: DateTime<Utc>,
+    first: usize,
+    count: usize,
+    shift: f64,
+) -> Vec<Reading> {
     let mut noise = Noise(first as u64);
     (first..first + count)
         .map(|i| {
@@ -148,7 +157,10 @@ impl Client {
             .expect("POST readings");
         let status = res.status();
         let text = res.text().await.expect("answer body");
-        assert!(status.is_success(), "POST readings answered {status}: {text}");
+        assert!(
+            status.is_success(),
+            "POST readings answered {status}: {text}"
+        );
         serde_json::from_str(&text).expect("answer is an IngestAnswer")
     }
 }
@@ -274,7 +286,11 @@ fn machine() -> Vec<String> {
     let load = std::fs::read_to_string("/proc/loadavg")
         .map(|s| s.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
         .unwrap_or_else(|_| "unknown".into());
-    let profile = if cfg!(debug_assertions) { "debug (not optimised!)" } else { "optimised (bench/release)" };
+    let profile = if cfg!(debug_assertions) {
+        "debug (not optimised!)"
+    } else {
+        "optimised (bench/release)"
+    };
     vec![
         format!("cpu: {cpu}, {cores} cores available"),
         format!("load average before: {load}"),
@@ -283,7 +299,10 @@ fn machine() -> Vec<String> {
 }
 
 fn batches_wanted() -> usize {
-    if let Some(n) = std::env::var("LOOPBAL_BENCH_BATCHES").ok().and_then(|s| s.parse().ok()) {
+    if let Some(n) = std::env::var("LOOPBAL_BENCH_BATCHES")
+        .ok()
+        .and_then(|s| s.parse().ok())
+    {
         return std::cmp::max(n, 1);
     }
     if std::env::var_os("LOOPBAL_BENCH_QUICK").is_some() {
@@ -326,9 +345,14 @@ async fn run() {
     // The service, in-process on an ephemeral loopback port.
     let db = dir.path().join("http.db").to_string_lossy().into_owned();
     let store = Store::open(&db).await.expect("open store");
-    let token = store.create_token(Role::Admin, None).await.expect("admin token");
+    let token = store
+        .create_token(Role::Admin, None)
+        .await
+        .expect("admin token");
     let (app, _) = router(AppState::new(store.clone(), Limits::default()));
-    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0")
+        .await
+        .expect("bind");
     let addr = listener.local_addr().expect("local address");
     let server = tokio::spawn(async move {
         axum::serve(listener, app).await.expect("serve");
@@ -342,7 +366,11 @@ async fn run() {
         .send()
         .await
         .expect("PUT model");
-    assert!(res.status().is_success(), "PUT model answered {}", res.status());
+    assert!(
+        res.status().is_success(),
+        "PUT model answered {}",
+        res.status()
+    );
     let client = Client {
         http,
         url: format!("http://{addr}/api/v1/plants/{plant_name}/readings"),
@@ -350,16 +378,51 @@ async fn run() {
     };
 
     let mut figures = Vec::new();
-    let first = post_all(&client, &new_csv, (BATCH, 0, 0), Some(TIME_LIMIT), "HTTP, new", "POST text/csv, every reading new").await;
+    let first = post_all(
+        &client,
+        &new_csv,
+        (BATCH, 0, 0),
+        Some(TIME_LIMIT),
+        "HTTP, new",
+        "POST text/csv, every reading new",
+    )
+    .await;
     let done = first.rows / BATCH;
     figures.push(first);
-    figures.push(post_all(&client, &new_csv[..done], (0, 0, BATCH), None, "HTTP, unchanged", "the same batches again: identical resends").await);
-    figures.push(post_all(&client, &changed_csv[..done], (0, BATCH, 0), None, "HTTP, replaced", "the same (tag, time), every value changed").await);
+    figures.push(
+        post_all(
+            &client,
+            &new_csv[..done],
+            (0, 0, BATCH),
+            None,
+            "HTTP, unchanged",
+            "the same batches again: identical resends",
+        )
+        .await,
+    );
+    figures.push(
+        post_all(
+            &client,
+            &changed_csv[..done],
+            (0, BATCH, 0),
+            None,
+            "HTTP, replaced",
+            "the same (tag, time), every value changed",
+        )
+        .await,
+    );
 
     // Where the HTTP time goes: checking the body (parse, tag, time, value, quality, repeats)
     // without the store, on the service's own catalogue.
-    let row = store.plant(&plant_name).await.expect("plant").expect("plant exists");
-    let catalogue = Catalogue::load(&store, &row).await.expect("catalogue").expect("a model");
+    let row = store
+        .plant(&plant_name)
+        .await
+        .expect("plant")
+        .expect("plant exists");
+    let catalogue = Catalogue::load(&store, &row)
+        .await
+        .expect("catalogue")
+        .expect("a model");
     let t = Instant::now();
     for body in &new_csv[..done] {
         let checked = ingest::check_batch(body.as_bytes(), Format::Csv, &catalogue).expect("check");
@@ -424,12 +487,18 @@ async fn run() {
     });
 
     println!();
-    println!("ingest: {done} batch(es) of {BATCH} readings, {} meters of {plant_name}, hourly", meters.len());
+    println!(
+        "ingest: {done} batch(es) of {BATCH} readings, {} meters of {plant_name}, hourly",
+        meters.len()
+    );
     for line in &context {
         println!("  {line}");
     }
     println!();
-    println!("{:<22} {:>9} {:>10} {:>14} {:>13}  what", "case", "readings", "seconds", "readings/s", "slowest batch");
+    println!(
+        "{:<22} {:>9} {:>10} {:>14} {:>13}  what",
+        "case", "readings", "seconds", "readings/s", "slowest batch"
+    );
     for f in &figures {
         println!(
             "{:<22} {:>9} {:>10.3} {:>14.0} {:>13}  {}",
@@ -437,7 +506,8 @@ async fn run() {
             f.rows,
             f.elapsed.as_secs_f64(),
             f.rate(),
-            f.slowest.map_or("-".into(), |d| format!("{:.1} ms", d.as_secs_f64() * 1e3)),
+            f.slowest
+                .map_or("-".into(), |d| format!("{:.1} ms", d.as_secs_f64() * 1e3)),
             f.what
         );
     }
@@ -451,6 +521,12 @@ async fn run() {
         100.0 * http_new / figures[6].rate()
     );
     if let Ok(load) = std::fs::read_to_string("/proc/loadavg") {
-        println!("load average after: {}", load.split_whitespace().take(3).collect::<Vec<_>>().join(" "));
+        println!(
+            "load average after: {}",
+            load.split_whitespace()
+                .take(3)
+                .collect::<Vec<_>>()
+                .join(" ")
+        );
     }
 }

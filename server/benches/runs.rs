@@ -87,7 +87,11 @@ fn machine() -> Vec<String> {
         })
         .unwrap_or_else(|| "unknown".into());
     let cores = std::thread::available_parallelism().map_or(0, |n| n.get());
-    let profile = if cfg!(debug_assertions) { "debug (not optimised!)" } else { "optimised (bench/release)" };
+    let profile = if cfg!(debug_assertions) {
+        "debug (not optimised!)"
+    } else {
+        "optimised (bench/release)"
+    };
     vec![
         format!("cpu: {cpu}, {cores} cores available"),
         format!("load average before: {}", load()),
@@ -108,13 +112,27 @@ struct Service {
 }
 
 impl Service {
-    async fn start(dir: &Path, file: &str, model_text: &str, plant: &str, from: DateTime<Utc>) -> Service {
+    async fn start(
+        dir: &Path,
+        file: &str,
+        model_text: &str,
+        plant: &str,
+        from: DateTime<Utc>,
+    ) -> Service {
         let db = dir.join(file);
-        let store = Store::open(&db.to_string_lossy()).await.expect("open store");
-        let token = store.create_token(Role::Admin, None).await.expect("admin token").token;
+        let store = Store::open(&db.to_string_lossy())
+            .await
+            .expect("open store");
+        let token = store
+            .create_token(Role::Admin, None)
+            .await
+            .expect("admin token")
+            .token;
         let state = AppState::new(store.clone(), Limits::default());
         let (app, _) = router(state.clone());
-        let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
+        let listener = tokio::net::TcpListener::bind("127.0.0.1:0")
+            .await
+            .expect("bind");
         let addr = listener.local_addr().expect("local address");
         let server = tokio::spawn(async move {
             axum::serve(listener, app).await.expect("serve");
@@ -130,14 +148,31 @@ impl Service {
             .await
             .expect("PUT model");
         let status = res.status();
-        assert!(status.is_success(), "PUT model answered {status}: {}", res.text().await.unwrap_or_default());
-        let row = store.plant(plant).await.expect("plant").expect("the PUT created the plant");
-        Service { state, row, base, token, http, server, db }
+        assert!(
+            status.is_success(),
+            "PUT model answered {status}: {}",
+            res.text().await.unwrap_or_default()
+        );
+        let row = store
+            .plant(plant)
+            .await
+            .expect("plant")
+            .expect("the PUT created the plant");
+        Service {
+            state,
+            row,
+            base,
+            token,
+            http,
+            server,
+            db,
+        }
     }
 
     /// POST the readings as CSV batches of BATCH; every one must be new.
     async fn post(&self, readings: &[Reading]) -> Duration {
-        let bodies: Vec<(usize, String)> = readings.chunks(BATCH).map(|b| (b.len(), csv(b))).collect();
+        let bodies: Vec<(usize, String)> =
+            readings.chunks(BATCH).map(|b| (b.len(), csv(b))).collect();
         let t = Instant::now();
         for (n, body) in bodies {
             let res = self
@@ -151,9 +186,16 @@ impl Service {
                 .expect("POST readings");
             let status = res.status();
             let text = res.text().await.expect("answer body");
-            assert!(status.is_success(), "POST readings answered {status}: {text}");
+            assert!(
+                status.is_success(),
+                "POST readings answered {status}: {text}"
+            );
             let answer: serde_json::Value = serde_json::from_str(&text).expect("JSON answer");
-            assert_eq!(answer["accepted"].as_u64(), Some(n as u64), "every reading new: {text}");
+            assert_eq!(
+                answer["accepted"].as_u64(),
+                Some(n as u64),
+                "every reading new: {text}"
+            );
         }
         t.elapsed()
     }
@@ -189,7 +231,14 @@ fn csv(batch: &[Reading]) -> String {
 }
 
 /// Noisy readings of the true state z for `hours` hours from `start`.
-fn readings(plant: &Plant, z: &[f64], start: DateTime<Utc>, hours: usize, per_hour: usize, seed: u64) -> Vec<Reading> {
+fn readings(
+    plant: &Plant,
+    z: &[f64],
+    start: DateTime<Utc>,
+    hours: usize,
+    per_hour: usize,
+    seed: u64,
+) -> Vec<Reading> {
     simulate::readings(
         plant,
         z,
@@ -215,7 +264,9 @@ impl Pass {
         self.ran as f64 / self.wall.as_secs_f64()
     }
     fn cores(&self) -> String {
-        self.cpu.map_or("?".into(), |c| format!("{:.2}", c / self.wall.as_secs_f64()))
+        self.cpu.map_or("?".into(), |c| {
+            format!("{:.2}", c / self.wall.as_secs_f64())
+        })
     }
 }
 
@@ -238,10 +289,17 @@ async fn run_pass(svc: &Service, workers: usize) -> Pass {
 
 /// Every period of [start, start + hours) has exactly one current run and no dirty mark;
 /// returns the tally of report statuses and how many failed the global test.
-async fn check_runs(svc: &Service, start: DateTime<Utc>, hours: usize) -> (Vec<(String, usize)>, usize) {
+async fn check_runs(
+    svc: &Service,
+    start: DateTime<Utc>,
+    hours: usize,
+) -> (Vec<(String, usize)>, usize) {
     let store = &svc.state.store;
     let end = start + TimeDelta::hours(hours as i64);
-    let runs = store.current_runs(&svc.row, start, end).await.expect("current runs");
+    let runs = store
+        .current_runs(&svc.row, start, end)
+        .await
+        .expect("current runs");
     assert_eq!(runs.len(), hours, "every period has a current run");
     assert!(runs.iter().all(|r| r.runs == 1), "one run per period");
     let dirty = store.dirty_periods(&svc.row).await.expect("dirty periods");
@@ -264,7 +322,11 @@ async fn check_runs(svc: &Service, start: DateTime<Utc>, hours: usize) -> (Vec<(
 }
 
 fn tally(statuses: &[(String, usize)]) -> String {
-    statuses.iter().map(|(s, n)| format!("{s} {n}")).collect::<Vec<_>>().join(", ")
+    statuses
+        .iter()
+        .map(|(s, n)| format!("{s} {n}"))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 /// The engine's share of a run, without the service: for each period, the report
@@ -283,7 +345,11 @@ fn engine_only(plant: &Plant, readings: &[Reading]) -> (usize, Duration) {
             .filter(|v| v.value.is_finite())
             .filter_map(|v| {
                 let sigma = plant.meters[v.meter].sigma_for(v.value)?;
-                Some(Measured { meter: v.meter, value: v.value, sigma })
+                Some(Measured {
+                    meter: v.meter,
+                    value: v.value,
+                    sigma,
+                })
             })
             .collect();
         let estimate = reconcile::estimate(plant, measured);
@@ -310,10 +376,15 @@ fn main() {
 
 async fn run() {
     let quick = std::env::var_os("LOOPBAL_BENCH_QUICK").is_some();
-    let per_hour = env_usize("LOOPBAL_BENCH_PER_HOUR").unwrap_or(1).clamp(1, 60);
+    let per_hour = env_usize("LOOPBAL_BENCH_PER_HOUR")
+        .unwrap_or(1)
+        .clamp(1, 60);
     let year_hours = if quick { 3 * MONTH_HOURS } else { YEAR_HOURS };
-    let reads = env_usize("LOOPBAL_BENCH_READS").unwrap_or(if quick { 200 } else { 500 }).clamp(1, 100_000);
-    let year_budget = Duration::from_secs(env_usize("LOOPBAL_BENCH_YEAR_BUDGET_S").unwrap_or(240) as u64);
+    let reads = env_usize("LOOPBAL_BENCH_READS")
+        .unwrap_or(if quick { 200 } else { 500 })
+        .clamp(1, 100_000);
+    let year_budget =
+        Duration::from_secs(env_usize("LOOPBAL_BENCH_YEAR_BUDGET_S").unwrap_or(240) as u64);
     let context = machine();
     let dir = tempfile::tempdir().expect("temporary directory");
 
@@ -338,16 +409,32 @@ async fn run() {
     // 1. A month, run by the scheduler with 2 workers and with 1, each on a fresh database.
     let month = readings(&plant, &z, start, MONTH_HOURS, per_hour, 1);
     println!();
-    println!("1. a month: {MONTH_HOURS} periods, {} readings POSTed in batches of {BATCH}", month.len());
+    println!(
+        "1. a month: {MONTH_HOURS} periods, {} readings POSTed in batches of {BATCH}",
+        month.len()
+    );
     println!(
         "{:>7} {:>10} {:>10} {:>10} {:>11} {:>11}  {}",
         "workers", "POST s", "run s", "periods/s", "ms/period", "CPU cores", "reports"
     );
     let mut month_seconds = Vec::new();
     for workers in [2, 1] {
-        let svc = Service::start(dir.path(), &format!("month-{workers}.db"), model_text, &plant_name, start).await;
+        let svc = Service::start(
+            dir.path(),
+            &format!("month-{workers}.db"),
+            model_text,
+            &plant_name,
+            start,
+        )
+        .await;
         let posted = svc.post(&month).await;
-        let dirty = svc.state.store.dirty_periods(&svc.row).await.expect("dirty").len();
+        let dirty = svc
+            .state
+            .store
+            .dirty_periods(&svc.row)
+            .await
+            .expect("dirty")
+            .len();
         assert_eq!(dirty, MONTH_HOURS, "every period marked by the POST");
         let load_before = load();
         let pass = run_pass(&svc, workers).await;
@@ -405,7 +492,10 @@ async fn run() {
         rates.iter().map(|r| format!("{r:.0}")).collect::<Vec<_>>().join(" "),
         post_time.as_secs_f64()
     );
-    println!("   reports: {} (global test failed in {failed})", tally(&statuses));
+    println!(
+        "   reports: {} (global test failed in {failed})",
+        tally(&statuses)
+    );
     if engine_hours < year_hours {
         // Over budget: the remaining periods get copies of the stored runs (report and inputs
         // of period h mod engine_hours, with their own start and end), through the store's
@@ -417,7 +507,11 @@ async fn run() {
             let src = start + TimeDelta::hours((h % engine_hours) as i64);
             let dst = start + TimeDelta::hours(h as i64);
             let history = store.run_history(&svc.row, src).await.expect("run history");
-            let row = history.iter().rev().find(|r| r.current).expect("a current run");
+            let row = history
+                .iter()
+                .rev()
+                .find(|r| r.current)
+                .expect("a current run");
             let mut report = row.run.report.clone();
             report["period_start"] = rfc3339(dst).into();
             report["period_end"] = rfc3339(dst + TimeDelta::hours(1)).into();
@@ -441,8 +535,15 @@ async fn run() {
         .current_runs(&svc.row, start, start + TimeDelta::hours(year_hours as i64))
         .await
         .expect("current runs");
-    assert_eq!(runs.len(), year_hours, "a current run for every period of the year");
-    println!("   database: {:.1} MB (file, WAL and shared memory)", svc.db_bytes() as f64 / 1e6);
+    assert_eq!(
+        runs.len(),
+        year_hours,
+        "a current run for every period of the year"
+    );
+    println!(
+        "   database: {:.1} MB (file, WAL and shared memory)",
+        svc.db_bytes() as f64 / 1e6
+    );
 
     // Report reads: one keep-alive client, one request at a time, random periods of the year.
     let mut rng = ChaCha8Rng::seed_from_u64(3);
@@ -462,14 +563,28 @@ async fn run() {
         let period = rfc3339(start + TimeDelta::hours(h as i64));
         let url = format!("{}/periods/{period}", svc.base);
         let t = Instant::now();
-        let res = client.get(&url).bearer_auth(&svc.token).send().await.expect("GET period");
+        let res = client
+            .get(&url)
+            .bearer_auth(&svc.token)
+            .send()
+            .await
+            .expect("GET period");
         let status = res.status();
         let body = res.bytes().await.expect("body");
         let dt = t.elapsed();
         assert!(status.is_success(), "GET {url} answered {status}");
         let v: serde_json::Value = serde_json::from_slice(&body).expect("JSON report");
-        assert_eq!(v["start"].as_str(), Some(period.as_str()), "the period asked for");
-        assert!(v["report"]["meters"].as_array().is_some_and(|m| m.len() == meters), "a whole report");
+        assert_eq!(
+            v["start"].as_str(),
+            Some(period.as_str()),
+            "the period asked for"
+        );
+        assert!(
+            v["report"]["meters"]
+                .as_array()
+                .is_some_and(|m| m.len() == meters),
+            "a whole report"
+        );
         if i >= WARM_UP {
             times.push(dt.as_secs_f64() * 1e3);
             bytes.push(body.len());

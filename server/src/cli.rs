@@ -47,7 +47,12 @@ pub enum Command {
     /// Run the HTTP service.
     Serve {
         /// Address and port to listen on.
-        #[arg(long, value_name = "ADDR", default_value = "127.0.0.1:8080", env = "LOOPBAL_LISTEN")]
+        #[arg(
+            long,
+            value_name = "ADDR",
+            default_value = "127.0.0.1:8080",
+            env = "LOOPBAL_LISTEN"
+        )]
         listen: SocketAddr,
         #[command(flatten)]
         database: DatabaseArg,
@@ -60,7 +65,12 @@ pub enum Command {
         request_timeout: u64,
         /// Seconds after a period's end before it is reconciled (late readings of the hour
         /// arrive in this time); a period whose readings change later is run again.
-        #[arg(long, value_name = "SECONDS", default_value_t = 300, env = "LOOPBAL_RUN_GRACE")]
+        #[arg(
+            long,
+            value_name = "SECONDS",
+            default_value_t = 300,
+            env = "LOOPBAL_RUN_GRACE"
+        )]
         run_grace: u64,
         /// Seconds between the scheduler's looks for due periods (it also wakes on every batch
         /// that changes stored readings).

@@ -177,7 +177,10 @@ pub fn assess(record: &[MeterPeriod]) -> Health {
             "no reconciled period since the history started".to_string(),
         )
     } else if last.is_some_and(|p| p.measured.is_none()) {
-        (Status::Missing, "no usable reading in the last period".to_string())
+        (
+            Status::Missing,
+            "no usable reading in the last period".to_string(),
+        )
     } else if frozen >= FROZEN_PERIODS {
         (
             Status::Frozen,
@@ -210,7 +213,10 @@ pub fn assess(record: &[MeterPeriod]) -> Health {
             format!("CUSUM {statistic:.1} ≥ {CUSUM_WATCH}: evidence building"),
         )
     } else {
-        (Status::Ok, "adjustments within their expected spread".to_string())
+        (
+            Status::Ok,
+            "adjustments within their expected spread".to_string(),
+        )
     };
     Health {
         status,
@@ -332,7 +338,9 @@ mod tests {
                 let shift = if h >= from { -bias * sa * sa } else { 0.0 };
                 let a = noise * sa + shift;
                 MeterPeriod {
-                    period_start: Utc.timestamp_opt(1_780_000_000 + 3600 * h as i64, 0).unwrap(),
+                    period_start: Utc
+                        .timestamp_opt(1_780_000_000 + 3600 * h as i64, 0)
+                        .unwrap(),
                     measured: Some(100.0 + noise),
                     reconciled: Some(100.0),
                     sigma: Some(1.0),
@@ -372,7 +380,10 @@ mod tests {
             let since = h.evidence_since.unwrap();
             let first = rec[0].period_start;
             let hours = (since - first).num_hours();
-            assert!((30..=100).contains(&hours), "seed {seed}: evidence from hour {hours}");
+            assert!(
+                (30..=100).contains(&hours),
+                "seed {seed}: evidence from hour {hours}"
+            );
             // Within 48 hours of the start of the bias.
             let soon = assess(&rec[..96]);
             assert_eq!(soon.status, Status::Suspect, "seed {seed}: {}", soon.reason);
@@ -384,7 +395,9 @@ mod tests {
         // 200 meter-weeks: at an ARL of ~70,000 periods, the expected number of false
         // suspects is 200 × 168 / 70,000 ≈ 0.5; allow 3 (Poisson tail below 2 %).
         let false_suspects = (0..200)
-            .filter(|&seed| assess(&record(168, 0.8, 0.0, 0, 1000 + seed)).status == Status::Suspect)
+            .filter(|&seed| {
+                assess(&record(168, 0.8, 0.0, 0, 1000 + seed)).status == Status::Suspect
+            })
             .count();
         assert!(false_suspects <= 3, "{false_suspects}");
     }
@@ -428,7 +441,11 @@ mod tests {
         attribute(&tags, &mut health, &|_, _| Some(0.6), &evidence);
         assert_eq!(health[0].status, Status::Suspect);
         assert_eq!(health[1].status, Status::Watch);
-        assert!(health[1].reason.contains("a bias in A explains"), "{}", health[1].reason);
+        assert!(
+            health[1].reason.contains("a bias in A explains"),
+            "{}",
+            health[1].reason
+        );
         // Meters whose adjustments do not correlate are judged alone.
         let mut health = fresh();
         attribute(&tags, &mut health, &|_, _| Some(0.1), &evidence);
@@ -440,7 +457,9 @@ mod tests {
         // told apart by a gap of several units; at ρ = 1 − 1e-6 only a gap under 0.003 is
         // noise. With equal evidence both stay suspect, each naming the other.
         let mut health = fresh();
-        attribute(&tags, &mut health, &|_, _| Some(-0.999), &|_, _| (9.0, -9.0));
+        attribute(&tags, &mut health, &|_, _| Some(-0.999), &|_, _| {
+            (9.0, -9.0)
+        });
         assert!(health.iter().all(|h| h.status == Status::Suspect));
         assert_eq!(health[0].equivalent, ["B"]);
         assert_eq!(health[1].equivalent, ["A"]);

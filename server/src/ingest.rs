@@ -44,18 +44,21 @@ impl Catalogue {
     /// `None` when the plant has no model yet.
     pub async fn load(store: &Store, plant: &PlantRow) -> Result<Option<Catalogue>, StoreError> {
         let revisions = store.list_revisions(plant).await?;
-        let keys: Vec<(DateTime<Utc>, i64)> =
-            revisions.iter().map(|r| (r.effective_from, r.revision)).collect();
+        let keys: Vec<(DateTime<Utc>, i64)> = revisions
+            .iter()
+            .map(|r| (r.effective_from, r.revision))
+            .collect();
         let Some(now) = in_effect(&keys, Utc::now()) else {
             return Ok(None);
         };
         let current = &revisions[now];
-        let period_seconds = reconcile::model::parse_period(&current.spec.period).ok_or_else(|| {
-            StoreError::Corrupt(format!(
-                "revision {} has period \"{}\"",
-                current.revision, current.spec.period
-            ))
-        })?;
+        let period_seconds =
+            reconcile::model::parse_period(&current.spec.period).ok_or_else(|| {
+                StoreError::Corrupt(format!(
+                    "revision {} has period \"{}\"",
+                    current.revision, current.spec.period
+                ))
+            })?;
         let known = revisions
             .iter()
             .flat_map(|r| r.spec.meters.iter().map(|m| m.tag.clone()))
@@ -134,11 +137,16 @@ pub enum BatchError {
 }
 
 /// Check a body (CPU work: call it off the async threads for big bodies).
-pub fn check_batch(body: &[u8], format: Format, catalogue: &Catalogue) -> Result<Checked, BatchError> {
-    let sorted = readings::sort(body, format, &|tag| catalogue.knows(tag)).map_err(|e| match e {
-        ReadingsError::File(msg) => BatchError::Unreadable(msg),
-        ReadingsError::Bad(_) => BatchError::Unreadable("unreadable batch".into()),
-    })?;
+pub fn check_batch(
+    body: &[u8],
+    format: Format,
+    catalogue: &Catalogue,
+) -> Result<Checked, BatchError> {
+    let sorted =
+        readings::sort(body, format, &|tag| catalogue.knows(tag)).map_err(|e| match e {
+            ReadingsError::File(msg) => BatchError::Unreadable(msg),
+            ReadingsError::Bad(_) => BatchError::Unreadable("unreadable batch".into()),
+        })?;
     let mut bad = sorted.bad;
     let mut good = Vec::with_capacity(sorted.good.len());
     // A second line for one (tag, instant) in one batch is refused, not silently preferred:
@@ -178,7 +186,11 @@ pub async fn store_batch(
     catalogue: &Catalogue,
     checked: Checked,
 ) -> Result<IngestAnswer, BatchError> {
-    let out_of_range: Vec<bool> = checked.good.iter().map(|r| catalogue.out_of_range(r)).collect();
+    let out_of_range: Vec<bool> = checked
+        .good
+        .iter()
+        .map(|r| catalogue.out_of_range(r))
+        .collect();
     let counts = if checked.good.is_empty() {
         Default::default()
     } else {
@@ -237,10 +249,18 @@ mod tests {
         // Revision 1 from the 10th, 2 from the 20th, 3 also from the 20th, 4 from the 5th
         // (a late correction of the early history).
         let revs = [(t(10), 1), (t(20), 2), (t(20), 3), (t(5), 4)];
-        assert_eq!(in_effect(&revs, t(1)), Some(3), "before all: the earliest (revision 4)");
+        assert_eq!(
+            in_effect(&revs, t(1)),
+            Some(3),
+            "before all: the earliest (revision 4)"
+        );
         assert_eq!(in_effect(&revs, t(5)), Some(3));
         assert_eq!(in_effect(&revs, t(12)), Some(0));
-        assert_eq!(in_effect(&revs, t(20)), Some(2), "same instant: the higher number");
+        assert_eq!(
+            in_effect(&revs, t(20)),
+            Some(2),
+            "same instant: the higher number"
+        );
         assert_eq!(in_effect(&revs, t(28)), Some(2));
         assert_eq!(in_effect(&[], t(28)), None);
     }

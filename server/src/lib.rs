@@ -41,4 +41,3 @@ impl fmt::Display for BadInput {
 }
 
 impl std::error::Error for BadInput {}
-

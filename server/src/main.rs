@@ -35,23 +35,26 @@ fn main() -> ExitCode {
             run_workers,
         } => {
             serve::init_tracing();
-            runtime().and_then(|rt| {
-                rt.block_on(serve::serve(serve::Options {
-                    listen: *listen,
-                    database: database.database.clone(),
-                    limits: api::Limits {
-                        max_body_bytes: *max_body_bytes,
-                        request_timeout: std::time::Duration::from_secs(*request_timeout),
-                    },
-                    schedule: loopbal_server::schedule::Schedule {
-                        grace: std::time::Duration::from_secs(*run_grace),
-                        tick: std::time::Duration::from_secs(*run_tick),
-                        workers: run_workers
-                            .map_or_else(loopbal_server::schedule::default_workers, |n| n as usize),
-                    },
-                }))
-            })
-            .map(|()| ExitCode::SUCCESS)
+            runtime()
+                .and_then(|rt| {
+                    rt.block_on(serve::serve(serve::Options {
+                        listen: *listen,
+                        database: database.database.clone(),
+                        limits: api::Limits {
+                            max_body_bytes: *max_body_bytes,
+                            request_timeout: std::time::Duration::from_secs(*request_timeout),
+                        },
+                        schedule: loopbal_server::schedule::Schedule {
+                            grace: std::time::Duration::from_secs(*run_grace),
+                            tick: std::time::Duration::from_secs(*run_tick),
+                            workers: run_workers
+                                .map_or_else(loopbal_server::schedule::default_workers, |n| {
+                                    n as usize
+                                }),
+                        },
+                    }))
+                })
+                .map(|()| ExitCode::SUCCESS)
         }
         Command::Demo {
             listen,

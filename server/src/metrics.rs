@@ -36,7 +36,11 @@ impl Histogram {
         for (bound, count) in LATENCY_BUCKETS.iter().zip(self.counts.iter()) {
             let _ = writeln!(out, "{name}_bucket{{{labels}{sep}le=\"{bound}\"}} {count}");
         }
-        let _ = writeln!(out, "{name}_bucket{{{labels}{sep}le=\"+Inf\"}} {}", self.count);
+        let _ = writeln!(
+            out,
+            "{name}_bucket{{{labels}{sep}le=\"+Inf\"}} {}",
+            self.count
+        );
         let braces = if labels.is_empty() {
             String::new()
         } else {
@@ -123,9 +127,21 @@ impl Metrics {
         }
         let counters = [
             ("accepted", &self.readings_accepted, "new readings stored"),
-            ("replaced", &self.readings_replaced, "stored readings whose value or quality changed"),
-            ("unchanged", &self.readings_unchanged, "identical resends of stored readings"),
-            ("rejected", &self.readings_rejected, "lines refused with a reason"),
+            (
+                "replaced",
+                &self.readings_replaced,
+                "stored readings whose value or quality changed",
+            ),
+            (
+                "unchanged",
+                &self.readings_unchanged,
+                "identical resends of stored readings",
+            ),
+            (
+                "rejected",
+                &self.readings_rejected,
+                "lines refused with a reason",
+            ),
         ];
         for (name, counter, help) in counters {
             let _ = writeln!(
@@ -141,7 +157,11 @@ impl Metrics {
              # TYPE loopbal_runs_total counter\n",
         );
         for (status, n) in lock(&self.runs).iter() {
-            let _ = writeln!(out, "loopbal_runs_total{{status=\"{}\"}} {n}", escape(status));
+            let _ = writeln!(
+                out,
+                "loopbal_runs_total{{status=\"{}\"}} {n}",
+                escape(status)
+            );
         }
         out.push_str(
             "# HELP loopbal_run_duration_seconds Time to reconcile one period.\n\

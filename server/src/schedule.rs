@@ -204,7 +204,10 @@ const KEPT_CORRELATION: f64 = 0.2;
 /// Each measured meter's adjustment correlations this period, by tag (see
 /// `reconcile::Estimate::adjustment_correlations`): how a bias in it would show elsewhere,
 /// which is how meter health tells the biased meter from those its balances drag along.
-fn correlations_by_tag(plant: &Plant, analysis: &Analysis) -> HashMap<String, BTreeMap<String, f64>> {
+fn correlations_by_tag(
+    plant: &Plant,
+    analysis: &Analysis,
+) -> HashMap<String, BTreeMap<String, f64>> {
     let mut out: HashMap<String, BTreeMap<String, f64>> = HashMap::new();
     let Some(est) = &analysis.estimate else {
         return out;
@@ -474,7 +477,10 @@ sigma = 1.0
         };
         let (unsteady, warnings) = steadiness(&plant, &input);
         assert_eq!(unsteady, ["F-2"]);
-        assert!(warnings[0].contains("F-2") && warnings[0].contains("8.1 σ"), "{warnings:?}");
+        assert!(
+            warnings[0].contains("F-2") && warnings[0].contains("8.1 σ"),
+            "{warnings:?}"
+        );
         // One reading has no spread to judge.
         let input = PeriodInput {
             start,

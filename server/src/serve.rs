@@ -20,8 +20,9 @@ pub struct Options {
 /// Log lines go to stderr; `RUST_LOG` chooses what (default: info for loopbal, warn for the
 /// libraries).
 pub fn init_tracing() {
-    let filter = tracing_subscriber::EnvFilter::try_from_default_env()
-        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("loopbal=info,tower_http=warn,warn"));
+    let filter = tracing_subscriber::EnvFilter::try_from_default_env().unwrap_or_else(|_| {
+        tracing_subscriber::EnvFilter::new("loopbal=info,tower_http=warn,warn")
+    });
     let _ = tracing_subscriber::fmt()
         .with_env_filter(filter)
         .with_writer(std::io::stderr)

@@ -150,7 +150,10 @@ pub fn token(database: &Path, role: &str, plant: Option<&str>) -> String {
         "token create failed: {}",
         String::from_utf8_lossy(&out.stderr)
     );
-    let token = String::from_utf8(out.stdout).expect("utf-8").trim().to_string();
+    let token = String::from_utf8(out.stdout)
+        .expect("utf-8")
+        .trim()
+        .to_string();
     assert!(token.starts_with("lb_"), "token {token:?}");
     token
 }

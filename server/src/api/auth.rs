@@ -56,7 +56,9 @@ impl FromRequestParts<AppState> for Caller {
             })
             .filter(|t| !t.is_empty())
             .ok_or_else(|| {
-                Problem::unauthorized("the Authorization header is not of the form \"Bearer TOKEN\"")
+                Problem::unauthorized(
+                    "the Authorization header is not of the form \"Bearer TOKEN\"",
+                )
             })?;
         match state.store.verify_token(token).await? {
             Some(grant) => Ok(Caller(grant)),

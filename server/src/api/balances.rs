@@ -32,8 +32,8 @@ use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
 use super::figures::{corrupt, PeriodRange, NO_RUN};
-use super::rfc3339;
 use super::problem::Problem;
+use super::rfc3339;
 use super::AppState;
 use crate::store::Role;
 

@@ -74,7 +74,10 @@ pub struct MeterList {
 
 async fn current_spec(state: &AppState, row: &PlantRow) -> Result<ModelSpec, Problem> {
     let revs = state.store.list_revisions(row).await?;
-    let keys: Vec<_> = revs.iter().map(|r| (r.effective_from, r.revision)).collect();
+    let keys: Vec<_> = revs
+        .iter()
+        .map(|r| (r.effective_from, r.revision))
+        .collect();
     let i = crate::ingest::in_effect(&keys, Utc::now()).ok_or_else(|| {
         Problem::new(
             StatusCode::CONFLICT,
@@ -152,7 +155,12 @@ pub async fn list_meters(
     let notes = state.store.notes(&row, None).await?;
     let records = state
         .store
-        .meter_periods(&row, None, DateTime::<Utc>::MIN_UTC, DateTime::<Utc>::MAX_UTC)
+        .meter_periods(
+            &row,
+            None,
+            DateTime::<Utc>::MIN_UTC,
+            DateTime::<Utc>::MAX_UTC,
+        )
         .await?;
     let tags: Vec<String> = spec.meters.iter().map(|m| m.tag.clone()).collect();
     let healths: Vec<Health> = tags
@@ -201,7 +209,11 @@ pub async fn list_meters(
                 uom: m.uom.clone(),
                 health,
                 history_since: since.or(first).map(rfc3339),
-                last_note: notes.iter().rev().find(|n| n.tag == m.tag).map(NoteBody::from),
+                last_note: notes
+                    .iter()
+                    .rev()
+                    .find(|n| n.tag == m.tag)
+                    .map(NoteBody::from),
             }
         })
         .collect();
@@ -394,14 +406,24 @@ pub async fn post_note(
     };
     let row = plant_row(&state, &plant).await?;
     let revs = state.store.list_revisions(&row).await?;
-    if !revs.iter().any(|r| r.spec.meters.iter().any(|m| m.tag == tag)) {
+    if !revs
+        .iter()
+        .any(|r| r.spec.meters.iter().any(|m| m.tag == tag))
+    {
         return Err(Problem::not_found(format!(
             "plant \"{plant}\" has no meter \"{tag}\""
         )));
     }
     let stored = state
         .store
-        .add_note(&row, &tag, kind, &note.text, effective_at, Some(caller.0.token_id))
+        .add_note(
+            &row,
+            &tag,
+            kind,
+            &note.text,
+            effective_at,
+            Some(caller.0.token_id),
+        )
         .await?;
     Ok((StatusCode::CREATED, Json(NoteBody::from(&stored))).into_response())
 }

@@ -166,13 +166,11 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
                     )
                 })
                 .on_request(())
-                .on_response(
-                    |res: &Response, latency: Duration, span: &tracing::Span| {
-                        span.record("status", res.status().as_u16());
-                        span.record("latency_ms", latency.as_secs_f64() * 1e3);
-                        tracing::info!("answered");
-                    },
-                ),
+                .on_response(|res: &Response, latency: Duration, span: &tracing::Span| {
+                    span.record("status", res.status().as_u16());
+                    span.record("latency_ms", latency.as_secs_f64() * 1e3);
+                    tracing::info!("answered");
+                }),
         )
         .with_state(state);
     (router, openapi)
@@ -233,7 +231,9 @@ async fn problem_details(req: Request, next: Next) -> Response {
             format!("this path does not take {method}{allowed}")
         }
         StatusCode::REQUEST_TIMEOUT => "the request took too long and was abandoned".into(),
-        StatusCode::PAYLOAD_TOO_LARGE => "the request body is larger than the service accepts".into(),
+        StatusCode::PAYLOAD_TOO_LARGE => {
+            "the request body is larger than the service accepts".into()
+        }
         _ if text.is_empty() => status.canonical_reason().unwrap_or("error").to_string(),
         _ => text,
     };
@@ -336,7 +336,11 @@ pub(crate) fn body_bytes(
                 ),
             )
         } else {
-            Problem::new(e.status(), "unreadable-body", format!("the body could not be read: {e}"))
+            Problem::new(
+                e.status(),
+                "unreadable-body",
+                format!("the body could not be read: {e}"),
+            )
         }
     })
 }
@@ -362,7 +366,10 @@ pub fn check_plant_name(name: &str) -> Result<(), Problem> {
 /// A query string that does not fit its parameters (checked after the token, so a caller
 /// without the right role learns nothing about them).
 pub(crate) fn query_problem(e: axum::extract::rejection::QueryRejection) -> Problem {
-    Problem::bad_request(format!("the query string is not as expected: {}", e.body_text()))
+    Problem::bad_request(format!(
+        "the query string is not as expected: {}",
+        e.body_text()
+    ))
 }
 
 /// An instant as the API writes it: RFC 3339 in UTC, whole seconds.

@@ -134,7 +134,10 @@ pub async fn put_model(
         ))
         .with_errors(vec![ItemError {
             item: "name".into(),
-            message: format!("\"{}\" differs from the plant \"{plant}\" in the path", spec.name),
+            message: format!(
+                "\"{}\" differs from the plant \"{plant}\" in the path",
+                spec.name
+            ),
         }]));
     }
     // The engine's validator decides; a model it refuses is never stored.
@@ -173,11 +176,12 @@ fn invalid_model(e: ModelError) -> Problem {
     match e {
         ModelError::Syntax { format, message } => {
             let first = message.lines().next().unwrap_or("").trim().to_string();
-            Problem::unprocessable(format!("the model is not valid {format}: {first}"))
-                .with_errors(vec![ItemError {
+            Problem::unprocessable(format!("the model is not valid {format}: {first}")).with_errors(
+                vec![ItemError {
                     item: "body".into(),
                     message: message.trim_end().to_string(),
-                }])
+                }],
+            )
         }
         ModelError::Invalid(problems) => Problem::unprocessable(format!(
             "the model has {} problem(s); each is listed in errors",

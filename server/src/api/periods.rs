@@ -9,9 +9,9 @@ use serde::{Deserialize, Serialize};
 use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
+use super::figures::PeriodRange;
 use super::problem::Problem;
 use super::readings::parse_time;
-use super::figures::PeriodRange;
 use super::{plant_row, rfc3339, run_problem, AppState};
 use crate::schedule;
 use crate::store::{PlantRow, Role};
@@ -81,7 +81,10 @@ pub async fn list_periods(
     let range = PeriodRange::resolve(&state, &plant, &query.from, &query.to).await?;
     let secs = range.period_seconds;
     let first = range.starts.first().copied().unwrap_or(range.from);
-    let runs = state.store.current_runs(&range.row, first, range.to).await?;
+    let runs = state
+        .store
+        .current_runs(&range.row, first, range.to)
+        .await?;
     let dirty = state.store.dirty_periods(&range.row).await?;
     let mut periods = Vec::new();
     for &start in &range.starts {
@@ -157,7 +160,11 @@ async fn period_start(
     Ok(start)
 }
 
-async fn current(state: &AppState, row: &PlantRow, start: DateTime<Utc>) -> Result<PeriodRun, Problem> {
+async fn current(
+    state: &AppState,
+    row: &PlantRow,
+    start: DateTime<Utc>,
+) -> Result<PeriodRun, Problem> {
     let not_run = || {
         Problem::not_found(format!(
             "period {} of plant \"{}\" has not been run (see /periods for its status)",
@@ -167,7 +174,11 @@ async fn current(state: &AppState, row: &PlantRow, start: DateTime<Utc>) -> Resu
     };
     // The current run whole, and only the count of the earlier ones: a period re-run many
     // times does not make its report slower to read.
-    let run = state.store.current_run(row, start).await?.ok_or_else(not_run)?;
+    let run = state
+        .store
+        .current_run(row, start)
+        .await?
+        .ok_or_else(not_run)?;
     let runs = state
         .store
         .current_runs(row, start, start + TimeDelta::milliseconds(1))

@@ -108,9 +108,9 @@ pub async fn post_readings(
 
 fn batch_problem(e: BatchError) -> Problem {
     match e {
-        BatchError::Unreadable(msg) => {
-            Problem::bad_request(format!("the batch cannot be read: {msg}; nothing was stored"))
-        }
+        BatchError::Unreadable(msg) => Problem::bad_request(format!(
+            "the batch cannot be read: {msg}; nothing was stored"
+        )),
         BatchError::Store(e) => e.into(),
     }
 }

@@ -180,7 +180,10 @@ struct Historian {
 }
 
 impl Historian {
-    fn new(base: &str, tokens: &std::collections::BTreeMap<String, String>) -> anyhow::Result<Historian> {
+    fn new(
+        base: &str,
+        tokens: &std::collections::BTreeMap<String, String>,
+    ) -> anyhow::Result<Historian> {
         Ok(Historian {
             client: reqwest::Client::builder()
                 .timeout(Duration::from_secs(120))
@@ -242,7 +245,11 @@ impl Historian {
             .send()
             .await?;
         if !r.status().is_success() {
-            bail!("storing the demo model: {}: {}", r.status(), r.text().await?);
+            bail!(
+                "storing the demo model: {}: {}",
+                r.status(),
+                r.text().await?
+            );
         }
         let plant = scenario::plant();
         let z = scenario::true_state(&plant).context("the demo loop's steady state")?;
@@ -265,7 +272,14 @@ impl Historian {
                     ));
                     value *= 10.0;
                 }
-                let _ = writeln!(csv, "{},{},{},{}", r.tag, rfc3339(r.time), value, quality(r));
+                let _ = writeln!(
+                    csv,
+                    "{},{},{},{}",
+                    r.tag,
+                    rfc3339(r.time),
+                    value,
+                    quality(r)
+                );
                 posted += 1;
             }
             self.post_csv(csv).await?;
@@ -502,14 +516,29 @@ pub fn text(s: &Summary, serving: bool) -> String {
     let _ = writeln!(t);
     let plant = format!("{}/api/v1/plants/{}", s.base_url, s.plant);
     if serving {
-        let _ = writeln!(t, "The service is running at {} until you press Ctrl-C:", s.base_url);
+        let _ = writeln!(
+            t,
+            "The service is running at {} until you press Ctrl-C:",
+            s.base_url
+        );
     } else {
-        let _ = writeln!(t, "The service has stopped (--no-serve); with it running you would ask:");
+        let _ = writeln!(
+            t,
+            "The service has stopped (--no-serve); with it running you would ask:"
+        );
     }
     let read = s.tokens.get("read").map(String::as_str).unwrap_or("");
     let _ = writeln!(t, "  curl -H 'Authorization: Bearer {read}' {plant}/meters");
-    let _ = writeln!(t, "  curl -H 'Authorization: Bearer {read}' {plant}/meters/{}", s.scenario.biased);
-    let _ = writeln!(t, "  curl -H 'Authorization: Bearer {read}' '{plant}/periods/{}'", s.last_period);
+    let _ = writeln!(
+        t,
+        "  curl -H 'Authorization: Bearer {read}' {plant}/meters/{}",
+        s.scenario.biased
+    );
+    let _ = writeln!(
+        t,
+        "  curl -H 'Authorization: Bearer {read}' '{plant}/periods/{}'",
+        s.last_period
+    );
     let _ = writeln!(
         t,
         "  curl -H 'Authorization: Bearer {read}' -H 'Accept: text/csv' '{plant}/figures?from={}&to={}'",

@@ -52,7 +52,12 @@ pub fn specs() -> Vec<Spec> {
         reaction: "co2-to-methanol".into(),
         value: 0.16,
     });
-    for (c, r) in [("CO2", 0.035), ("CH3OH", 0.965), ("H2O", 0.97), ("CH4", 0.006)] {
+    for (c, r) in [
+        ("CO2", 0.035),
+        ("CH3OH", 0.965),
+        ("H2O", 0.97),
+        ("CH4", 0.006),
+    ] {
         specs.push(Spec::Recovery {
             stream: "crude".into(),
             component: c.into(),
@@ -78,7 +83,9 @@ pub fn true_state(plant: &Plant) -> Result<Vec<f64>, SimulateError> {
 
 /// The first hour of the demo: an invented date.
 pub fn start() -> DateTime<Utc> {
-    Utc.with_ymd_and_hms(2026, 9, 14, 0, 0, 0).single().expect("valid date")
+    Utc.with_ymd_and_hms(2026, 9, 14, 0, 0, 0)
+        .single()
+        .expect("valid date")
 }
 
 /// The meter faults of the scenario.
@@ -125,7 +132,11 @@ mod tests {
         for (meter, v) in plant.meters.iter().zip(&values) {
             assert!(v.is_finite() && *v > 0.0, "{}: {v}", meter.tag);
             if let Some([lo, hi]) = meter.range {
-                assert!((lo..=hi).contains(v), "{} = {v} outside [{lo}, {hi}]", meter.tag);
+                assert!(
+                    (lo..=hi).contains(v),
+                    "{} = {v} outside [{lo}, {hi}]",
+                    meter.tag
+                );
             }
         }
     }
@@ -147,7 +158,9 @@ mod bound_tests {
         let specs: Vec<Spec> = specs()
             .into_iter()
             .map(|s| match s {
-                Spec::Recovery { stream, component, .. } if component == "H2O" => Spec::Recovery {
+                Spec::Recovery {
+                    stream, component, ..
+                } if component == "H2O" => Spec::Recovery {
                     stream,
                     component,
                     value: 0.999,
@@ -167,7 +180,11 @@ mod bound_tests {
         let (mut n, mut sum_sq, mut worst, mut at_bound) = (0usize, 0.0, 0.0f64, 0);
         for period in reconcile::group_readings(&plant, &all) {
             let report = reconcile::reconcile_period(&plant, &period);
-            if report.diagnostics.as_ref().is_none_or(|d| d.at_bound.is_empty()) {
+            if report
+                .diagnostics
+                .as_ref()
+                .is_none_or(|d| d.at_bound.is_empty())
+            {
                 continue;
             }
             at_bound += 1;
@@ -183,7 +200,10 @@ mod bound_tests {
         // E[d²] = 1; over n values its Monte Carlo σ is about √(2/n) (≈ 0.04 for n ≈ 1,000),
         // widened for the correlation of one period's adjustments.
         let mean_sq = sum_sq / n as f64;
-        assert!((mean_sq - 1.0).abs() < 0.25, "mean d² {mean_sq} over {n} (periods {at_bound})");
+        assert!(
+            (mean_sq - 1.0).abs() < 0.25,
+            "mean d² {mean_sq} over {n} (periods {at_bound})"
+        );
         assert!(worst < 6.0, "|d| up to {worst}");
     }
 }

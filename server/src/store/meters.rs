@@ -181,7 +181,11 @@ impl SqliteStore {
     }
 
     /// Notes of a plant (of one tag when given), oldest effective first.
-    pub(super) async fn notes(&self, plant: &PlantRow, tag: Option<&str>) -> Result<Vec<MeterNote>> {
+    pub(super) async fn notes(
+        &self,
+        plant: &PlantRow,
+        tag: Option<&str>,
+    ) -> Result<Vec<MeterNote>> {
         let rows = sqlx::query(
             "SELECT id, tag, kind, text, effective_at, created_at FROM meter_notes
              WHERE plant_id = ? AND (? IS NULL OR tag = ?) ORDER BY effective_at, id",

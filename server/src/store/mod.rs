@@ -331,10 +331,17 @@ pub fn redacted(url: &str) -> String {
         .find(['/', '?'])
         .map_or(url.len(), |i| scheme_end + i);
     let authority = &url[scheme_end..authority_end];
-    match authority.rfind('@').map(|at| (&authority[..at], &authority[at..])) {
+    match authority
+        .rfind('@')
+        .map(|at| (&authority[..at], &authority[at..]))
+    {
         Some((user_info, host)) if user_info.contains(':') => {
             let user = &user_info[..user_info.find(':').unwrap_or(user_info.len())];
-            format!("{}{user}:***{host}{}", &url[..scheme_end], &url[authority_end..])
+            format!(
+                "{}{user}:***{host}{}",
+                &url[..scheme_end],
+                &url[authority_end..]
+            )
         }
         _ => url.to_string(),
     }

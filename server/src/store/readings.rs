@@ -400,15 +400,25 @@ mod tests {
         let periods = n.div_ceil(2);
         assert!(periods > MARKS_PER_STATEMENT);
 
-        let counts = store.ingest_readings(&plant, &batch, 3600, &outside(&ranges)).await.unwrap();
-        assert_eq!((counts.accepted, counts.replaced, counts.unchanged), (n, 0, 0));
+        let counts = store
+            .ingest_readings(&plant, &batch, 3600, &outside(&ranges))
+            .await
+            .unwrap();
+        assert_eq!(
+            (counts.accepted, counts.replaced, counts.unchanged),
+            (n, 0, 0)
+        );
         let dirty = store.dirty_periods(&plant).await.unwrap();
         assert_eq!(dirty.len(), periods);
         for (start, marked) in &dirty {
             assert!(store.clear_dirty(&plant, *start, *marked).await.unwrap());
         }
         let stored = store
-            .readings_in(&plant, batch[0].time, batch[n - 1].time + chrono::Duration::hours(1))
+            .readings_in(
+                &plant,
+                batch[0].time,
+                batch[n - 1].time + chrono::Duration::hours(1),
+            )
             .await
             .unwrap();
         assert_eq!(stored.len(), n);
@@ -428,7 +438,10 @@ mod tests {
             again[i].value += 1.0;
         }
         again[7].quality = Quality::Uncertain;
-        let counts = store.ingest_readings(&plant, &again, 3600, &outside(&ranges)).await.unwrap();
+        let counts = store
+            .ingest_readings(&plant, &again, 3600, &outside(&ranges))
+            .await
+            .unwrap();
         assert_eq!(
             (counts.accepted, counts.replaced, counts.unchanged),
             (0, 5, n - 5)
@@ -458,7 +471,10 @@ mod tests {
             value: repeats[0].value + 1.0,
             ..repeats[0].clone()
         };
-        let counts = store.ingest_readings(&plant, &batch, 3600, &outside(&ranges)).await.unwrap();
+        let counts = store
+            .ingest_readings(&plant, &batch, 3600, &outside(&ranges))
+            .await
+            .unwrap();
         let m = batch.len();
         assert_eq!(
             (counts.accepted, counts.replaced, counts.unchanged),
