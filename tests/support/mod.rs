@@ -1,5 +1,11 @@
-//! The real `loopbal` binary as a service on a free loopback port with a temporary SQLite
-//! file, for end-to-end tests that talk HTTP to it as a historian or an engineer would.
+//! The real `loopbal` binary as a service on a free loopback port with a temporary database,
+//! for end-to-end tests that talk HTTP to it as a historian or an engineer would.
+//!
+//! The database is an SQLite file at the path a test names, unless `LOOPBAL_TEST_BACKEND` is
+//! `postgres`: then every path stands for a scratch PostgreSQL database `loopbal_e2e_<random>`
+//! made on the server of `LOOPBAL_TEST_POSTGRES_URL` the first time the path is used (its URL is
+//! kept in a file beside the path, so a restart finds the same database). The same suites thus
+//! run on both backends (`.ci/run` runs them on PostgreSQL and drops the scratch databases).
 
 #![allow(dead_code)] // each test file uses its own part of the harness
 
@@ -21,7 +27,10 @@ pub struct Server {
     // Kept open so a later line on stdout never meets a closed pipe.
     _stdout: BufReader<ChildStdout>,
     pub base: String,
+    /// The path the test named (the log is written beside it).
     pub database: PathBuf,
+    /// What `--database` was given: the path, or the scratch PostgreSQL database's URL.
+    pub database_url: String,
     extra: Vec<String>,
 }
 
@@ -34,6 +43,14 @@ impl Server {
     /// As `start`, with `RUST_LOG` set to `log`; the log goes to `server.log` beside the
     /// database (a file, so a chatty server never blocks on a full pipe).
     pub fn start_logging(database: &Path, extra: &[&str], log: &str) -> Server {
+        Server::start_on(database, &database_arg(database), extra, log)
+    }
+
+    /// Start on the database `url` (an SQLite path or a postgres:// URL), logging beside
+    /// `log_at` (a path in the test's temporary folder): for tests that need one particular
+    /// database, such as several instances sharing one.
+    pub fn start_on(log_at: &Path, url: &str, extra: &[&str], log: &str) -> Server {
+        let database = log_at;
         let log_file = std::fs::OpenOptions::new()
             .create(true)
             .append(true)
@@ -44,7 +61,7 @@ impl Server {
             .arg("--listen")
             .arg("127.0.0.1:0")
             .arg("--database")
-            .arg(database)
+            .arg(url)
             .args(extra)
             .env("RUST_LOG", log)
             .stdin(Stdio::null())
@@ -68,6 +85,7 @@ impl Server {
             child: Some(child),
             _stdout: stdout,
             database: database.to_path_buf(),
+            database_url: url.to_string(),
             extra: extra.iter().map(|s| s.to_string()).collect(),
         }
     }
@@ -116,10 +134,19 @@ impl Server {
     /// Stop and start again on the same database with the same options.
     pub fn restart(self) -> Server {
         let database = self.database.clone();
+        let url = self.database_url.clone();
         let extra = self.extra.clone();
         assert!(self.stop(), "the server exits 0 on SIGTERM");
         let extra: Vec<&str> = extra.iter().map(String::as_str).collect();
-        Server::start(&database, &extra)
+        Server::start_on(&database, &url, &extra, "warn")
+    }
+
+    /// SIGKILL: the process dies at once, with no chance to finish anything.
+    pub fn kill9(mut self) {
+        if let Some(mut child) = self.child.take() {
+            let _ = child.kill();
+            let _ = child.wait();
+        }
     }
 }
 
@@ -136,11 +163,91 @@ fn log_path(database: &Path) -> PathBuf {
     database.with_extension("log")
 }
 
+/// The environment variable naming the backend of the end-to-end suites (`sqlite`, the
+/// default, or `postgres`).
+pub const BACKEND_VAR: &str = "LOOPBAL_TEST_BACKEND";
+/// The URL of a database on the PostgreSQL server the scratch databases are made on.
+pub const POSTGRES_URL_VAR: &str = "LOOPBAL_TEST_POSTGRES_URL";
+
+/// Whether the suites run on PostgreSQL (`LOOPBAL_TEST_BACKEND=postgres`).
+pub fn on_postgres() -> bool {
+    match std::env::var(BACKEND_VAR).as_deref() {
+        Ok("postgres") => true,
+        Ok("sqlite") | Ok("") | Err(_) => false,
+        Ok(other) => panic!("{BACKEND_VAR}={other:?}: expected sqlite or postgres"),
+    }
+}
+
+/// The `--database` argument standing for the test's database `path`: the path itself, or on
+/// PostgreSQL the URL of the scratch database made for it (made on first use).
+pub fn database_arg(path: &Path) -> String {
+    if !on_postgres() {
+        return path.to_str().expect("a UTF-8 temporary path").to_string();
+    }
+    let marker = path.with_extension("pgurl");
+    if let Ok(url) = std::fs::read_to_string(&marker) {
+        return url;
+    }
+    let url = scratch_postgres("loopbal_e2e");
+    std::fs::write(&marker, &url).expect("note the scratch database's URL");
+    url
+}
+
+/// A new empty database `<prefix>_<random>` on the server of LOOPBAL_TEST_POSTGRES_URL; its
+/// URL. `.ci/run` drops every `loopbal_e2e_*` database after the suites.
+pub fn scratch_postgres(prefix: &str) -> String {
+    let server = std::env::var(POSTGRES_URL_VAR)
+        .unwrap_or_else(|_| panic!("{POSTGRES_URL_VAR} must name a PostgreSQL database"));
+    let name = format!("{prefix}_{:016x}", rand::random::<u64>());
+    let admin = server.clone();
+    let create = format!("CREATE DATABASE {name}");
+    // The tests are async; a connection of our own on a thread of our own.
+    std::thread::spawn(move || {
+        let rt = tokio::runtime::Builder::new_current_thread()
+            .enable_all()
+            .build()
+            .expect("runtime");
+        rt.block_on(async move {
+            use sqlx::Connection;
+            let mut c = sqlx::PgConnection::connect(&admin)
+                .await
+                .unwrap_or_else(|e| panic!("connecting to {POSTGRES_URL_VAR}: {e}"));
+            sqlx::query(&create)
+                .execute(&mut c)
+                .await
+                .expect("create the scratch database");
+            c.close().await.expect("close");
+        })
+    })
+    .join()
+    .expect("scratch database made");
+    with_database(&server, &name)
+}
+
+/// `url` with its database replaced by `name`; the query, if any, is kept.
+pub fn with_database(url: &str, name: &str) -> String {
+    let (base, query) = url.split_once('?').map_or((url, ""), |(b, q)| (b, q));
+    let scheme_end = base.find("://").expect("a URL") + 3;
+    let host_end = base[scheme_end..]
+        .find('/')
+        .map_or(base.len(), |i| scheme_end + i);
+    let query = if query.is_empty() {
+        String::new()
+    } else {
+        format!("?{query}")
+    };
+    format!("{}/{name}{query}", &base[..host_end])
+}
+
 /// `loopbal token create` on the database: the printed token.
 pub fn token(database: &Path, role: &str, plant: Option<&str>) -> String {
+    token_on(&database_arg(database), role, plant)
+}
+
+/// `loopbal token create` on the database `url` (a path or a postgres:// URL).
+pub fn token_on(url: &str, role: &str, plant: Option<&str>) -> String {
     let mut cmd = Command::new(BIN);
-    cmd.args(["token", "create", "--role", role, "--database"])
-        .arg(database);
+    cmd.args(["token", "create", "--role", role, "--database", url]);
     if let Some(p) = plant {
         cmd.args(["--plant", p]);
     }
@@ -241,4 +348,56 @@ pub fn purge_design_specs() -> Vec<reconcile::simulate::Spec> {
         value: 3.6 * 95.0,
     });
     specs
+}
+
+/// A database backend, for tests written once and run on each.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Backend {
+    Sqlite,
+    Postgres,
+}
+
+impl Backend {
+    /// A fresh database for a test in the temporary folder `dir`: `(log_at, url)`, where
+    /// `log_at` is the path the server's log is written beside and `url` the `--database`
+    /// argument (an SQLite file in `dir`, or a scratch PostgreSQL database).
+    pub fn fresh(self, dir: &Path, name: &str) -> (PathBuf, String) {
+        let path = dir.join(format!("{name}.sqlite"));
+        let url = match self {
+            Backend::Sqlite => path.to_str().expect("UTF-8 path").to_string(),
+            Backend::Postgres => scratch_postgres("loopbal_e2e"),
+        };
+        (path, url)
+    }
+}
+
+/// `both_backends! { async fn name(backend: Backend) { ... } }` makes the module `name` with
+/// the tests `name::sqlite` and `name::postgres`. The PostgreSQL one is built ignored, with the
+/// reason, unless LOOPBAL_TEST_POSTGRES_URL was set when the tests were built (server/build.rs):
+/// reported as not run, never as passed. Its scratch databases are `loopbal_e2e_*`.
+#[macro_export]
+macro_rules! both_backends {
+    ($(#[$meta:meta])* async fn $name:ident($backend:ident: Backend) $body:block) => {
+        $(#[$meta])*
+        mod $name {
+            #[allow(unused_imports)]
+            use super::*;
+
+            async fn run($backend: $crate::support::Backend) $body
+
+            #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+            async fn sqlite() {
+                run($crate::support::Backend::Sqlite).await
+            }
+
+            #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+            #[cfg_attr(
+                not(loopbal_postgres_tests),
+                ignore = "needs PostgreSQL: set LOOPBAL_TEST_POSTGRES_URL (DEVELOPERS.md)"
+            )]
+            async fn postgres() {
+                run($crate::support::Backend::Postgres).await
+            }
+        }
+    };
 }

@@ -1,0 +1,1 @@
+//! (to be written: kill -9 while a historian posts)

@@ -1,0 +1,14 @@
+//! Reliability: the service under process death, several instances, sustained load and hostile
+//! input. Every loop here is bounded in count and time, and every server listens on loopback.
+//!
+//! One command runs it all: `cargo test -p loopbal-server --test reliability` (SQLite, and
+//! PostgreSQL too when `LOOPBAL_TEST_POSTGRES_URL` is set; see DEVELOPERS.md). `.ci/run` runs
+//! it both ways.
+
+#[path = "../support/mod.rs"]
+mod support;
+
+mod crash;
+mod hostile;
+mod instances;
+mod load;
