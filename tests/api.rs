@@ -9,7 +9,9 @@ use std::time::Duration;
 
 use reqwest::{Client, Response, StatusCode};
 use serde_json::{json, Value};
-use support::{client, json_ok, kestrel_model, problem, token, Server, KESTREL_TAGS};
+use support::{
+    client, json_ok, kestrel_model, problem, purge_design_csv, token, Server, KESTREL_TAGS,
+};
 
 const PLANT: &str = "kestrel-kp2";
 
@@ -790,38 +792,6 @@ async fn the_log_has_requests_but_no_token_and_no_reading_value() {
     assert!(!s_log.contains(&admin[3..]), "a token is in the log");
     assert!(!s_log.contains("4242"), "a presented token is in the log");
     assert!(!s_log.contains("20417.12"), "a reading value is in the log");
-}
-
-/// The purge-design loop's readings for `hours` hours from 2026-06-01T00:00Z, from the engine's
-/// simulator (noise at each meter's σ, fixed seed), as CSV.
-fn purge_design_csv(hours: usize, skip: &dyn Fn(&str, usize) -> bool) -> (String, String) {
-    use reconcile::simulate::{readings, steady_state, ReadingPlan};
-    let model = std::fs::read_to_string(concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/../tests/data/purge-design.toml"
-    ))
-    .unwrap();
-    let plant = reconcile::parse_plant(&model).unwrap();
-    let specs = support::purge_design_specs();
-    let z = steady_state(&plant, &specs).unwrap();
-    let start = chrono::DateTime::parse_from_rfc3339("2026-06-01T00:00:00Z")
-        .unwrap()
-        .with_timezone(&chrono::Utc);
-    let plan = ReadingPlan {
-        start,
-        hours,
-        per_hour: 3,
-        seed: 7,
-        faults: vec![],
-    };
-    let mut csv = String::from("tag,time,value,quality\n");
-    for r in readings(&plant, &z, &plan) {
-        let hour = ((r.time - start).num_seconds() / 3600) as usize;
-        if !skip(&r.tag, hour) {
-            csv += &format!("{},{},{},good\n", r.tag, r.time.to_rfc3339(), r.value);
-        }
-    }
-    (model, csv)
 }
 
 /// Poll the period listing until `done` holds for it (at most 60 s).

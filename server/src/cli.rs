@@ -81,6 +81,16 @@ pub enum Command {
         #[arg(long, value_name = "N", env = "LOOPBAL_RUN_WORKERS",
               value_parser = clap::value_parser!(u64).range(1..=256))]
         run_workers: Option<u64>,
+        /// Seconds a claim on a period lasts unless renewed. Instances sharing one database
+        /// claim each period before running it and renew the claim while the run goes on; the
+        /// periods of an instance that died are taken by another once its claims lapse.
+        #[arg(long, value_name = "SECONDS", default_value_t = 60, env = "LOOPBAL_RUN_LEASE",
+              value_parser = clap::value_parser!(u64).range(2..=86400))]
+        run_lease: u64,
+        /// This instance's name in its claims and log (the host's name by default); the
+        /// process id and a random suffix are added, so names never collide.
+        #[arg(long, value_name = "NAME", env = "LOOPBAL_INSTANCE_NAME")]
+        instance_name: Option<String>,
     },
     /// The whole job on an invented methanol loop: a fresh database, the service, some days of
     /// simulated hourly readings posted over HTTP, a summary, then serve until Ctrl-C.

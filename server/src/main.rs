@@ -33,6 +33,8 @@ fn main() -> ExitCode {
             run_grace,
             run_tick,
             run_workers,
+            run_lease,
+            instance_name,
         } => {
             serve::init_tracing();
             runtime()
@@ -51,6 +53,12 @@ fn main() -> ExitCode {
                                 .map_or_else(loopbal_server::schedule::default_workers, |n| {
                                     n as usize
                                 }),
+                        },
+                        claimant: loopbal_server::schedule::Claimant {
+                            instance: loopbal_server::schedule::instance_name(
+                                instance_name.as_deref(),
+                            ),
+                            lease: std::time::Duration::from_secs(*run_lease),
                         },
                     }))
                 })

@@ -3,6 +3,11 @@
 //! late readings of the hour are in — and again whenever a reading of it is added or replaced.
 //! The solve itself runs on a blocking thread so requests keep flowing.
 //!
+//! Several instances may share one database: each period is claimed before it runs (see
+//! `store::claims`), for a lease the instance renews while the run goes on, and its run is
+//! recorded only while the claim is held. No period runs on two instances at once, and the
+//! claims of an instance that dies lapse, so its periods are taken by another.
+//!
 //! A run is: the model revision in effect at the period's start, the period's stored readings,
 //! each meter's mean of good and uncertain readings, the steadiness screen, the engine, and the
 //! whole report stored as a new current run (earlier runs stay as history).
@@ -20,7 +25,7 @@ use tokio::sync::{watch, Notify};
 use crate::api::AppState;
 use crate::health::MeterPeriod;
 use crate::ingest::in_effect;
-use crate::store::{NewRun, PlantRow, Store, StoreError};
+use crate::store::{Claim, NewRun, PlantRow, Settled, Store, StoreError};
 
 /// When the worker runs periods.
 #[derive(Debug, Clone, Copy)]
@@ -33,6 +38,24 @@ pub struct Schedule {
     pub workers: usize,
 }
 
+/// Who claims periods, and for how long: this instance among those sharing the database.
+#[derive(Debug, Clone)]
+pub struct Claimant {
+    /// This instance's name in its claims: unique among the instances sharing the database.
+    pub instance: String,
+    /// How long a claim lasts unless renewed; a run renews it every third of this.
+    pub lease: Duration,
+}
+
+impl Default for Claimant {
+    fn default() -> Claimant {
+        Claimant {
+            instance: instance_name(None),
+            lease: Duration::from_secs(60),
+        }
+    }
+}
+
 impl Default for Schedule {
     fn default() -> Schedule {
         Schedule {
@@ -41,6 +64,28 @@ impl Default for Schedule {
             workers: default_workers(),
         }
     }
+}
+
+/// An instance name for claims: `label` (the host's name when absent or blank), the process id
+/// and a random suffix, so that two instances never share one even when given the same label.
+pub fn instance_name(label: Option<&str>) -> String {
+    let host = || {
+        std::fs::read_to_string("/proc/sys/kernel/hostname")
+            .ok()
+            .or_else(|| std::env::var("HOSTNAME").ok())
+            .map(|h| h.trim().to_string())
+            .filter(|h| !h.is_empty())
+            .unwrap_or_else(|| "loopbal".into())
+    };
+    let label = label
+        .map(str::trim)
+        .filter(|l| !l.is_empty())
+        .map_or_else(host, str::to_string);
+    format!(
+        "{label}/{}/{:08x}",
+        std::process::id(),
+        rand::random::<u32>()
+    )
 }
 
 /// One worker per core.
@@ -94,25 +139,46 @@ pub struct RunOutcome {
     pub run_id: i64,
     pub report: Report,
     pub inputs: RunInputs,
+    /// How the run's claim was settled (runs made without a claim have none).
+    pub settled: Option<Settled>,
 }
 
-/// Run one period now and store the run as its current one.
+/// Run one period now and store the run as its current one. If the period is dirty and no
+/// other instance holds it, it is claimed first and the run settles its mark; if another
+/// instance is running it, this run is recorded as well, and whichever is recorded last is
+/// current.
 pub async fn run_period(
     state: &AppState,
     plant: &PlantRow,
     start: DateTime<Utc>,
 ) -> Result<RunOutcome, RunError> {
-    let (model, revision) = model_at(&state.store, plant, start).await?;
-    run_period_with(state, plant, start, model, revision).await
+    let claimant = &state.claimant;
+    let claim = state
+        .store
+        .claim_due(plant, &claimant.instance, start..=start, claimant.lease, 1)
+        .await?
+        .pop();
+    match claim {
+        Some(claim) => {
+            let models = Models::load(&state.store, plant).await?;
+            run_claimed(state, plant, &models, &claim, claimant.lease).await
+        }
+        None => {
+            let (model, revision) = model_at(&state.store, plant, start).await?;
+            run_period_with(state, plant, start, model, revision, None).await
+        }
+    }
 }
 
-/// [`run_period`] with the model already resolved.
+/// [`run_period`] with the model already resolved; with a claim, the run is recorded only
+/// while the claim is held, and settles it.
 async fn run_period_with(
     state: &AppState,
     plant: &PlantRow,
     start: DateTime<Utc>,
     model: Arc<Plant>,
     revision: i64,
+    claim: Option<&Claim>,
 ) -> Result<RunOutcome, RunError> {
     let began = Instant::now();
     let end = start + TimeDelta::seconds(model.period_seconds);
@@ -154,13 +220,20 @@ async fn run_period_with(
         inputs: serde_json::to_value(&inputs)
             .map_err(|e| RunError::Engine(format!("inputs do not serialise: {e}")))?,
     };
-    let run_id = state.store.record_run(plant, &run).await?;
+    let (run_id, settled) = match claim {
+        Some(claim) => {
+            let (id, settled) = state.store.record_claimed_run(plant, &run, claim).await?;
+            (id, Some(settled))
+        }
+        None => (state.store.record_run(plant, &run).await?, None),
+    };
     state.metrics.run(&status, began.elapsed());
     tracing::info!(plant = %plant.name, period = %start, status = %status, "period run");
     Ok(RunOutcome {
         run_id,
         report,
         inputs,
+        settled,
     })
 }
 
@@ -336,15 +409,91 @@ fn run_inputs(
     }
 }
 
-/// Run every closed dirty period of every plant, oldest first, up to `schedule.workers` at a
-/// time; returns how many ran.
+/// A plant with dirty periods in this pass: its models and the latest period start that is
+/// closed.
+struct Plan {
+    plant: PlantRow,
+    models: Arc<Models>,
+    starts_up_to: DateTime<Utc>,
+}
+
+/// Claim and run every closed dirty period of every plant that no other instance holds, oldest
+/// first per plant, the plants taking turns, up to `schedule.workers` at a time; returns how
+/// many ran. A period is claimed only when a worker is free to run it, so no claim waits in a
+/// queue while its lease runs down.
 pub async fn run_due(state: &AppState, schedule: &Schedule) -> Result<usize, RunError> {
+    let mut plans = plans(state, schedule).await?;
+    let workers = schedule.workers.max(1);
+    let claimant = &state.claimant;
+    let mut ran = 0;
+    let mut failure: Option<RunError> = None;
+    let mut running = tokio::task::JoinSet::new();
+    loop {
+        while running.len() < workers && failure.is_none() {
+            let Some(plan) = plans.front() else { break };
+            let wanted = workers - running.len();
+            let claims = match state
+                .store
+                .claim_due(
+                    &plan.plant,
+                    &claimant.instance,
+                    DateTime::<Utc>::MIN_UTC..=plan.starts_up_to,
+                    claimant.lease,
+                    wanted,
+                )
+                .await
+            {
+                Ok(claims) => claims,
+                Err(e) => {
+                    failure = Some(e.into());
+                    break;
+                }
+            };
+            if claims.len() < wanted {
+                // Nothing more of this plant is free this pass.
+                let plan = plans.pop_front().expect("a plan");
+                spawn_runs(&mut running, state, &plan, claims, claimant.lease);
+            } else {
+                spawn_runs(&mut running, state, plan, claims, claimant.lease);
+                plans.rotate_left(1);
+            }
+        }
+        let Some(joined) = running.join_next().await else {
+            break;
+        };
+        match joined.map_err(|e| RunError::Engine(e.to_string())) {
+            Ok((_, _, Ok(_))) => ran += 1,
+            Ok((plant, start, Err(RunError::Store(StoreError::ClaimLost(_))))) => {
+                tracing::warn!(plant = %plant, period = %start,
+                    "period run outlived its claim; another instance ran the period, this result was dropped");
+            }
+            Ok((_, _, Err(RunError::Store(e)))) => {
+                failure.get_or_insert(e.into());
+            }
+            Ok((plant, start, Err(e))) => {
+                tracing::error!(plant = %plant, period = %start, error = %e, "period run failed");
+            }
+            Err(e) => {
+                failure.get_or_insert(e);
+            }
+        }
+    }
+    match failure {
+        Some(e) => Err(e),
+        None => Ok(ran),
+    }
+}
+
+/// The plants with dirty periods, each with its validated models and closing time.
+async fn plans(
+    state: &AppState,
+    schedule: &Schedule,
+) -> Result<std::collections::VecDeque<Plan>, RunError> {
     let now = Utc::now();
     let grace = TimeDelta::from_std(schedule.grace).unwrap_or(TimeDelta::zero());
-    let mut due = Vec::new();
+    let mut plans = std::collections::VecDeque::new();
     for plant in state.store.plants().await? {
-        let dirty = state.store.dirty_periods(&plant).await?;
-        if dirty.is_empty() {
+        if state.store.dirty_periods(&plant).await?.is_empty() {
             continue;
         }
         // Revisions are read and validated once per plant and pass, not once per period.
@@ -356,47 +505,77 @@ pub async fn run_due(state: &AppState, schedule: &Schedule) -> Result<usize, Run
         let Ok((current, _)) = models.at(now) else {
             continue;
         };
-        let period = TimeDelta::seconds(current.period_seconds);
-        for (start, marked_at) in dirty {
-            if start + period + grace <= now {
-                let (model, revision) = models.at(start)?;
-                due.push((plant.clone(), start, marked_at, model, revision));
+        let starts_up_to = now - TimeDelta::seconds(current.period_seconds) - grace;
+        plans.push_back(Plan {
+            plant,
+            models: Arc::new(models),
+            starts_up_to,
+        });
+    }
+    Ok(plans)
+}
+
+type Joined = (String, DateTime<Utc>, Result<RunOutcome, RunError>);
+
+fn spawn_runs(
+    running: &mut tokio::task::JoinSet<Joined>,
+    state: &AppState,
+    plan: &Plan,
+    claims: Vec<Claim>,
+    lease: Duration,
+) {
+    for claim in claims {
+        let state = state.clone();
+        let plant = plan.plant.clone();
+        let models = Arc::clone(&plan.models);
+        running.spawn(async move {
+            let start = claim.period_start;
+            let outcome = run_claimed(&state, &plant, &models, &claim, lease).await;
+            (plant.name, start, outcome)
+        });
+    }
+}
+
+/// Run a claimed period, renewing the claim every third of its lease until the run is
+/// recorded; a run that fails gives its claim up, so the period stays dirty and runs again.
+async fn run_claimed(
+    state: &AppState,
+    plant: &PlantRow,
+    models: &Models,
+    claim: &Claim,
+    lease: Duration,
+) -> Result<RunOutcome, RunError> {
+    let start = claim.period_start;
+    let outcome = match models.at(start) {
+        Ok((model, revision)) => {
+            let run = run_period_with(state, plant, start, model, revision, Some(claim));
+            tokio::pin!(run);
+            let mut beat = tokio::time::interval((lease / 3).max(Duration::from_millis(1)));
+            beat.tick().await; // the first tick is immediate: the claim is fresh
+            loop {
+                tokio::select! {
+                    outcome = &mut run => break outcome,
+                    _ = beat.tick() => match state.store.renew_claim(plant, claim, lease).await {
+                        Ok(true) => {}
+                        Ok(false) => tracing::warn!(plant = %plant.name, period = %start,
+                            "the claim on this period lapsed during its run; its result will be refused"),
+                        Err(e) => tracing::warn!(plant = %plant.name, period = %start, error = %e,
+                            "could not renew the claim on this period"),
+                    },
+                }
+            }
+        }
+        Err(e) => Err(e),
+    };
+    if let Err(e) = &outcome {
+        if !matches!(e, RunError::Store(StoreError::ClaimLost(_))) {
+            if let Err(release) = state.store.release_claim(plant, claim).await {
+                tracing::warn!(plant = %plant.name, period = %start, error = %release,
+                    "could not give up the claim of a failed run; it lapses with its lease");
             }
         }
     }
-    let mut ran = 0;
-    let mut pending = due.into_iter();
-    let mut running = tokio::task::JoinSet::new();
-    loop {
-        while running.len() < schedule.workers.max(1) {
-            let Some((plant, start, marked_at, model, revision)) = pending.next() else {
-                break;
-            };
-            let state = state.clone();
-            running.spawn(async move {
-                let outcome = run_period_with(&state, &plant, start, model, revision).await;
-                (plant, start, marked_at, outcome)
-            });
-        }
-        let Some(joined) = running.join_next().await else {
-            break;
-        };
-        let (plant, start, marked_at, outcome) =
-            joined.map_err(|e| RunError::Engine(e.to_string()))?;
-        match outcome {
-            Ok(_) => {
-                // A reading that arrived during the run marked the period again after
-                // `marked_at`: the mark stays and the period runs once more.
-                state.store.clear_dirty(&plant, start, marked_at).await?;
-                ran += 1;
-            }
-            Err(RunError::Store(e)) => return Err(e.into()),
-            Err(e) => {
-                tracing::error!(plant = %plant.name, period = %start, error = %e, "period run failed");
-            }
-        }
-    }
-    Ok(ran)
+    outcome
 }
 
 /// The background worker: runs due periods on every tick and whenever `wake` is notified,
@@ -458,6 +637,18 @@ quantity = "molar_flow"
 uom = "kmol/h"
 sigma = 1.0
 "#;
+
+    #[test]
+    fn instance_names_never_collide_and_keep_their_label() {
+        let a = instance_name(Some("unit-7"));
+        let b = instance_name(Some("unit-7"));
+        assert!(a.starts_with("unit-7/"), "{a}");
+        assert_ne!(a, b, "the same label twice still makes two names");
+        assert!(a.contains(&format!("/{}/", std::process::id())), "{a}");
+        // A blank label is no label: the host's name (never an empty one) stands in.
+        let blank = instance_name(Some("  "));
+        assert!(!blank.starts_with('/'), "{blank}");
+    }
 
     #[test]
     fn a_spread_beyond_eight_sigma_makes_the_period_unsteady() {

@@ -7,7 +7,7 @@ use anyhow::Context;
 use tokio::net::TcpListener;
 
 use crate::api::{self, AppState, Limits};
-use crate::schedule::{self, Schedule};
+use crate::schedule::{self, Claimant, Schedule};
 use crate::store::{redacted, Store};
 
 pub struct Options {
@@ -15,6 +15,7 @@ pub struct Options {
     pub database: String,
     pub limits: Limits,
     pub schedule: Schedule,
+    pub claimant: Claimant,
 }
 
 /// Log lines go to stderr; `RUST_LOG` chooses what (default: info for loopbal, warn for the
@@ -34,7 +35,8 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
     let store = Store::open(&opts.database)
         .await
         .with_context(|| format!("opening the database {}", redacted(&opts.database)))?;
-    let state = AppState::new(store.clone(), opts.limits);
+    let state = AppState::new(store.clone(), opts.limits).with_claimant(opts.claimant);
+    let instance = state.claimant.instance.clone();
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
     let worker = tokio::spawn(schedule::worker(
         state.clone(),
@@ -49,7 +51,7 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
     let addr = listener.local_addr()?;
     // One plain line on stdout for scripts and tests that started us on port 0.
     println!("loopbal: listening on http://{addr}");
-    tracing::info!(%addr, database = %redacted(&opts.database), "serving");
+    tracing::info!(%addr, database = %redacted(&opts.database), instance = %instance, "serving");
     axum::serve(listener, router)
         .with_graceful_shutdown(shutdown_signal())
         .await

@@ -350,6 +350,39 @@ pub fn purge_design_specs() -> Vec<reconcile::simulate::Spec> {
     specs
 }
 
+/// The purge-design model's text and `hours` hours of its readings as CSV from
+/// 2026-06-01T00:00Z, from the engine's simulator (three per meter and hour, noise at each
+/// meter's σ, fixed seed), less those `skip(tag, hour)` names.
+pub fn purge_design_csv(hours: usize, skip: &dyn Fn(&str, usize) -> bool) -> (String, String) {
+    use reconcile::simulate::{readings, steady_state, ReadingPlan};
+    let model = std::fs::read_to_string(concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/../tests/data/purge-design.toml"
+    ))
+    .unwrap();
+    let plant = reconcile::parse_plant(&model).unwrap();
+    let specs = purge_design_specs();
+    let z = steady_state(&plant, &specs).unwrap();
+    let start = chrono::DateTime::parse_from_rfc3339("2026-06-01T00:00:00Z")
+        .unwrap()
+        .with_timezone(&chrono::Utc);
+    let plan = ReadingPlan {
+        start,
+        hours,
+        per_hour: 3,
+        seed: 7,
+        faults: vec![],
+    };
+    let mut csv = String::from("tag,time,value,quality\n");
+    for r in readings(&plant, &z, &plan) {
+        let hour = ((r.time - start).num_seconds() / 3600) as usize;
+        if !skip(&r.tag, hour) {
+            csv += &format!("{},{},{},good\n", r.tag, r.time.to_rfc3339(), r.value);
+        }
+    }
+    (model, csv)
+}
+
 /// A database backend, for tests written once and run on each.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Backend {

@@ -58,6 +58,8 @@ pub struct AppState {
     pub limits: Limits,
     /// Wakes the scheduler when a batch changed stored readings.
     pub wake: Arc<tokio::sync::Notify>,
+    /// This instance's name and lease in its claims on periods.
+    pub claimant: Arc<crate::schedule::Claimant>,
     openapi: Arc<OnceLock<String>>,
 }
 
@@ -68,8 +70,15 @@ impl AppState {
             metrics: Arc::new(Metrics::default()),
             limits,
             wake: Arc::new(tokio::sync::Notify::new()),
+            claimant: Arc::new(crate::schedule::Claimant::default()),
             openapi: Arc::new(OnceLock::new()),
         }
+    }
+
+    /// The same state claiming periods as `claimant`.
+    pub fn with_claimant(mut self, claimant: crate::schedule::Claimant) -> AppState {
+        self.claimant = Arc::new(claimant);
+        self
     }
 }
 

@@ -262,17 +262,8 @@ pub async fn rerun_period(
     caller.require(Role::Admin, &plant)?;
     let row = plant_row(&state, &plant).await?;
     let start = period_start(&state, &row, &start).await?;
-    let mark = state
-        .store
-        .dirty_periods(&row)
-        .await?
-        .into_iter()
-        .find(|(s, _)| *s == start);
     schedule::run_period(&state, &row, start)
         .await
         .map_err(run_problem)?;
-    if let Some((_, marked_at)) = mark {
-        state.store.clear_dirty(&row, start, marked_at).await?;
-    }
     Ok(Json(current(&state, &row, start).await?))
 }

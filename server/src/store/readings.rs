@@ -104,7 +104,7 @@ fn upsert_sql(rows: usize) -> String {
 /// Dirty marks of `rows` periods (plant, period_start, marked_at).
 fn mark_sql(rows: usize) -> String {
     // A re-mark always moves marked_at forward, even within one millisecond, so a run that
-    // started from an older mark never clears a newer one (see clear_dirty).
+    // started from an older mark never clears a newer one (see `claims::settle`).
     format!(
         "INSERT INTO dirty_periods (plant_id, period_start, marked_at) VALUES {}
          ON CONFLICT (plant_id, period_start) DO UPDATE SET
@@ -318,6 +318,7 @@ impl SqliteStore {
             .collect()
     }
 
+    #[cfg(test)]
     pub(super) async fn clear_dirty(
         &self,
         plant: &PlantRow,

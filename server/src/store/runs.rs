@@ -4,6 +4,7 @@ use chrono::{DateTime, Utc};
 use sqlx::types::Json;
 use sqlx::Row;
 
+use super::claims::{Claim, Settled};
 use super::{from_ms, now_ms, to_ms, PlantRow, Result, SqliteStore};
 
 /// A run to record: what it ran on and what it answered.
@@ -48,7 +49,14 @@ const COLUMNS: &str = "id, period_start, revision, engine_version, status, repor
                        inputs_json, created_at, current";
 
 impl SqliteStore {
-    pub(super) async fn record_run(&self, plant: &PlantRow, run: &NewRun) -> Result<i64> {
+    /// Record `run` as its period's current run; with a claim, only while the claim is held,
+    /// settling it in the same transaction.
+    pub(super) async fn record_run(
+        &self,
+        plant: &PlantRow,
+        run: &NewRun,
+        claim: Option<&Claim>,
+    ) -> Result<(i64, Option<Settled>)> {
         let start = to_ms(run.period_start);
         // Demoting the old current run and inserting the new one in one transaction keeps
         // exactly one current run per period (the partial unique index runs_current holds
@@ -78,8 +86,13 @@ impl SqliteStore {
         .fetch_one(&mut *tx)
         .await?;
         super::meters::write_meter_periods(&mut tx, plant, id, &run.meters).await?;
+        // A claim lost meanwhile refuses the whole run: the transaction is dropped unapplied.
+        let settled = match claim {
+            Some(claim) => Some(super::claims::settle(&mut tx, plant, claim).await?),
+            None => None,
+        };
         tx.commit().await?;
-        Ok(id)
+        Ok((id, settled))
     }
 
     pub(super) async fn current_run(

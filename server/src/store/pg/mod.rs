@@ -9,6 +9,7 @@ use sqlx::postgres::{PgConnection, PgPool, PgPoolOptions};
 
 use super::{PlantRow, Result, StoreError};
 
+mod claims;
 mod meters;
 mod plants;
 mod readings;

@@ -47,7 +47,7 @@ const UPSERT: &str = "
 
 /// Dirty marks of the periods $2 of plant $1, at $3. A re-mark always moves marked_at
 /// forward, even within one millisecond, so a run that started from an older mark never
-/// clears a newer one (see clear_dirty).
+/// clears a newer one (see `claims::settle`).
 const MARK: &str = "
     INSERT INTO dirty_periods (plant_id, period_start, marked_at)
     SELECT $1, p, $3 FROM UNNEST($2::int8[]) AS p
@@ -172,6 +172,7 @@ impl PgStore {
             .collect()
     }
 
+    #[cfg(test)]
     pub(in crate::store) async fn clear_dirty(
         &self,
         plant: &PlantRow,

@@ -10,6 +10,7 @@ use super::super::{
     from_ms, now_ms, to_ms, NewRun, PlantRow, Result, RunRow, RunSummary, StoreError,
 };
 use super::PgStore;
+use crate::store::claims::{Claim, Settled};
 
 const COLUMNS: &str = "id, period_start, revision, engine_version, status, report_json, \
                        inputs_json, created_at, current";
@@ -22,7 +23,12 @@ pub(super) fn json_text<T: serde::Serialize>(value: &T) -> Result<String> {
 }
 
 impl PgStore {
-    pub(in crate::store) async fn record_run(&self, plant: &PlantRow, run: &NewRun) -> Result<i64> {
+    pub(in crate::store) async fn record_run(
+        &self,
+        plant: &PlantRow,
+        run: &NewRun,
+        claim: Option<&Claim>,
+    ) -> Result<(i64, Option<Settled>)> {
         let start = to_ms(run.period_start);
         // Demoting the old current run and inserting the new one in one transaction keeps
         // exactly one current run per period (the partial unique index runs_current holds
@@ -55,8 +61,13 @@ impl PgStore {
         .fetch_one(&mut *tx)
         .await?;
         super::meters::write_meter_periods(&mut tx, plant, id, &run.meters).await?;
+        // A claim lost meanwhile refuses the whole run: the transaction is dropped unapplied.
+        let settled = match claim {
+            Some(claim) => Some(super::claims::settle(&mut tx, plant, claim).await?),
+            None => None,
+        };
         tx.commit().await?;
-        Ok(id)
+        Ok((id, settled))
     }
 
     pub(in crate::store) async fn current_run(
