@@ -150,6 +150,7 @@ on_both_backends!(
     schema_is_created_on_first_open_and_reopen_changes_nothing,
     revisions_are_numbered_and_immutable,
     concurrent_revisions_take_distinct_numbers,
+    concurrent_batches_over_the_same_readings_in_any_order_both_succeed,
     readings_are_idempotent_and_changes_mark_their_period,
     out_of_range_and_bad_readings_are_stored_and_flagged,
     a_failing_batch_leaves_nothing_written,
@@ -645,6 +646,60 @@ async fn concurrent_revisions_take_distinct_numbers(db: Scratch) {
     assert_eq!(numbers, (1..=8).collect::<Vec<i64>>());
     for n in numbers {
         assert_eq!(store.meters(&plant, n).await.unwrap().len(), 2);
+    }
+}
+
+/// Two historians correcting the same readings at once, one sending them in the opposite order
+/// to the other: both batches are stored, one after the other, never refused. (On PostgreSQL
+/// each batch locks the rows it writes as it goes; in the batch's own order, two such batches
+/// deadlocked and one was aborted.)
+async fn concurrent_batches_over_the_same_readings_in_any_order_both_succeed(db: Scratch) {
+    let store = &db.store;
+    let plant = store.create_plant("west").await.unwrap();
+    let start = t("2026-03-01T00:00:00Z");
+    let batch = |value: f64| -> Vec<Reading> {
+        (0..2500)
+            .flat_map(|minute| {
+                ["FT-1", "FT-2"].map(|tag| Reading {
+                    tag: tag.into(),
+                    time: start + chrono::TimeDelta::minutes(minute),
+                    value,
+                    quality: Quality::Good,
+                })
+            })
+            .collect()
+    };
+    let ingest = |readings: Vec<Reading>| {
+        let (store, plant) = (store.clone(), plant.clone());
+        tokio::spawn(async move {
+            store
+                .ingest_readings(&plant, &readings, 3600, &outside(&ranges()))
+                .await
+        })
+    };
+    let n = batch(0.0).len();
+    ingest(batch(0.0)).await.unwrap().unwrap();
+    for round in 1..=4 {
+        let forward = batch(f64::from(round));
+        let mut backward = batch(-f64::from(round));
+        backward.reverse();
+        let (a, b) = (ingest(forward), ingest(backward));
+        for done in [a.await.unwrap(), b.await.unwrap()] {
+            let counts = done.unwrap_or_else(|e| panic!("round {round}: {e}"));
+            assert_eq!(counts.replaced, n, "round {round}: {counts:?}");
+        }
+        // One batch wrote after the other: every reading holds the later one's value.
+        let stored = store
+            .readings_in(&plant, start, start + chrono::TimeDelta::days(2))
+            .await
+            .unwrap();
+        assert_eq!(stored.len(), n);
+        let last = stored[0].reading.value;
+        assert!(last.abs() == f64::from(round), "round {round}: {last}");
+        assert!(
+            stored.iter().all(|s| s.reading.value == last),
+            "round {round}: the batches interleaved"
+        );
     }
 }
 

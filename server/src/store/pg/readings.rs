@@ -75,7 +75,14 @@ impl PgStore {
         // rolls it back. Each upsert takes the row locks of the readings it meets, so a
         // concurrent batch touching the same readings waits for this one.
         let mut tx = self.pool.begin().await?;
-        for run in runs(readings, READINGS_PER_STATEMENT) {
+        // The rows are written, and so locked, in key order whatever the batch's order: two
+        // batches over the same readings then queue one behind the other, where in their own
+        // orders they could each hold a row the other waits for, a deadlock PostgreSQL ends by
+        // aborting one. The sort is stable and by the stored key (a time is kept to the ms),
+        // so repeats of one reading keep their order and the last still wins.
+        let mut ordered = readings.to_vec();
+        ordered.sort_by(|a, b| a.tag.cmp(&b.tag).then(to_ms(a.time).cmp(&to_ms(b.time))));
+        for run in runs(&ordered, READINGS_PER_STATEMENT) {
             let found = sqlx::query(UPSERT)
                 .bind(plant.id)
                 .bind(run.iter().map(|r| r.tag.as_str()).collect::<Vec<_>>())
