@@ -1,27 +1,35 @@
 //! Ingestion throughput: CSV batches of 10,000 readings posted over HTTP to the service running
 //! in-process on loopback with a SQLite file, beside the store called directly and a plain bulk
-//! insert into the same `readings` schema, all in one run on one machine.
+//! insert into the same `readings` schema, all in one run on one machine. With
+//! `LOOPBAL_BENCH_POSTGRES_URL` set, the same cases again on PostgreSQL (each on a scratch
+//! database made on that server and dropped at the end), then both side by side.
 //!
 //!     cargo bench -p loopbal-server --bench ingest
 //!     LOOPBAL_BENCH_QUICK=1 cargo bench -p loopbal-server --bench ingest     # 3 batches
 //!     LOOPBAL_BENCH_BATCHES=50 cargo bench -p loopbal-server --bench ingest
+//!     LOOPBAL_BENCH_POSTGRES_URL=postgres://postgres@127.0.0.1:5432/test \
+//!         cargo bench -p loopbal-server --bench ingest
 //!
 //! No criterion: one timed pass per case (a batch is 10,000 rows, so the pass is long enough
-//! for `Instant` to be accurate), bounded by a batch count and by 60 s for the first pass.
-//! The counts in every answer are checked, so a fast but wrong store fails the bench.
+//! for `Instant` to be accurate), bounded by a batch count and by 60 s for the first pass and
+//! for each raw insert. The counts in every answer are checked, so a fast but wrong store fails
+//! the bench.
 
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::path::Path;
+use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
 use chrono::{DateTime, TimeZone, Utc};
 use loopbal_server::api::{router, AppState, Limits};
 use loopbal_server::ingest::{self, Catalogue};
 use loopbal_server::readings::Format;
-use loopbal_server::store::{outside, Role, Store};
+use loopbal_server::store::{outside, PlantRow, Role, Store};
 use reconcile::{ModelSpec, Quality, Reading};
+use sqlx::postgres::{PgConnection, PgPoolOptions};
 use sqlx::sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePoolOptions, SqliteSynchronous};
+use sqlx::Connection;
 
 const BATCH: usize = 10_000;
 const DEFAULT_BATCHES: usize = 20;
@@ -29,6 +37,9 @@ const QUICK_BATCHES: usize = 3;
 /// The first pass (new readings) stops early after this long; later passes use its count.
 const TIME_LIMIT: Duration = Duration::from_secs(60);
 const TARGET: f64 = 100_000.0;
+/// The URL of a database on a PostgreSQL server: when set, every case runs there too, each on
+/// a scratch database `loopbal_bench_*` made for it and dropped at the end.
+const POSTGRES_VAR: &str = "LOOPBAL_BENCH_POSTGRES_URL";
 const MODEL_PATH: &str = concat!(
     env!("CARGO_MANIFEST_DIR"),
     "/../tests/data/fenwick-methanol.toml"
@@ -205,70 +216,274 @@ async fn post_all(
     }
 }
 
-/// A migrated database file with one plant (the readings table's foreign key needs it).
-async fn fresh_store(dir: &Path, name: &str) -> (Store, loopbal_server::store::PlantRow) {
-    let path = dir.join(name).to_string_lossy().into_owned();
-    let store = Store::open(&path).await.expect("open store");
-    let plant = store.create_plant("bulk").await.expect("create plant");
-    (store, plant)
+/// Where a case's fresh database is made: a file in a temporary directory, or a scratch
+/// database on the PostgreSQL server of `LOOPBAL_BENCH_POSTGRES_URL`.
+#[derive(Clone, Copy)]
+enum Db<'a> {
+    Sqlite(&'a Path),
+    Postgres(&'a Scratch),
 }
 
-/// The plain bulk insert: the same rows into the same `readings` table on a connection with
-/// the store's pragmas, one transaction, no upsert, no checks. `per_statement` rows go in
-/// one INSERT (1 = one statement per row).
-async fn raw_insert(dir: &Path, name: &str, all: &[Reading], per_statement: usize) -> Duration {
-    let (store, plant) = fresh_store(dir, name).await;
-    store.close().await;
-    let options = SqliteConnectOptions::new()
-        .filename(dir.join(name))
-        .journal_mode(SqliteJournalMode::Wal)
-        .synchronous(SqliteSynchronous::Normal)
-        .foreign_keys(true);
-    let pool = SqlitePoolOptions::new()
-        .max_connections(1)
-        .connect_with(options)
-        .await
-        .expect("open raw pool");
-    let received_at = Utc::now().timestamp_millis();
-    let mut sql = String::from(
-        "INSERT INTO readings (plant_id, tag, time, value, quality, received_at, out_of_range) VALUES ",
-    );
-    let row = "(?, ?, ?, ?, ?, ?, ?)";
-    let full = {
-        let mut s = sql.clone();
-        s.push_str(&vec![row; per_statement].join(", "));
-        s
-    };
-    let t = Instant::now();
-    let mut tx = pool.begin().await.expect("begin");
-    for chunk in all.chunks(per_statement) {
-        let text = if chunk.len() == per_statement {
-            full.as_str()
-        } else {
-            sql.push_str(&vec![row; chunk.len()].join(", "));
-            sql.as_str()
-        };
-        let mut q = sqlx::query(text);
-        for r in chunk {
-            q = q
-                .bind(plant.id)
-                .bind(&r.tag)
-                .bind(r.time.timestamp_millis())
-                .bind(r.value)
-                .bind("good")
-                .bind(received_at)
-                .bind(false);
+impl Db<'_> {
+    fn label(self) -> &'static str {
+        match self {
+            Db::Sqlite(_) => "SQLite",
+            Db::Postgres(_) => "PostgreSQL",
         }
-        q.execute(&mut *tx).await.expect("raw insert");
     }
-    tx.commit().await.expect("commit");
-    let elapsed = t.elapsed();
-    let n: i64 = sqlx::query_scalar("SELECT COUNT(*) FROM readings")
-        .fetch_one(&pool)
+
+    /// A new empty database for the case `case`: its URL (a path for SQLite).
+    async fn fresh(self, case: &str) -> String {
+        match self {
+            Db::Sqlite(dir) => dir
+                .join(format!("{case}.db"))
+                .to_string_lossy()
+                .into_owned(),
+            Db::Postgres(scratch) => scratch.create(case).await,
+        }
+    }
+}
+
+/// The scratch databases made on a PostgreSQL server, dropped when this is (also when the
+/// bench panics).
+struct Scratch {
+    /// The URL of a database that exists on the server (the scratch ones are made from it).
+    server: String,
+    made: Mutex<Vec<String>>,
+}
+
+impl Scratch {
+    async fn create(&self, case: &str) -> String {
+        let name = format!("loopbal_bench_{:08x}_{case}", rand::random::<u32>());
+        let mut c = PgConnection::connect(&self.server)
+            .await
+            .unwrap_or_else(|e| panic!("connecting to {POSTGRES_VAR}: {e}"));
+        sqlx::query(&format!("CREATE DATABASE {name}"))
+            .execute(&mut c)
+            .await
+            .expect("create a scratch database");
+        c.close().await.expect("close");
+        self.made.lock().unwrap().push(name.clone());
+        with_database(&self.server, &name)
+    }
+
+    /// The server's version and the settings that decide how fast a commit is.
+    async fn describe(&self) -> String {
+        let mut c = PgConnection::connect(&self.server)
+            .await
+            .unwrap_or_else(|e| panic!("connecting to {POSTGRES_VAR}: {e}"));
+        let mut out = Vec::new();
+        for setting in [
+            "server_version",
+            "fsync",
+            "synchronous_commit",
+            "shared_buffers",
+        ] {
+            let value: String = sqlx::query_scalar(&format!("SHOW {setting}"))
+                .fetch_one(&mut c)
+                .await
+                .expect("SHOW a setting");
+            out.push(format!("{setting}={value}"));
+        }
+        let _ = c.close().await;
+        out.join(", ")
+    }
+}
+
+impl Drop for Scratch {
+    fn drop(&mut self) {
+        let names = std::mem::take(&mut *self.made.lock().unwrap_or_else(|e| e.into_inner()));
+        if names.is_empty() {
+            return;
+        }
+        let server = self.server.clone();
+        // Drop may run inside the bench's runtime: a runtime of its own on a thread of its own.
+        let dropped = std::thread::spawn(move || {
+            let rt = tokio::runtime::Builder::new_current_thread()
+                .enable_all()
+                .build()
+                .expect("runtime");
+            rt.block_on(async move {
+                let mut c = PgConnection::connect(&server).await.ok()?;
+                for name in names {
+                    let sql = format!("DROP DATABASE IF EXISTS {name} WITH (FORCE)");
+                    if let Err(e) = sqlx::query(&sql).execute(&mut c).await {
+                        eprintln!("could not drop the scratch database {name}: {e}");
+                    }
+                }
+                c.close().await.ok()
+            })
+        })
+        .join();
+        if !matches!(dropped, Ok(Some(()))) {
+            eprintln!("could not reach {POSTGRES_VAR} to drop the scratch databases");
+        }
+    }
+}
+
+/// `url` with its database replaced by `name`; the query, if any, is kept.
+fn with_database(url: &str, name: &str) -> String {
+    let (base, query) = url.split_once('?').unwrap_or((url, ""));
+    let scheme_end = base.find("://").expect("a URL") + 3;
+    let host_end = base[scheme_end..]
+        .find('/')
+        .map_or(base.len(), |i| scheme_end + i);
+    let query = if query.is_empty() {
+        String::new()
+    } else {
+        format!("?{query}")
+    };
+    format!("{}/{name}{query}", &base[..host_end])
+}
+
+/// A migrated database with one plant (the readings table's foreign key needs it).
+async fn fresh_store(db: Db<'_>, case: &str) -> (Store, String, PlantRow) {
+    let url = db.fresh(case).await;
+    let store = Store::open(&url).await.expect("open store");
+    let plant = store.create_plant("bulk").await.expect("create plant");
+    (store, url, plant)
+}
+
+/// The plain bulk insert: the same rows into the same `readings` table, one transaction, no
+/// upsert, no checks, on one connection (with the store's pragmas on SQLite). `per_statement`
+/// rows go in one INSERT (1 = one statement per row). Stops after [`TIME_LIMIT`]; answers the
+/// rows inserted and the time.
+async fn raw_insert(
+    db: Db<'_>,
+    case: &str,
+    all: &[Reading],
+    per_statement: usize,
+) -> (usize, Duration) {
+    let (store, url, plant) = fresh_store(db, case).await;
+    store.close().await;
+    let received_at = Utc::now().timestamp_millis();
+    let columns =
+        "INSERT INTO readings (plant_id, tag, time, value, quality, received_at, out_of_range) VALUES ";
+    // SQLite takes anonymous `?`; PostgreSQL numbered `$n`.
+    let statement = |rows: usize| {
+        let mut sql = String::from(columns);
+        for r in 0..rows {
+            if r > 0 {
+                sql.push_str(", ");
+            }
+            match db {
+                Db::Sqlite(_) => sql.push_str("(?, ?, ?, ?, ?, ?, ?)"),
+                Db::Postgres(_) => {
+                    let n = 7 * r;
+                    let _ = write!(
+                        sql,
+                        "(${}, ${}, ${}, ${}, ${}, ${}, ${})",
+                        n + 1,
+                        n + 2,
+                        n + 3,
+                        n + 4,
+                        n + 5,
+                        n + 6,
+                        n + 7
+                    );
+                }
+            }
+        }
+        sql
+    };
+    let full = statement(per_statement);
+    macro_rules! insert_all {
+        ($pool:expr) => {{
+            let t = Instant::now();
+            let mut done = 0;
+            let mut tx = $pool.begin().await.expect("begin");
+            for chunk in all.chunks(per_statement) {
+                let short;
+                let text = if chunk.len() == per_statement {
+                    full.as_str()
+                } else {
+                    short = statement(chunk.len());
+                    short.as_str()
+                };
+                let mut q = sqlx::query(text);
+                for r in chunk {
+                    q = q
+                        .bind(plant.id)
+                        .bind(&r.tag)
+                        .bind(r.time.timestamp_millis())
+                        .bind(r.value)
+                        .bind("good")
+                        .bind(received_at)
+                        .bind(false);
+                }
+                q.execute(&mut *tx).await.expect("raw insert");
+                done += chunk.len();
+                if t.elapsed() >= TIME_LIMIT {
+                    break;
+                }
+            }
+            tx.commit().await.expect("commit");
+            let elapsed = t.elapsed();
+            let n: i64 = sqlx::query_scalar("SELECT COUNT(*) FROM readings")
+                .fetch_one(&$pool)
+                .await
+                .expect("count");
+            assert_eq!(n as usize, done, "raw insert stored every row");
+            $pool.close().await;
+            (done, elapsed)
+        }};
+    }
+    match db {
+        Db::Sqlite(_) => {
+            let options = SqliteConnectOptions::new()
+                .filename(&url)
+                .journal_mode(SqliteJournalMode::Wal)
+                .synchronous(SqliteSynchronous::Normal)
+                .foreign_keys(true);
+            let pool = SqlitePoolOptions::new()
+                .max_connections(1)
+                .connect_with(options)
+                .await
+                .expect("open raw pool");
+            insert_all!(pool)
+        }
+        Db::Postgres(_) => {
+            let pool = PgPoolOptions::new()
+                .max_connections(1)
+                .connect(&url)
+                .await
+                .expect("open raw pool");
+            insert_all!(pool)
+        }
+    }
+}
+
+/// PostgreSQL's own bulk path: the same rows as CSV through `COPY readings FROM STDIN`, one
+/// statement (the text is made before the clock starts).
+async fn raw_copy(db: Db<'_>, all: &[Reading]) -> Duration {
+    let (store, url, plant) = fresh_store(db, "copy").await;
+    store.close().await;
+    let received_at = Utc::now().timestamp_millis();
+    let mut text = String::with_capacity(all.len() * 64);
+    for r in all {
+        let _ = writeln!(
+            text,
+            "{},{},{},{},good,{received_at},false",
+            plant.id,
+            r.tag,
+            r.time.timestamp_millis(),
+            r.value
+        );
+    }
+    let mut c = PgConnection::connect(&url).await.expect("connect");
+    let t = Instant::now();
+    let mut copy = c
+        .copy_in_raw(
+            "COPY readings (plant_id, tag, time, value, quality, received_at, out_of_range) \
+             FROM STDIN (FORMAT csv)",
+        )
         .await
-        .expect("count");
-    assert_eq!(n as usize, all.len(), "raw insert stored every row");
-    pool.close().await;
+        .expect("COPY");
+    copy.send(text.as_bytes()).await.expect("COPY data");
+    let rows = copy.finish().await.expect("COPY finished");
+    let elapsed = t.elapsed();
+    assert_eq!(rows as usize, all.len(), "COPY stored every row");
+    c.close().await.expect("close");
     elapsed
 }
 
@@ -283,9 +498,6 @@ fn machine() -> Vec<String> {
         })
         .unwrap_or_else(|| "unknown".into());
     let cores = std::thread::available_parallelism().map_or(0, |n| n.get());
-    let load = std::fs::read_to_string("/proc/loadavg")
-        .map(|s| s.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
-        .unwrap_or_else(|_| "unknown".into());
     let profile = if cfg!(debug_assertions) {
         "debug (not optimised!)"
     } else {
@@ -293,9 +505,14 @@ fn machine() -> Vec<String> {
     };
     vec![
         format!("cpu: {cpu}, {cores} cores available"),
-        format!("load average before: {load}"),
-        format!("build: {profile}; SQLite file in a temporary directory, WAL, synchronous=NORMAL"),
+        format!("build: {profile}"),
     ]
+}
+
+fn loadavg() -> String {
+    std::fs::read_to_string("/proc/loadavg")
+        .map(|s| s.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
+        .unwrap_or_else(|_| "unknown".into())
 }
 
 fn batches_wanted() -> usize {
@@ -322,29 +539,81 @@ fn main() {
     rt.block_on(run());
 }
 
+/// Everything the cases post or insert, made before any clock starts.
+struct Data {
+    model_text: String,
+    spec: ModelSpec,
+    meters: usize,
+    new: Vec<Vec<Reading>>,
+    new_csv: Vec<String>,
+    changed_csv: Vec<String>,
+}
+
 async fn run() {
     let batches = batches_wanted();
-    let context = machine();
     let dir = tempfile::tempdir().expect("temporary directory");
     let model_text = std::fs::read_to_string(MODEL_PATH).expect("read the Fenwick model");
     let spec = ModelSpec::from_toml(&model_text).expect("Fenwick model parses");
-    let plant_name = spec.name.clone();
     let meters: Vec<Meter> = spec.meters.iter().map(meter).collect();
     let start = Utc.with_ymd_and_hms(2026, 1, 1, 0, 0, 0).unwrap();
-
-    // Every batch's readings and bodies, made before any clock starts.
     let new: Vec<Vec<Reading>> = (0..batches)
         .map(|b| readings(&meters, start, b * BATCH, BATCH, 0.0))
         .collect();
     let changed: Vec<Vec<Reading>> = (0..batches)
         .map(|b| readings(&meters, start, b * BATCH, BATCH, 0.5))
         .collect();
-    let new_csv: Vec<String> = new.iter().map(|b| csv(b)).collect();
-    let changed_csv: Vec<String> = changed.iter().map(|b| csv(b)).collect();
+    let data = Data {
+        new_csv: new.iter().map(|b| csv(b)).collect(),
+        changed_csv: changed.iter().map(|b| csv(b)).collect(),
+        new,
+        model_text,
+        meters: meters.len(),
+        spec,
+    };
 
+    println!();
+    println!(
+        "ingest: up to {batches} batch(es) of {BATCH} readings, {} meters of {}, hourly",
+        data.meters, data.spec.name
+    );
+    for line in machine() {
+        println!("  {line}");
+    }
+    let mut results = Vec::new();
+    let sqlite = measure(Db::Sqlite(dir.path()), &data).await;
+    print_figures(
+        "SQLite file in a temporary directory, WAL, synchronous=NORMAL",
+        &sqlite,
+    );
+    results.push(("SQLite", sqlite));
+    if let Some(server) = std::env::var(POSTGRES_VAR).ok().filter(|s| !s.is_empty()) {
+        let scratch = Scratch {
+            server,
+            made: Mutex::new(Vec::new()),
+        };
+        let settings = scratch.describe().await;
+        let pg = measure(Db::Postgres(&scratch), &data).await;
+        print_figures(
+            &format!("PostgreSQL, a scratch database per case ({settings})"),
+            &pg,
+        );
+        results.push(("PostgreSQL", pg));
+        drop(scratch);
+    } else {
+        println!("\n(set {POSTGRES_VAR} to measure PostgreSQL as well)");
+    }
+    if results.len() > 1 {
+        print_side_by_side(&results);
+    }
+}
+
+/// Every case on fresh databases of `db`.
+async fn measure(db: Db<'_>, data: &Data) -> Vec<Figure> {
+    let load_before = loadavg();
+    let plant_name = data.spec.name.clone();
     // The service, in-process on an ephemeral loopback port.
-    let db = dir.path().join("http.db").to_string_lossy().into_owned();
-    let store = Store::open(&db).await.expect("open store");
+    let url = db.fresh("http").await;
+    let store = Store::open(&url).await.expect("open store");
     let token = store
         .create_token(Role::Admin, None)
         .await
@@ -362,7 +631,7 @@ async fn run() {
         .put(format!("http://{addr}/api/v1/plants/{plant_name}/model"))
         .bearer_auth(&token.token)
         .header("content-type", "application/toml")
-        .body(model_text.clone())
+        .body(data.model_text.clone())
         .send()
         .await
         .expect("PUT model");
@@ -380,7 +649,7 @@ async fn run() {
     let mut figures = Vec::new();
     let first = post_all(
         &client,
-        &new_csv,
+        &data.new_csv,
         (BATCH, 0, 0),
         Some(TIME_LIMIT),
         "HTTP, new",
@@ -392,7 +661,7 @@ async fn run() {
     figures.push(
         post_all(
             &client,
-            &new_csv[..done],
+            &data.new_csv[..done],
             (0, 0, BATCH),
             None,
             "HTTP, unchanged",
@@ -403,7 +672,7 @@ async fn run() {
     figures.push(
         post_all(
             &client,
-            &changed_csv[..done],
+            &data.changed_csv[..done],
             (0, BATCH, 0),
             None,
             "HTTP, replaced",
@@ -424,7 +693,7 @@ async fn run() {
         .expect("catalogue")
         .expect("a model");
     let t = Instant::now();
-    for body in &new_csv[..done] {
+    for body in &data.new_csv[..done] {
         let checked = ingest::check_batch(body.as_bytes(), Format::Csv, &catalogue).expect("check");
         assert_eq!(checked.good.len(), BATCH);
     }
@@ -435,19 +704,21 @@ async fn run() {
         elapsed: t.elapsed(),
         slowest: None,
     });
-    drop(server);
+    server.abort();
+    let _ = server.await;
     store.close().await;
 
     // The store called directly with readings already checked, into a fresh database.
-    let (direct, plant) = fresh_store(dir.path(), "direct.db").await;
-    let ranges: BTreeMap<String, [f64; 2]> = spec
+    let (direct, _, plant) = fresh_store(db, "direct").await;
+    let ranges: BTreeMap<String, [f64; 2]> = data
+        .spec
         .meters
         .iter()
         .filter_map(|m| m.range.map(|r| (m.tag.clone(), r)))
         .collect();
     let mut elapsed = Duration::ZERO;
     let mut slowest = Duration::ZERO;
-    for batch in &new[..done] {
+    for batch in &data.new[..done] {
         let t = Instant::now();
         let counts = direct
             .ingest_readings(&plant, batch, 3600, &outside(&ranges))
@@ -468,38 +739,47 @@ async fn run() {
     direct.close().await;
 
     // The plain bulk insert of the same rows, one transaction for them all.
-    let all: Vec<Reading> = new[..done].iter().flatten().cloned().collect();
-    let raw_one = raw_insert(dir.path(), "raw-1.db", &all, 1).await;
+    let all: Vec<Reading> = data.new[..done].iter().flatten().cloned().collect();
+    let (rows, elapsed) = raw_insert(db, "raw1", &all, 1).await;
     figures.push(Figure {
         case: "raw insert",
         what: "sqlx, one INSERT per row, one transaction, no upsert",
-        rows: all.len(),
-        elapsed: raw_one,
+        rows,
+        elapsed,
         slowest: None,
     });
-    let raw_multi = raw_insert(dir.path(), "raw-500.db", &all, 500).await;
+    let (rows, elapsed) = raw_insert(db, "raw500", &all, 500).await;
     figures.push(Figure {
         case: "raw insert, 500/stmt",
         what: "sqlx, 500 rows per INSERT, one transaction, no upsert",
-        rows: all.len(),
-        elapsed: raw_multi,
+        rows,
+        elapsed,
         slowest: None,
     });
-
-    println!();
-    println!(
-        "ingest: {done} batch(es) of {BATCH} readings, {} meters of {plant_name}, hourly",
-        meters.len()
-    );
-    for line in &context {
-        println!("  {line}");
+    if let Db::Postgres(_) = db {
+        figures.push(Figure {
+            case: "raw COPY",
+            what: "COPY readings FROM STDIN (CSV), one statement, no upsert",
+            rows: all.len(),
+            elapsed: raw_copy(db, &all).await,
+            slowest: None,
+        });
     }
-    println!();
+    let label = db.label();
+    println!(
+        "\n{label}: load average {load_before} before, {} after",
+        loadavg()
+    );
+    figures
+}
+
+fn print_figures(title: &str, figures: &[Figure]) {
+    println!("{title}");
     println!(
         "{:<22} {:>9} {:>10} {:>14} {:>13}  what",
         "case", "readings", "seconds", "readings/s", "slowest batch"
     );
-    for f in &figures {
+    for f in figures {
         println!(
             "{:<22} {:>9} {:>10.3} {:>14.0} {:>13}  {}",
             f.case,
@@ -511,22 +791,52 @@ async fn run() {
             f.what
         );
     }
+    let rate = |case: &str| figures.iter().find(|f| f.case == case).map(Figure::rate);
     let http_new = figures[0].rate();
-    println!();
     println!(
         "target: HTTP ingestion of new readings >= {TARGET:.0} readings/s: {} ({http_new:.0}/s; \
          {:.0} % of the store called directly, {:.0} % of the raw 500-row INSERT)",
         if http_new >= TARGET { "met" } else { "NOT met" },
-        100.0 * http_new / figures[4].rate(),
-        100.0 * http_new / figures[6].rate()
+        100.0 * http_new / rate("store direct").unwrap_or(f64::NAN),
+        100.0 * http_new / rate("raw insert, 500/stmt").unwrap_or(f64::NAN)
     );
-    if let Ok(load) = std::fs::read_to_string("/proc/loadavg") {
-        println!(
-            "load average after: {}",
-            load.split_whitespace()
-                .take(3)
-                .collect::<Vec<_>>()
-                .join(" ")
-        );
+}
+
+/// The readings per second of every case, one column per backend.
+fn print_side_by_side(results: &[(&str, Vec<Figure>)]) {
+    println!();
+    print!("{:<22}", "readings/s");
+    for (label, _) in results {
+        print!(" {label:>12}");
     }
+    println!(" {:>8}", "ratio");
+    let mut cases: Vec<&str> = Vec::new();
+    for (_, figures) in results {
+        for f in figures {
+            if !cases.contains(&f.case) {
+                cases.push(f.case);
+            }
+        }
+    }
+    for case in cases {
+        print!("{case:<22}");
+        let rates: Vec<Option<f64>> = results
+            .iter()
+            .map(|(_, figures)| figures.iter().find(|f| f.case == case).map(Figure::rate))
+            .collect();
+        for r in &rates {
+            match r {
+                Some(r) => print!(" {r:>12.0}"),
+                None => print!(" {:>12}", "-"),
+            }
+        }
+        match (
+            rates.first().copied().flatten(),
+            rates.last().copied().flatten(),
+        ) {
+            (Some(a), Some(b)) if rates.len() > 1 => println!(" {:>8.2}", b / a),
+            _ => println!(" {:>8}", "-"),
+        }
+    }
+    println!("(ratio: last column over the first)");
 }

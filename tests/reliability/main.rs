@@ -3,7 +3,7 @@
 //!
 //! One command runs it all: `cargo test -p loopbal-server --test reliability` (SQLite, and
 //! PostgreSQL too when `LOOPBAL_TEST_POSTGRES_URL` is set; see DEVELOPERS.md). `.ci/run` runs
-//! it both ways.
+//! it both ways. The sustained load runs 60 s per backend; `LOOPBAL_LOAD_SECONDS` shortens it.
 
 #[path = "../support/mod.rs"]
 mod support;
