@@ -86,13 +86,16 @@ fn answer_problem(batch: &Batch, answer: &Value) -> Option<String> {
         .then(|| format!("{} was answered {answer}", batch.describe()))
 }
 
+/// The server as each cycle starts it. A killed server's claims on the periods it was running
+/// lapse only with their lease, and the restarted one (a new instance) waits for that before
+/// running those periods; a short lease keeps the cycles short (the default is 60 s).
 async fn start(log_at: &Path, url: &str) -> Server {
     let (log_at, url) = (log_at.to_path_buf(), url.to_string());
     tokio::task::spawn_blocking(move || {
         Server::start_on(
             &log_at,
             &url,
-            &["--run-grace", "0", "--run-tick", "1"],
+            &["--run-grace", "0", "--run-tick", "1", "--run-lease", "2"],
             "warn",
         )
     })
