@@ -72,6 +72,14 @@ fn full_svd(a: &DMatrix<f64>) -> (DMatrix<f64>, Vec<f64>, DMatrix<f64>) {
     } else {
         a.clone()
     };
+    // A matrix holding NaN or ∞ (a solve diverged on absurd readings, a σ so small its inverse
+    // overflows) has no SVD, and nalgebra's iteration never ends on one. It is taken as carrying
+    // no information, all singular values zero: nothing is called observable or redundant.
+    let padded = if padded.iter().all(|x| x.is_finite()) {
+        padded
+    } else {
+        DMatrix::zeros(padded.nrows(), padded.ncols())
+    };
     let svd = padded.svd(true, true);
     let u = svd.u.expect("requested");
     let v_t = svd.v_t.expect("requested");
@@ -382,5 +390,29 @@ impl Classification {
         }
         let m = self.u.nrows();
         DMatrix::identity(m, m) - &self.u * self.u.transpose()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_matrix_with_nan_or_infinity_has_no_singular_value_and_the_svd_ends() {
+        let mut a = DMatrix::from_row_slice(
+            3,
+            4,
+            &[1.0, 2.0, 0.0, 1.0, 0.0, 1.0, 3.0, 0.5, 2.0, 0.0, 1.0, 1.0],
+        );
+        let (_, s, v) = full_svd(&a);
+        assert_eq!(s.len(), 4);
+        assert!(s[2] > 0.0, "a finite matrix keeps its rank: {s:?}");
+        for bad in [f64::NAN, f64::INFINITY] {
+            a[(1, 2)] = bad;
+            let (u, s, v_bad) = full_svd(&a);
+            assert_eq!(s, vec![0.0; 4]);
+            assert_eq!(v_bad.shape(), v.shape());
+            assert!(u.iter().chain(v_bad.iter()).all(|x| x.is_finite()));
+        }
     }
 }

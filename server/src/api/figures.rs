@@ -54,11 +54,7 @@ impl PeriodRange {
         if from >= to {
             return Err(Problem::bad_request("from must be before to"));
         }
-        let row = state
-            .store
-            .plant(plant)
-            .await?
-            .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))?;
+        let row = super::plant_row(state, plant).await?;
         let (model, _) = schedule::model_at(&state.store, &row, to)
             .await
             .map_err(run_problem)?;

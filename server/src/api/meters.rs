@@ -368,10 +368,11 @@ const MAX_NOTE_CHARS: usize = 4000;
     request_body(content = NewNote, description = "The note", content_type = "application/json"),
     responses(
         (status = 201, description = "Recorded", body = NoteBody),
-        (status = 400, description = "Not JSON of the expected shape, unknown kind, bad time", body = Problem, content_type = "application/problem+json"),
+        (status = 400, description = "Not JSON of the expected shape, unknown kind, bad time, text over 4000 characters or holding U+0000", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The token's role is not maintain, or it is for another plant", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such plant or meter", body = Problem, content_type = "application/problem+json"),
+        (status = 413, description = "Body over the size limit", body = Problem, content_type = "application/problem+json"),
     ),
     security(("token" = []))
 )]
@@ -383,6 +384,9 @@ pub async fn post_note(
 ) -> Result<Response, Problem> {
     caller.require(Role::Maintain, &plant)?;
     let Json(note) = body.map_err(|e| {
+        if e.status() == StatusCode::PAYLOAD_TOO_LARGE {
+            return super::too_large(state.limits.max_body_bytes);
+        }
         Problem::bad_request(format!(
             "a note is JSON {{\"kind\": \"checked|recalibrated|replaced\", \"text\": \"...\", \
              \"effective_at\": \"RFC 3339\"}}: {}",
@@ -399,6 +403,12 @@ pub async fn post_note(
         return Err(Problem::bad_request(format!(
             "text is longer than {MAX_NOTE_CHARS} characters"
         )));
+    }
+    // No store keeps it: PostgreSQL's text refuses the character.
+    if note.text.contains('\0') {
+        return Err(Problem::bad_request(
+            "text holds the character U+0000, which a note may not hold",
+        ));
     }
     let effective_at = match note.effective_at.as_deref() {
         Some(t) => parse_time("effective_at", t)?,

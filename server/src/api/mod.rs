@@ -336,14 +336,7 @@ pub(crate) fn body_bytes(
 ) -> Result<axum::body::Bytes, Problem> {
     body.map_err(|e| {
         if e.status() == StatusCode::PAYLOAD_TOO_LARGE {
-            Problem::new(
-                StatusCode::PAYLOAD_TOO_LARGE,
-                "too-large",
-                format!(
-                    "the body is over the limit of {} bytes; send smaller batches",
-                    state.limits.max_body_bytes
-                ),
-            )
+            too_large(state.limits.max_body_bytes)
         } else {
             Problem::new(
                 e.status(),
@@ -352,6 +345,15 @@ pub(crate) fn body_bytes(
             )
         }
     })
+}
+
+/// A body over the size limit.
+pub(crate) fn too_large(limit: usize) -> Problem {
+    Problem::new(
+        StatusCode::PAYLOAD_TOO_LARGE,
+        "too-large",
+        format!("the body is over the limit of {limit} bytes; send smaller batches"),
+    )
 }
 
 /// Plant names are path segments and file-system-safe: 1 to 64 of letters, digits, `.`, `_`
@@ -386,16 +388,18 @@ pub(crate) fn rfc3339(t: chrono::DateTime<chrono::Utc>) -> String {
     t.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
 }
 
-/// The stored plant of a path, or 404 naming it.
+/// The stored plant of a path, or 404 naming it. A name no plant can have (see
+/// [`check_plant_name`]) is not looked up: it may hold what a store cannot even compare, such
+/// as U+0000, which PostgreSQL's text refuses with an error.
 pub(crate) async fn plant_row(
     state: &AppState,
     plant: &str,
 ) -> Result<crate::store::PlantRow, Problem> {
-    state
-        .store
-        .plant(plant)
-        .await?
-        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))
+    let not_found = || Problem::not_found(format!("no plant named \"{plant}\""));
+    if check_plant_name(plant).is_err() {
+        return Err(not_found());
+    }
+    state.store.plant(plant).await?.ok_or_else(not_found)
 }
 
 /// Why a period could not be run, as a problem.

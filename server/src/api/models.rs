@@ -14,7 +14,7 @@ use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
 use super::problem::{ItemError, Problem};
-use super::{body_bytes, check_plant_name, media_type, rfc3339, AppState};
+use super::{body_bytes, check_plant_name, media_type, plant_row, rfc3339, AppState};
 use crate::store::{ModelRevision, Role, StoreError};
 
 #[derive(Debug, Deserialize, IntoParams)]
@@ -142,6 +142,20 @@ pub async fn put_model(
     }
     // The engine's validator decides; a model it refuses is never stored.
     Plant::new(spec.clone()).map_err(invalid_model)?;
+    let nul = nul_items(&spec);
+    if !nul.is_empty() || text.contains('\0') {
+        return Err(Problem::unprocessable(
+            "the model holds the character U+0000, which no text of a model may hold",
+        )
+        .with_errors(if nul.is_empty() {
+            vec![ItemError {
+                item: "body".into(),
+                message: "holds U+0000".into(),
+            }]
+        } else {
+            nul
+        }));
+    }
     let row = match state.store.plant(&plant).await? {
         Some(row) => row,
         None => match state.store.create_plant(&plant).await {
@@ -170,6 +184,46 @@ pub async fn put_model(
         response.headers_mut().insert(header::LOCATION, location);
     }
     Ok(response)
+}
+
+/// Every text of the model (ids, references, names, keys) that holds U+0000, by its place in
+/// the model (`meter[3].tag`). The engine has no quarrel with such ids, but no store keeps
+/// them: PostgreSQL's text refuses the character.
+fn nul_items(spec: &ModelSpec) -> Vec<ItemError> {
+    fn walk(value: &serde_json::Value, at: &str, found: &mut Vec<ItemError>) {
+        use serde_json::Value;
+        let hit = |item: String| ItemError {
+            item,
+            message: "holds the character U+0000".into(),
+        };
+        match value {
+            Value::String(s) if s.contains('\0') => found.push(hit(at.to_string())),
+            Value::Array(items) => {
+                for (i, v) in items.iter().enumerate() {
+                    walk(v, &format!("{at}[{i}]"), found);
+                }
+            }
+            Value::Object(fields) => {
+                for (k, v) in fields {
+                    let place = if at.is_empty() {
+                        k.clone()
+                    } else {
+                        format!("{at}.{k}")
+                    };
+                    if k.contains('\0') {
+                        found.push(hit(place.clone()));
+                    }
+                    walk(v, &place, found);
+                }
+            }
+            _ => {}
+        }
+    }
+    let mut found = Vec::new();
+    if let Ok(value) = serde_json::to_value(spec) {
+        walk(&value, "", &mut found);
+    }
+    found
 }
 
 fn invalid_model(e: ModelError) -> Problem {
@@ -219,11 +273,7 @@ pub async fn get_model(
     Path(plant): Path<String>,
 ) -> Result<Json<RevisionBody>, Problem> {
     caller.require(Role::Read, &plant)?;
-    let row = state
-        .store
-        .plant(&plant)
-        .await?
-        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))?;
+    let row = plant_row(&state, &plant).await?;
     let rev = state
         .store
         .current_model(&row, Utc::now())
@@ -260,12 +310,28 @@ pub async fn list_revisions(
     Path(plant): Path<String>,
 ) -> Result<Json<Vec<RevisionSummary>>, Problem> {
     caller.require(Role::Read, &plant)?;
-    let row = state
-        .store
-        .plant(&plant)
-        .await?
-        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))?;
+    let row = plant_row(&state, &plant).await?;
     let mut revisions = state.store.list_revisions(&row).await?;
     revisions.sort_by_key(|r| r.revision);
     Ok(Json(revisions.iter().map(|r| summary(&plant, r)).collect()))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_nul_in_any_text_of_a_model_is_named_by_its_place() {
+        let text = std::fs::read_to_string(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/../tests/data/kestrel-loop.toml"
+        ))
+        .expect("the kestrel model");
+        let mut spec = ModelSpec::from_toml(&text).expect("parses");
+        assert!(nul_items(&spec).is_empty());
+        spec.meters[10].tag = "KP2-FI-501\0".into();
+        spec.components[0].id = "\0".into();
+        let items: Vec<String> = nul_items(&spec).into_iter().map(|e| e.item).collect();
+        assert_eq!(items, ["component[0].id", "meter[10].tag"]);
+    }
 }

@@ -12,7 +12,7 @@ use utoipa::{IntoParams, ToSchema};
 
 use super::auth::Caller;
 use super::problem::Problem;
-use super::{body_bytes, media_type, AppState};
+use super::{body_bytes, media_type, plant_row, AppState};
 use crate::ingest::{self, BatchError, Catalogue, IngestAnswer};
 use crate::readings::Format;
 use crate::store::Role;
@@ -62,11 +62,7 @@ pub async fn post_readings(
             )))
         }
     };
-    let row = state
-        .store
-        .plant(&plant)
-        .await?
-        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))?;
+    let row = plant_row(&state, &plant).await?;
     let catalogue = Catalogue::load(&state.store, &row).await?.ok_or_else(|| {
         Problem::new(
             axum::http::StatusCode::CONFLICT,
@@ -198,11 +194,7 @@ pub async fn get_readings(
             query.from, query.to
         )));
     }
-    let row = state
-        .store
-        .plant(&plant)
-        .await?
-        .ok_or_else(|| Problem::not_found(format!("no plant named \"{plant}\"")))?;
+    let row = plant_row(&state, &plant).await?;
     let stored = state.store.readings_in(&row, from, to).await?;
     let readings: Vec<StoredReadingBody> = stored
         .into_iter()
