@@ -3,12 +3,13 @@
 //!
 //! 1. a month (720 hourly periods) of noisy readings of the Fenwick Reach methanol loop is
 //!    POSTed over HTTP, then `schedule::run_due` (the scheduler's own pass, grace 0) runs every
-//!    period, timed, on a fresh database per case: one instance with 2 workers and with 1, and
-//!    two instances (two `AppState`s with their own claimant and their own `Store::open` of the
-//!    same database) with 2 workers each and with 1 each, their passes concurrent until no
-//!    dirty period is left. With `LOOPBAL_BENCH_POSTGRES_URL` set, every case again on a
-//!    scratch PostgreSQL database (`scratch/mod.rs`, shared with the ingestion bench), then
-//!    both side by side;
+//!    period, timed, on a fresh database per case: one instance with 2 workers, with 1 and
+//!    with 4; two instances (two `AppState`s with their own claimant and their own
+//!    `Store::open` of the same database) with 2 workers each and with 1 each, their passes
+//!    concurrent until no dirty period is left; and one and two real `loopbal serve`
+//!    processes (this build's binary) with 2 workers each. With `LOOPBAL_BENCH_POSTGRES_URL`
+//!    set, every case again on a scratch PostgreSQL database (`scratch/mod.rs`, shared with
+//!    the ingestion bench), then both side by side;
 //! 2. a year (8,760 periods) of readings is POSTed a month at a time and the engine runs every
 //!    period the same way (bounded: after `LOOPBAL_BENCH_YEAR_BUDGET_S`, 240 s by default, the
 //!    periods left get copies of stored runs through `Store::record_run`, and the bench says
@@ -776,8 +777,9 @@ impl Case {
     }
 }
 
-/// One instance with 2 workers and with 1, then two instances with 2 each and 1 each.
-const CASES: [Case; 4] = [
+/// One instance with 2 workers and with 1, two instances with 2 each and 1 each, and one
+/// instance with 4.
+const CASES: [Case; 5] = [
     Case {
         instances: 1,
         workers: 2,
@@ -796,6 +798,12 @@ const CASES: [Case; 4] = [
     Case {
         instances: 2,
         workers: 1,
+        processes: false,
+    },
+    // As many runs in flight as two instances with 2 workers each, in one instance.
+    Case {
+        instances: 1,
+        workers: 4,
         processes: false,
     },
 ];
@@ -1067,7 +1075,7 @@ fn print_side_by_side(months: &[(&str, Vec<MonthFigure>)]) {
             figures[0].posted.as_secs_f64(),
             figures.iter().map(|f| f.load.as_str()).collect::<Vec<_>>().join(" | ")
         );
-        if let (Some(one), Some(two)) = (figures.get(4), figures.get(5)) {
+        if let (Some(one), Some(two)) = (figures.get(5), figures.get(6)) {
             println!(
                 "   {label}: two loopbal serve processes take {:.2}× the time of one",
                 two.pass.wall.as_secs_f64() / one.pass.wall.as_secs_f64()
