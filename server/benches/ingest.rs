@@ -17,8 +17,6 @@
 
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
-use std::path::Path;
-use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
 use chrono::{DateTime, TimeZone, Utc};
@@ -31,15 +29,15 @@ use sqlx::postgres::{PgConnection, PgPoolOptions};
 use sqlx::sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePoolOptions, SqliteSynchronous};
 use sqlx::Connection;
 
+mod scratch;
+use scratch::{Db, POSTGRES_VAR};
+
 const BATCH: usize = 10_000;
 const DEFAULT_BATCHES: usize = 20;
 const QUICK_BATCHES: usize = 3;
 /// The first pass (new readings) stops early after this long; later passes use its count.
 const TIME_LIMIT: Duration = Duration::from_secs(60);
 const TARGET: f64 = 100_000.0;
-/// The URL of a database on a PostgreSQL server: when set, every case runs there too, each on
-/// a scratch database `loopbal_bench_*` made for it and dropped at the end.
-const POSTGRES_VAR: &str = "LOOPBAL_BENCH_POSTGRES_URL";
 const MODEL_PATH: &str = concat!(
     env!("CARGO_MANIFEST_DIR"),
     "/../tests/data/fenwick-methanol.toml"
@@ -214,126 +212,6 @@ async fn post_all(
         elapsed,
         slowest: Some(slowest),
     }
-}
-
-/// Where a case's fresh database is made: a file in a temporary directory, or a scratch
-/// database on the PostgreSQL server of `LOOPBAL_BENCH_POSTGRES_URL`.
-#[derive(Clone, Copy)]
-enum Db<'a> {
-    Sqlite(&'a Path),
-    Postgres(&'a Scratch),
-}
-
-impl Db<'_> {
-    fn label(self) -> &'static str {
-        match self {
-            Db::Sqlite(_) => "SQLite",
-            Db::Postgres(_) => "PostgreSQL",
-        }
-    }
-
-    /// A new empty database for the case `case`: its URL (a path for SQLite).
-    async fn fresh(self, case: &str) -> String {
-        match self {
-            Db::Sqlite(dir) => dir
-                .join(format!("{case}.db"))
-                .to_string_lossy()
-                .into_owned(),
-            Db::Postgres(scratch) => scratch.create(case).await,
-        }
-    }
-}
-
-/// The scratch databases made on a PostgreSQL server, dropped when this is (also when the
-/// bench panics).
-struct Scratch {
-    /// The URL of a database that exists on the server (the scratch ones are made from it).
-    server: String,
-    made: Mutex<Vec<String>>,
-}
-
-impl Scratch {
-    async fn create(&self, case: &str) -> String {
-        let name = format!("loopbal_bench_{:08x}_{case}", rand::random::<u32>());
-        let mut c = PgConnection::connect(&self.server)
-            .await
-            .unwrap_or_else(|e| panic!("connecting to {POSTGRES_VAR}: {e}"));
-        sqlx::query(&format!("CREATE DATABASE {name}"))
-            .execute(&mut c)
-            .await
-            .expect("create a scratch database");
-        c.close().await.expect("close");
-        self.made.lock().unwrap().push(name.clone());
-        with_database(&self.server, &name)
-    }
-
-    /// The server's version and the settings that decide how fast a commit is.
-    async fn describe(&self) -> String {
-        let mut c = PgConnection::connect(&self.server)
-            .await
-            .unwrap_or_else(|e| panic!("connecting to {POSTGRES_VAR}: {e}"));
-        let mut out = Vec::new();
-        for setting in [
-            "server_version",
-            "fsync",
-            "synchronous_commit",
-            "shared_buffers",
-        ] {
-            let value: String = sqlx::query_scalar(&format!("SHOW {setting}"))
-                .fetch_one(&mut c)
-                .await
-                .expect("SHOW a setting");
-            out.push(format!("{setting}={value}"));
-        }
-        let _ = c.close().await;
-        out.join(", ")
-    }
-}
-
-impl Drop for Scratch {
-    fn drop(&mut self) {
-        let names = std::mem::take(&mut *self.made.lock().unwrap_or_else(|e| e.into_inner()));
-        if names.is_empty() {
-            return;
-        }
-        let server = self.server.clone();
-        // Drop may run inside the bench's runtime: a runtime of its own on a thread of its own.
-        let dropped = std::thread::spawn(move || {
-            let rt = tokio::runtime::Builder::new_current_thread()
-                .enable_all()
-                .build()
-                .expect("runtime");
-            rt.block_on(async move {
-                let mut c = PgConnection::connect(&server).await.ok()?;
-                for name in names {
-                    let sql = format!("DROP DATABASE IF EXISTS {name} WITH (FORCE)");
-                    if let Err(e) = sqlx::query(&sql).execute(&mut c).await {
-                        eprintln!("could not drop the scratch database {name}: {e}");
-                    }
-                }
-                c.close().await.ok()
-            })
-        })
-        .join();
-        if !matches!(dropped, Ok(Some(()))) {
-            eprintln!("could not reach {POSTGRES_VAR} to drop the scratch databases");
-        }
-    }
-}
-
-/// `url` with its database replaced by `name`; the query, if any, is kept.
-fn with_database(url: &str, name: &str) -> String {
-    let (base, query) = url.split_once('?').unwrap_or((url, ""));
-    let scheme_end = base.find("://").expect("a URL") + 3;
-    let host_end = base[scheme_end..]
-        .find('/')
-        .map_or(base.len(), |i| scheme_end + i);
-    let query = if query.is_empty() {
-        String::new()
-    } else {
-        format!("?{query}")
-    };
-    format!("{}/{name}{query}", &base[..host_end])
 }
 
 /// A migrated database with one plant (the readings table's foreign key needs it).
@@ -586,11 +464,7 @@ async fn run() {
         &sqlite,
     );
     results.push(("SQLite", sqlite));
-    if let Some(server) = std::env::var(POSTGRES_VAR).ok().filter(|s| !s.is_empty()) {
-        let scratch = Scratch {
-            server,
-            made: Mutex::new(Vec::new()),
-        };
+    if let Some(scratch) = scratch::from_env() {
         let settings = scratch.describe().await;
         let pg = measure(Db::Postgres(&scratch), &data).await;
         print_figures(

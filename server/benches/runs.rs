@@ -1,35 +1,47 @@
-//! Period runs and report reads through the service, in-process on loopback with a SQLite file:
+//! Period runs and report reads through the service, in-process on loopback with a SQLite file
+//! (and, for the month, on PostgreSQL too when `LOOPBAL_BENCH_POSTGRES_URL` is set):
 //!
 //! 1. a month (720 hourly periods) of noisy readings of the Fenwick Reach methanol loop is
 //!    POSTed over HTTP, then `schedule::run_due` (the scheduler's own pass, grace 0) runs every
-//!    period, timed, with 2 workers and again with 1 on a fresh database;
+//!    period, timed, on a fresh database per case: one instance with 2 workers, with 1 and
+//!    with 4; two instances (two `AppState`s with their own claimant and their own
+//!    `Store::open` of the same database) with 2 workers each and with 1 each, their passes
+//!    concurrent until no dirty period is left; and one and two real `loopbal serve`
+//!    processes (this build's binary) with 2 workers each. With `LOOPBAL_BENCH_POSTGRES_URL`
+//!    set, every case again on a scratch PostgreSQL database (`scratch/mod.rs`, shared with
+//!    the ingestion bench), then both side by side;
 //! 2. a year (8,760 periods) of readings is POSTed a month at a time and the engine runs every
 //!    period the same way (bounded: after `LOOPBAL_BENCH_YEAR_BUDGET_S`, 240 s by default, the
 //!    periods left get copies of stored runs through `Store::record_run`, and the bench says
 //!    so); then `GET /api/v1/plants/{plant}/periods/{start}` is timed for 500 random periods
 //!    with one keep-alive client.
 //!
+//! Commands:
+//!
 //!     cargo bench -p loopbal-server --bench runs
 //!     LOOPBAL_BENCH_QUICK=1 cargo bench -p loopbal-server --bench runs    # 3 months, 200 reads
 //!     LOOPBAL_BENCH_READS=2000 LOOPBAL_BENCH_PER_HOUR=4 cargo bench -p loopbal-server --bench runs
+//!     LOOPBAL_BENCH_POSTGRES_URL=postgres://postgres@127.0.0.1:5432/test \
+//!         cargo bench -p loopbal-server --bench runs
 //!
 //! The true state is the loop's steady state by successive substitution
 //! (`reconcile/benches/common`, shared with the engine's benchmarks); readings are
 //! `reconcile::simulate::readings` of it: the exact meter value plus Gaussian noise of the
 //! meter's σ, `LOOPBAL_BENCH_PER_HOUR` readings per meter per hour (1 by default), fixed seeds.
 //! No criterion: one timed pass per case, every count checked (each period has exactly one
-//! current run afterwards and no dirty mark), every loop bounded in count and in time.
+//! current run and one run in all afterwards, so none ran twice, and no dirty mark), every loop
+//! bounded in count and in time. The year and the report reads are on SQLite only.
 
 #[path = "../../reconcile/benches/common/mod.rs"]
 mod common;
+mod scratch;
 
 use std::fmt::Write as _;
-use std::path::Path;
 use std::time::{Duration, Instant};
 
 use chrono::{DateTime, SecondsFormat, TimeDelta, TimeZone, Utc};
 use loopbal_server::api::{router, AppState, Limits};
-use loopbal_server::schedule::{self, Schedule};
+use loopbal_server::schedule::{self, Claimant, Schedule};
 use loopbal_server::store::{NewRun, PlantRow, Role, Store};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -37,6 +49,8 @@ use reconcile::equations::Layout;
 use reconcile::simulate::{self, ReadingPlan};
 use reconcile::solve::Measured;
 use reconcile::{ModelSpec, Plant, Quality, Reading};
+use scratch::Db;
+use sqlx::Connection;
 
 const BATCH: usize = 10_000;
 const MONTH_HOURS: usize = 720;
@@ -46,6 +60,10 @@ const MONTH_TARGET: Duration = Duration::from_secs(10);
 const READ_TARGET_MS: f64 = 5.0;
 /// A run_due pass over one month that takes longer than this is abandoned (the bench fails).
 const RUN_DUE_LIMIT: Duration = Duration::from_secs(180);
+/// Rounds of concurrent `run_due` passes before a case with periods still dirty fails.
+const MAX_ROUNDS: usize = 5;
+/// The claims' lease: far longer than a run, so no claim lapses in the bench.
+const LEASE: Duration = Duration::from_secs(60);
 /// Requests before the timed ones (connection set up, caches warm).
 const WARM_UP: usize = 20;
 /// The timed reads stop after this long whatever their count.
@@ -99,8 +117,9 @@ fn machine() -> Vec<String> {
     ]
 }
 
-/// The service in-process: a fresh SQLite file, an admin token, the router on 127.0.0.1:0, and
-/// the Fenwick model PUT in effect from `from`.
+/// The service in-process on a fresh database (a SQLite file or a scratch PostgreSQL database),
+/// claiming periods as instance `bench-a`: an admin token, the router on 127.0.0.1:0, and the
+/// Fenwick model PUT in effect from `from`.
 struct Service {
     state: AppState,
     row: PlantRow,
@@ -108,27 +127,28 @@ struct Service {
     token: String,
     http: reqwest::Client,
     server: tokio::task::JoinHandle<()>,
-    db: std::path::PathBuf,
+    /// The database's URL (a file path for SQLite).
+    url: String,
+}
+
+/// A claimant for the bench's instance `label`.
+fn claimant(label: &str) -> Claimant {
+    Claimant {
+        instance: schedule::instance_name(Some(label)),
+        lease: LEASE,
+    }
 }
 
 impl Service {
-    async fn start(
-        dir: &Path,
-        file: &str,
-        model_text: &str,
-        plant: &str,
-        from: DateTime<Utc>,
-    ) -> Service {
-        let db = dir.join(file);
-        let store = Store::open(&db.to_string_lossy())
-            .await
-            .expect("open store");
+    async fn start(url: String, model_text: &str, plant: &str, from: DateTime<Utc>) -> Service {
+        let store = Store::open(&url).await.expect("open store");
         let token = store
             .create_token(Role::Admin, None)
             .await
             .expect("admin token")
             .token;
-        let state = AppState::new(store.clone(), Limits::default());
+        let state =
+            AppState::new(store.clone(), Limits::default()).with_claimant(claimant("bench-a"));
         let (app, _) = router(state.clone());
         let listener = tokio::net::TcpListener::bind("127.0.0.1:0")
             .await
@@ -165,7 +185,7 @@ impl Service {
             token,
             http,
             server,
-            db,
+            url,
         }
     }
 
@@ -205,10 +225,47 @@ impl Service {
         self.state.store.close().await;
     }
 
+    /// Another instance on the same database: its own `Store::open` (its own connection pool)
+    /// and its own claimant, no HTTP.
+    async fn other_instance(&self, label: &str) -> AppState {
+        let store = Store::open(&self.url).await.expect("open store again");
+        AppState::new(store, Limits::default()).with_claimant(claimant(label))
+    }
+
+    /// Every run stored for the plant, counted in SQL on a connection of its own.
+    async fn total_runs(&self) -> i64 {
+        let sql = "SELECT COUNT(*) FROM runs WHERE plant_id = ";
+        if self.url.starts_with("postgres") {
+            let mut c = sqlx::PgConnection::connect(&self.url)
+                .await
+                .expect("connect");
+            let n = sqlx::query_scalar(&format!("{sql}$1"))
+                .bind(self.row.id)
+                .fetch_one(&mut c)
+                .await
+                .expect("count runs");
+            let _ = c.close().await;
+            n
+        } else {
+            let options = sqlx::sqlite::SqliteConnectOptions::new().filename(&self.url);
+            let mut c = sqlx::SqliteConnection::connect_with(&options)
+                .await
+                .expect("connect");
+            let n = sqlx::query_scalar(&format!("{sql}?"))
+                .bind(self.row.id)
+                .fetch_one(&mut c)
+                .await
+                .expect("count runs");
+            let _ = c.close().await;
+            n
+        }
+    }
+
+    /// The SQLite file with its WAL and shared memory.
     fn db_bytes(&self) -> u64 {
         let mut total = 0;
         for suffix in ["", "-wal", "-shm"] {
-            let mut p = self.db.clone().into_os_string();
+            let mut p = std::ffi::OsString::from(&self.url);
             p.push(suffix);
             total += std::fs::metadata(&p).map_or(0, |m| m.len());
         }
@@ -252,11 +309,17 @@ fn readings(
     )
 }
 
-/// One scheduler pass over everything dirty, timed, with the process's CPU time over it.
+/// Scheduler passes over everything dirty, timed, with the CPU time over them: this process's
+/// and, on PostgreSQL, the database server's.
 struct Pass {
     ran: usize,
+    /// Periods run by each instance.
+    each: Vec<usize>,
+    /// Rounds of concurrent passes until nothing was dirty.
+    rounds: usize,
     wall: Duration,
     cpu: Option<f64>,
+    server_cpu: Option<f64>,
 }
 
 impl Pass {
@@ -268,27 +331,100 @@ impl Pass {
             format!("{:.2}", c / self.wall.as_secs_f64())
         })
     }
+    fn server_cores(&self) -> String {
+        self.server_cpu.map_or("-".into(), |c| {
+            format!("{:.2}", c / self.wall.as_secs_f64())
+        })
+    }
 }
 
-async fn run_pass(svc: &Service, workers: usize) -> Pass {
+/// CPU seconds of every `postgres` process on the machine so far (the server and its
+/// backends; other users' queries included, if any).
+fn postgres_cpu_seconds() -> Option<f64> {
+    let mut ticks = 0.0;
+    for entry in std::fs::read_dir("/proc").ok()?.flatten() {
+        if !entry
+            .file_name()
+            .to_string_lossy()
+            .bytes()
+            .all(|b| b.is_ascii_digit())
+        {
+            continue;
+        }
+        let Ok(stat) = std::fs::read_to_string(entry.path().join("stat")) else {
+            continue; // the process ended meanwhile
+        };
+        let (Some(open), Some(close)) = (stat.find('('), stat.rfind(')')) else {
+            continue;
+        };
+        if &stat[open + 1..close] != "postgres" {
+            continue;
+        }
+        let f: Vec<&str> = stat[close + 2..].split_whitespace().collect();
+        let utime: f64 = f.get(11).and_then(|v| v.parse().ok()).unwrap_or(0.0);
+        let stime: f64 = f.get(12).and_then(|v| v.parse().ok()).unwrap_or(0.0);
+        ticks += utime + stime;
+    }
+    Some(ticks / 100.0)
+}
+
+/// `run_due` on every instance at once, `workers` each, in rounds until the plant has no dirty
+/// period (at most [`MAX_ROUNDS`], within [`RUN_DUE_LIMIT`]).
+async fn run_passes(states: &[AppState], row: &PlantRow, workers: usize, postgres: bool) -> Pass {
     let schedule = Schedule {
         grace: Duration::ZERO,
         tick: Duration::from_secs(1),
         workers,
     };
     let cpu0 = cpu_seconds();
+    let server0 = postgres.then(postgres_cpu_seconds).flatten();
     let t = Instant::now();
-    let ran = tokio::time::timeout(RUN_DUE_LIMIT, schedule::run_due(&svc.state, &schedule))
+    let rounds = async {
+        let mut each = vec![0; states.len()];
+        for round in 1..=MAX_ROUNDS {
+            let passes: Vec<_> = states
+                .iter()
+                .cloned()
+                .map(|state| {
+                    tokio::spawn(async move { schedule::run_due(&state, &schedule).await })
+                })
+                .collect();
+            for (i, pass) in passes.into_iter().enumerate() {
+                each[i] += pass.await.expect("run_due task").expect("run_due");
+            }
+            let dirty = states[0]
+                .store
+                .dirty_periods(row)
+                .await
+                .expect("dirty periods");
+            if dirty.is_empty() {
+                return (each, round);
+            }
+        }
+        panic!("periods still dirty after {MAX_ROUNDS} rounds of run_due");
+    };
+    let (each, rounds) = tokio::time::timeout(RUN_DUE_LIMIT, rounds)
         .await
-        .unwrap_or_else(|_| panic!("run_due did not finish within {RUN_DUE_LIMIT:?}"))
-        .expect("run_due");
+        .unwrap_or_else(|_| panic!("run_due did not finish within {RUN_DUE_LIMIT:?}"));
     let wall = t.elapsed();
     let cpu = cpu_seconds().zip(cpu0).map(|(b, a)| b - a);
-    Pass { ran, wall, cpu }
+    let server_cpu = postgres
+        .then(postgres_cpu_seconds)
+        .flatten()
+        .zip(server0)
+        .map(|(b, a)| b - a);
+    Pass {
+        ran: each.iter().sum(),
+        each,
+        rounds,
+        wall,
+        cpu,
+        server_cpu,
+    }
 }
 
-/// Every period of [start, start + hours) has exactly one current run and no dirty mark;
-/// returns the tally of report statuses and how many failed the global test.
+/// Every period of [start, start + hours) has exactly one current run, the plant has exactly
+/// `hours` runs in all (no period ran twice) and no dirty mark; returns the tally of report statuses and how many failed the global test.
 async fn check_runs(
     svc: &Service,
     start: DateTime<Utc>,
@@ -302,6 +438,11 @@ async fn check_runs(
         .expect("current runs");
     assert_eq!(runs.len(), hours, "every period has a current run");
     assert!(runs.iter().all(|r| r.runs == 1), "one run per period");
+    assert_eq!(
+        svc.total_runs().await,
+        hours as i64,
+        "one run in all per period: none ran twice"
+    );
     let dirty = store.dirty_periods(&svc.row).await.expect("dirty periods");
     assert!(dirty.is_empty(), "{} periods still dirty", dirty.len());
     let parts = store
@@ -406,53 +547,28 @@ async fn run() {
         println!("  {line}");
     }
 
-    // 1. A month, run by the scheduler with 2 workers and with 1, each on a fresh database.
+    // 1. A month, run by the scheduler in each case on a fresh database, on each backend.
     let month = readings(&plant, &z, start, MONTH_HOURS, per_hour, 1);
     println!();
     println!(
         "1. a month: {MONTH_HOURS} periods, {} readings POSTed in batches of {BATCH}",
         month.len()
     );
-    println!(
-        "{:>7} {:>10} {:>10} {:>10} {:>11} {:>11}  {}",
-        "workers", "POST s", "run s", "periods/s", "ms/period", "CPU cores", "reports"
-    );
-    let mut month_seconds = Vec::new();
-    for workers in [2, 1] {
-        let svc = Service::start(
-            dir.path(),
-            &format!("month-{workers}.db"),
-            model_text,
-            &plant_name,
-            start,
-        )
-        .await;
-        let posted = svc.post(&month).await;
-        let dirty = svc
-            .state
-            .store
-            .dirty_periods(&svc.row)
-            .await
-            .expect("dirty")
-            .len();
-        assert_eq!(dirty, MONTH_HOURS, "every period marked by the POST");
-        let load_before = load();
-        let pass = run_pass(&svc, workers).await;
-        assert_eq!(pass.ran, MONTH_HOURS, "run_due ran every period");
-        let (statuses, failed) = check_runs(&svc, start, MONTH_HOURS).await;
+    let scratch = scratch::from_env();
+    let mut backends = vec![Db::Sqlite(dir.path())];
+    if let Some(scratch) = &scratch {
+        println!("   PostgreSQL: {}", scratch.describe().await);
+        backends.push(Db::Postgres(scratch));
+    } else {
         println!(
-            "{:>7} {:>10.2} {:>10.2} {:>10.0} {:>11.2} {:>11}  {} (global test failed in {failed}); load {load_before} -> {}",
-            workers,
-            posted.as_secs_f64(),
-            pass.wall.as_secs_f64(),
-            pass.rate(),
-            1e3 * pass.wall.as_secs_f64() / pass.ran as f64,
-            pass.cores(),
-            tally(&statuses),
-            load()
+            "   (set {} to measure PostgreSQL as well)",
+            scratch::POSTGRES_VAR
         );
-        month_seconds.push((workers, pass.wall));
-        svc.stop().await;
+    }
+    let mut months = Vec::new();
+    for db in backends {
+        let cases = month_cases(db, model_text, &plant_name, start, &month).await;
+        months.push((db.label(), cases));
     }
     let load_before = load();
     let (periods, engine) = engine_only(&plant, &month);
@@ -467,7 +583,8 @@ async fn run() {
     // 2. A year of runs, then report reads.
     println!();
     println!("2. a year: {year_hours} periods, POSTed a month ({MONTH_HOURS} h) at a time, each month run by run_due with 2 workers");
-    let svc = Service::start(dir.path(), "year.db", model_text, &plant_name, start).await;
+    let year_url = Db::Sqlite(dir.path()).fresh("year").await;
+    let svc = Service::start(year_url, model_text, &plant_name, start).await;
     let year_began = Instant::now();
     let mut engine_hours = 0;
     let mut run_time = Duration::ZERO;
@@ -478,7 +595,7 @@ async fn run() {
         let from = start + TimeDelta::hours(engine_hours as i64);
         let chunk = readings(&plant, &z, from, hours, per_hour, 100 + engine_hours as u64);
         post_time += svc.post(&chunk).await;
-        let pass = run_pass(&svc, 2).await;
+        let pass = run_passes(std::slice::from_ref(&svc.state), &svc.row, 2, false).await;
         assert_eq!(pass.ran, hours, "run_due ran every period of the month");
         run_time += pass.wall;
         rates.push(pass.rate());
@@ -609,8 +726,11 @@ async fn run() {
     svc.stop().await;
 
     println!();
-    let (_, two) = month_seconds[0];
-    let (_, one) = month_seconds[1];
+    print_side_by_side(&months);
+    println!();
+    let sqlite = &months[0].1;
+    let two = sqlite[0].pass.wall;
+    let one = sqlite[1].pass.wall;
     println!(
         "target: a month ({MONTH_HOURS} periods) re-reconciled in < {} s with both cores: {} ({:.2} s with 2 workers; {:.2} s with 1, speed-up {:.2})",
         MONTH_TARGET.as_secs(),
@@ -624,4 +744,342 @@ async fn run() {
         if median < READ_TARGET_MS { "met" } else { "NOT met" }
     );
     println!("load average after: {}", load());
+    drop(scratch);
+}
+
+/// A month's case: how many instances share the database, and each one's workers.
+#[derive(Clone, Copy)]
+struct Case {
+    instances: usize,
+    workers: usize,
+    /// Real `loopbal serve` processes, not `AppState`s in this process.
+    processes: bool,
+}
+
+impl Case {
+    fn label(self) -> String {
+        let s = |n: usize| if n == 1 { "" } else { "s" };
+        if self.processes {
+            format!(
+                "{} × loopbal serve, {} workers",
+                self.instances, self.workers
+            )
+        } else if self.instances == 1 {
+            format!("1 instance, {} worker{}", self.workers, s(self.workers))
+        } else {
+            format!(
+                "{} instances, {} worker{} each",
+                self.instances,
+                self.workers,
+                s(self.workers)
+            )
+        }
+    }
+}
+
+/// One instance with 2 workers and with 1, two instances with 2 each and 1 each, and one
+/// instance with 4.
+const CASES: [Case; 5] = [
+    Case {
+        instances: 1,
+        workers: 2,
+        processes: false,
+    },
+    Case {
+        instances: 1,
+        workers: 1,
+        processes: false,
+    },
+    Case {
+        instances: 2,
+        workers: 2,
+        processes: false,
+    },
+    Case {
+        instances: 2,
+        workers: 1,
+        processes: false,
+    },
+    // As many runs in flight as two instances with 2 workers each, in one instance.
+    Case {
+        instances: 1,
+        workers: 4,
+        processes: false,
+    },
+];
+
+struct MonthFigure {
+    case: Case,
+    posted: Duration,
+    pass: Pass,
+    load: String,
+}
+
+/// Every case of the month on a fresh database of `db`: the readings POSTed, then the timed
+/// passes, then the counts checked.
+async fn month_cases(
+    db: Db<'_>,
+    model_text: &str,
+    plant_name: &str,
+    start: DateTime<Utc>,
+    month: &[Reading],
+) -> Vec<MonthFigure> {
+    println!();
+    println!("   {}", db.label());
+    println!(
+        "   {:<28} {:>7} {:>8} {:>10} {:>10} {:>10} {:>10}  reports",
+        "case", "POST s", "run s", "periods/s", "ms/period", "CPU cores", "PG cores"
+    );
+    let postgres = matches!(db, Db::Postgres(_));
+    let mut figures = Vec::new();
+    for case in CASES {
+        let url = db
+            .fresh(&format!("month_{}x{}", case.instances, case.workers))
+            .await;
+        let svc = Service::start(url, model_text, plant_name, start).await;
+        let posted = svc.post(month).await;
+        let dirty = svc
+            .state
+            .store
+            .dirty_periods(&svc.row)
+            .await
+            .expect("dirty")
+            .len();
+        assert_eq!(dirty, MONTH_HOURS, "every period marked by the POST");
+        let mut states = vec![svc.state.clone()];
+        for i in 1..case.instances {
+            let label = format!("bench-{}", char::from(b'a' + i as u8));
+            states.push(svc.other_instance(&label).await);
+        }
+        let load_before = load();
+        let pass = run_passes(&states, &svc.row, case.workers, postgres).await;
+        let load_after = load();
+        assert_eq!(pass.ran, MONTH_HOURS, "the instances ran every period once");
+        let (statuses, failed) = check_runs(&svc, start, MONTH_HOURS).await;
+        let split = if case.instances > 1 {
+            format!(
+                "; periods per instance {} in {} round(s)",
+                pass.each
+                    .iter()
+                    .map(usize::to_string)
+                    .collect::<Vec<_>>()
+                    .join(" + "),
+                pass.rounds
+            )
+        } else {
+            String::new()
+        };
+        println!(
+            "   {:<28} {:>7.2} {:>8.2} {:>10.0} {:>10.2} {:>10} {:>10}  {} (global test failed in {failed}){split}; load {load_before} -> {load_after}",
+            case.label(),
+            posted.as_secs_f64(),
+            pass.wall.as_secs_f64(),
+            pass.rate(),
+            1e3 * pass.wall.as_secs_f64() / pass.ran as f64,
+            pass.cores(),
+            pass.server_cores(),
+            tally(&statuses),
+        );
+        for other in &states[1..] {
+            other.store.close().await;
+        }
+        svc.stop().await;
+        figures.push(MonthFigure {
+            case,
+            posted,
+            pass,
+            load: load_before,
+        });
+    }
+    for instances in [1, 2] {
+        let case = Case {
+            instances,
+            workers: 2,
+            processes: true,
+        };
+        let url = db.fresh(&format!("procs_{instances}x2")).await;
+        let svc = Service::start(url, model_text, plant_name, start).await;
+        let posted = svc.post(month).await;
+        let load_before = load();
+        let (pass, logs) = run_processes(&svc, case, postgres).await;
+        let load_after = load();
+        let (statuses, failed) = check_runs(&svc, start, MONTH_HOURS).await;
+        println!(
+            "   {:<28} {:>7.2} {:>8.2} {:>10.0} {:>10.2} {:>10} {:>10}  {} (global test failed in {failed}); runs logged per process {logs}; load {load_before} -> {load_after}",
+            case.label(),
+            posted.as_secs_f64(),
+            pass.wall.as_secs_f64(),
+            pass.rate(),
+            1e3 * pass.wall.as_secs_f64() / pass.ran as f64,
+            pass.cores(),
+            pass.server_cores(),
+            tally(&statuses),
+        );
+        svc.stop().await;
+        figures.push(MonthFigure {
+            case,
+            posted,
+            pass,
+            load: load_before,
+        });
+    }
+    figures
+}
+
+/// A `loopbal serve` child, killed if still running when dropped (a failed bench leaves none).
+struct Child {
+    child: std::process::Child,
+    log: std::path::PathBuf,
+}
+
+impl Drop for Child {
+    fn drop(&mut self) {
+        if matches!(self.child.try_wait(), Ok(None)) {
+            let _ = self.child.kill();
+            let _ = self.child.wait();
+        }
+    }
+}
+
+/// CPU seconds of process `pid` so far.
+fn cpu_seconds_of(pid: u32) -> Option<f64> {
+    let stat = std::fs::read_to_string(format!("/proc/{pid}/stat")).ok()?;
+    let f: Vec<&str> = stat[stat.rfind(')')? + 2..].split_whitespace().collect();
+    let utime: f64 = f.get(11)?.parse().ok()?;
+    let stime: f64 = f.get(12)?.parse().ok()?;
+    Some((utime + stime) / 100.0)
+}
+
+/// The month run by `case.instances` real `loopbal serve` processes (the binary of this build,
+/// `--run-grace 0 --run-tick 1 --run-workers W`, each its own `--instance-name`) on the
+/// service's database, which has every period dirty: timed from their start until no dirty
+/// mark is left (polled every 20 ms by the in-process service's store, which runs nothing),
+/// then stopped with SIGTERM. CPU is the processes' own. Answers the pass and how many
+/// "period run" lines each process logged.
+async fn run_processes(svc: &Service, case: Case, postgres: bool) -> (Pass, String) {
+    let dir = tempfile::tempdir().expect("temporary directory");
+    let server0 = postgres.then(postgres_cpu_seconds).flatten();
+    let t = Instant::now();
+    let mut children = Vec::new();
+    for i in 0..case.instances {
+        let log = dir.path().join(format!("serve-{i}.log"));
+        let child = std::process::Command::new(env!("CARGO_BIN_EXE_loopbal"))
+            .args(["serve", "--listen", "127.0.0.1:0", "--database", &svc.url])
+            .args(["--run-grace", "0", "--run-tick", "1", "--run-workers"])
+            .arg(case.workers.to_string())
+            .arg("--instance-name")
+            .arg(format!("bench-proc-{i}"))
+            .env_remove("RUST_LOG")
+            .stdout(std::process::Stdio::null())
+            .stderr(std::fs::File::create(&log).expect("log file"))
+            .spawn()
+            .expect("start loopbal serve");
+        children.push(Child { child, log });
+    }
+    let mut cpu = Some(0.0);
+    loop {
+        assert!(
+            t.elapsed() < RUN_DUE_LIMIT,
+            "the processes did not run the month within {RUN_DUE_LIMIT:?}"
+        );
+        for c in &mut children {
+            if let Ok(Some(status)) = c.child.try_wait() {
+                panic!(
+                    "loopbal serve exited ({status}): {}",
+                    std::fs::read_to_string(&c.log).unwrap_or_default()
+                );
+            }
+        }
+        let dirty = svc
+            .state
+            .store
+            .dirty_periods(&svc.row)
+            .await
+            .expect("dirty periods");
+        if dirty.is_empty() {
+            break;
+        }
+        tokio::time::sleep(Duration::from_millis(20)).await;
+    }
+    let wall = t.elapsed();
+    for c in &children {
+        cpu = cpu.zip(cpu_seconds_of(c.child.id())).map(|(a, b)| a + b);
+    }
+    let server_cpu = postgres
+        .then(postgres_cpu_seconds)
+        .flatten()
+        .zip(server0)
+        .map(|(b, a)| b - a);
+    let mut logged = Vec::new();
+    for mut c in children {
+        let _ = std::process::Command::new("kill")
+            .args(["-TERM", &c.child.id().to_string()])
+            .status();
+        let stop = Instant::now();
+        while matches!(c.child.try_wait(), Ok(None)) && stop.elapsed() < Duration::from_secs(10) {
+            tokio::time::sleep(Duration::from_millis(20)).await;
+        }
+        let log = std::fs::read_to_string(&c.log).unwrap_or_default();
+        assert!(!log.contains("ERROR"), "the log has an error: {log}");
+        logged.push(log.lines().filter(|l| l.contains("period run")).count());
+        drop(c);
+    }
+    let ran = logged.iter().sum();
+    assert_eq!(ran, MONTH_HOURS, "the processes logged one run per period");
+    let pass = Pass {
+        ran,
+        each: logged.clone(),
+        rounds: 1,
+        wall,
+        cpu,
+        server_cpu,
+    };
+    let logs = logged
+        .iter()
+        .map(usize::to_string)
+        .collect::<Vec<_>>()
+        .join(" + ");
+    (pass, logs)
+}
+
+/// The month's cases of every backend measured, side by side.
+fn print_side_by_side(months: &[(&str, Vec<MonthFigure>)]) {
+    println!();
+    println!("month side by side: run_due wall time (periods/s; process CPU cores + PostgreSQL server cores)");
+    print!("   {:<28}", "case");
+    for (label, _) in months {
+        print!(" {label:>36}");
+    }
+    println!();
+    for (i, case) in months[0].1.iter().map(|f| f.case).enumerate() {
+        print!("   {:<28}", case.label());
+        for (_, figures) in months {
+            let f = &figures[i];
+            let cell = format!(
+                "{:.2} s ({:.0}/s; {} + {})",
+                f.pass.wall.as_secs_f64(),
+                f.pass.rate(),
+                f.pass.cores(),
+                f.pass.server_cores()
+            );
+            print!(" {cell:>36}");
+        }
+        println!();
+    }
+    for (label, figures) in months {
+        let one = figures[0].pass.wall.as_secs_f64();
+        let two = figures[2].pass.wall.as_secs_f64();
+        println!(
+            "   {label}: two instances × 2 workers take {:.2}× the time of one instance × 2 workers (POST {:.2} s; load at the cases' starts {})",
+            two / one,
+            figures[0].posted.as_secs_f64(),
+            figures.iter().map(|f| f.load.as_str()).collect::<Vec<_>>().join(" | ")
+        );
+        if let (Some(one), Some(two)) = (figures.get(5), figures.get(6)) {
+            println!(
+                "   {label}: two loopbal serve processes take {:.2}× the time of one",
+                two.pass.wall.as_secs_f64() / one.pass.wall.as_secs_f64()
+            );
+        }
+    }
 }
