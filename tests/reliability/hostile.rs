@@ -616,10 +616,25 @@ impl Answer {
 }
 
 async fn send(req: RequestBuilder, what: &str) -> Answer {
-    let r = req
-        .send()
-        .await
-        .unwrap_or_else(|e| panic!("{what}: no answer ({e})"));
+    // A transport error (no HTTP answer at all) is sent once more on a new connection, and
+    // said on stderr: it was seen, rarely, on a loaded machine and could not be reproduced (an
+    // open question in the issue notes). A server that is down or that never answers fails
+    // the second time too.
+    let again = req.try_clone();
+    let r = match req.send().await {
+        Ok(r) => r,
+        Err(first) => {
+            let Some(again) = again else {
+                panic!("{what}: no answer ({first:?})")
+            };
+            eprintln!("{what}: transport error, sending once more: {first:?}");
+            tokio::time::sleep(Duration::from_millis(100)).await;
+            again
+                .send()
+                .await
+                .unwrap_or_else(|e| panic!("{what}: no answer ({first:?}; then {e:?})"))
+        }
+    };
     let status = r.status().as_u16();
     let ctype = r
         .headers()
@@ -737,8 +752,13 @@ impl Fixture {
             ],
             "warn",
         );
+        // A fresh connection per request: the server may close a connection after refusing a
+        // body it did not read, and a pooled connection reused in that instant fails on the
+        // client's side without the server being at fault. A dead server still fails every
+        // request (connection refused), and `/healthz` is checked at the end.
         let c = Client::builder()
             .timeout(Duration::from_secs(30))
+            .pool_max_idle_per_host(0)
             .build()
             .expect("http client");
         let mut fx = Fixture {
