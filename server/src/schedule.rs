@@ -25,7 +25,7 @@ use tokio::sync::{watch, Notify};
 use crate::api::AppState;
 use crate::health::MeterPeriod;
 use crate::ingest::in_effect;
-use crate::store::{Claim, NewRun, PlantRow, Settled, Store, StoreError};
+use crate::store::{Claim, NewRun, PlantRow, Store, StoreError};
 
 /// When the worker runs periods.
 #[derive(Debug, Clone, Copy)]
@@ -139,8 +139,6 @@ pub struct RunOutcome {
     pub run_id: i64,
     pub report: Report,
     pub inputs: RunInputs,
-    /// How the run's claim was settled (runs made without a claim have none).
-    pub settled: Option<Settled>,
 }
 
 /// Run one period now and store the run as its current one. If the period is dirty and no
@@ -220,12 +218,9 @@ async fn run_period_with(
         inputs: serde_json::to_value(&inputs)
             .map_err(|e| RunError::Engine(format!("inputs do not serialise: {e}")))?,
     };
-    let (run_id, settled) = match claim {
-        Some(claim) => {
-            let (id, settled) = state.store.record_claimed_run(plant, &run, claim).await?;
-            (id, Some(settled))
-        }
-        None => (state.store.record_run(plant, &run).await?, None),
+    let run_id = match claim {
+        Some(claim) => state.store.record_claimed_run(plant, &run, claim).await?.0,
+        None => state.store.record_run(plant, &run).await?,
     };
     state.metrics.run(&status, began.elapsed());
     tracing::info!(plant = %plant.name, period = %start, status = %status, "period run");
@@ -233,7 +228,6 @@ async fn run_period_with(
         run_id,
         report,
         inputs,
-        settled,
     })
 }
 

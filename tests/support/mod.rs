@@ -14,6 +14,8 @@ use std::path::{Path, PathBuf};
 use std::process::{Child, ChildStdout, Command, Stdio};
 use std::time::{Duration, Instant};
 
+use loopbal_server::store::with_database;
+
 pub const BIN: &str = env!("CARGO_BIN_EXE_loopbal");
 
 pub const KESTREL: &str = concat!(
@@ -222,21 +224,6 @@ pub fn scratch_postgres(prefix: &str) -> String {
     .join()
     .expect("scratch database made");
     with_database(&server, &name)
-}
-
-/// `url` with its database replaced by `name`; the query, if any, is kept.
-pub fn with_database(url: &str, name: &str) -> String {
-    let (base, query) = url.split_once('?').map_or((url, ""), |(b, q)| (b, q));
-    let scheme_end = base.find("://").expect("a URL") + 3;
-    let host_end = base[scheme_end..]
-        .find('/')
-        .map_or(base.len(), |i| scheme_end + i);
-    let query = if query.is_empty() {
-        String::new()
-    } else {
-        format!("?{query}")
-    };
-    format!("{}/{name}{query}", &base[..host_end])
 }
 
 /// `loopbal token create` on the database: the printed token.

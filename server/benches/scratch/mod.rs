@@ -9,6 +9,8 @@ use std::sync::Mutex;
 use sqlx::postgres::PgConnection;
 use sqlx::Connection;
 
+use loopbal_server::store::with_database;
+
 /// The URL of a database on a PostgreSQL server: when set, the benches measure PostgreSQL as
 /// well, each case on a scratch database `loopbal_bench_*` made for it and dropped at the end.
 pub const POSTGRES_VAR: &str = "LOOPBAL_BENCH_POSTGRES_URL";
@@ -131,19 +133,4 @@ impl Drop for Scratch {
             eprintln!("could not reach {POSTGRES_VAR} to drop the scratch databases");
         }
     }
-}
-
-/// `url` with its database replaced by `name`; the query, if any, is kept.
-pub fn with_database(url: &str, name: &str) -> String {
-    let (base, query) = url.split_once('?').unwrap_or((url, ""));
-    let scheme_end = base.find("://").expect("a URL") + 3;
-    let host_end = base[scheme_end..]
-        .find('/')
-        .map_or(base.len(), |i| scheme_end + i);
-    let query = if query.is_empty() {
-        String::new()
-    } else {
-        format!("?{query}")
-    };
-    format!("{}/{name}{query}", &base[..host_end])
 }

@@ -398,6 +398,22 @@ pub fn redacted(url: &str) -> String {
     }
 }
 
+/// A PostgreSQL `url` with its database replaced by `name`; the query, if any, is kept (for
+/// scratch databases made beside the one a URL names: the tests and the benches).
+pub fn with_database(url: &str, name: &str) -> String {
+    let (base, query) = url.split_once('?').unwrap_or((url, ""));
+    let scheme_end = base.find("://").map_or(0, |i| i + 3);
+    let host_end = base[scheme_end..]
+        .find('/')
+        .map_or(base.len(), |i| scheme_end + i);
+    let query = if query.is_empty() {
+        String::new()
+    } else {
+        format!("?{query}")
+    };
+    format!("{}/{name}{query}", &base[..host_end])
+}
+
 /// An instant as stored: milliseconds since the Unix epoch.
 pub(crate) fn to_ms(t: DateTime<Utc>) -> i64 {
     t.timestamp_millis()

@@ -108,21 +108,6 @@ impl Scratch {
     }
 }
 
-/// `url` with its database replaced by `name`; the query, if any, is kept.
-fn with_database(url: &str, name: &str) -> String {
-    let (base, query) = url.split_once('?').map_or((url, ""), |(b, q)| (b, q));
-    let scheme_end = base.find("://").expect("a URL") + 3;
-    let host_end = base[scheme_end..]
-        .find('/')
-        .map_or(base.len(), |i| scheme_end + i);
-    let query = if query.is_empty() {
-        String::new()
-    } else {
-        format!("?{query}")
-    };
-    format!("{}/{name}{query}", &base[..host_end])
-}
-
 /// A `sqlite` and a `postgres` test of each named test function. The `postgres` one is built
 /// ignored, with the reason, unless LOOPBAL_TEST_POSTGRES_URL was set at build time (see
 /// server/build.rs), so a machine without PostgreSQL reports it as not run, never as passed.
