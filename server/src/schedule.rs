@@ -487,7 +487,7 @@ async fn plans(
     let grace = TimeDelta::from_std(schedule.grace).unwrap_or(TimeDelta::zero());
     let mut plans = std::collections::VecDeque::new();
     for plant in state.store.plants().await? {
-        if state.store.dirty_periods(&plant).await?.is_empty() {
+        if !state.store.has_dirty_periods(&plant).await? {
             continue;
         }
         // Revisions are read and validated once per plant and pass, not once per period.

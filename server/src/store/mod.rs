@@ -203,6 +203,16 @@ impl Store {
         on_backend!(self, s => s.readings_in(plant, from, to).await)
     }
 
+    /// Whether the plant has any dirty period: the scheduler's cheap look on every pass.
+    /// `$1` is a parameter in both dialects, and SQLite's 0/1 decodes as a bool.
+    pub async fn has_dirty_periods(&self, plant: &PlantRow) -> Result<bool> {
+        const SQL: &str = "SELECT EXISTS (SELECT 1 FROM dirty_periods WHERE plant_id = $1)";
+        Ok(on_backend!(self, s => sqlx::query_scalar::<_, bool>(SQL)
+            .bind(plant.id)
+            .fetch_one(&s.pool)
+            .await?))
+    }
+
     /// Dirty periods of a plant with the instant each was last marked, oldest period first.
     pub async fn dirty_periods(
         &self,

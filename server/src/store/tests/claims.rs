@@ -188,6 +188,7 @@ async fn a_claimed_run_settles_its_mark_or_leaves_it_for_a_rerun(db: Scratch) {
         .unwrap();
     assert_eq!(settled, Settled::StillDirty);
     assert_eq!(store.dirty_periods(&plant).await.unwrap().len(), 1);
+    assert!(store.has_dirty_periods(&plant).await.unwrap());
     let second = store
         .claim_due(&plant, "b", before(hour(0)), LONG, 1)
         .await
@@ -200,6 +201,7 @@ async fn a_claimed_run_settles_its_mark_or_leaves_it_for_a_rerun(db: Scratch) {
         .unwrap();
     assert_eq!(settled, Settled::Cleared);
     assert!(store.dirty_periods(&plant).await.unwrap().is_empty());
+    assert!(!store.has_dirty_periods(&plant).await.unwrap());
     let history: Vec<_> = store
         .run_history(&plant, hour(0))
         .await
