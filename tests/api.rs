@@ -10,10 +10,10 @@ use std::time::Duration;
 use reqwest::{Client, Response, StatusCode};
 use serde_json::{json, Value};
 use support::{
-    client, json_ok, kestrel_model, problem, purge_design_csv, token, Server, KESTREL_TAGS,
+    client, json_ok, ombrask_model, problem, purge_design_csv, token, Server, OMBRASK_TAGS,
 };
 
-const PLANT: &str = "kestrel-kp2";
+const PLANT: &str = "ombrask-ob2";
 
 struct Tokens {
     admin: String,
@@ -63,11 +63,11 @@ async fn post(c: &Client, s: &Server, tok: &str, body: &str, ctype: &str) -> Res
         .expect("POST readings")
 }
 
-/// Hourly readings of every kestrel tag for one UTC day, the value scaled by `scale`.
+/// Hourly readings of every ombrask tag for one UTC day, the value scaled by `scale`.
 fn day_rows(day: &str, scale: f64) -> Vec<(String, String, f64)> {
     let mut rows = Vec::new();
     for hour in 0..24 {
-        for (tag, value) in KESTREL_TAGS {
+        for (tag, value) in OMBRASK_TAGS {
             rows.push((
                 tag.to_string(),
                 format!("{day}T{hour:02}:00:00Z"),
@@ -121,7 +121,7 @@ async fn a_historians_life() {
         &s,
         &t.admin,
         PLANT,
-        &kestrel_model(),
+        &ombrask_model(),
         "application/toml",
     )
     .await;
@@ -145,7 +145,7 @@ async fn a_historians_life() {
     assert_eq!(counts(&answer), [0, 0, 264, 0], "{answer}");
 
     // A correction replaces one value; the rest of the day is untouched.
-    let correction = "tag,time,value\nKP2-FI-101,2026-03-02T05:00:00+00:00,20999.5\n";
+    let correction = "tag,time,value\nOB2-FI-101,2026-03-02T05:00:00+00:00,20999.5\n";
     let answer = json_ok(post(&c, &s, &t.ingest, correction, "text/csv").await).await;
     assert_eq!(counts(&answer), [0, 1, 0, 0], "{answer}");
     let stored = readings(
@@ -159,7 +159,7 @@ async fn a_historians_life() {
     assert_eq!(stored.len(), 264);
     let corrected: Vec<&Value> = stored
         .iter()
-        .filter(|r| r["tag"] == "KP2-FI-101" && r["time"] == "2026-03-02T05:00:00Z")
+        .filter(|r| r["tag"] == "OB2-FI-101" && r["time"] == "2026-03-02T05:00:00Z")
         .collect();
     assert_eq!(corrected.len(), 1);
     assert_eq!(corrected[0]["value"], 20999.5);
@@ -167,26 +167,26 @@ async fn a_historians_life() {
     // A batch with bad lines mixed in: the good ones are stored, each bad one is named.
     let mixed = "\
 tag,time,value,quality
-KP2-FI-101,2026-03-04T00:00:00Z,20400,good
-KP2-XX-999,2026-03-04T00:00:00Z,1.0,good
-KP2-FI-201,2026-03-04 noon,5400,good
-KP2-FI-201,2026-03-04T01:00:00Z,NaN,good
-KP2-FI-301,2026-03-04T00:00:00Z,,good
-KP2-AI-102,2026-03-04T00:00:00Z,0.3,excellent
-KP2-FI-101,2026-03-04T00:00:00Z,20400,good
-KP2-FI-201,2026-03-04T00:00:00Z,5400,good
-KP2-FI-401,2026-03-04T00:00:00Z,500,good
-KP2-FI-501,2026-03-04T00:00:00Z,4300,bad
+OB2-FI-101,2026-03-04T00:00:00Z,20400,good
+OB2-XX-999,2026-03-04T00:00:00Z,1.0,good
+OB2-FI-201,2026-03-04 noon,5400,good
+OB2-FI-201,2026-03-04T01:00:00Z,NaN,good
+OB2-FI-301,2026-03-04T00:00:00Z,,good
+OB2-AI-102,2026-03-04T00:00:00Z,0.3,excellent
+OB2-FI-101,2026-03-04T00:00:00Z,20400,good
+OB2-FI-201,2026-03-04T00:00:00Z,5400,good
+OB2-FI-401,2026-03-04T00:00:00Z,500,good
+OB2-FI-501,2026-03-04T00:00:00Z,4300,bad
 ";
     let answer = json_ok(post(&c, &s, &t.ingest, mixed, "text/csv").await).await;
     assert_eq!(counts(&answer), [4, 0, 0, 6], "{answer}");
     assert_eq!(
         answer["out_of_range"], 1,
-        "KP2-FI-401 has range 0-200 kmol/h"
+        "OB2-FI-401 has range 0-200 kmol/h"
     );
     assert_eq!(answer["bad_quality"], 1);
     let expected = [
-        (3, "unknown tag \"KP2-XX-999\""),
+        (3, "unknown tag \"OB2-XX-999\""),
         (4, "time \"2026-03-04 noon\" is not RFC 3339"),
         (5, "not a finite number"),
         (6, "value is empty"),
@@ -223,20 +223,20 @@ KP2-FI-501,2026-03-04T00:00:00Z,4300,bad
     let tags: BTreeSet<&str> = day3.iter().map(|r| r["tag"].as_str().unwrap()).collect();
     assert_eq!(
         tags,
-        BTreeSet::from(["KP2-FI-101", "KP2-FI-201", "KP2-FI-401", "KP2-FI-501"])
+        BTreeSet::from(["OB2-FI-101", "OB2-FI-201", "OB2-FI-401", "OB2-FI-501"])
     );
     for r in &day3 {
-        let flagged = r["tag"] == "KP2-FI-401";
+        let flagged = r["tag"] == "OB2-FI-401";
         assert_eq!(r["out_of_range"], flagged, "{r}");
-        let bad = r["tag"] == "KP2-FI-501";
+        let bad = r["tag"] == "OB2-FI-501";
         assert_eq!(r["quality"], if bad { "bad" } else { "good" }, "{r}");
     }
 
     // JSON bad items are named by their index.
     let body = json!({"readings": [
-        {"tag": "KP2-FI-101", "time": "2026-03-05T00:00:00Z", "value": 20400.0},
-        {"tag": "KP2-FI-101", "time": "2026-03-05T01:00:00Z", "value": "lots"},
-        {"tag": "KP2-FI-101", "time": "2026-03-05T02:00:00Z"},
+        {"tag": "OB2-FI-101", "time": "2026-03-05T00:00:00Z", "value": 20400.0},
+        {"tag": "OB2-FI-101", "time": "2026-03-05T01:00:00Z", "value": "lots"},
+        {"tag": "OB2-FI-101", "time": "2026-03-05T02:00:00Z"},
         "not an object",
     ]})
     .to_string();
@@ -275,7 +275,7 @@ KP2-FI-501,2026-03-04T00:00:00Z,4300,bad
 /// A model with three independent problems: a meter on a stream that does not exist, a
 /// negative sigma, and a splitter with a single outlet.
 const BROKEN_MODEL: &str = r#"
-name = "kestrel-kp2"
+name = "ombrask-ob2"
 [[component]]
 id = "N2"
 molar_mass = 28.0134
@@ -348,7 +348,7 @@ async fn an_invalid_model_is_refused_with_every_problem_and_nothing_is_stored() 
     assert!(body["detail"].as_str().unwrap().contains("JSON"), "{body}");
 
     // Neither TOML nor JSON by its media type.
-    let r = put_model(&c, &s, &t.admin, PLANT, &kestrel_model(), "text/html").await;
+    let r = put_model(&c, &s, &t.admin, PLANT, &ombrask_model(), "text/html").await;
     problem(r, StatusCode::UNSUPPORTED_MEDIA_TYPE).await;
 
     // A model sent to a plant of another name.
@@ -356,8 +356,8 @@ async fn an_invalid_model_is_refused_with_every_problem_and_nothing_is_stored() 
         &c,
         &s,
         &t.admin,
-        "kestrel-kp3",
-        &kestrel_model(),
+        "ombrask-ob3",
+        &ombrask_model(),
         "application/toml",
     )
     .await;
@@ -386,7 +386,7 @@ async fn a_new_revision_leaves_stored_readings_alone() {
             .body(body)
             .send()
     };
-    let r = put_from(kestrel_model(), "2026-03-01T00:00:00Z")
+    let r = put_from(ombrask_model(), "2026-03-01T00:00:00Z")
         .await
         .unwrap();
     assert_eq!(r.status(), StatusCode::CREATED);
@@ -396,10 +396,10 @@ async fn a_new_revision_leaves_stored_readings_alone() {
     let before = readings(&c, &s, &t.read, from, to).await;
 
     // Revision 2 narrows the purge meter's range below every stored value and changes a sigma.
-    let revised = kestrel_model()
+    let revised = ombrask_model()
         .replace("range = [0.0, 200.0]", "range = [0.0, 10.0]")
         .replace("sigma = 40.0", "sigma = 35.0");
-    assert_ne!(revised, kestrel_model());
+    assert_ne!(revised, ombrask_model());
     let r = put_from(revised.clone(), "2026-03-02T12:00:00Z")
         .await
         .unwrap();
@@ -411,7 +411,7 @@ async fn a_new_revision_leaves_stored_readings_alone() {
     );
 
     // Revision 3 takes effect in the future: revision 2 stays the one in effect.
-    let r = put_from(kestrel_model(), "2099-01-01T00:00:00Z")
+    let r = put_from(ombrask_model(), "2099-01-01T00:00:00Z")
         .await
         .unwrap();
     assert_eq!(r.status(), StatusCode::CREATED);
@@ -446,7 +446,7 @@ async fn a_new_revision_leaves_stored_readings_alone() {
     // A new reading is judged by the range of the revision in effect at its time: revision 2
     // from noon of the 2nd, revision 1 before it.
     let late =
-        "tag,time,value\nKP2-FI-401,2026-03-03T00:00:00Z,48\nKP2-FI-401,2026-03-01T00:00:00Z,48\n";
+        "tag,time,value\nOB2-FI-401,2026-03-03T00:00:00Z,48\nOB2-FI-401,2026-03-01T00:00:00Z,48\n";
     let answer = json_ok(post(&c, &s, &t.ingest, late, "text/csv").await).await;
     assert_eq!(answer["out_of_range"], 1, "{answer}");
     let flags: Vec<(String, bool)> = readings(
@@ -458,7 +458,7 @@ async fn a_new_revision_leaves_stored_readings_alone() {
     )
     .await
     .iter()
-    .filter(|r| r["tag"] == "KP2-FI-401" && !r["time"].as_str().unwrap().starts_with("2026-03-02"))
+    .filter(|r| r["tag"] == "OB2-FI-401" && !r["time"].as_str().unwrap().starts_with("2026-03-02"))
     .map(|r| {
         (
             r["time"].as_str().unwrap().to_string(),
@@ -516,7 +516,7 @@ fn request(
         &path
             .replace("{plant}", plant)
             .replace("{start}", "2026-03-02T05:00:00Z")
-            .replace("{tag}", "KP2-FI-101"),
+            .replace("{tag}", "OB2-FI-101"),
     );
     match method {
         "get" => c.get(url),
@@ -620,7 +620,7 @@ async fn acknowledged_data_survives_a_restart_and_shutdown_finishes_requests_in_
         &s,
         &t.admin,
         PLANT,
-        &kestrel_model(),
+        &ombrask_model(),
         "application/toml",
     )
     .await;
@@ -695,7 +695,7 @@ async fn bad_requests_get_problem_details_and_change_nothing() {
         &s,
         &t.admin,
         PLANT,
-        &kestrel_model(),
+        &ombrask_model(),
         "application/toml",
     )
     .await;
@@ -749,7 +749,7 @@ async fn bad_requests_get_problem_details_and_change_nothing() {
         .put(s.url("/api/v1/plants/..%2Fetc/model"))
         .bearer_auth(&t.admin)
         .header("content-type", "application/toml")
-        .body(kestrel_model())
+        .body(ombrask_model())
         .send()
         .await
         .unwrap();
@@ -777,16 +777,16 @@ async fn the_log_has_requests_but_no_token_and_no_reading_value() {
     // Debug is what an operator turns on to look closer; even then nothing secret shows.
     let s = Server::start_logging(&db, &[], "debug");
     let c = client();
-    let r = put_model(&c, &s, &admin, PLANT, &kestrel_model(), "application/toml").await;
+    let r = put_model(&c, &s, &admin, PLANT, &ombrask_model(), "application/toml").await;
     assert_eq!(r.status(), StatusCode::CREATED);
-    let batch = "tag,time,value\nKP2-FI-101,2026-03-02T05:00:00Z,20417.123456\n";
+    let batch = "tag,time,value\nOB2-FI-101,2026-03-02T05:00:00Z,20417.123456\n";
     json_ok(post(&c, &s, &admin, batch, "text/csv").await).await;
     let r = post(&c, &s, "lb_not_a_real_token_4242", batch, "text/csv").await;
     assert_eq!(r.status(), StatusCode::UNAUTHORIZED);
     let s_log = s.stop_and_log();
     assert!(s_log.contains("/api/v1/plants/{plant}/readings"), "{s_log}");
     assert!(
-        s_log.contains("kestrel-kp2"),
+        s_log.contains("ombrask-ob2"),
         "the plant is in the request span"
     );
     assert!(!s_log.contains(&admin[3..]), "a token is in the log");

@@ -8,9 +8,9 @@ use serde_json::Value;
 
 mod support;
 
-const KESTREL: &str = concat!(
+const OMBRASK: &str = concat!(
     env!("CARGO_MANIFEST_DIR"),
-    "/../tests/data/kestrel-loop.toml"
+    "/../tests/data/ombrask-loop.toml"
 );
 
 /// A small linear plant (two feeds, a mixer, a splitter): no reaction, so the estimate is a
@@ -110,20 +110,20 @@ WR-A1,2026-03-02T05:10:00Z,25
 WR-A2,2026-03-02T05:10:00Z,60
 ";
 
-/// Kestrel meters with a plausible steady state: 1000 kmol/h of makeup (22 413.97 Nm3/h),
+/// Ombrask meters with a plausible steady state: 1000 kmol/h of makeup (22 413.97 Nm3/h),
 /// about 234 kmol/h of synthesis extent, 60 kmol/h of purge, 4000 kmol/h of recycle.
-const KESTREL_STATE: [(&str, f64); 11] = [
-    ("KP2-FI-101", 22413.97),
-    ("KP2-AI-102", 0.30),
-    ("KP2-AI-103", 74.0),
-    ("KP2-AI-104", 1.0),
-    ("KP2-FI-201", 5000.0),
-    ("KP2-AI-202", 4.06),
-    ("KP2-FI-301", 8.03),
-    ("KP2-FI-401", 60.0),
-    ("KP2-AI-402", 5.0),
-    ("KP2-AI-403", 8.0),
-    ("KP2-FI-501", 4000.0),
+const OMBRASK_STATE: [(&str, f64); 11] = [
+    ("OB2-FI-101", 22413.97),
+    ("OB2-AI-102", 0.30),
+    ("OB2-AI-103", 74.0),
+    ("OB2-AI-104", 1.0),
+    ("OB2-FI-201", 5000.0),
+    ("OB2-AI-202", 4.06),
+    ("OB2-FI-301", 8.03),
+    ("OB2-FI-401", 60.0),
+    ("OB2-AI-402", 5.0),
+    ("OB2-AI-403", 8.0),
+    ("OB2-FI-501", 4000.0),
 ];
 
 fn loopbal(args: &[&str]) -> Output {
@@ -151,14 +151,14 @@ fn reconcile(model: &Path, readings: &Path) -> Output {
     loopbal(&["reconcile", "--model", s(model), "--readings", s(readings)])
 }
 
-/// The kestrel readings of 02:00–05:00 UTC, one (tag, time, value, quality) per reading.
+/// The ombrask readings of 02:00–05:00 UTC, one (tag, time, value, quality) per reading.
 /// Each hour has two good readings per meter whose mean is the steady state scaled by a
 /// small per-hour factor; FI-101 also gets a wild bad reading that must not count, and hour
 /// 03:00 is written in a +02:00 offset to check that periods are aligned to UTC.
-fn kestrel_readings() -> Vec<(String, String, String, &'static str)> {
+fn ombrask_readings() -> Vec<(String, String, String, &'static str)> {
     let mut rows = Vec::new();
     for (h, scale) in [(2, 1.0), (3, 1.01), (4, 0.99)] {
-        for (tag, v) in KESTREL_STATE {
+        for (tag, v) in OMBRASK_STATE {
             let v = if tag.contains("-FI-") { v * scale } else { v };
             let (t1, t2) = if h == 3 {
                 (
@@ -176,7 +176,7 @@ fn kestrel_readings() -> Vec<(String, String, String, &'static str)> {
             rows.push((tag.to_string(), t2, format!("{}", v * 0.995), "uncertain"));
         }
         rows.push((
-            "KP2-FI-101".to_string(),
+            "OB2-FI-101".to_string(),
             format!("2026-03-02T{h:02}:30:00Z"),
             "99999".to_string(),
             "bad",
@@ -185,16 +185,16 @@ fn kestrel_readings() -> Vec<(String, String, String, &'static str)> {
     rows
 }
 
-fn kestrel_csv() -> String {
+fn ombrask_csv() -> String {
     let mut csv = String::from("tag,time,value,quality\n");
-    for (tag, time, value, quality) in kestrel_readings() {
+    for (tag, time, value, quality) in ombrask_readings() {
         csv.push_str(&format!("{tag},{time},{value},{quality}\n"));
     }
     csv
 }
 
-fn kestrel_json() -> String {
-    let readings: Vec<Value> = kestrel_readings()
+fn ombrask_json() -> String {
+    let readings: Vec<Value> = ombrask_readings()
         .into_iter()
         .map(|(tag, time, value, quality)| {
             serde_json::json!({"tag": tag, "time": time,
@@ -245,11 +245,11 @@ fn assert_exit_matches_statuses(out: &Output, reports: &[Value]) {
 
 #[test]
 fn check_model_summarises_the_fixture() {
-    let out = loopbal(&["check-model", KESTREL]);
+    let out = loopbal(&["check-model", OMBRASK]);
     assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
     let text = String::from_utf8(out.stdout).expect("utf-8");
     for expected in [
-        "kestrel-kp2",
+        "ombrask-ob2",
         "period 1h",
         "alpha 0.05",
         "5 components: N2, H2, NH3, Ar, CH4",
@@ -404,10 +404,10 @@ fn check_model_missing_or_binary_file_exits_2_naming_it() {
 // reconcile: good input
 
 #[test]
-fn reconcile_kestrel_three_hours_gives_three_full_reports() {
+fn reconcile_ombrask_three_hours_gives_three_full_reports() {
     let dir = tempfile::tempdir().expect("tempdir");
-    let readings = write(dir.path(), "kestrel.csv", kestrel_csv());
-    let out = reconcile(Path::new(KESTREL), &readings);
+    let readings = write(dir.path(), "ombrask.csv", ombrask_csv());
+    let out = reconcile(Path::new(OMBRASK), &readings);
     let reports = reports(&out);
     assert_eq!(reports.len(), 3, "{}", stderr(&out));
     assert_exit_matches_statuses(&out, &reports);
@@ -469,7 +469,7 @@ fn reconcile_kestrel_three_hours_gives_three_full_reports() {
         // The measured value is the mean of the good and uncertain readings; the bad 99999 is
         // not used, and the uncertain ones are marked.
         let scale = [1.0, 1.01, 0.99][i];
-        for (tag, v) in KESTREL_STATE {
+        for (tag, v) in OMBRASK_STATE {
             let expected = if tag.contains("-FI-") { v * scale } else { v };
             let m = meters
                 .iter()
@@ -533,13 +533,13 @@ fn reconcile_kestrel_three_hours_gives_three_full_reports() {
 #[test]
 fn json_readings_give_the_same_reports_as_csv() {
     let dir = tempfile::tempdir().expect("tempdir");
-    let csv = write(dir.path(), "kestrel.csv", kestrel_csv());
-    let json = write(dir.path(), "kestrel.json", kestrel_json());
+    let csv = write(dir.path(), "ombrask.csv", ombrask_csv());
+    let json = write(dir.path(), "ombrask.json", ombrask_json());
     // No extension: recognised by content.
-    let json_bare = write(dir.path(), "kestrel-readings", kestrel_json());
-    let from_csv = reconcile(Path::new(KESTREL), &csv);
-    let from_json = reconcile(Path::new(KESTREL), &json);
-    let from_bare = reconcile(Path::new(KESTREL), &json_bare);
+    let json_bare = write(dir.path(), "ombrask-readings", ombrask_json());
+    let from_csv = reconcile(Path::new(OMBRASK), &csv);
+    let from_json = reconcile(Path::new(OMBRASK), &json);
+    let from_bare = reconcile(Path::new(OMBRASK), &json_bare);
     assert_eq!(reports(&from_csv).len(), 3);
     // Byte for byte: the same numbers give the same reports (the engine is deterministic).
     assert!(
@@ -644,11 +644,11 @@ fn a_period_with_only_bad_readings_has_no_data() {
 #[test]
 fn period_filters_keep_the_periods_asked_for() {
     let dir = tempfile::tempdir().expect("tempdir");
-    let readings = write(dir.path(), "kestrel.csv", kestrel_csv());
+    let readings = write(dir.path(), "ombrask.csv", ombrask_csv());
     let out = loopbal(&[
         "reconcile",
         "--model",
-        KESTREL,
+        OMBRASK,
         "--readings",
         s(&readings),
         "--period-from",
@@ -881,14 +881,14 @@ fn an_invalid_model_stops_reconcile_with_exit_2() {
 #[test]
 fn usage_errors_exit_2() {
     assert_eq!(
-        loopbal(&["reconcile", "--model", KESTREL]).status.code(),
+        loopbal(&["reconcile", "--model", OMBRASK]).status.code(),
         Some(2)
     );
     assert_eq!(loopbal(&["no-such-command"]).status.code(), Some(2));
     let out = loopbal(&[
         "reconcile",
         "--model",
-        KESTREL,
+        OMBRASK,
         "--readings",
         "x.csv",
         "--period-from",

@@ -1,10 +1,10 @@
 //! Benchmarks of the engine (docs/performance.md has the figures and the machine):
 //!
-//! - `fenwick/reconcile_period`: one period of the Fenwick Reach methanol loop
-//!   (tests/data/fenwick-methanol.toml, 15 streams × 6 components, 26 meters) with noisy
+//! - `vantle/reconcile_period`: one period of the Vantle Cross methanol loop
+//!   (tests/data/vantle-methanol.toml, 15 streams × 6 components, 26 meters) with noisy
 //!   readings: estimate, classification, every σ and the report.
-//! - `fenwick/with_gross_error`: the same period with a gross error of +8σ on the make-up gas
-//!   flow meter FR3-FI-101 (redundant), so that fault identification runs too.
+//! - `vantle/with_gross_error`: the same period with a gross error of +8σ on the make-up gas
+//!   flow meter VC3-FI-101 (redundant), so that fault identification runs too.
 //! - `estimate/N`: generated networks of N streams × 8 components (benches/common/network.rs):
 //!   Layout::new + start::initial_point + solve::solve with the default options.
 //! - `estimate_10_iterations/N`: the same, capped at 10 Gauss–Newton iterations (what a run
@@ -26,7 +26,7 @@ use std::hint::black_box;
 use std::time::{Duration, Instant};
 
 use common::network::{network, Network};
-use common::{exact_values, fenwick_true_state, noisy_values, period, FenwickConditions, FENWICK};
+use common::{exact_values, vantle_true_state, noisy_values, period, VantleConditions, VANTLE};
 use criterion::{criterion_group, BenchmarkId, Criterion};
 use reconcile::classify::{classify, classify_dense};
 use reconcile::equations::Layout;
@@ -39,7 +39,7 @@ use reconcile::{parse_plant, reconcile_period};
 const ESTIMATE_SIZES: [usize; 4] = [100, 250, 500, 2000];
 const CLASSIFY_SIZES: [usize; 4] = [100, 250, 500, 2000];
 const PERIOD_SIZES: [usize; 2] = [500, 2000];
-/// Seed of the readings' noise. With seed 0 the Fenwick period converges (in 9 iterations).
+/// Seed of the readings' noise. With seed 0 the Vantle period converges (in 9 iterations).
 const NOISE_SEED: u64 = 0;
 const NETWORK_SEED: u64 = 7;
 
@@ -81,10 +81,10 @@ fn capped() -> SolveOptions {
     }
 }
 
-fn fenwick(c: &mut Criterion) {
-    let plant = parse_plant(FENWICK).expect("Fenwick model is valid");
+fn vantle(c: &mut Criterion) {
+    let plant = parse_plant(VANTLE).expect("Vantle model is valid");
     let layout = Layout::new(&plant);
-    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
     let input = period(noisy_values(
         &plant,
         &exact_values(&plant, &layout, &z),
@@ -92,7 +92,7 @@ fn fenwick(c: &mut Criterion) {
     ));
     let report = reconcile_period(&plant, &input);
     eprintln!(
-        "fenwick: status {:?}, {} iterations, objective {:.2}, redundancy {}",
+        "vantle: status {:?}, {} iterations, objective {:.2}, redundancy {}",
         report.status,
         report.iterations,
         report.objective.unwrap_or(f64::NAN),
@@ -104,7 +104,7 @@ fn fenwick(c: &mut Criterion) {
     ));
     let faulty_report = reconcile_period(&plant, &faulty);
     eprintln!(
-        "fenwick/with_gross_error: status {:?}, objective {:.2}, faults {:?}",
+        "vantle/with_gross_error: status {:?}, objective {:.2}, faults {:?}",
         faulty_report.status,
         faulty_report.objective.unwrap_or(f64::NAN),
         faulty_report
@@ -113,7 +113,7 @@ fn fenwick(c: &mut Criterion) {
             .map(|f| f.candidates.clone())
             .collect::<Vec<_>>()
     );
-    let mut group = c.benchmark_group("fenwick");
+    let mut group = c.benchmark_group("vantle");
     group.bench_function("reconcile_period", |b| {
         b.iter(|| reconcile_period(black_box(&plant), black_box(&input)))
     });
@@ -123,8 +123,8 @@ fn fenwick(c: &mut Criterion) {
     group.finish();
 }
 
-/// Meter whose value gets the gross error in `fenwick/with_gross_error`, and its size in σ.
-const GROSS_ERROR_METER: &str = "FR3-FI-101";
+/// Meter whose value gets the gross error in `vantle/with_gross_error`, and its size in σ.
+const GROSS_ERROR_METER: &str = "VC3-FI-101";
 const GROSS_ERROR_SIGMAS: f64 = 8.0;
 
 fn with_gross_error(
@@ -134,7 +134,7 @@ fn with_gross_error(
     let v = values
         .iter_mut()
         .find(|v| plant.meters[v.meter].tag == GROSS_ERROR_METER)
-        .expect("the Fenwick loop has the make-up flow meter");
+        .expect("the Vantle loop has the make-up flow meter");
     let sigma = plant.meters[v.meter]
         .sigma_for(v.value)
         .expect("positive σ");
@@ -243,10 +243,10 @@ fn networks(c: &mut Criterion) {
 
 /// Time every case once, for sizes too slow for criterion's repeated samples.
 fn probe() {
-    // The Fenwick period split into its parts, each the mean of 200 runs.
-    let plant = parse_plant(FENWICK).expect("Fenwick model is valid");
+    // The Vantle period split into its parts, each the mean of 200 runs.
+    let plant = parse_plant(VANTLE).expect("Vantle model is valid");
     let layout = Layout::new(&plant);
-    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
     let values = noisy_values(&plant, &exact_values(&plant, &layout, &z), NOISE_SEED);
     let m = measured(&plant, &values);
     let input = period(values);
@@ -273,7 +273,7 @@ fn probe() {
         black_box(reconcile_period(&plant, &faulty));
     }
     let t_fault = t.elapsed() / runs;
-    println!("fenwick: estimate {t_est:?} ({} iterations), classify {t_cls:?}, reconcile_period {t_all:?}, with gross error {t_fault:?}", s.iterations);
+    println!("vantle: estimate {t_est:?} ({} iterations), classify {t_cls:?}, reconcile_period {t_all:?}, with gross error {t_fault:?}", s.iterations);
     let sizes: Vec<usize> = std::env::var("LOOPBAL_BENCH_PROBE_SIZES")
         .ok()
         .map(|s| s.split(',').filter_map(|x| x.trim().parse().ok()).collect())
@@ -319,7 +319,7 @@ fn probe() {
     }
 }
 
-criterion_group!(benches, fenwick, networks);
+criterion_group!(benches, vantle, networks);
 
 fn main() {
     if std::env::var_os("LOOPBAL_BENCH_PROBE").is_some() {

@@ -325,10 +325,10 @@ fn fixture_molar_masses_match_iupac_2021_atomic_weights() {
     // IUPAC 2021 abridged standard atomic weights: H 1.008, C 12.011, N 14.007, Ar 39.95.
     let text = std::fs::read_to_string(concat!(
         env!("CARGO_MANIFEST_DIR"),
-        "/../tests/data/kestrel-loop.toml"
+        "/../tests/data/ombrask-loop.toml"
     ))
     .expect("fixture readable");
-    let kestrel = parse_plant(&text).expect("fixture valid");
+    let ombrask = parse_plant(&text).expect("fixture valid");
     let expected = [
         ("N2", 2.0 * AW_N),
         ("H2", 2.0 * AW_H),
@@ -337,7 +337,7 @@ fn fixture_molar_masses_match_iupac_2021_atomic_weights() {
         ("Ar", 39.95),
     ];
     for (id, m) in expected {
-        let c = &kestrel.components[kestrel.component_index(id).expect(id)];
+        let c = &ombrask.components[ombrask.component_index(id).expect(id)];
         assert!(
             (c.molar_mass - m).abs() <= 1e-3,
             "{id}: fixture {} g/mol, IUPAC sum {m} g/mol",

@@ -3,7 +3,7 @@
 #[path = "../benches/common/mod.rs"]
 mod common;
 
-use common::{exact_values, fenwick_true_state, noisy_values, FenwickConditions, FENWICK};
+use common::{exact_values, vantle_true_state, noisy_values, VantleConditions, VANTLE};
 use reconcile::equations::Layout;
 use reconcile::faults::identify;
 use reconcile::period::MeterValue;
@@ -22,10 +22,10 @@ fn measured(plant: &Plant, values: &[MeterValue]) -> Vec<Measured> {
         .collect()
 }
 
-fn fenwick() -> (Plant, Vec<MeterValue>) {
-    let plant = parse_plant(FENWICK).unwrap();
+fn vantle() -> (Plant, Vec<MeterValue>) {
+    let plant = parse_plant(VANTLE).unwrap();
     let layout = Layout::new(&plant);
-    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
     let exact = exact_values(&plant, &layout, &z);
     (plant, exact)
 }
@@ -35,7 +35,7 @@ fn fenwick() -> (Plant, Vec<MeterValue>) {
 /// (DOMAIN.md §6; Narasimhan & Mah 1987).
 #[test]
 fn random_errors_only_calibrate_the_tests() {
-    let (plant, exact) = fenwick();
+    let (plant, exact) = vantle();
     let trials = 2000;
     let mut rejections = 0;
     let (mut objective_sum, mut dof_seen) = (0.0, 0);
@@ -114,7 +114,7 @@ fn random_errors_only_calibrate_the_tests() {
 /// Narasimhan & Mah 1987).
 #[test]
 fn one_bias_is_found_with_high_power_and_few_false_alarms() {
-    let (plant, exact) = fenwick();
+    let (plant, exact) = vantle();
     let reference: Estimate = estimate(&plant, measured(&plant, &exact));
     let redundant: Vec<usize> = (0..reference.measured.len())
         .filter(|&k| reference.classification.is_redundant(k))

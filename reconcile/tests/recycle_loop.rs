@@ -1,12 +1,12 @@
 //! A recycle loop with a reactor, a separator and a purge splitter, where flows are metered on
-//! some streams and compositions on others (tests/data/kestrel-loop.toml).
+//! some streams and compositions on others (tests/data/ombrask-loop.toml).
 
 use chrono::{TimeZone, Utc};
 use reconcile::equations::{measurement, Layout};
 use reconcile::period::{MeterValue, PeriodInput};
 use reconcile::{parse_plant, reconcile_period, Plant, ReportStatus};
 
-const MODEL: &str = include_str!("../../tests/data/kestrel-loop.toml");
+const MODEL: &str = include_str!("../../tests/data/ombrask-loop.toml");
 
 /// The loop's true steady state by successive substitution around the recycle: 25 % single-pass
 /// conversion of N2, all NH3 and 5 % of the CH4 leave with the liquid product, 5 % purge.

@@ -5,7 +5,7 @@ use proptest::prelude::*;
 use reconcile::equations::{constraints, measurement, Layout};
 use reconcile::{parse_plant, ModelError, ModelProblem, ModelSpec, Plant};
 
-const FIXTURE: &str = include_str!("../../tests/data/kestrel-loop.toml");
+const FIXTURE: &str = include_str!("../../tests/data/ombrask-loop.toml");
 
 /// A small valid loop: makeup and recycle mix, a converter, a separator that drops liquid
 /// ammonia with the water, and a splitter that purges part of the vapour.
@@ -188,7 +188,7 @@ fn base_model_is_valid() {
 #[test]
 fn the_fixture_passes() {
     let plant = parse_plant(FIXTURE).unwrap_or_else(|e| panic!("{e}"));
-    assert_eq!(plant.name, "kestrel-kp2");
+    assert_eq!(plant.name, "ombrask-ob2");
     assert_eq!(plant.period_seconds, 3600);
     assert_eq!(plant.alpha, 0.05);
     // As many items as the file has tables of each kind.
@@ -784,7 +784,7 @@ fn a_model_with_many_problems_reports_all_of_them() {
 // JSON and TOML.
 
 const SMALL_TOML: &str = r#"
-name = "petrel"
+name = "quorrin"
 period = "15m"
 alpha = 0.01
 
@@ -856,7 +856,7 @@ sigma_pct = 2.0
 "#;
 
 const SMALL_JSON: &str = r#"{
-  "name": "petrel", "period": "15m", "alpha": 0.01,
+  "name": "quorrin", "period": "15m", "alpha": 0.01,
   "component": [
     {"id": "A", "molar_mass": 30.0},
     {"id": "B", "molar_mass": 15.0},

@@ -40,7 +40,7 @@ const TIME_LIMIT: Duration = Duration::from_secs(60);
 const TARGET: f64 = 100_000.0;
 const MODEL_PATH: &str = concat!(
     env!("CARGO_MANIFEST_DIR"),
-    "/../tests/data/fenwick-methanol.toml"
+    "/../tests/data/vantle-methanol.toml"
 );
 
 /// A meter of the model and where its readings sit.
@@ -430,8 +430,8 @@ struct Data {
 async fn run() {
     let batches = batches_wanted();
     let dir = tempfile::tempdir().expect("temporary directory");
-    let model_text = std::fs::read_to_string(MODEL_PATH).expect("read the Fenwick model");
-    let spec = ModelSpec::from_toml(&model_text).expect("Fenwick model parses");
+    let model_text = std::fs::read_to_string(MODEL_PATH).expect("read the Vantle model");
+    let spec = ModelSpec::from_toml(&model_text).expect("Vantle model parses");
     let meters: Vec<Meter> = spec.meters.iter().map(meter).collect();
     let start = Utc.with_ymd_and_hms(2026, 1, 1, 0, 0, 0).unwrap();
     let new: Vec<Vec<Reading>> = (0..batches)

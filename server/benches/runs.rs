@@ -1,7 +1,7 @@
 //! Period runs and report reads through the service, in-process on loopback with a SQLite file
 //! (and, for the month, on PostgreSQL too when `LOOPBAL_BENCH_POSTGRES_URL` is set):
 //!
-//! 1. a month (720 hourly periods) of noisy readings of the Fenwick Reach methanol loop is
+//! 1. a month (720 hourly periods) of noisy readings of the Vantle Cross methanol loop is
 //!    POSTed over HTTP, then `schedule::run_due` (the scheduler's own pass, grace 0) runs every
 //!    period, timed, on a fresh database per case: one instance with 2 workers, with 1 and
 //!    with 4; two instances (two `AppState`s with their own claimant and their own
@@ -119,7 +119,7 @@ fn machine() -> Vec<String> {
 
 /// The service in-process on a fresh database (a SQLite file or a scratch PostgreSQL database),
 /// claiming periods as instance `bench-a`: an admin token, the router on 127.0.0.1:0, and the
-/// Fenwick model PUT in effect from `from`.
+/// Vantle model PUT in effect from `from`.
 struct Service {
     state: AppState,
     row: PlantRow,
@@ -529,12 +529,12 @@ async fn run() {
     let context = machine();
     let dir = tempfile::tempdir().expect("temporary directory");
 
-    let model_text = common::FENWICK;
-    let spec = ModelSpec::from_toml(model_text).expect("Fenwick model parses");
+    let model_text = common::VANTLE;
+    let spec = ModelSpec::from_toml(model_text).expect("Vantle model parses");
     let plant_name = spec.name.clone();
-    let plant = Plant::new(spec).expect("Fenwick model is valid");
+    let plant = Plant::new(spec).expect("Vantle model is valid");
     let layout = Layout::new(&plant);
-    let z = common::fenwick_true_state(&plant, &layout, &common::FenwickConditions::default());
+    let z = common::vantle_true_state(&plant, &layout, &common::VantleConditions::default());
     let meters = plant.meters.len();
     let start = Utc.with_ymd_and_hms(2025, 1, 1, 0, 0, 0).unwrap();
 

@@ -40,15 +40,15 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde_json::Value;
 
-use crate::support::{self, Backend, Server, KESTREL_TAGS};
+use crate::support::{self, Backend, Server, OMBRASK_TAGS};
 use database::{
     copy_sqlite, dead_sessions_gone, drained, marks_problems, readings_problems, resolve, snapshot,
     write_open,
 };
 use historian::{historian, rfc3339, Batch, Key, Ledger, Outcome, PERIOD_MS};
 
-/// The kestrel model's own name (a model is stored under its name).
-const PLANT: &str = "kestrel-kp2";
+/// The ombrask model's own name (a model is stored under its name).
+const PLANT: &str = "ombrask-ob2";
 
 /// Overrides the random seed of the run.
 const SEED_VAR: &str = "LOOPBAL_CRASH_SEED";
@@ -140,10 +140,10 @@ async fn service_agrees(
     let body = support::json_ok(r).await;
     let mut got = BTreeMap::new();
     for r in body["readings"].as_array().expect("readings") {
-        let tag = KESTREL_TAGS
+        let tag = OMBRASK_TAGS
             .iter()
             .position(|(t, _)| Some(*t) == r["tag"].as_str())
-            .expect("a kestrel tag");
+            .expect("a ombrask tag");
         let time = DateTime::parse_from_rfc3339(r["time"].as_str().expect("time"))
             .expect("RFC 3339")
             .timestamp_millis();
@@ -179,7 +179,7 @@ crate::both_backends! {
             .put(server.url(&format!("/api/v1/plants/{PLANT}/model")))
             .bearer_auth(&admin)
             .header("content-type", "application/toml")
-            .body(support::kestrel_model())
+            .body(support::ombrask_model())
             .send()
             .await
             .expect("PUT model");

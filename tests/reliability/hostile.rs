@@ -22,16 +22,16 @@
 //!   for a body that stalls, 422 for an invalid model.
 //!
 //! After every test `/healthz` answers, the server's log has no `panicked` and no ERROR line,
-//! and the snapshot of the plant kestrel-kp2 is what it was.
+//! and the snapshot of the plant ombrask-ob2 is what it was.
 //!
 //! What may change data, and where it goes:
-//! - kestrel-kp2 holds a model, three hours of readings, their period runs and a technician's
+//! - ombrask-ob2 holds a model, three hours of readings, their period runs and a technician's
 //!   note. Before the hostile cases everything readable about it is snapshotted (revisions,
 //!   the current model, readings over the years 0000 to 9999, the period listing of 2026 and
 //!   every report, the meter list and each meter's detail, figures, balances). Only requests
 //!   that must be refused as a whole go to it (wrong content types, oversize, broken framing,
 //!   deep nesting, hostile GETs), and model files:
-//! - Mutated model files are PUT to kestrel-kp2 with `effective_from` in 2999, and the answer
+//! - Mutated model files are PUT to ombrask-ob2 with `effective_from` in 2999, and the answer
 //!   must be exactly what the engine's own parser and validator, run here on the same bytes,
 //!   say: 201 if and only if the mutation is still a valid model of that name, else 422 (400
 //!   not UTF-8, 413 over the limit, 415 a media type that is neither TOML nor JSON). A model
@@ -40,13 +40,13 @@
 //!   one plus exactly that many, each effective in 2999, and nothing else may differ (a 2999
 //!   revision is in effect for nothing the snapshot reads).
 //! - Readings mutations may rightly store their good lines, so they go to a second plant,
-//!   kestrel-kp3 (the same model renamed), read back after every case: a 400 or 413 changed
+//!   ombrask-ob3 (the same model renamed), read back after every case: a 400 or 413 changed
 //!   nothing; a 200 added exactly `accepted` readings, changed exactly `replaced`, left every
 //!   other stored reading as it was, and everything stored is a reading a valid batch could
 //!   hold (a known tag, a finite number, a quality word, a time in the years 0000 to 9998). The
-//!   scheduler then runs kestrel-kp3's periods, which must settle without an error.
+//!   scheduler then runs ombrask-ob3's periods, which must settle without an error.
 //! - Technicians' notes, hostile `effective_from` on model PUTs and period re-runs also go to
-//!   kestrel-kp3; a refused note leaves the meter's notes as they were, an accepted one adds
+//!   ombrask-ob3; a refused note leaves the meter's notes as they were, an accepted one adds
 //!   exactly one.
 
 use std::collections::BTreeMap;
@@ -60,12 +60,12 @@ use reconcile::{ModelSpec, Plant};
 use reqwest::{Client, Method, RequestBuilder};
 use serde_json::{json, Value};
 
-use crate::support::{self, Backend, Server, KESTREL_TAGS};
+use crate::support::{self, Backend, Server, OMBRASK_TAGS};
 
 /// The plant whose data must not change.
-const PLANT: &str = "kestrel-kp2";
+const PLANT: &str = "ombrask-ob2";
 /// The plant that takes requests a valid case may rightly store.
-const SCRATCH: &str = "kestrel-kp3";
+const SCRATCH: &str = "ombrask-ob3";
 const MAX_BODY: usize = 256 * 1024;
 const REQUEST_TIMEOUT_S: u64 = 8;
 /// Hostile model revisions take effect here: after everything the snapshot reads.
@@ -369,7 +369,7 @@ const HOSTILE_TEXTS: &[&str] = &[
     "",
     " ",
     "\\u0000",
-    "KP2\\u0000FI",
+    "OB2\\u0000FI",
     "\\n",
     "\\t\\r",
     "\\u202e",
@@ -383,8 +383,8 @@ const HOSTILE_TEXTS: &[&str] = &[
     "%00",
     "../../etc/passwd",
     "'; DROP TABLE plants; --",
-    "kestrel-kp2",
-    "KP2-FI-101",
+    "ombrask-ob2",
+    "OB2-FI-101",
     "mix",
     "outside",
     "N2",
@@ -706,12 +706,12 @@ struct Fixture {
     read: String,
     maintain: String,
     before: BTreeMap<String, Value>,
-    /// Hostile model files the service took as valid revisions of kestrel-kp2 (in 2999).
+    /// Hostile model files the service took as valid revisions of ombrask-ob2 (in 2999).
     accepted_models: usize,
 }
 
 fn scratch_model() -> String {
-    let model = support::kestrel_model();
+    let model = support::ombrask_model();
     let renamed = model.replace(
         &format!("name = \"{PLANT}\""),
         &format!("name = \"{SCRATCH}\""),
@@ -721,7 +721,7 @@ fn scratch_model() -> String {
 }
 
 fn known_tags() -> Vec<&'static str> {
-    KESTREL_TAGS.iter().map(|(t, _)| *t).collect()
+    OMBRASK_TAGS.iter().map(|(t, _)| *t).collect()
 }
 
 impl Fixture {
@@ -773,20 +773,20 @@ impl Fixture {
             accepted_models: 0,
         };
 
-        // kestrel-kp2: its model from March 2026, three hours of readings, their runs, a note.
+        // ombrask-ob2: its model from March 2026, three hours of readings, their runs, a note.
         let a = fx
             .put_model(
                 PLANT,
                 Some("application/toml"),
                 Some("2026-03-01T00:00:00Z"),
-                support::kestrel_model().into_bytes(),
+                support::ombrask_model().into_bytes(),
                 "set-up",
             )
             .await;
         assert_eq!(a.status, 201, "{}", a.text());
         let mut csv = String::from("tag,time,value,quality\n");
         for hour in 0..3 {
-            for (i, (tag, value)) in KESTREL_TAGS.iter().enumerate() {
+            for (i, (tag, value)) in OMBRASK_TAGS.iter().enumerate() {
                 let quality = if hour == 1 && i == 3 {
                     "uncertain"
                 } else {
@@ -809,13 +809,13 @@ impl Fixture {
             .await;
         assert!(
             periods.iter().all(|p| p["run_id"].is_i64()),
-            "every hour of kestrel-kp2 has a run: {periods:?}"
+            "every hour of ombrask-ob2 has a run: {periods:?}"
         );
         let note = json!({"kind": "checked", "text": "zero checked on site", "effective_at": "2026-03-02T02:30:00Z"});
         let a = fx
             .post_note(
                 PLANT,
-                "KP2-FI-201",
+                "OB2-FI-201",
                 Some("application/json"),
                 note.to_string().into_bytes(),
                 "set-up",
@@ -823,7 +823,7 @@ impl Fixture {
             .await;
         assert_eq!(a.status, 201, "{}", a.text());
 
-        // kestrel-kp3: the same model, no readings yet.
+        // ombrask-ob3: the same model, no readings yet.
         let a = fx
             .put_model(
                 SCRATCH,
@@ -967,7 +967,7 @@ impl Fixture {
         }
     }
 
-    /// Everything readable about kestrel-kp2.
+    /// Everything readable about ombrask-ob2.
     async fn snapshot(&self) -> BTreeMap<String, Value> {
         let base = format!("/api/v1/plants/{PLANT}");
         let window = [
@@ -1031,7 +1031,7 @@ impl Fixture {
         m
     }
 
-    /// The service is alive, its log is clean and kestrel-kp2 is as it was.
+    /// The service is alive, its log is clean and ombrask-ob2 is as it was.
     async fn finish(self) {
         let a = send(self.c.get(self.s.url("/healthz")), "healthz").await;
         assert_eq!(a.status, 200, "the service is not healthy: {}", a.text());
@@ -1041,7 +1041,7 @@ impl Fixture {
         assert_eq!(
             new.len(),
             old.len() + self.accepted_models,
-            "kestrel-kp2 has revisions other than the accepted valid ones: {new:?}"
+            "ombrask-ob2 has revisions other than the accepted valid ones: {new:?}"
         );
         assert_eq!(&new[..old.len()], &old[..], "a stored revision changed");
         for r in &new[old.len()..] {
@@ -1054,7 +1054,7 @@ impl Fixture {
         );
         for (key, was) in &self.before {
             if key != "revisions" {
-                assert_eq!(&after[key], was, "kestrel-kp2's {key} changed");
+                assert_eq!(&after[key], was, "ombrask-ob2's {key} changed");
             }
         }
         let log = self.s.log();
@@ -1069,7 +1069,7 @@ impl Fixture {
             errors.join("\n")
         );
         eprintln!(
-            "hostile: kestrel-kp2 unchanged ({} parts compared, {} valid hostile revisions in 2999)",
+            "hostile: ombrask-ob2 unchanged ({} parts compared, {} valid hostile revisions in 2999)",
             self.before.len(),
             self.accepted_models
         );
@@ -1080,9 +1080,9 @@ impl Fixture {
 // Model files
 
 fn model_base(json: bool) -> Vec<u8> {
-    let toml = support::kestrel_model();
+    let toml = support::ombrask_model();
     if json {
-        let spec = ModelSpec::from_toml(&toml).expect("the kestrel model parses");
+        let spec = ModelSpec::from_toml(&toml).expect("the ombrask model parses");
         serde_json::to_string_pretty(&spec)
             .expect("a model serialises")
             .into_bytes()
@@ -1134,11 +1134,11 @@ const MODEL_MEDIA: &[Option<&str>] = &[
     Some("text/x-toml"),
     Some("APPLICATION/JSON"),
     Some("application/toml; charset=utf-8"),
-    Some("application/vnd.kestrel+json"),
+    Some("application/vnd.ombrask+json"),
     Some("text/plain"),
     Some("text/csv"),
     Some("application/octet-stream"),
-    Some("multipart/form-data; boundary=kestrel"),
+    Some("multipart/form-data; boundary=ombrask"),
     Some("application/x-www-form-urlencoded"),
     Some(";"),
 ];
@@ -1247,9 +1247,9 @@ async fn model_media_types(fx: &mut Fixture) {
     let toml = model_base(false);
     let json = model_base(true);
     let multipart = [
-        &b"--kestrel\r\nContent-Disposition: form-data; name=\"model\"; filename=\"kestrel.toml\"\r\nContent-Type: application/toml\r\n\r\n"[..],
+        &b"--ombrask\r\nContent-Disposition: form-data; name=\"model\"; filename=\"ombrask.toml\"\r\nContent-Type: application/toml\r\n\r\n"[..],
         &toml,
-        b"\r\n--kestrel--\r\n",
+        b"\r\n--ombrask--\r\n",
     ]
     .concat();
     let cases: Vec<(&str, Vec<u8>, Option<&str>, u16)> = vec![
@@ -1265,7 +1265,7 @@ async fn model_media_types(fx: &mut Fixture) {
         (
             "multipart",
             multipart,
-            Some("multipart/form-data; boundary=kestrel"),
+            Some("multipart/form-data; boundary=ombrask"),
             415,
         ),
         (
@@ -1284,7 +1284,7 @@ async fn model_media_types(fx: &mut Fixture) {
         (
             "a +toml suffix",
             toml.clone(),
-            Some("application/vnd.kestrel+toml"),
+            Some("application/vnd.ombrask+toml"),
             415,
         ),
         (
@@ -1314,7 +1314,7 @@ async fn model_media_types(fx: &mut Fixture) {
         (
             "TOML sent as a +json type",
             toml.clone(),
-            Some("application/vnd.kestrel+json"),
+            Some("application/vnd.ombrask+json"),
             422,
         ),
         // The contract's types with parameters and in capitals are the same types: accepted,
@@ -1334,7 +1334,7 @@ async fn model_media_types(fx: &mut Fixture) {
         (
             "JSON as a +json type",
             json.clone(),
-            Some("application/vnd.kestrel+json"),
+            Some("application/vnd.ombrask+json"),
             201,
         ),
     ];
@@ -1408,9 +1408,9 @@ async fn model_nesting(fx: &mut Fixture) {
         (
             "a model one byte over the limit",
             {
-                let mut m = support::kestrel_model();
+                let mut m = support::ombrask_model();
                 while m.len() < MAX_BODY + 1 {
-                    m.push_str("# padding of the kestrel model past the body limit\n");
+                    m.push_str("# padding of the ombrask model past the body limit\n");
                 }
                 m
             },
@@ -1453,20 +1453,20 @@ async fn model_nesting(fx: &mut Fixture) {
 // Readings
 
 const ODD_TAGS: &[&str] = &[
-    "KP2-FI-999",
+    "OB2-FI-999",
     "",
     " ",
-    " KP2-FI-101 ",
-    "kp2-fi-101",
-    "KP2-FI-101\0",
+    " OB2-FI-101 ",
+    "ob2-fi-101",
+    "OB2-FI-101\0",
     "\0",
-    "KP2-FI-101\u{202e}",
-    "KP2-FI-101\"",
-    "KP2-FI-101,KP2-FI-201",
-    "../KP2-FI-101",
+    "OB2-FI-101\u{202e}",
+    "OB2-FI-101\"",
+    "OB2-FI-101,OB2-FI-201",
+    "../OB2-FI-101",
     "Ω",
-    "\u{feff}KP2-FI-101",
-    "KP2-FI-101\r",
+    "\u{feff}OB2-FI-101",
+    "OB2-FI-101\r",
     "'; DELETE FROM readings; --",
 ];
 
@@ -1616,7 +1616,7 @@ fn row() -> impl Strategy<Value = Row> {
             20 => Just(Shape::Whole),
             1 => Just(Shape::NoValue),
             1 => Just(Shape::Extra),
-            1 => prop::sample::select(vec!["1", "null", "\"KP2-FI-101\"", "[]", "true", "#"])
+            1 => prop::sample::select(vec!["1", "null", "\"OB2-FI-101\"", "[]", "true", "#"])
                 .prop_map(Shape::NotAReading),
         ],
         prop::bool::weighted(0.15),
@@ -1742,7 +1742,7 @@ impl BatchCase {
                     Shape::NoValue => {
                         fields.remove(2);
                     }
-                    Shape::Extra => fields.push("\"site\": \"kestrel point\"".into()),
+                    Shape::Extra => fields.push("\"site\": \"ombrask point\"".into()),
                     _ => {}
                 }
                 format!("{{{}}}", fields.join(", "))
@@ -1783,7 +1783,7 @@ fn check_stored(r: &Value, what: &str) {
     assert!((0..=9998).contains(&year), "{what}: {r}");
 }
 
-/// The readings of kestrel-kp3 before and after one batch agree with its answer.
+/// The readings of ombrask-ob3 before and after one batch agree with its answer.
 fn check_ingest(
     before: &BTreeMap<(String, String), Value>,
     after: &BTreeMap<(String, String), Value>,
@@ -1856,11 +1856,11 @@ async fn readings_batches(fx: &mut Fixture, count: usize, json: bool) {
     budget.done();
 }
 
-/// A few readings of kestrel-kp3, as CSV and as JSON.
+/// A few readings of ombrask-ob3, as CSV and as JSON.
 fn scratch_batch() -> (Vec<u8>, Vec<u8>) {
     let mut csv = String::from("tag,time,value,quality\n");
     let mut rows = Vec::new();
-    for (tag, value) in KESTREL_TAGS {
+    for (tag, value) in OMBRASK_TAGS {
         csv += &format!("{tag},2026-05-06T10:00:07Z,{value},good\n");
         rows.push(json!({"tag": tag, "time": "2026-05-06T10:00:07Z", "value": value}));
     }
@@ -1869,8 +1869,8 @@ fn scratch_batch() -> (Vec<u8>, Vec<u8>) {
 }
 
 /// Readings with every kind of Content-Type. Types the contract refuses, and bodies of the
-/// other format, go to kestrel-kp2 (refused whole); the contract's types spelt with parameters
-/// or capitals go to kestrel-kp3 and must be read.
+/// other format, go to ombrask-ob2 (refused whole); the contract's types spelt with parameters
+/// or capitals go to ombrask-ob3 and must be read.
 async fn readings_media_types(fx: &mut Fixture) {
     let (csv, json) = scratch_batch();
     let utf16: Vec<u8> = [0xFFu8, 0xFE]
@@ -1883,9 +1883,9 @@ async fn readings_media_types(fx: &mut Fixture) {
         )
         .collect();
     let multipart = [
-        &b"--kestrel\r\nContent-Disposition: form-data; name=\"readings\"; filename=\"r.csv\"\r\nContent-Type: text/csv\r\n\r\n"[..],
+        &b"--ombrask\r\nContent-Disposition: form-data; name=\"readings\"; filename=\"r.csv\"\r\nContent-Type: text/csv\r\n\r\n"[..],
         &csv,
-        b"\r\n--kestrel--\r\n",
+        b"\r\n--ombrask--\r\n",
     ]
     .concat();
     let refused: Vec<(&str, Vec<u8>, Option<&str>, u16)> = vec![
@@ -1901,7 +1901,7 @@ async fn readings_media_types(fx: &mut Fixture) {
         (
             "multipart",
             multipart,
-            Some("multipart/form-data; boundary=kestrel"),
+            Some("multipart/form-data; boundary=ombrask"),
             415,
         ),
         (
@@ -1970,7 +1970,7 @@ async fn readings_media_types(fx: &mut Fixture) {
         let n = |k: &str| answer[k].as_u64().unwrap_or(0);
         assert_eq!(
             n("accepted") + n("replaced") + n("unchanged"),
-            KESTREL_TAGS.len() as u64,
+            OMBRASK_TAGS.len() as u64,
             "{what}: {answer}"
         );
         assert_eq!(n("rejected"), 0, "{what}: {answer}");
@@ -1980,10 +1980,10 @@ async fn readings_media_types(fx: &mut Fixture) {
     budget.done();
 }
 
-/// Readings nested far past any parser's limit: refused whole with 400, on kestrel-kp2.
+/// Readings nested far past any parser's limit: refused whole with 400, on ombrask-ob2.
 async fn readings_nesting(fx: &mut Fixture) {
     let deep = 100_000;
-    let one = "{\"tag\": \"KP2-FI-101\", \"time\": \"2026-03-02T00:00:00Z\", \"value\": ";
+    let one = "{\"tag\": \"OB2-FI-101\", \"time\": \"2026-03-02T00:00:00Z\", \"value\": ";
     let cases: Vec<(&str, String, &str)> = vec![
         (
             "100,000 open brackets",
@@ -2112,12 +2112,12 @@ fn chunked(body: &[u8], piece: usize) -> Vec<u8> {
     out
 }
 
-/// Valid readings of kestrel-kp2, past the body limit: stored only if the limit failed.
+/// Valid readings of ombrask-ob2, past the body limit: stored only if the limit failed.
 fn oversized_csv() -> Vec<u8> {
     let mut csv = String::from("tag,time,value,quality\n");
     let mut k = 0u64;
     while csv.len() <= MAX_BODY + 4096 {
-        let (tag, value) = KESTREL_TAGS[(k % 11) as usize];
+        let (tag, value) = OMBRASK_TAGS[(k % 11) as usize];
         let (day, second) = (k / 11 / 86_400, k / 11 % 86_400);
         csv += &format!(
             "{tag},2026-04-{:02}T{:02}:{:02}:{:02}Z,{value},good\n",
@@ -2145,19 +2145,19 @@ struct RawCase {
 
 /// Bodies past `--max-body-bytes` on every endpoint that takes one, with Content-Length and
 /// chunked; Content-Length lies; bodies that stall; malformed chunks and requests. All go to
-/// kestrel-kp2 and must be refused.
+/// ombrask-ob2 and must be refused.
 async fn oversize_and_framing(fx: &mut Fixture) {
     let limit = MAX_BODY.to_string();
     let big_csv = oversized_csv();
-    let mut big_model = support::kestrel_model();
+    let mut big_model = support::ombrask_model();
     while big_model.len() <= MAX_BODY {
-        big_model.push_str("# padding of the kestrel model past the body limit\n");
+        big_model.push_str("# padding of the ombrask model past the body limit\n");
     }
     let big_note = json!({"kind": "checked", "text": "x".repeat(MAX_BODY)}).to_string();
 
     let readings = format!("/api/v1/plants/{PLANT}/readings");
     let model = format!("/api/v1/plants/{PLANT}/model?effective_from={FUTURE}");
-    let note = format!("/api/v1/plants/{PLANT}/meters/KP2-FI-101/notes");
+    let note = format!("/api/v1/plants/{PLANT}/meters/OB2-FI-101/notes");
     let quick = Duration::from_secs(5);
     let stall = Duration::from_secs(REQUEST_TIMEOUT_S + 10);
     let with = |method: &str, path: &str, token: &str, headers: &[u8], body: &[u8]| {
@@ -2176,7 +2176,7 @@ async fn oversize_and_framing(fx: &mut Fixture) {
         within,
     };
     let many_headers: String = (0..200)
-        .map(|i| format!("X-Kestrel-{i}: {i}\r\n"))
+        .map(|i| format!("X-Ombrask-{i}: {i}\r\n"))
         .collect();
     let cases =
         vec![
@@ -2246,7 +2246,7 @@ async fn oversize_and_framing(fx: &mut Fixture) {
             request_head("GET", &format!("/api/v1/plants/{}/model", "k".repeat(70_000)), read, b""),
             &[414], true, quick),
         case("a NUL in the path",
-            request_head("GET", "/api/v1/plants/kestrel\0kp2/model", read, b""),
+            request_head("GET", "/api/v1/plants/ombrask\0ob2/model", read, b""),
             &[400], true, quick),
         case("200 headers",
             request_head("GET", "/healthz", read, many_headers.as_bytes()),
@@ -2351,24 +2351,24 @@ const PLANT_SEGMENTS: &[&str] = &[
     PLANT,
     PLANT,
     SCRATCH,
-    "kestrel-kp9",
-    "KESTREL-KP2",
+    "ombrask-ob9",
+    "OMBRASK-OB2",
     "..",
     ".",
     "%2E%2E",
     "..%2F..%2Fetc",
     "%00",
-    "kestrel-kp2%00",
-    "kestrel%00kp2",
-    "kestrel%2Fkp2",
+    "ombrask-ob2%00",
+    "ombrask%00ob2",
+    "ombrask%2Fob2",
     "%FF",
     "%C0%AE%C0%AE",
     "%E2%80%AE",
     "%20",
-    "kestrel-kp2%20",
+    "ombrask-ob2%20",
     ".hidden",
     "-",
-    "kestrel-kp2;drop",
+    "ombrask-ob2;drop",
     "%25",
     "%",
 ];
@@ -2438,15 +2438,15 @@ fn decodes(segment: &str) -> bool {
 }
 
 const QUERY_TAGS: &[&str] = &[
-    "KP2-FI-101",
-    "KP2-AI-402",
-    "KP2-FI-999",
+    "OB2-FI-101",
+    "OB2-AI-402",
+    "OB2-FI-999",
     "%00",
-    "KP2-FI-101%00",
+    "OB2-FI-101%00",
     "..",
     "%2F",
     "%FF",
-    "kp2-fi-101",
+    "ob2-fi-101",
 ];
 
 const JUNK: &[&str] = &[
@@ -2522,7 +2522,7 @@ fn query_case() -> impl Strategy<Value = QueryCase> {
 
 impl QueryCase {
     /// Endpoints 9 (re-run a period) and 10 (PUT a model with `effective_from`) may change a
-    /// plant's data: they are sent to kestrel-kp3 when the case names kestrel-kp2.
+    /// plant's data: they are sent to ombrask-ob3 when the case names ombrask-ob2.
     fn writes(&self) -> bool {
         self.endpoint >= 9
     }
@@ -2603,11 +2603,11 @@ impl QueryCase {
             return Some(vec![400]);
         }
         let ours = [PLANT, SCRATCH].contains(&self.plant);
-        let unknown = ["kestrel-kp9", "KESTREL-KP2"].contains(&self.plant);
+        let unknown = ["ombrask-ob9", "OMBRASK-OB2"].contains(&self.plant);
         let start_ok = decoded_time(self.start, self.endpoint == 10).is_some();
         match self.endpoint {
             0 | 1 | 7 if ours => Some(vec![200]),
-            8 if ours && ["KP2-FI-101", "KP2-AI-402"].contains(&self.tag) => Some(vec![200]),
+            8 if ours && ["OB2-FI-101", "OB2-AI-402"].contains(&self.tag) => Some(vec![200]),
             0..=9 if unknown => Some(vec![404]),
             8 if ours => Some(vec![404]),
             4 | 9 if ours && !start_ok => Some(vec![400]),
@@ -2672,12 +2672,12 @@ const NOTE_KINDS: &[&str] = &[
 ];
 
 const NOTE_TAGS: &[&str] = &[
-    "KP2-FI-101",
-    "KP2-FI-201",
-    "KP2-AI-402",
-    "KP2-FI-999",
+    "OB2-FI-101",
+    "OB2-FI-201",
+    "OB2-AI-402",
+    "OB2-FI-999",
     "%00",
-    "KP2-FI-101%00",
+    "OB2-FI-101%00",
     "..",
     "%FF",
 ];

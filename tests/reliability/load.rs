@@ -2,7 +2,7 @@
 //! (`LOOPBAL_LOAD_SECONDS` to change it), with the scheduler running periods all the while.
 //!
 //! One `loopbal serve` (`--run-grace 0 --run-tick 1`, so every posted hour is due at once and
-//! period runs go on beside the requests) with three plants of the kestrel model under invented
+//! period runs go on beside the requests) with three plants of the ombrask model under invented
 //! names. Time is compressed: a historian posts the next hour of its plant every
 //! [`HISTORIAN_PAUSE`] (one batch: every tag of the plant at :00, :15, :30 and :45, CSV or JSON),
 //! and now and then replaces an hour it posted earlier (a late correction) or resends the hour
@@ -30,7 +30,7 @@ use rand::{Rng, SeedableRng};
 use reqwest::{Client, StatusCode};
 use serde_json::{json, Value};
 
-use crate::support::{client, kestrel_model, token_on, Backend, Server, KESTREL_TAGS};
+use crate::support::{client, ombrask_model, token_on, Backend, Server, OMBRASK_TAGS};
 
 /// The environment variable giving the load's length in seconds.
 const SECONDS_VAR: &str = "LOOPBAL_LOAD_SECONDS";
@@ -219,14 +219,14 @@ async fn historian(shared: Arc<Shared>, id: usize, plant: usize, lane: i64, lane
     let mut rng = rand::rngs::StdRng::seed_from_u64(0x10ad + id as u64);
     let mut posted = Posted::new();
     let mut hours: Vec<i64> = Vec::new();
-    let per_batch = (KESTREL_TAGS.len() * SAMPLES_PER_HOUR) as u64;
+    let per_batch = (OMBRASK_TAGS.len() * SAMPLES_PER_HOUR) as u64;
     let mut k: usize = 0;
     while shared.running() {
         let hour = lane + k as i64 * lanes;
         // A new hour: every tag, a little noise about its plausible value; now and then one
         // reading is of uncertain quality.
         let mut rows = Vec::with_capacity(per_batch as usize);
-        for (t, (tag, value)) in KESTREL_TAGS.iter().enumerate() {
+        for (t, (tag, value)) in OMBRASK_TAGS.iter().enumerate() {
             for s in 0..SAMPLES_PER_HOUR {
                 let time = hour_start(hour) + TimeDelta::minutes(15 * s as i64);
                 let v = value * (1.0 + 0.001 * rng.gen_range(-1.0..1.0));
@@ -288,7 +288,7 @@ async fn historian(shared: Arc<Shared>, id: usize, plant: usize, lane: i64, lane
             let from = hour_start(old);
             let to = hour_start(old + 1);
             let mut rows = Vec::with_capacity(per_batch as usize);
-            for (tag, _) in KESTREL_TAGS {
+            for (tag, _) in OMBRASK_TAGS {
                 for ((tag, time), (v, q)) in
                     posted.range((tag.to_string(), from)..(tag.to_string(), to))
                 {
@@ -425,7 +425,7 @@ async fn engineer(shared: Arc<Shared>, id: usize) {
                 }
             }
             Kind::Meter => {
-                let tag = KESTREL_TAGS[n % KESTREL_TAGS.len()].0;
+                let tag = OMBRASK_TAGS[n % OMBRASK_TAGS.len()].0;
                 let req = shared
                     .http
                     .get(plant_url(&format!("/meters/{tag}")))
@@ -548,7 +548,7 @@ async fn load(backend: Backend, seconds: u64) {
     let http = client();
     for plant in PLANTS {
         let model =
-            kestrel_model().replacen("name = \"kestrel-kp2\"", &format!("name = \"{plant}\""), 1);
+            ombrask_model().replacen("name = \"ombrask-ob2\"", &format!("name = \"{plant}\""), 1);
         let r = http
             .put(s.url(&format!("/api/v1/plants/{plant}/model")))
             .bearer_auth(&admin)

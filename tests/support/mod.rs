@@ -18,9 +18,9 @@ use loopbal_server::store::with_database;
 
 pub const BIN: &str = env!("CARGO_BIN_EXE_loopbal");
 
-pub const KESTREL: &str = concat!(
+pub const OMBRASK: &str = concat!(
     env!("CARGO_MANIFEST_DIR"),
-    "/../tests/data/kestrel-loop.toml"
+    "/../tests/data/ombrask-loop.toml"
 );
 
 /// A running `loopbal serve`. Dropping it kills the process.
@@ -252,24 +252,24 @@ pub fn token_on(url: &str, role: &str, plant: Option<&str>) -> String {
     token
 }
 
-/// The kestrel model file's text.
-pub fn kestrel_model() -> String {
-    std::fs::read_to_string(KESTREL).expect("read kestrel model")
+/// The ombrask model file's text.
+pub fn ombrask_model() -> String {
+    std::fs::read_to_string(OMBRASK).expect("read ombrask model")
 }
 
-/// The tags of the kestrel model with a plausible value for each (mid-range of its meter).
-pub const KESTREL_TAGS: [(&str, f64); 11] = [
-    ("KP2-FI-101", 20_500.0),
-    ("KP2-AI-102", 0.30),
-    ("KP2-AI-103", 74.1),
-    ("KP2-AI-104", 0.85),
-    ("KP2-FI-201", 5_400.0),
-    ("KP2-AI-202", 4.1),
-    ("KP2-FI-301", 13.2),
-    ("KP2-FI-401", 48.0),
-    ("KP2-AI-402", 5.0),
-    ("KP2-AI-403", 13.0),
-    ("KP2-FI-501", 4_300.0),
+/// The tags of the ombrask model with a plausible value for each (mid-range of its meter).
+pub const OMBRASK_TAGS: [(&str, f64); 11] = [
+    ("OB2-FI-101", 20_500.0),
+    ("OB2-AI-102", 0.30),
+    ("OB2-AI-103", 74.1),
+    ("OB2-AI-104", 0.85),
+    ("OB2-FI-201", 5_400.0),
+    ("OB2-AI-202", 4.1),
+    ("OB2-FI-301", 13.2),
+    ("OB2-FI-401", 48.0),
+    ("OB2-AI-402", 5.0),
+    ("OB2-AI-403", 13.0),
+    ("OB2-FI-501", 4_300.0),
 ];
 
 /// An HTTP client for the tests: generous timeout, keep-alive.

@@ -1,5 +1,5 @@
 //! Plants with a known true state, shared by the benchmarks and (through `#[path]`) by tests:
-//! the Fenwick Reach methanol loop of `tests/data/fenwick-methanol.toml`, and generated
+//! the Vantle Cross methanol loop of `tests/data/vantle-methanol.toml`, and generated
 //! networks of any size (`network`).
 //!
 //! Each gives the true state z in the engine's layout; `exact_values` turns it into meter
@@ -18,9 +18,9 @@ use reconcile::equations::{measurement, Layout};
 use reconcile::period::{MeterValue, PeriodInput};
 use reconcile::Plant;
 
-pub const FENWICK: &str = include_str!("../../../tests/data/fenwick-methanol.toml");
+pub const VANTLE: &str = include_str!("../../../tests/data/vantle-methanol.toml");
 
-/// Component order of the Fenwick model.
+/// Component order of the Vantle model.
 const CO: usize = 0;
 const CO2: usize = 1;
 const H2: usize = 2;
@@ -28,9 +28,9 @@ const MEOH: usize = 3;
 const H2O: usize = 4;
 const CH4: usize = 5;
 
-/// Operating conditions that fix the Fenwick loop's steady state.
+/// Operating conditions that fix the Vantle loop's steady state.
 #[derive(Debug, Clone, Copy)]
-pub struct FenwickConditions {
+pub struct VantleConditions {
     /// Makeup syngas, kmol/h of CO, CO2, H2, CH4.
     pub makeup: [f64; 4],
     /// CO2 side feed, kmol/h.
@@ -46,9 +46,9 @@ pub struct FenwickConditions {
     pub purge_fraction: f64,
 }
 
-impl Default for FenwickConditions {
+impl Default for VantleConditions {
     fn default() -> Self {
-        FenwickConditions {
+        VantleConditions {
             makeup: [1650.0, 720.0, 7350.0, 280.0],
             co2_feed: 110.0,
             conversion: [0.42, 0.16],
@@ -59,9 +59,9 @@ impl Default for FenwickConditions {
     }
 }
 
-/// The Fenwick loop's true steady state in the model's layout, by successive substitution
+/// The Vantle loop's true steady state in the model's layout, by successive substitution
 /// around the recycle until the recycle stops changing (to 1e-14 relative).
-pub fn fenwick_true_state(plant: &Plant, layout: &Layout, k: &FenwickConditions) -> Vec<f64> {
+pub fn vantle_true_state(plant: &Plant, layout: &Layout, k: &VantleConditions) -> Vec<f64> {
     // Stoichiometry of CO + 2 H2 → CH3OH and CO2 + 3 H2 → CH3OH + H2O.
     let nu = [
         [-1.0, 0.0, -2.0, 1.0, 0.0, 0.0],
@@ -123,7 +123,7 @@ pub fn fenwick_true_state(plant: &Plant, layout: &Layout, k: &FenwickConditions)
     ];
     let mut z = vec![0.0; layout.n];
     for (id, f) in flows {
-        let s = plant.stream_index(id).expect("stream of the Fenwick model");
+        let s = plant.stream_index(id).expect("stream of the Vantle model");
         for &c in &plant.streams[s].components {
             z[layout.flow(plant, s, c).expect("carried")] = f[c];
         }

@@ -315,7 +315,7 @@ mod tests {
 
     #[test]
     fn plant_is_read_from_the_path() {
-        assert_eq!(plant_of("/api/v1/plants/kestrel/readings"), "kestrel");
+        assert_eq!(plant_of("/api/v1/plants/ombrask/readings"), "ombrask");
         assert_eq!(plant_of("/api/v1/plants/"), "-");
         assert_eq!(plant_of("/healthz"), "-");
     }

@@ -324,12 +324,12 @@ mod tests {
     fn a_nul_in_any_text_of_a_model_is_named_by_its_place() {
         let text = std::fs::read_to_string(concat!(
             env!("CARGO_MANIFEST_DIR"),
-            "/../tests/data/kestrel-loop.toml"
+            "/../tests/data/ombrask-loop.toml"
         ))
-        .expect("the kestrel model");
+        .expect("the ombrask model");
         let mut spec = ModelSpec::from_toml(&text).expect("parses");
         assert!(nul_items(&spec).is_empty());
-        spec.meters[10].tag = "KP2-FI-501\0".into();
+        spec.meters[10].tag = "OB2-FI-501\0".into();
         spec.components[0].id = "\0".into();
         let items: Vec<String> = nul_items(&spec).into_iter().map(|e| e.item).collect();
         assert_eq!(items, ["component[0].id", "meter[10].tag"]);

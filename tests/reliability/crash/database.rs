@@ -10,7 +10,7 @@ use sqlx::Connection;
 
 use super::historian::{period_of, rfc3339, Batch, Key, Ledger, Val};
 use super::{DEADLINE, WRITE_WAIT};
-use crate::support::{Backend, KESTREL_TAGS};
+use crate::support::{Backend, OMBRASK_TAGS};
 
 /// The database as one consistent snapshot.
 #[derive(Debug, Default)]
@@ -105,7 +105,7 @@ pub(super) async fn snapshot(backend: Backend, url: &str) -> Snapshot {
         }
     };
     let (readings, dirty, runs) = rows;
-    let tag_index: HashMap<&str, usize> = KESTREL_TAGS
+    let tag_index: HashMap<&str, usize> = OMBRASK_TAGS
         .iter()
         .enumerate()
         .map(|(i, (t, _))| (*t, i))
@@ -189,7 +189,7 @@ pub(super) fn marks_problems(snap: &Snapshot, drained: bool) -> Vec<String> {
                 .collect();
             if !used.is_empty() {
                 let mean = used.iter().sum::<f64>() / used.len() as f64;
-                expected.insert(KESTREL_TAGS[tag].0, (mean, used.len()));
+                expected.insert(OMBRASK_TAGS[tag].0, (mean, used.len()));
             }
         }
         let mut seen: BTreeMap<&str, (f64, usize)> = BTreeMap::new();
@@ -241,12 +241,12 @@ pub(super) fn readings_problems(snap: &Snapshot, ledger: &Ledger) -> Vec<String>
         match snap.readings.get(key) {
             None => problems.push(format!(
                 "{} at {} is missing (want {want:?})",
-                KESTREL_TAGS[key.0].0,
+                OMBRASK_TAGS[key.0].0,
                 rfc3339(key.1)
             )),
             Some(got) if got != want => problems.push(format!(
                 "{} at {} holds {got:?}, want {want:?}",
-                KESTREL_TAGS[key.0].0,
+                OMBRASK_TAGS[key.0].0,
                 rfc3339(key.1)
             )),
             Some(_) => {}
@@ -256,7 +256,7 @@ pub(super) fn readings_problems(snap: &Snapshot, ledger: &Ledger) -> Vec<String>
         if !ledger.values.contains_key(key) {
             problems.push(format!(
                 "{} at {} holds {got:?}, never acknowledged nor in flight",
-                KESTREL_TAGS[key.0].0,
+                OMBRASK_TAGS[key.0].0,
                 rfc3339(key.1)
             ));
         }
@@ -278,7 +278,7 @@ pub(super) fn resolve(batch: &Batch, snap: &Snapshot) -> Result<bool, String> {
             return Err(format!(
                 "{}: {} at {} holds {got:?}, neither the batch's {:?} nor the earlier {:?}",
                 batch.describe(),
-                KESTREL_TAGS[w.key.0].0,
+                OMBRASK_TAGS[w.key.0].0,
                 rfc3339(w.key.1),
                 w.val,
                 w.prior

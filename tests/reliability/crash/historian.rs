@@ -10,7 +10,7 @@ use rand::Rng;
 use rand_chacha::ChaCha8Rng;
 use serde_json::Value;
 
-use crate::support::KESTREL_TAGS;
+use crate::support::OMBRASK_TAGS;
 
 /// Largest batch, in readings.
 const MAX_BATCH: f64 = 12_000.0;
@@ -18,10 +18,10 @@ const MAX_BATCH: f64 = 12_000.0;
 /// Every tag has a reading slot every 10 s: 360 slots an hour.
 const SLOT_MS: i64 = 10_000;
 
-/// The kestrel model's period (tests/data/kestrel-loop.toml: period = "1h").
+/// The ombrask model's period (tests/data/ombrask-loop.toml: period = "1h").
 pub(super) const PERIOD_MS: i64 = 3_600_000;
 
-/// A reading's identity: the index of its tag in KESTREL_TAGS, its time in ms.
+/// A reading's identity: the index of its tag in OMBRASK_TAGS, its time in ms.
 pub(super) type Key = (usize, i64);
 
 /// A stored reading's value and quality.
@@ -78,7 +78,7 @@ impl Batch {
             for w in &self.writes {
                 text.push_str(&format!(
                     "{},{},{},{}\n",
-                    KESTREL_TAGS[w.key.0].0,
+                    OMBRASK_TAGS[w.key.0].0,
                     rfc3339(w.key.1),
                     w.val.value,
                     w.val.quality
@@ -91,7 +91,7 @@ impl Batch {
                 .iter()
                 .map(|w| {
                     serde_json::json!({
-                        "tag": KESTREL_TAGS[w.key.0].0,
+                        "tag": OMBRASK_TAGS[w.key.0].0,
                         "time": rfc3339(w.key.1),
                         "value": w.val.value,
                         "quality": w.val.quality,
@@ -155,7 +155,7 @@ impl Ledger {
                 88..=95 => "uncertain",
                 _ => "bad",
             };
-            let value = KESTREL_TAGS[tag].1 * (0.995 + 0.01 * rng.gen::<f64>());
+            let value = OMBRASK_TAGS[tag].1 * (0.995 + 0.01 * rng.gen::<f64>());
             let val = Val { value, quality };
             if old.is_none_or(|o| o.value != val.value) {
                 return val;
@@ -206,7 +206,7 @@ impl Ledger {
         }
         if fresh {
             let n = if replace { size / 4 + 1 } else { size };
-            let tags = KESTREL_TAGS.len();
+            let tags = OMBRASK_TAGS.len();
             let keys: Vec<Key> = (0..n)
                 .map(|i| {
                     let slot = self.next_slot + (i / tags) as i64;

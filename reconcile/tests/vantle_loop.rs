@@ -1,19 +1,19 @@
-//! The Fenwick Reach methanol loop (tests/data/fenwick-methanol.toml): two reactions on one
+//! The Vantle Cross methanol loop (tests/data/vantle-methanol.toml): two reactions on one
 //! converter, a flash, a let-down vessel, a purge splitter and a recycle, 15 streams, six
 //! components and 26 meters of every kind and many units.
 
 #[path = "../benches/common/mod.rs"]
 mod common;
 
-use common::{exact_values, fenwick_true_state, period, FenwickConditions, FENWICK};
+use common::{exact_values, vantle_true_state, period, VantleConditions, VANTLE};
 use reconcile::equations::{constraints, Layout};
 use reconcile::{parse_plant, reconcile_period, ReportStatus};
 
 #[test]
 fn true_state_satisfies_every_balance() {
-    let plant = parse_plant(FENWICK).unwrap();
+    let plant = parse_plant(VANTLE).unwrap();
     let layout = Layout::new(&plant);
-    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
     let g = constraints(&plant, &layout, &z, None);
     let worst = g.iter().fold(0.0_f64, |a, x| a.max(x.abs()));
     assert!(worst < 1e-8, "largest balance residual {worst} kmol/h");
@@ -22,7 +22,7 @@ fn true_state_satisfies_every_balance() {
 
 #[test]
 fn noise_free_loop_reconciles_to_itself() {
-    let plant = parse_plant(FENWICK).unwrap();
+    let plant = parse_plant(VANTLE).unwrap();
     let layout = Layout::new(&plant);
     // States: 72 component flows (makeup 4, CO2 feed 1, fresh gas 4, loop-gas, conv-feed,
     // conv-out, interchanger-out, flash-feed 6 each, crude 4, flash-gas, purge, loop-return,
@@ -35,7 +35,7 @@ fn noise_free_loop_reconciles_to_itself() {
     // ν = 28 − 13 = 15.
     assert_eq!(layout.n, 75);
     assert_eq!(layout.rows.len(), 62);
-    let z = fenwick_true_state(&plant, &layout, &FenwickConditions::default());
+    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
     let values = exact_values(&plant, &layout, &z);
     for v in &values {
         println!(
@@ -87,7 +87,7 @@ fn noise_free_loop_reconciles_to_itself() {
     }
     assert!(
         report.meters.iter().all(|m| m.redundant),
-        "every Fenwick meter is redundant"
+        "every Vantle meter is redundant"
     );
     assert!(report.unobservable.is_empty(), "{:?}", report.unobservable);
 }
