@@ -1,4 +1,4 @@
-//! End-to-end tests of the HTTP service (FORMATS.md, "HTTP API"): the real `loopbal serve` on
+//! End-to-end tests of the HTTP service (docs/api.md): the real `loopbal serve` on
 //! a free loopback port with a temporary SQLite file, driven over HTTP as the historian, the
 //! engineer and the administrator would.
 
@@ -475,7 +475,7 @@ async fn a_new_revision_leaves_stored_readings_alone() {
     );
 }
 
-/// Every secured operation of the API with the role FORMATS.md gives it.
+/// Every secured operation of the API with the role docs/api.md gives it.
 const SECURED: [(&str, &str, &str); 13] = [
     ("put", "/api/v1/plants/{plant}/model", "admin"),
     ("get", "/api/v1/plants/{plant}/model", "read"),

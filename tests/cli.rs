@@ -1,4 +1,4 @@
-//! End-to-end tests of the `loopbal` binary's file commands (FORMATS.md, "The binary"):
+//! End-to-end tests of the `loopbal` binary's file commands (docs/cli.md):
 //! the real executable on files in a temporary folder, checked by exit status, stdout and stderr.
 
 use std::path::{Path, PathBuf};
@@ -218,7 +218,7 @@ fn has_keys(v: &Value, keys: &[&str], what: &str) {
     }
 }
 
-/// Exit status 1 exactly when some period failed to reconcile (FORMATS.md).
+/// Exit status 1 exactly when some period failed to reconcile (docs/cli.md).
 fn assert_exit_matches_statuses(out: &Output, reports: &[Value]) {
     let failed = reports
         .iter()

@@ -1,4 +1,4 @@
-//! End-to-end tests of the results of a range (FORMATS.md, "HTTP API"): loop figures as time
+//! End-to-end tests of the results of a range (docs/api.md): loop figures as time
 //! series (JSON and CSV) and reconciled balances summed over the range, from the real
 //! `loopbal serve` running the simulated purge-design loop hour by hour.
 

@@ -1,4 +1,4 @@
-//! Classification and covariance at the solution (DOMAIN.md §5–§6), on the linearised system.
+//! Classification and covariance at the solution (docs/methods.md §3), on the linearised system.
 //!
 //! With G the constraint Jacobian and J the σ-scaled measurement Jacobian, restricted to the
 //! variables not held at a bound, let N be an orthonormal basis of the null space of G (the

@@ -1,5 +1,5 @@
 //! Classification and covariance of large networks from one sparse LDLᵀ of the KKT matrix at
-//! the solution (DOMAIN.md §5–§6), where the dense projection of classify.rs (O(n³)) is too slow.
+//! the solution (docs/methods.md §3), where the dense projection of classify.rs (O(n³)) is too slow.
 //!
 //! With J the σ-scaled measurement Jacobian, G the constraint Jacobian and H = JᵀJ, the
 //! covariance of the estimate is the (1,1) block of the inverse of

@@ -1,4 +1,4 @@
-//! Variables and equations of DOMAIN.md §3.
+//! Variables and equations (docs/methods.md §1).
 //!
 //! The state z holds the component molar flows n_{s,c} (kmol/h) of every stream and component
 //! it carries, the extent ξ_r (kmol/h) of every reaction, and the split fraction φ_k of every

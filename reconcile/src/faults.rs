@@ -1,4 +1,4 @@
-//! Which meter is wrong (DOMAIN.md §6): gross-error identification on the linearised estimate.
+//! Which meter is wrong (docs/methods.md §5): gross-error identification on the linearised estimate.
 //!
 //! In the σ-scaled measurement space the residuals r = (y − ŷ)/σ have covariance W = I − U Uᵀ
 //! (a projector; see classify.rs). A fault of size b with signature f shifts their mean to

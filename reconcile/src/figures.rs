@@ -1,4 +1,4 @@
-//! Recycle-loop figures (DOMAIN.md §8) from the reconciled state, each with σ propagated
+//! Recycle-loop figures (docs/methods.md §6) from the reconciled state, each with σ propagated
 //! through its gradient (σ² = ∇fᵀ P ∇f), and the raw imbalance of every unit before
 //! reconciliation.
 //!

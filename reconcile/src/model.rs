@@ -1,4 +1,4 @@
-//! The plant model as users write it (TOML or JSON, FORMATS.md), and its validation into an
+//! The plant model as users write it (TOML or JSON, docs/model.md), and its validation into an
 //! indexed [`Plant`] the equations work on.
 //!
 //! Validation never stops at the first problem: it collects every problem it can find, each

@@ -1,4 +1,4 @@
-//! Readings and periods (FORMATS.md): a reading belongs to the UTC-aligned period that contains
+//! Readings and periods (docs/readings.md): a reading belongs to the UTC-aligned period that contains
 //! it; a meter's value for a period is the mean of its good and uncertain readings; bad
 //! readings are kept by the caller but not used.
 

@@ -1,4 +1,4 @@
-//! The report of one period (FORMATS.md): what users and their tools read. Values in `meters`
+//! The report of one period (docs/report.md): what users and their tools read. Values in `meters`
 //! are in each meter's uom; everything else in kmol/h and mole fractions. An unobservable value
 //! is `null` with `"observable": false`, never a made-up number.
 
@@ -203,7 +203,7 @@ pub struct Report {
     pub unobservable: Vec<String>,
     pub diagnostics: Option<Diagnostics>,
     pub warnings: Vec<String>,
-    /// The standing caution (DOMAIN.md §10).
+    /// The standing caution (README.md, "Caution").
     pub caution: String,
 }
 

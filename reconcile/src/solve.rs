@@ -1,4 +1,4 @@
-//! The estimate of DOMAIN.md §4: weighted least squares subject to g(z) = 0 and bounds, solved
+//! The estimate (docs/methods.md §2): weighted least squares subject to g(z) = 0 and bounds, solved
 //! by equality-constrained Gauss–Newton (SQP with the Gauss–Newton Hessian).
 //!
 //! Each iteration linearises h and g at z and solves the KKT system

@@ -1,4 +1,4 @@
-//! The starting point of the iteration (DOMAIN.md §4): bilinear problems have poor starting
+//! The starting point of the iteration (docs/methods.md §2): bilinear problems have poor starting
 //! regions, so start from what the meters say. Total flows come from flow meters and are
 //! propagated through total mole balances; compositions come from analysers, else from the
 //! mixture of the streams upstream, else evenly over the carried components; split fractions

@@ -1,4 +1,4 @@
-//! The tests of DOMAIN.md §6: the global test on the objective and the measurement test on the
+//! The tests (docs/methods.md §4): the global test on the objective and the measurement test on the
 //! normalised adjustments, with the Šidák correction.
 
 use serde::{Deserialize, Serialize};

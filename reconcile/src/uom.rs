@@ -1,4 +1,4 @@
-//! Units of measure of meters (FORMATS.md) and their conversion from the engine's base units:
+//! Units of measure of meters (docs/model.md, `[[meter]]`) and their conversion from the engine's base units:
 //! kmol/h for molar flows, kg/h for mass flows, mole or mass fraction (0–1) for compositions.
 
 use crate::model::Quantity;
@@ -12,7 +12,7 @@ pub const MOLAR_VOLUME_NORMAL: f64 = 22.413_969_54;
 /// conditions), m³/kmol: the CODATA value scaled by 288.15 / 273.15 (ideal-gas law).
 pub const MOLAR_VOLUME_STANDARD: f64 = MOLAR_VOLUME_NORMAL * 288.15 / 273.15;
 
-/// A meter's unit of measure, spelled exactly as FORMATS.md lists it.
+/// A meter's unit of measure, spelled exactly as docs/model.md lists it.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Uom {
     KmolPerHour,

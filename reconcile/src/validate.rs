@@ -1,4 +1,4 @@
-//! Validation of a [`ModelSpec`] into a [`Plant`] (DOMAIN.md §2): every problem is collected,
+//! Validation of a [`ModelSpec`] into a [`Plant`] (docs/model.md): every problem is collected,
 //! each naming the item at fault.
 
 use std::collections::HashMap;

@@ -32,7 +32,7 @@ fn vantle() -> (Plant, Vec<MeterValue>) {
 
 /// With random errors only, the global test rejects in α of the trials and the normalised
 /// adjustments are standard normal: the calibration check of the whole statistics chain
-/// (DOMAIN.md §6; Narasimhan & Mah 1987).
+/// (docs/methods.md §4–§5; Narasimhan & Mah 1987).
 #[test]
 fn random_errors_only_calibrate_the_tests() {
     let (plant, exact) = vantle();

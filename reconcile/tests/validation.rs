@@ -1,4 +1,4 @@
-//! Model validation (DOMAIN.md §2, FORMATS.md "The model file"): every problem is reported,
+//! Model validation (docs/model.md): every problem is reported,
 //! each naming the item at fault; TOML and JSON give the same plant; parsing never panics.
 
 use proptest::prelude::*;
@@ -547,7 +547,7 @@ fn uom_that_does_not_fit_the_quantity() {
     assert_only_problem(&text, "meter \"FI-1\"", &["\"kg/h\"", "molar_flow"]);
     let text = edit(&[("uom = \"t/h\"", "uom = \"Nm3/h\"")]);
     assert_only_problem(&text, "meter \"FI-4\"", &["\"Nm3/h\"", "mass_flow"]);
-    // Spelled otherwise than FORMATS.md lists.
+    // Spelled otherwise than docs/model.md lists.
     for bad in ["kmol/hr", "Kmol/h", "", "mol%"] {
         let text = edit(&[("uom = \"kmol/h\"", &format!("uom = \"{bad}\""))]);
         assert_only_problem(&text, "meter \"FI-1\"", &[&format!("\"{bad}\"")]);

@@ -1,4 +1,4 @@
-//! The command line (FORMATS.md, "The binary"). `demo` arrives with its own issue.
+//! The command line (docs/cli.md). `demo` arrives with its own issue.
 
 use std::net::SocketAddr;
 use std::path::PathBuf;

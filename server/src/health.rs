@@ -1,4 +1,4 @@
-//! Meter health over time (DOMAIN.md §7): from each meter's record of reconciled periods since
+//! Meter health over time (docs/methods.md §7): from each meter's record of reconciled periods since
 //! its last recalibration or replacement, a sequential statistic on its normalised
 //! adjustment, a pooled bias estimate, and the data screens (missing, frozen, out of range,
 //! bad quality), summed up in one status.
@@ -64,7 +64,7 @@ pub struct MeterPeriod {
     pub correlations: BTreeMap<String, f64>,
 }
 
-/// The states of FORMATS.md's meter health, worst first in [`Status::rank`].
+/// The states of meter health (docs/api.md, "Meter health"), worst first in [`Status::rank`].
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Status {

@@ -1,5 +1,5 @@
 //! The `loopbal` binary. This is the edge: commands return `anyhow` errors, and this file turns
-//! them into the exit status of FORMATS.md (0 success, 1 failed run, 2 bad input) with the
+//! them into the exit status of docs/cli.md (0 success, 1 failed run, 2 bad input) with the
 //! message on stderr.
 
 use std::io::Write;

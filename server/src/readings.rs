@@ -1,4 +1,4 @@
-//! Readings files (FORMATS.md, "Readings"): CSV with a header, or JSON. Every reading is checked
+//! Readings files (docs/readings.md): CSV with a header, or JSON. Every reading is checked
 //! at this boundary (known tag, RFC 3339 time, finite value, known quality) and every bad one is
 //! reported with its place, so a user fixes a file in one pass instead of one error per run.
 

@@ -16,7 +16,7 @@
 //!   `application/problem+json` with its own status, a detail and a `urn:` type (the empty 4xx
 //!   that hyper gives to malformed HTTP, before any request exists, are checked for their
 //!   status only);
-//! - is the status FORMATS.md and the OpenAPI document promise where they are specific: 413
+//! - is the status docs/api.md and the OpenAPI document promise where they are specific: 413
 //!   over the size limit (Content-Length or chunked), 415 for a media type that is neither of
 //!   the endpoint's, 400 for a body without readable structure, 404 for an unknown plant, 408
 //!   for a body that stalls, 422 for an invalid model.
@@ -1156,7 +1156,7 @@ fn model_case() -> impl Strategy<Value = ModelCase> {
 }
 
 /// What the service must answer to a model PUT to `plant`: decided by the engine's own parser
-/// and validator on the same bytes, and the order of the checks in FORMATS.md's API (size,
+/// and validator on the same bytes, and the order of the checks in docs/api.md (size,
 /// UTF-8, media type, content).
 fn model_verdict(body: &[u8], media: Option<&str>, plant: &str) -> (u16, String) {
     if body.len() > MAX_BODY {

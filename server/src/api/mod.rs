@@ -1,4 +1,4 @@
-//! The HTTP API of FORMATS.md: axum handlers that turn requests into store and engine calls
+//! The HTTP API (docs/api.md): axum handlers that turn requests into store and engine calls
 //! and back. Every route is registered through `utoipa_axum::routes!`, so the OpenAPI document
 //! served at `/api/v1/openapi.json` is generated from the same list the router serves.
 

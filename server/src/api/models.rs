@@ -64,7 +64,7 @@ fn summary(plant: &str, rev: &ModelRevision) -> RevisionSummary {
 
 /// Store a new model revision.
 ///
-/// The body is the model file of FORMATS.md as TOML (`application/toml`) or JSON
+/// The body is the model file (docs/model.md) as TOML (`application/toml`) or JSON
 /// (`application/json`). It is validated in full: an invalid model gets 422 with every problem
 /// listed by the item it names, and nothing is stored. The plant is created by its first model.
 #[utoipa::path(

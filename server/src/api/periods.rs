@@ -114,7 +114,7 @@ pub async fn list_periods(
     }))
 }
 
-/// The current run of one period: its report (FORMATS.md, "The report of one period"), what it
+/// The current run of one period: its report (docs/report.md), what it
 /// ran on, and when.
 #[derive(Debug, Serialize, ToSchema)]
 pub struct PeriodRun {

@@ -11,7 +11,7 @@ use sqlx::Row;
 
 use super::{now_ms, Result, SqliteStore, StoreError};
 
-/// The roles of FORMATS.md; `admin` may do everything.
+/// The roles of docs/api.md ("Tokens and roles"); `admin` may do everything.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Role {
     Ingest,
