@@ -1,4 +1,4 @@
-//! The command line (docs/cli.md). `demo` arrives with its own issue.
+//! The command line (docs/cli.md).
 
 use std::net::SocketAddr;
 use std::path::PathBuf;
