@@ -9,8 +9,9 @@
 //!
 //! Measurement functions h_i(z) are in each meter's own uom, with analytic gradients.
 
-use crate::model::{Meter, Plant, Quantity, UnitKind};
+use crate::model::{Meter, Plant, UnitKind};
 use crate::sparse::Triplets;
+use crate::uom::Quantity;
 
 /// Denominators of fractions are floored here so that a stream with no flow never divides by 0.
 const TINY_FLOW: f64 = 1e-12;
@@ -356,6 +357,18 @@ pub fn stream_fraction(
         .map(|i| (i, if i == ic { 1.0 / total } else { 0.0 } - x / total))
         .collect();
     (x, grad)
+}
+
+/// A readable name of state i, e.g. `flow of "H2" in stream "purge"`.
+pub fn var_name(plant: &Plant, layout: &Layout, i: usize) -> String {
+    match layout.var(plant, i) {
+        Var::Flow { stream, component } => format!(
+            "flow of \"{}\" in stream \"{}\"",
+            plant.components[component].id, plant.streams[stream].id
+        ),
+        Var::Extent(r) => format!("extent of reaction \"{}\"", plant.reactions[r].id),
+        Var::Split(s) => format!("split fraction of stream \"{}\"", plant.streams[s].id),
+    }
 }
 
 #[cfg(test)]

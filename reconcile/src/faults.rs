@@ -23,9 +23,9 @@
 
 use nalgebra::{DMatrix, DVector};
 
-use crate::analysis::Estimate;
 use crate::classify::Classification;
 use crate::equations::{constraints, Layout, Row};
+use crate::estimate::Estimate;
 use crate::model::Plant;
 use crate::report::{Fault, FaultCandidate, FaultKind};
 use crate::solve::{scaled_measurements, scaled_residuals, Measured};

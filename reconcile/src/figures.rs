@@ -7,10 +7,11 @@
 
 use std::collections::BTreeMap;
 
-use crate::analysis::Estimate;
 use crate::equations::Layout;
-use crate::model::{Plant, Quantity, UnitKind};
+use crate::estimate::Estimate;
+use crate::model::{Plant, UnitKind};
 use crate::report::Figure;
+use crate::uom::Quantity;
 
 /// A sparse linear function of the state.
 #[derive(Debug, Clone, Default)]

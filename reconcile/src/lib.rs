@@ -8,11 +8,13 @@ pub mod analysis;
 pub mod classify;
 pub mod covariance;
 pub mod equations;
+mod estimate;
 pub mod faults;
 pub mod figures;
 pub mod model;
 pub mod period;
 pub mod report;
+mod restarts;
 pub mod simulate;
 pub mod solve;
 pub mod sparse;
@@ -21,10 +23,13 @@ pub mod stats;
 pub mod uom;
 mod validate;
 
-pub use analysis::{analyse_period, estimate, reconcile_period, Analysis, Estimate};
-pub use model::{parse_plant, ModelError, ModelProblem, ModelSpec, Plant};
+pub use analysis::{analyse_period, reconcile_period, Analysis};
+pub use estimate::Estimate;
+pub use model::{ModelError, ModelProblem, ModelSpec, Plant};
 pub use period::{group_readings, PeriodInput, Quality, Reading};
 pub use report::{Report, ReportStatus};
+pub use restarts::estimate;
+pub use validate::parse_plant;
 
 /// Version of the engine, recorded with every report.
 pub const ENGINE_VERSION: &str = env!("CARGO_PKG_VERSION");

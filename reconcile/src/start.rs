@@ -7,8 +7,9 @@
 use nalgebra::{DMatrix, DVector};
 
 use crate::equations::Layout;
-use crate::model::{Plant, Quantity};
+use crate::model::Plant;
 use crate::solve::Measured;
+use crate::uom::Quantity;
 
 /// Smallest starting mole fraction: keeps every flow off its bound at the start.
 const MIN_FRACTION: f64 = 1e-6;

@@ -1,13 +1,30 @@
 //! Validation of a [`ModelSpec`] into a [`Plant`] (docs/model.md): every problem is collected,
 //! each naming the item at fault.
 
-use std::collections::HashMap;
+use std::collections::{HashMap, HashSet};
 
 use crate::model::{
-    index_ids, parse_period, Component, Meter, ModelError, ModelProblem, ModelSpec, Plant,
-    Quantity, Reaction, Sigma, Stream, Unit, UnitKind, OUTSIDE,
+    parse_period, Component, Meter, ModelError, ModelProblem, ModelSpec, Plant, Reaction, Sigma,
+    Stream, Unit, UnitKind, OUTSIDE,
 };
-use crate::uom::Uom;
+use crate::uom::{Quantity, Uom};
+
+/// Parse and validate in one step: TOML unless the text looks like a JSON object.
+pub fn parse_plant(text: &str) -> Result<Plant, ModelError> {
+    let spec = if text.trim_start().starts_with('{') {
+        ModelSpec::from_json(text)?
+    } else {
+        ModelSpec::from_toml(text)?
+    };
+    Plant::new(spec)
+}
+
+impl Plant {
+    /// Validate a model; every problem found is returned, each naming its item.
+    pub fn new(spec: ModelSpec) -> Result<Plant, ModelError> {
+        validate(spec)
+    }
+}
 
 /// Relative tolerance on Σ ν_c M_c for a reaction to count as conserving mass.
 pub const MASS_BALANCE_TOLERANCE: f64 = 1e-6;
@@ -23,7 +40,7 @@ impl Problems {
     }
 }
 
-pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
+fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
     let mut p = Problems(Vec::new());
 
     if spec.name.trim().is_empty() {
@@ -521,4 +538,32 @@ fn validate_meters(
         });
     }
     meters
+}
+
+/// Index of ids, each empty or repeated id a problem.
+fn index_ids<'a>(
+    kind: &str,
+    ids: impl Iterator<Item = &'a str>,
+    problems: &mut Vec<ModelProblem>,
+) -> HashMap<String, usize> {
+    let mut map = HashMap::new();
+    let mut seen = HashSet::new();
+    for (i, id) in ids.enumerate() {
+        if id.trim().is_empty() {
+            problems.push(ModelProblem {
+                item: format!("{kind} #{}", i + 1),
+                message: "has an empty id".into(),
+            });
+            continue;
+        }
+        if !seen.insert(id.to_string()) {
+            problems.push(ModelProblem {
+                item: format!("{kind} \"{id}\""),
+                message: "is defined more than once".into(),
+            });
+            continue;
+        }
+        map.insert(id.to_string(), i);
+    }
+    map
 }
