@@ -5,7 +5,7 @@ use std::collections::BTreeMap;
 use crate::classify::{classify, Classification};
 use crate::equations::{measurement, stream_fraction, stream_total, var_name};
 use crate::estimate::Estimate;
-use crate::model::Plant;
+use crate::model::{Meter, Plant, UnitKind};
 use crate::period::PeriodInput;
 use crate::report::*;
 use crate::restarts::estimate;
@@ -102,7 +102,7 @@ pub fn analyse_period(plant: &Plant, input: &PeriodInput) -> Analysis {
     }
 }
 
-fn unmeasured_meter(plant: &Plant, m: &crate::model::Meter) -> MeterReport {
+fn unmeasured_meter(plant: &Plant, m: &Meter) -> MeterReport {
     MeterReport {
         tag: m.tag.clone(),
         stream: plant.streams[m.stream].id.clone(),
@@ -309,37 +309,38 @@ fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut 
         });
     }
 
-    for u in plant
-        .units
-        .iter()
-        .filter(|u| u.kind == crate::model::UnitKind::Splitter)
-    {
-        let mut rest: Vec<(usize, f64)> = Vec::new();
-        let mut rest_value = 1.0;
-        for (k, &o) in u.outlets.iter().enumerate() {
-            // The last outlet's fraction is 1 − Σ of the others.
-            let (value, grad) = if k + 1 < u.outlets.len() {
-                let i = layout.split(o).expect("split var");
-                rest.push((i, -1.0));
-                rest_value -= z[i];
-                (z[i], vec![(i, 1.0)])
-            } else {
-                (rest_value, rest.clone())
-            };
-            let (value, sigma) = observed(c, value, &grad);
-            if value.is_none() {
-                report.unobservable.push(format!(
-                    "split fraction of stream \"{}\"",
-                    plant.streams[o].id
-                ));
+    for u in &plant.units {
+        match u.kind {
+            UnitKind::Splitter => {
+                let mut rest: Vec<(usize, f64)> = Vec::new();
+                let mut rest_value = 1.0;
+                for (k, &o) in u.outlets.iter().enumerate() {
+                    // The last outlet's fraction is 1 − Σ of the others.
+                    let (value, grad) = if k + 1 < u.outlets.len() {
+                        let i = layout.split(o).expect("split var");
+                        rest.push((i, -1.0));
+                        rest_value -= z[i];
+                        (z[i], vec![(i, 1.0)])
+                    } else {
+                        (rest_value, rest.clone())
+                    };
+                    let (value, sigma) = observed(c, value, &grad);
+                    if value.is_none() {
+                        report.unobservable.push(format!(
+                            "split fraction of stream \"{}\"",
+                            plant.streams[o].id
+                        ));
+                    }
+                    report.split_fractions.push(SplitReport {
+                        stream: plant.streams[o].id.clone(),
+                        unit: u.id.clone(),
+                        value,
+                        sigma,
+                        observable: value.is_some(),
+                    });
+                }
             }
-            report.split_fractions.push(SplitReport {
-                stream: plant.streams[o].id.clone(),
-                unit: u.id.clone(),
-                value,
-                sigma,
-                observable: value.is_some(),
-            });
+            UnitKind::Mixer | UnitKind::Reactor | UnitKind::Separator | UnitKind::Node => {}
         }
     }
 

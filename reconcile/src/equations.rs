@@ -63,11 +63,16 @@ impl Layout {
         n += plant.reactions.len();
         let mut splits = Vec::new();
         for u in &plant.units {
-            if u.kind == UnitKind::Splitter {
-                for &o in &u.outlets[..u.outlets.len().saturating_sub(1)] {
-                    splits.push((o, n));
-                    n += 1;
+            // The state a unit kind adds beyond its streams' flows and its reactions' extents:
+            // a splitter's φ of every outlet but the last (docs/methods.md §1).
+            match u.kind {
+                UnitKind::Splitter => {
+                    for &o in &u.outlets[..u.outlets.len().saturating_sub(1)] {
+                        splits.push((o, n));
+                        n += 1;
+                    }
                 }
+                UnitKind::Mixer | UnitKind::Reactor | UnitKind::Separator | UnitKind::Node => {}
             }
         }
         let mut lower = vec![0.0; n];
@@ -157,17 +162,22 @@ fn rows(plant: &Plant) -> Vec<Row> {
                 });
             }
         }
-        if u.kind == UnitKind::Splitter {
-            let inlet = u.inlets[0];
-            for &o in &u.outlets[..u.outlets.len() - 1] {
-                for &c in &plant.streams[inlet].components {
-                    rows.push(Row::Split {
-                        unit: ui,
-                        outlet: o,
-                        component: c,
-                    });
+        // The rows a unit kind adds beyond its component balances: a splitter's outlets but
+        // the last carry the inlet's composition (docs/methods.md §1).
+        match u.kind {
+            UnitKind::Splitter => {
+                let inlet = u.inlets[0];
+                for &o in &u.outlets[..u.outlets.len() - 1] {
+                    for &c in &plant.streams[inlet].components {
+                        rows.push(Row::Split {
+                            unit: ui,
+                            outlet: o,
+                            component: c,
+                        });
+                    }
                 }
             }
+            UnitKind::Mixer | UnitKind::Reactor | UnitKind::Separator | UnitKind::Node => {}
         }
     }
     rows

@@ -17,7 +17,7 @@
 //! §16.5). A backtracking line search on the exact-penalty merit ½‖r‖² + μ‖g‖₁ (ibid. §18.3)
 //! guards the step from poor starting regions.
 
-use crate::equations::{constraints, measurement, measurement_value, Layout};
+use crate::equations::{constraints, measurement, measurement_value, Layout, Row};
 use crate::model::Plant;
 use crate::sparse::{SparseLu, Symbolic, Triplets};
 
@@ -411,18 +411,21 @@ fn constraint_curvature(
 ) -> Vec<(usize, usize, f64)> {
     let mut out = Vec::new();
     for (row, kind) in layout.rows.iter().enumerate() {
-        if let crate::equations::Row::Split {
-            unit,
-            outlet,
-            component,
-        } = *kind
-        {
-            let inlet = plant.units[unit].inlets[0];
-            let i = layout.flow(plant, inlet, component).expect("validated");
-            let phi = layout.split(outlet).expect("split var");
-            let v = lambda.map_or(0.0, |l| -l[row]);
-            out.push((i, phi, v));
-            out.push((phi, i, v));
+        match *kind {
+            Row::Split {
+                unit,
+                outlet,
+                component,
+            } => {
+                let inlet = plant.units[unit].inlets[0];
+                let i = layout.flow(plant, inlet, component).expect("validated");
+                let phi = layout.split(outlet).expect("split var");
+                let v = lambda.map_or(0.0, |l| -l[row]);
+                out.push((i, phi, v));
+                out.push((phi, i, v));
+            }
+            // A balance is linear.
+            Row::Balance { .. } => {}
         }
     }
     out

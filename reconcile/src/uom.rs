@@ -25,11 +25,12 @@ pub enum Quantity {
 }
 
 impl Quantity {
+    /// Whether a meter of this quantity names the component it measures.
     pub fn needs_component(self) -> bool {
-        matches!(
-            self,
-            Quantity::ComponentFlow | Quantity::MoleFraction | Quantity::MassFraction
-        )
+        match self {
+            Quantity::ComponentFlow | Quantity::MoleFraction | Quantity::MassFraction => true,
+            Quantity::MolarFlow | Quantity::MassFlow | Quantity::StdVolumeFlow => false,
+        }
     }
 
     pub fn as_str(self) -> &'static str {

@@ -205,14 +205,17 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         let item = format!("reaction \"{}\"", r.id);
         let unit = match unit_ix.get(&r.unit) {
             Some(&u) => {
-                if units[u].kind != UnitKind::Reactor {
-                    p.add(
-                        &item,
-                        format!(
-                            "is attached to unit \"{}\", a {}, not a reactor",
-                            r.unit, units[u].kind
-                        ),
-                    );
+                match units[u].kind {
+                    UnitKind::Reactor => {}
+                    UnitKind::Mixer | UnitKind::Splitter | UnitKind::Separator | UnitKind::Node => {
+                        p.add(
+                            &item,
+                            format!(
+                                "is attached to unit \"{}\", a {}, not a reactor",
+                                r.unit, units[u].kind
+                            ),
+                        );
+                    }
                 }
                 units[u].reactions.push(ri);
                 u
@@ -336,10 +339,12 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                     }
                 }
             }
-            UnitKind::Reactor if u.reactions.is_empty() => {
-                p.add(&item, "is a reactor without any reaction");
+            UnitKind::Reactor => {
+                if u.reactions.is_empty() {
+                    p.add(&item, "is a reactor without any reaction");
+                }
             }
-            _ => {}
+            UnitKind::Mixer | UnitKind::Separator | UnitKind::Node => {}
         }
         // Every component a reaction touches must be carried by a stream of the unit, or its
         // balance forces the extent to zero.
@@ -456,7 +461,15 @@ fn validate_meters(
             },
         };
         let basis = m.basis.as_ref().map(|list| {
-            if m.quantity != Quantity::MoleFraction {
+            let may_have_basis = match m.quantity {
+                Quantity::MoleFraction => true,
+                Quantity::MolarFlow
+                | Quantity::MassFlow
+                | Quantity::StdVolumeFlow
+                | Quantity::ComponentFlow
+                | Quantity::MassFraction => false,
+            };
+            if !may_have_basis {
                 p.add(
                     &item,
                     "gives a basis, which only a mole_fraction meter may have",
