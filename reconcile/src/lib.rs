@@ -4,6 +4,10 @@
 //! No I/O, no async, no clock: the same input gives the same output. The `server` crate turns
 //! files, requests and rows into calls of [`analysis::reconcile_period`] and back.
 
+// The numerical kernels index several arrays with one index (a sparse pattern's slots and
+// values, permutations, bounds beside the state), as the published algorithms are written.
+#![allow(clippy::needless_range_loop)]
+
 pub mod analysis;
 pub mod classify;
 pub mod covariance;
@@ -13,6 +17,7 @@ pub mod faults;
 pub mod figures;
 pub mod model;
 pub mod period;
+mod period_report;
 pub mod report;
 mod restarts;
 pub mod simulate;
