@@ -1,5 +1,5 @@
 //! The plant model as users write it (TOML or JSON, docs/model.md), and the indexed [`Plant`] the
-//! equations work on, which [`Plant::new`] (validate.rs) builds from it.
+//! equations work on, which [`Plant::new`] (validate/) builds from it.
 
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
