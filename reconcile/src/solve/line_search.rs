@@ -65,8 +65,8 @@ pub(super) fn line_search(
         let g = constraints(plant, layout, z, None);
         0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(&g)
     };
-    let m0 = 0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(&g);
-    let slope = -(0..n).map(|i| jtr[i] * step.dz[i]).sum::<f64>() - mu * norm_1(&g);
+    let m0 = 0.5 * r.iter().map(|x| x * x).sum::<f64>() + mu * norm_1(g);
+    let slope = -(0..n).map(|i| jtr[i] * step.dz[i]).sum::<f64>() - mu * norm_1(g);
     let accept = |trial: &[f64], alpha: f64| {
         // Armijo on the merit, with room for rounding once the decrease reaches it.
         merit(trial) <= m0 + 1e-4 * alpha * slope.min(0.0) + 1e-13 * (1.0 + m0.abs())
