@@ -9,8 +9,9 @@
 //!
 //! Measurement functions h_i(z) are in each meter's own uom, with analytic gradients.
 
-use crate::model::{Meter, Plant, Quantity, UnitKind};
+use crate::model::{Meter, Plant, UnitKind};
 use crate::sparse::Triplets;
+use crate::uom::Quantity;
 
 /// Denominators of fractions are floored here so that a stream with no flow never divides by 0.
 const TINY_FLOW: f64 = 1e-12;
@@ -62,11 +63,16 @@ impl Layout {
         n += plant.reactions.len();
         let mut splits = Vec::new();
         for u in &plant.units {
-            if u.kind == UnitKind::Splitter {
-                for &o in &u.outlets[..u.outlets.len().saturating_sub(1)] {
-                    splits.push((o, n));
-                    n += 1;
+            // The state a unit kind adds beyond its streams' flows and its reactions' extents:
+            // a splitter's φ of every outlet but the last (docs/methods.md §1).
+            match u.kind {
+                UnitKind::Splitter => {
+                    for &o in &u.outlets[..u.outlets.len().saturating_sub(1)] {
+                        splits.push((o, n));
+                        n += 1;
+                    }
                 }
+                UnitKind::Mixer | UnitKind::Reactor | UnitKind::Separator | UnitKind::Node => {}
             }
         }
         let mut lower = vec![0.0; n];
@@ -156,17 +162,22 @@ fn rows(plant: &Plant) -> Vec<Row> {
                 });
             }
         }
-        if u.kind == UnitKind::Splitter {
-            let inlet = u.inlets[0];
-            for &o in &u.outlets[..u.outlets.len() - 1] {
-                for &c in &plant.streams[inlet].components {
-                    rows.push(Row::Split {
-                        unit: ui,
-                        outlet: o,
-                        component: c,
-                    });
+        // The rows a unit kind adds beyond its component balances: a splitter's outlets but
+        // the last carry the inlet's composition (docs/methods.md §1).
+        match u.kind {
+            UnitKind::Splitter => {
+                let inlet = u.inlets[0];
+                for &o in &u.outlets[..u.outlets.len() - 1] {
+                    for &c in &plant.streams[inlet].components {
+                        rows.push(Row::Split {
+                            unit: ui,
+                            outlet: o,
+                            component: c,
+                        });
+                    }
                 }
             }
+            UnitKind::Mixer | UnitKind::Reactor | UnitKind::Separator | UnitKind::Node => {}
         }
     }
     rows
@@ -356,6 +367,18 @@ pub fn stream_fraction(
         .map(|i| (i, if i == ic { 1.0 / total } else { 0.0 } - x / total))
         .collect();
     (x, grad)
+}
+
+/// A readable name of state i, e.g. `flow of "H2" in stream "purge"`.
+pub fn var_name(plant: &Plant, layout: &Layout, i: usize) -> String {
+    match layout.var(plant, i) {
+        Var::Flow { stream, component } => format!(
+            "flow of \"{}\" in stream \"{}\"",
+            plant.components[component].id, plant.streams[stream].id
+        ),
+        Var::Extent(r) => format!("extent of reaction \"{}\"", plant.reactions[r].id),
+        Var::Split(s) => format!("split fraction of stream \"{}\"", plant.streams[s].id),
+    }
 }
 
 #[cfg(test)]

@@ -2,7 +2,8 @@
 //! finite differences, and their values on hand-computed cases.
 
 use super::*;
-use crate::model::{parse_plant, Plant};
+use crate::model::Plant;
+use crate::validate::parse_plant;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 

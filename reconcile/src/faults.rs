@@ -23,9 +23,9 @@
 
 use nalgebra::{DMatrix, DVector};
 
-use crate::analysis::Estimate;
 use crate::classify::Classification;
 use crate::equations::{constraints, Layout, Row};
+use crate::estimate::Estimate;
 use crate::model::Plant;
 use crate::report::{Fault, FaultCandidate, FaultKind};
 use crate::solve::{scaled_measurements, scaled_residuals, Measured};
@@ -97,7 +97,7 @@ fn hypotheses(plant: &Plant, est: &Basis) -> Vec<Hypothesis> {
         }
         let d = DVector::from_fn(layout.rows.len(), |row, _| match layout.rows[row] {
             Row::Balance { unit, component } if unit == u => inflow[component] / total,
-            _ => 0.0,
+            Row::Balance { .. } | Row::Split { .. } => 0.0,
         });
         let Some(zd) = solver.solve(&d) else {
             continue;

@@ -7,10 +7,11 @@
 
 use std::collections::BTreeMap;
 
-use crate::analysis::Estimate;
 use crate::equations::Layout;
-use crate::model::{Plant, Quantity, UnitKind};
+use crate::estimate::Estimate;
+use crate::model::{Plant, UnitKind};
 use crate::report::Figure;
+use crate::uom::Quantity;
 
 /// A sparse linear function of the state.
 #[derive(Debug, Clone, Default)]
@@ -222,99 +223,101 @@ pub fn loop_figures(plant: &Plant, est: &Estimate) -> Vec<Figure> {
     }
 
     for (u, unit) in plant.units.iter().enumerate() {
-        if unit.kind == UnitKind::Reactor {
-            let inlet_total = b.total(&unit.inlets);
-            for &c in &inerts {
-                let x = b.component(&unit.inlets, c);
-                let subject = format!("{}:{}", unit.id, plant.components[c].id);
-                b.ratio(
-                    "inert_fraction_reactor_inlet",
-                    subject,
-                    "fraction",
-                    &x,
-                    &inlet_total,
-                    1.0,
-                );
-            }
-        }
-        if unit.kind != UnitKind::Splitter {
-            continue;
-        }
-        let purges: Vec<usize> = unit
-            .outlets
-            .iter()
-            .copied()
-            .filter(|&o| plant.streams[o].to.is_none())
-            .collect();
-        if purges.is_empty() {
-            continue;
-        }
-        let fresh_total = b.total(&feeds);
-        let recycles: Vec<usize> = unit
-            .outlets
-            .iter()
-            .copied()
-            .filter(|&o| plant.streams[o].to.is_some())
-            .collect();
-        if !recycles.is_empty() {
-            let recycle = b.total(&recycles);
-            b.ratio(
-                "recycle_ratio",
-                plant.units[u].id.clone(),
-                "ratio",
-                &recycle,
-                &fresh_total,
-                1.0,
-            );
-        }
-        for &o in &purges {
-            let id = plant.streams[o].id.clone();
-            // φ of the last outlet is 1 − Σ of the others.
-            let (phi, constant) = split_fraction(layout, unit, o);
-            b.affine(
-                "purge_fraction",
-                id.clone(),
-                "fraction",
-                &phi,
-                constant,
-                1.0,
-            );
-            let purge_total = b.total(&[o]);
-            b.linear("purge_flow", id.clone(), "kmol/h", &purge_total, 1.0);
-            for &c in &reactants {
-                let lost = b.component(&[o], c);
-                let subject = format!("{id}:{}", plant.components[c].id);
-                b.linear(
-                    "reactant_lost_in_purge",
-                    subject.clone(),
-                    "kmol/h",
-                    &lost,
-                    1.0,
-                );
-                let fresh = b.component(&feeds, c);
-                if !fresh.0.is_empty() {
+        match unit.kind {
+            UnitKind::Reactor => {
+                let inlet_total = b.total(&unit.inlets);
+                for &c in &inerts {
+                    let x = b.component(&unit.inlets, c);
+                    let subject = format!("{}:{}", unit.id, plant.components[c].id);
                     b.ratio(
-                        "reactant_lost_in_purge_pct_of_feed",
+                        "inert_fraction_reactor_inlet",
                         subject,
-                        "%",
-                        &lost,
-                        &fresh,
-                        100.0,
+                        "fraction",
+                        &x,
+                        &inlet_total,
+                        1.0,
                     );
                 }
             }
-            for &c in &inerts {
-                let x = b.component(&[o], c);
-                let subject = format!("{id}:{}", plant.components[c].id);
-                b.ratio(
-                    "inert_fraction_purge",
-                    subject,
-                    "fraction",
-                    &x,
-                    &purge_total,
-                    1.0,
-                );
+            UnitKind::Splitter => {
+                let purges: Vec<usize> = unit
+                    .outlets
+                    .iter()
+                    .copied()
+                    .filter(|&o| plant.streams[o].to.is_none())
+                    .collect();
+                if purges.is_empty() {
+                    continue;
+                }
+                let fresh_total = b.total(&feeds);
+                let recycles: Vec<usize> = unit
+                    .outlets
+                    .iter()
+                    .copied()
+                    .filter(|&o| plant.streams[o].to.is_some())
+                    .collect();
+                if !recycles.is_empty() {
+                    let recycle = b.total(&recycles);
+                    b.ratio(
+                        "recycle_ratio",
+                        plant.units[u].id.clone(),
+                        "ratio",
+                        &recycle,
+                        &fresh_total,
+                        1.0,
+                    );
+                }
+                for &o in &purges {
+                    let id = plant.streams[o].id.clone();
+                    // φ of the last outlet is 1 − Σ of the others.
+                    let (phi, constant) = split_fraction(layout, unit, o);
+                    b.affine(
+                        "purge_fraction",
+                        id.clone(),
+                        "fraction",
+                        &phi,
+                        constant,
+                        1.0,
+                    );
+                    let purge_total = b.total(&[o]);
+                    b.linear("purge_flow", id.clone(), "kmol/h", &purge_total, 1.0);
+                    for &c in &reactants {
+                        let lost = b.component(&[o], c);
+                        let subject = format!("{id}:{}", plant.components[c].id);
+                        b.linear(
+                            "reactant_lost_in_purge",
+                            subject.clone(),
+                            "kmol/h",
+                            &lost,
+                            1.0,
+                        );
+                        let fresh = b.component(&feeds, c);
+                        if !fresh.0.is_empty() {
+                            b.ratio(
+                                "reactant_lost_in_purge_pct_of_feed",
+                                subject,
+                                "%",
+                                &lost,
+                                &fresh,
+                                100.0,
+                            );
+                        }
+                    }
+                    for &c in &inerts {
+                        let x = b.component(&[o], c);
+                        let subject = format!("{id}:{}", plant.components[c].id);
+                        b.ratio(
+                            "inert_fraction_purge",
+                            subject,
+                            "fraction",
+                            &x,
+                            &purge_total,
+                            1.0,
+                        );
+                    }
+                }
             }
+            UnitKind::Mixer | UnitKind::Separator | UnitKind::Node => {}
         }
     }
 

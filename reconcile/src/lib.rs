@@ -4,15 +4,22 @@
 //! No I/O, no async, no clock: the same input gives the same output. The `server` crate turns
 //! files, requests and rows into calls of [`analysis::reconcile_period`] and back.
 
+// The numerical kernels index several arrays with one index (a sparse pattern's slots and
+// values, permutations, bounds beside the state), as the published algorithms are written.
+#![allow(clippy::needless_range_loop)]
+
 pub mod analysis;
 pub mod classify;
 pub mod covariance;
 pub mod equations;
+mod estimate;
 pub mod faults;
 pub mod figures;
 pub mod model;
 pub mod period;
+mod period_report;
 pub mod report;
+mod restarts;
 pub mod simulate;
 pub mod solve;
 pub mod sparse;
@@ -21,10 +28,13 @@ pub mod stats;
 pub mod uom;
 mod validate;
 
-pub use analysis::{analyse_period, estimate, reconcile_period, Analysis, Estimate};
-pub use model::{parse_plant, ModelError, ModelProblem, ModelSpec, Plant};
+pub use analysis::{analyse_period, reconcile_period, Analysis};
+pub use estimate::Estimate;
+pub use model::{ModelError, ModelProblem, ModelSpec, Plant};
 pub use period::{group_readings, PeriodInput, Quality, Reading};
 pub use report::{Report, ReportStatus};
+pub use restarts::estimate;
+pub use validate::parse_plant;
 
 /// Version of the engine, recorded with every report.
 pub const ENGINE_VERSION: &str = env!("CARGO_PKG_VERSION");

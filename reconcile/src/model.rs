@@ -1,13 +1,12 @@
-//! The plant model as users write it (TOML or JSON, docs/model.md), and its validation into an
-//! indexed [`Plant`] the equations work on.
-//!
-//! Validation never stops at the first problem: it collects every problem it can find, each
-//! naming the offending item, so a user fixes a model file in one pass.
+//! The plant model as users write it (TOML or JSON, docs/model.md), and the indexed [`Plant`] the
+//! equations work on, which [`Plant::new`] (validate/) builds from it.
 
 use serde::{Deserialize, Serialize};
-use std::collections::{BTreeMap, HashMap, HashSet};
+use std::collections::BTreeMap;
 use std::fmt;
 
+/// The measurement quantities live with their units of measure.
+pub use crate::uom::Quantity;
 use crate::uom::Uom;
 
 /// Where a stream starts or ends when it crosses the plant boundary.
@@ -110,37 +109,6 @@ pub struct StreamSpec {
     pub components: Option<Vec<String>>,
 }
 
-#[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq, Eq, Hash)]
-#[serde(rename_all = "snake_case")]
-pub enum Quantity {
-    MolarFlow,
-    MassFlow,
-    StdVolumeFlow,
-    ComponentFlow,
-    MoleFraction,
-    MassFraction,
-}
-
-impl Quantity {
-    pub fn needs_component(self) -> bool {
-        matches!(
-            self,
-            Quantity::ComponentFlow | Quantity::MoleFraction | Quantity::MassFraction
-        )
-    }
-
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Quantity::MolarFlow => "molar_flow",
-            Quantity::MassFlow => "mass_flow",
-            Quantity::StdVolumeFlow => "std_volume_flow",
-            Quantity::ComponentFlow => "component_flow",
-            Quantity::MoleFraction => "mole_fraction",
-            Quantity::MassFraction => "mass_fraction",
-        }
-    }
-}
-
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct MeterSpec {
@@ -219,16 +187,6 @@ impl ModelSpec {
             message: e.to_string(),
         })
     }
-}
-
-/// Parse and validate in one step: TOML unless the text looks like a JSON object.
-pub fn parse_plant(text: &str) -> Result<Plant, ModelError> {
-    let spec = if text.trim_start().starts_with('{') {
-        ModelSpec::from_json(text)?
-    } else {
-        ModelSpec::from_toml(text)?
-    };
-    Plant::new(spec)
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -349,11 +307,6 @@ impl Plant {
     pub fn meter_index(&self, tag: &str) -> Option<usize> {
         self.meters.iter().position(|m| m.tag == tag)
     }
-
-    /// Validate a model; every problem found is returned, each naming its item.
-    pub fn new(spec: ModelSpec) -> Result<Plant, ModelError> {
-        crate::validate::validate(spec)
-    }
 }
 
 /// The longest reconciliation period accepted: 366 days.
@@ -377,32 +330,4 @@ pub fn parse_period(text: &str) -> Option<i64> {
     // MAX_PERIOD_SECONDS, so that every period's end is a representable date.
     (secs > 0 && secs <= MAX_PERIOD_SECONDS && (86_400 % secs == 0 || secs % 86_400 == 0))
         .then_some(secs)
-}
-
-/// Helper used by validation: index of ids with duplicate detection.
-pub(crate) fn index_ids<'a>(
-    kind: &str,
-    ids: impl Iterator<Item = &'a str>,
-    problems: &mut Vec<ModelProblem>,
-) -> HashMap<String, usize> {
-    let mut map = HashMap::new();
-    let mut seen = HashSet::new();
-    for (i, id) in ids.enumerate() {
-        if id.trim().is_empty() {
-            problems.push(ModelProblem {
-                item: format!("{kind} #{}", i + 1),
-                message: "has an empty id".into(),
-            });
-            continue;
-        }
-        if !seen.insert(id.to_string()) {
-            problems.push(ModelProblem {
-                item: format!("{kind} \"{id}\""),
-                message: "is defined more than once".into(),
-            });
-            continue;
-        }
-        map.insert(id.to_string(), i);
-    }
-    map
 }

@@ -217,7 +217,7 @@ pub fn steady_state(plant: &Plant, specs: &[Spec]) -> Result<Vec<f64>, SimulateE
     }
     for i in 0..layout.extent_start {
         if z[i] < -1e-9 * scale {
-            let name = crate::analysis::var_name(plant, &layout, i);
+            let name = crate::equations::var_name(plant, &layout, i);
             return Err(SimulateError::NoSteadyState(format!(
                 "the balances need a negative {name} ({:.4} kmol/h); {}",
                 z[i],

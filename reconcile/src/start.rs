@@ -7,8 +7,9 @@
 use nalgebra::{DMatrix, DVector};
 
 use crate::equations::Layout;
-use crate::model::{Plant, Quantity};
+use crate::model::{Plant, UnitKind};
 use crate::solve::Measured;
+use crate::uom::Quantity;
 
 /// Smallest starting mole fraction: keeps every flow off its bound at the start.
 const MIN_FRACTION: f64 = 1e-6;
@@ -28,7 +29,17 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
             .filter(|m| plant.meters[m.meter].stream == s)
         {
             let meter = &plant.meters[m.meter];
-            if meter.quantity == Quantity::MoleFraction && meter.basis.is_none() {
+            // Only an analyser of mole fractions over every carried component gives the
+            // composition directly.
+            let analyser = match meter.quantity {
+                Quantity::MoleFraction => meter.basis.is_none(),
+                Quantity::MolarFlow
+                | Quantity::MassFlow
+                | Quantity::StdVolumeFlow
+                | Quantity::ComponentFlow
+                | Quantity::MassFraction => false,
+            };
+            if analyser {
                 x[meter.component.expect("validated")] = base(m).clamp(0.0, 1.0);
                 any = true;
             }
@@ -92,12 +103,12 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
         let mean_mass: f64 = (0..nc).map(|c| x[c] * plant.components[c].molar_mass).sum();
         let estimate = match meter.quantity {
             Quantity::MolarFlow | Quantity::StdVolumeFlow => Some(base(m)),
-            Quantity::MassFlow if mean_mass > 0.0 => Some(base(m) / mean_mass),
+            Quantity::MassFlow => (mean_mass > 0.0).then(|| base(m) / mean_mass),
             Quantity::ComponentFlow => {
                 let c = meter.component.expect("validated");
                 (x[c] > 1e-3).then(|| base(m) / x[c])
             }
-            _ => None,
+            Quantity::MoleFraction | Quantity::MassFraction => None,
         };
         if let Some(f) = estimate.filter(|f| f.is_finite() && *f > 0.0) {
             flow[s].get_or_insert(f);
@@ -141,22 +152,23 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
         known.iter().sum::<f64>() / known.len() as f64
     };
     // Outlets of a splitter without a flow share the rest of the inlet.
-    for u in plant
-        .units
-        .iter()
-        .filter(|u| u.kind == crate::model::UnitKind::Splitter)
-    {
-        let inlet = flow[u.inlets[0]].unwrap_or(fallback);
-        let missing: Vec<usize> = u
-            .outlets
-            .iter()
-            .copied()
-            .filter(|&o| flow[o].is_none())
-            .collect();
-        let taken: f64 = u.outlets.iter().filter_map(|&o| flow[o]).sum();
-        let rest = (inlet - taken).max(0.05 * inlet);
-        for &o in &missing {
-            flow[o] = Some(rest / missing.len() as f64);
+    for u in &plant.units {
+        match u.kind {
+            UnitKind::Splitter => {
+                let inlet = flow[u.inlets[0]].unwrap_or(fallback);
+                let missing: Vec<usize> = u
+                    .outlets
+                    .iter()
+                    .copied()
+                    .filter(|&o| flow[o].is_none())
+                    .collect();
+                let taken: f64 = u.outlets.iter().filter_map(|&o| flow[o]).sum();
+                let rest = (inlet - taken).max(0.05 * inlet);
+                for &o in &missing {
+                    flow[o] = Some(rest / missing.len() as f64);
+                }
+            }
+            UnitKind::Mixer | UnitKind::Reactor | UnitKind::Separator | UnitKind::Node => {}
         }
     }
     let flow: Vec<f64> = flow.into_iter().map(|f| f.unwrap_or(fallback)).collect();
@@ -168,20 +180,21 @@ pub fn initial_point(plant: &Plant, layout: &Layout, measured: &[Measured]) -> V
         }
     }
     // Split fractions from outlet flows, and outlets made consistent with them.
-    for u in plant
-        .units
-        .iter()
-        .filter(|u| u.kind == crate::model::UnitKind::Splitter)
-    {
-        let total: f64 = u.outlets.iter().map(|&o| flow[o]).sum();
-        let inlet = u.inlets[0];
-        for &o in &u.outlets[..u.outlets.len() - 1] {
-            let phi = (flow[o] / total).clamp(1e-3, 1.0 - 1e-3);
-            z[layout.split(o).expect("split var")] = phi;
-            for &c in &plant.streams[inlet].components {
-                let i = layout.flow(plant, inlet, c).expect("carried");
-                z[layout.flow(plant, o, c).expect("same components")] = phi * z[i];
+    for u in &plant.units {
+        match u.kind {
+            UnitKind::Splitter => {
+                let total: f64 = u.outlets.iter().map(|&o| flow[o]).sum();
+                let inlet = u.inlets[0];
+                for &o in &u.outlets[..u.outlets.len() - 1] {
+                    let phi = (flow[o] / total).clamp(1e-3, 1.0 - 1e-3);
+                    z[layout.split(o).expect("split var")] = phi;
+                    for &c in &plant.streams[inlet].components {
+                        let i = layout.flow(plant, inlet, c).expect("carried");
+                        z[layout.flow(plant, o, c).expect("same components")] = phi * z[i];
+                    }
+                }
             }
+            UnitKind::Mixer | UnitKind::Reactor | UnitKind::Separator | UnitKind::Node => {}
         }
     }
     fit_extents(plant, layout, &mut z);

@@ -1,7 +1,7 @@
 //! Units of measure of meters (docs/model.md, `[[meter]]`) and their conversion from the engine's base units:
 //! kmol/h for molar flows, kg/h for mass flows, mole or mass fraction (0–1) for compositions.
 
-use crate::model::Quantity;
+use serde::{Deserialize, Serialize};
 use std::fmt;
 
 /// Molar volume of an ideal gas at 273.15 K and 101.325 kPa, m³/kmol (= L/mol).
@@ -11,6 +11,39 @@ pub const MOLAR_VOLUME_NORMAL: f64 = 22.413_969_54;
 /// Molar volume of an ideal gas at 288.15 K and 101.325 kPa (the ISO 13443 standard reference
 /// conditions), m³/kmol: the CODATA value scaled by 288.15 / 273.15 (ideal-gas law).
 pub const MOLAR_VOLUME_STANDARD: f64 = MOLAR_VOLUME_NORMAL * 288.15 / 273.15;
+
+/// What a meter measures; [`Uom::allowed_for`] gives the units each one accepts.
+#[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq, Eq, Hash)]
+#[serde(rename_all = "snake_case")]
+pub enum Quantity {
+    MolarFlow,
+    MassFlow,
+    StdVolumeFlow,
+    ComponentFlow,
+    MoleFraction,
+    MassFraction,
+}
+
+impl Quantity {
+    /// Whether a meter of this quantity names the component it measures.
+    pub fn needs_component(self) -> bool {
+        match self {
+            Quantity::ComponentFlow | Quantity::MoleFraction | Quantity::MassFraction => true,
+            Quantity::MolarFlow | Quantity::MassFlow | Quantity::StdVolumeFlow => false,
+        }
+    }
+
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Quantity::MolarFlow => "molar_flow",
+            Quantity::MassFlow => "mass_flow",
+            Quantity::StdVolumeFlow => "std_volume_flow",
+            Quantity::ComponentFlow => "component_flow",
+            Quantity::MoleFraction => "mole_fraction",
+            Quantity::MassFraction => "mass_fraction",
+        }
+    }
+}
 
 /// A meter's unit of measure, spelled exactly as docs/model.md lists it.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]

@@ -1,29 +1,38 @@
 //! Validation of a [`ModelSpec`] into a [`Plant`] (docs/model.md): every problem is collected,
 //! each naming the item at fault.
 
-use std::collections::HashMap;
+mod meters;
+mod problems;
+
+use meters::validate_meters;
+use problems::{index_ids, Problems};
 
 use crate::model::{
-    index_ids, parse_period, Component, Meter, ModelError, ModelProblem, ModelSpec, Plant,
-    Quantity, Reaction, Sigma, Stream, Unit, UnitKind, OUTSIDE,
+    parse_period, Component, ModelError, ModelSpec, Plant, Reaction, Stream, Unit, UnitKind,
+    OUTSIDE,
 };
-use crate::uom::Uom;
+
+/// Parse and validate in one step: TOML unless the text looks like a JSON object.
+pub fn parse_plant(text: &str) -> Result<Plant, ModelError> {
+    let spec = if text.trim_start().starts_with('{') {
+        ModelSpec::from_json(text)?
+    } else {
+        ModelSpec::from_toml(text)?
+    };
+    Plant::new(spec)
+}
+
+impl Plant {
+    /// Validate a model; every problem found is returned, each naming its item.
+    pub fn new(spec: ModelSpec) -> Result<Plant, ModelError> {
+        validate(spec)
+    }
+}
 
 /// Relative tolerance on Σ ν_c M_c for a reaction to count as conserving mass.
 pub const MASS_BALANCE_TOLERANCE: f64 = 1e-6;
 
-struct Problems(Vec<ModelProblem>);
-
-impl Problems {
-    fn add(&mut self, item: impl Into<String>, message: impl Into<String>) {
-        self.0.push(ModelProblem {
-            item: item.into(),
-            message: message.into(),
-        });
-    }
-}
-
-pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
+fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
     let mut p = Problems(Vec::new());
 
     if spec.name.trim().is_empty() {
@@ -188,14 +197,17 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         let item = format!("reaction \"{}\"", r.id);
         let unit = match unit_ix.get(&r.unit) {
             Some(&u) => {
-                if units[u].kind != UnitKind::Reactor {
-                    p.add(
-                        &item,
-                        format!(
-                            "is attached to unit \"{}\", a {}, not a reactor",
-                            r.unit, units[u].kind
-                        ),
-                    );
+                match units[u].kind {
+                    UnitKind::Reactor => {}
+                    UnitKind::Mixer | UnitKind::Splitter | UnitKind::Separator | UnitKind::Node => {
+                        p.add(
+                            &item,
+                            format!(
+                                "is attached to unit \"{}\", a {}, not a reactor",
+                                r.unit, units[u].kind
+                            ),
+                        );
+                    }
                 }
                 units[u].reactions.push(ri);
                 u
@@ -319,10 +331,12 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                     }
                 }
             }
-            UnitKind::Reactor if u.reactions.is_empty() => {
-                p.add(&item, "is a reactor without any reaction");
+            UnitKind::Reactor => {
+                if u.reactions.is_empty() {
+                    p.add(&item, "is a reactor without any reaction");
+                }
             }
-            _ => {}
+            UnitKind::Mixer | UnitKind::Separator | UnitKind::Node => {}
         }
         // Every component a reaction touches must be carried by a stream of the unit, or its
         // balance forces the extent to zero.
@@ -362,163 +376,4 @@ pub(crate) fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         streams,
         meters,
     })
-}
-
-fn validate_meters(
-    spec: &ModelSpec,
-    comp_ix: &HashMap<String, usize>,
-    stream_ix: &HashMap<String, usize>,
-    streams: &[Stream],
-    p: &mut Problems,
-) -> Vec<Meter> {
-    let mut meters = Vec::with_capacity(spec.meters.len());
-    for m in &spec.meters {
-        let item = format!("meter \"{}\"", m.tag);
-        let stream = stream_ix.get(&m.stream).copied();
-        if stream.is_none() {
-            p.add(&item, format!("is on unknown stream \"{}\"", m.stream));
-        }
-        let carried = |ci: usize| stream.is_none_or(|s| streams[s].components.contains(&ci));
-        let uom = Uom::parse(&m.uom);
-        match uom {
-            None => p.add(
-                &item,
-                format!(
-                    "uom \"{}\" is not one of {} for {}",
-                    m.uom,
-                    Uom::allowed_for(m.quantity).join(", "),
-                    m.quantity.as_str()
-                ),
-            ),
-            Some(u) if !u.fits(m.quantity) => p.add(
-                &item,
-                format!(
-                    "uom \"{}\" does not fit {}; use one of {}",
-                    m.uom,
-                    m.quantity.as_str(),
-                    Uom::allowed_for(m.quantity).join(", ")
-                ),
-            ),
-            Some(_) => {}
-        }
-        let component = match (&m.component, m.quantity.needs_component()) {
-            (None, true) => {
-                p.add(
-                    &item,
-                    format!("measures {} but names no component", m.quantity.as_str()),
-                );
-                None
-            }
-            (Some(c), false) => {
-                p.add(
-                    &item,
-                    format!(
-                        "names component \"{c}\" but measures {}, a whole-stream quantity",
-                        m.quantity.as_str()
-                    ),
-                );
-                None
-            }
-            (None, false) => None,
-            (Some(c), true) => match comp_ix.get(c) {
-                None => {
-                    p.add(&item, format!("names unknown component \"{c}\""));
-                    None
-                }
-                Some(&ci) if !carried(ci) => {
-                    p.add(
-                        &item,
-                        format!(
-                            "measures component \"{c}\", which stream \"{}\" does not carry",
-                            m.stream
-                        ),
-                    );
-                    None
-                }
-                Some(&ci) => Some(ci),
-            },
-        };
-        let basis = m.basis.as_ref().map(|list| {
-            if m.quantity != Quantity::MoleFraction {
-                p.add(
-                    &item,
-                    "gives a basis, which only a mole_fraction meter may have",
-                );
-            }
-            let mut v = Vec::new();
-            for c in list {
-                match comp_ix.get(c) {
-                    Some(&ci) if carried(ci) => {
-                        if !v.contains(&ci) {
-                            v.push(ci)
-                        }
-                    }
-                    Some(_) => p.add(
-                        &item,
-                        format!(
-                            "basis component \"{c}\" is not carried by stream \"{}\"",
-                            m.stream
-                        ),
-                    ),
-                    None => p.add(&item, format!("basis names unknown component \"{c}\"")),
-                }
-            }
-            if let Some(ci) = component {
-                if !v.contains(&ci) {
-                    p.add(
-                        &item,
-                        "its basis does not include the component it measures",
-                    );
-                }
-            }
-            v.sort_unstable();
-            v
-        });
-        if let Some([lo, hi]) = m.range {
-            if !(lo.is_finite() && hi.is_finite() && lo < hi) {
-                p.add(
-                    &item,
-                    format!("range [{lo}, {hi}] must be two finite numbers, low before high"),
-                );
-            }
-        }
-        let given = [m.sigma, m.sigma_pct, m.sigma_pct_span];
-        let count = given.iter().filter(|s| s.is_some()).count();
-        if count != 1 {
-            p.add(
-                &item,
-                "must give exactly one of sigma, sigma_pct or sigma_pct_span",
-            );
-        }
-        for (name, v) in ["sigma", "sigma_pct", "sigma_pct_span"].iter().zip(given) {
-            if let Some(v) = v {
-                if !(v.is_finite() && v > 0.0) {
-                    p.add(&item, format!("{name} {v} must be a positive number"));
-                }
-            }
-        }
-        if m.sigma_pct_span.is_some() && m.range.is_none() {
-            p.add(
-                &item,
-                "gives sigma_pct_span but no range to take the span from",
-            );
-        }
-        let sigma = match (m.sigma, m.sigma_pct, m.sigma_pct_span) {
-            (Some(s), _, _) => Sigma::Absolute(s),
-            (_, Some(s), _) => Sigma::PercentOfReading(s),
-            (_, _, Some(s)) => Sigma::PercentOfSpan(s),
-            _ => Sigma::Absolute(f64::NAN),
-        };
-        meters.push(Meter {
-            tag: m.tag.clone(),
-            stream: stream.unwrap_or(usize::MAX),
-            quantity: m.quantity,
-            component,
-            basis,
-            uom: uom.unwrap_or(Uom::Fraction),
-            sigma,
-            range: m.range,
-        });
-    }
-    meters
 }
