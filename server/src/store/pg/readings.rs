@@ -1,16 +1,15 @@
-//! Readings and the dirty marks of their periods, in PostgreSQL.
+//! Storing a batch of readings in PostgreSQL: per run of readings, one upsert of arrays that
+//! answers what it did, then one statement marking the periods it changed.
 
 use std::collections::BTreeSet;
 
-use chrono::{DateTime, Utc};
-use reconcile::{Quality, Reading};
 use sqlx::Row;
 
-use super::super::readings::{quality_str, runs};
-use super::super::{
-    from_ms, now_ms, to_ms, IngestCounts, OutOfRange, PlantRow, Result, StoreError, StoredReading,
-};
-use super::PgStore;
+use super::super::readings::{runs, Batch};
+use super::super::rows::{quality_str, IngestCounts};
+use super::super::values::Millis;
+use super::super::Result;
+use super::{column, PgStore};
 
 /// Readings per statement. The readings travel as five arrays, so there is no parameter limit
 /// to respect; the cap only bounds the size of one message and of the statement's work.
@@ -55,20 +54,7 @@ const MARK: &str = "
         marked_at = GREATEST(excluded.marked_at, dirty_periods.marked_at + 1)";
 
 impl PgStore {
-    pub(in crate::store) async fn ingest_readings(
-        &self,
-        plant: &PlantRow,
-        readings: &[Reading],
-        period_seconds: i64,
-        out_of_range: OutOfRange<'_>,
-    ) -> Result<IngestCounts> {
-        if period_seconds <= 0 {
-            return Err(StoreError::InvalidPeriod(period_seconds));
-        }
-        let period_ms = period_seconds
-            .checked_mul(1000)
-            .ok_or(StoreError::InvalidPeriod(period_seconds))?;
-        let received_at = now_ms();
+    pub(in crate::store) async fn ingest(&self, batch: &Batch<'_>) -> Result<IngestCounts> {
         let mut counts = IngestCounts::default();
         let mut dirty = BTreeSet::new();
         // One transaction: a batch is stored whole or not at all. Dropping `tx` on an error
@@ -80,121 +66,37 @@ impl PgStore {
         // orders they could each hold a row the other waits for, a deadlock PostgreSQL ends by
         // aborting one. The sort is stable and by the stored key (a time is kept to the ms),
         // so repeats of one reading keep their order and the last still wins.
-        let mut ordered = readings.to_vec();
-        ordered.sort_by(|a, b| a.tag.cmp(&b.tag).then(to_ms(a.time).cmp(&to_ms(b.time))));
+        let mut ordered = batch.readings.to_vec();
+        ordered.sort_by(|a, b| {
+            (a.tag.as_str(), Millis::from(a.time)).cmp(&(b.tag.as_str(), Millis::from(b.time)))
+        });
         for run in runs(&ordered, READINGS_PER_STATEMENT) {
             let found = sqlx::query(UPSERT)
-                .bind(plant.id)
-                .bind(run.iter().map(|r| r.tag.as_str()).collect::<Vec<_>>())
-                .bind(run.iter().map(|r| to_ms(r.time)).collect::<Vec<_>>())
-                .bind(run.iter().map(|r| r.value).collect::<Vec<_>>())
-                .bind(
-                    run.iter()
-                        .map(|r| quality_str(r.quality))
-                        .collect::<Vec<_>>(),
-                )
-                .bind(received_at)
-                .bind(run.iter().map(out_of_range).collect::<Vec<_>>())
-                .bind(period_ms)
+                .bind(batch.plant.id)
+                .bind(column(run, |r| r.tag.as_str()))
+                .bind(column(run, |r| Millis::from(r.time).0))
+                .bind(column(run, |r| r.value))
+                .bind(column(run, |r| quality_str(r.quality)))
+                .bind(batch.received_at)
+                .bind(column(run, batch.out_of_range))
+                .bind(batch.period_ms)
                 .fetch_one(&mut *tx)
                 .await?;
-            let new = found.try_get::<i64, _>("new")? as usize;
-            let changed = found.try_get::<i64, _>("changed")? as usize;
+            let new: i64 = found.try_get("new")?;
+            let changed: i64 = found.try_get("changed")?;
             let periods: Vec<i64> = found.try_get("periods")?;
-            if new + changed > run.len() {
-                return Err(StoreError::Corrupt(format!(
-                    "the upsert of {} readings wrote {new} new and {changed} changed",
-                    run.len()
-                )));
-            }
+            counts.add_run(run.len(), new as usize, changed as usize)?;
             dirty.extend(periods);
-            counts.accepted += new;
-            counts.replaced += changed;
-            counts.unchanged += run.len() - new - changed;
         }
         if !dirty.is_empty() {
             sqlx::query(MARK)
-                .bind(plant.id)
+                .bind(batch.plant.id)
                 .bind(dirty.into_iter().collect::<Vec<i64>>())
-                .bind(received_at)
+                .bind(batch.received_at)
                 .execute(&mut *tx)
                 .await?;
         }
         tx.commit().await?;
         Ok(counts)
-    }
-
-    pub(in crate::store) async fn readings_in(
-        &self,
-        plant: &PlantRow,
-        from: DateTime<Utc>,
-        to: DateTime<Utc>,
-    ) -> Result<Vec<StoredReading>> {
-        let rows = sqlx::query(
-            "SELECT tag, time, value, quality, received_at, out_of_range FROM readings
-             WHERE plant_id = $1 AND time >= $2 AND time < $3 ORDER BY time, tag",
-        )
-        .bind(plant.id)
-        .bind(to_ms(from))
-        .bind(to_ms(to))
-        .fetch_all(&self.pool)
-        .await?;
-        rows.iter()
-            .map(|r| {
-                let quality: String = r.try_get("quality")?;
-                let quality = Quality::parse(&quality)
-                    .ok_or_else(|| StoreError::Corrupt(format!("quality \"{quality}\"")))?;
-                Ok(StoredReading {
-                    reading: Reading {
-                        tag: r.try_get("tag")?,
-                        time: from_ms(r.try_get("time")?)?,
-                        value: r.try_get("value")?,
-                        quality,
-                    },
-                    received_at: from_ms(r.try_get("received_at")?)?,
-                    out_of_range: r.try_get("out_of_range")?,
-                })
-            })
-            .collect()
-    }
-
-    pub(in crate::store) async fn dirty_periods(
-        &self,
-        plant: &PlantRow,
-    ) -> Result<Vec<(DateTime<Utc>, DateTime<Utc>)>> {
-        let rows = sqlx::query(
-            "SELECT period_start, marked_at FROM dirty_periods
-             WHERE plant_id = $1 ORDER BY period_start",
-        )
-        .bind(plant.id)
-        .fetch_all(&self.pool)
-        .await?;
-        rows.iter()
-            .map(|r| {
-                Ok((
-                    from_ms(r.try_get("period_start")?)?,
-                    from_ms(r.try_get("marked_at")?)?,
-                ))
-            })
-            .collect()
-    }
-
-    #[cfg(test)]
-    pub(in crate::store) async fn clear_dirty(
-        &self,
-        plant: &PlantRow,
-        period_start: DateTime<Utc>,
-        marked_up_to: DateTime<Utc>,
-    ) -> Result<bool> {
-        let done = sqlx::query(
-            "DELETE FROM dirty_periods
-             WHERE plant_id = $1 AND period_start = $2 AND marked_at <= $3",
-        )
-        .bind(plant.id)
-        .bind(to_ms(period_start))
-        .bind(to_ms(marked_up_to))
-        .execute(&self.pool)
-        .await?;
-        Ok(done.rows_affected() > 0)
     }
 }

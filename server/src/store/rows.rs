@@ -1,0 +1,403 @@
+//! The store's row types, the same whichever backend holds them, and how each is decoded from a
+//! result row: one function per type, generic over [`StoreRow`], serves both backends.
+
+use std::collections::BTreeMap;
+use std::fmt;
+
+use chrono::{DateTime, Utc};
+use reconcile::{ModelSpec, Quality, Reading};
+use sqlx::types::Json;
+
+use super::values::StoreRow;
+use super::{Result, StoreError};
+use crate::health::MeterPeriod;
+
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct PlantRow {
+    pub id: i64,
+    pub name: String,
+    pub created_at: DateTime<Utc>,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModelRevision {
+    pub revision: i64,
+    pub effective_from: DateTime<Utc>,
+    pub spec: ModelSpec,
+    /// The model as the user sent it (TOML or JSON).
+    pub source: String,
+    pub created_at: DateTime<Utc>,
+}
+
+/// One meter of one revision, as the service queries them by tag.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MeterRow {
+    pub tag: String,
+    pub stream: String,
+    pub quantity: String,
+    pub component: Option<String>,
+    pub uom: String,
+    pub range: Option<[f64; 2]>,
+}
+
+/// What one batch did: `accepted` readings were new, `replaced` changed the value or quality
+/// of a stored one, `unchanged` were identical resends.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct IngestCounts {
+    pub accepted: usize,
+    pub replaced: usize,
+    pub unchanged: usize,
+}
+
+/// A reading as stored, with what the store knows about it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StoredReading {
+    pub reading: Reading,
+    pub received_at: DateTime<Utc>,
+    /// Outside the meter's instrument range when it was stored.
+    pub out_of_range: bool,
+}
+
+/// A run to record: what it ran on and what it answered.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NewRun {
+    pub period_start: DateTime<Utc>,
+    /// The model revision it used.
+    pub revision: i64,
+    pub engine_version: String,
+    /// The report's status ("solved", "no_data", ...).
+    pub status: String,
+    pub report: serde_json::Value,
+    /// The period's meter values as the engine saw them, so a run can be explained and
+    /// repeated after later readings replaced them.
+    pub inputs: serde_json::Value,
+    /// Each meter's figures in this run, for its health record (replacing the period's
+    /// earlier rows).
+    pub meters: Vec<(String, MeterPeriod)>,
+}
+
+/// A current run without its report and inputs, for listings.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RunSummary {
+    pub id: i64,
+    pub period_start: DateTime<Utc>,
+    pub revision: i64,
+    pub status: String,
+    pub created_at: DateTime<Utc>,
+    /// How many runs the period has had, this one included.
+    pub runs: i64,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct RunRow {
+    pub id: i64,
+    pub run: NewRun,
+    pub created_at: DateTime<Utc>,
+    pub current: bool,
+}
+
+/// A technician's note on a meter.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MeterNote {
+    pub id: i64,
+    pub tag: String,
+    pub kind: NoteKind,
+    pub text: String,
+    pub effective_at: DateTime<Utc>,
+    pub created_at: DateTime<Utc>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NoteKind {
+    Checked,
+    Recalibrated,
+    Replaced,
+}
+
+impl NoteKind {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            NoteKind::Checked => "checked",
+            NoteKind::Recalibrated => "recalibrated",
+            NoteKind::Replaced => "replaced",
+        }
+    }
+
+    pub fn parse(text: &str) -> Option<NoteKind> {
+        match text {
+            "checked" => Some(NoteKind::Checked),
+            "recalibrated" => Some(NoteKind::Recalibrated),
+            "replaced" => Some(NoteKind::Replaced),
+            _ => None,
+        }
+    }
+
+    /// Does this note start a fresh history?
+    pub fn resets(self) -> bool {
+        matches!(self, NoteKind::Recalibrated | NoteKind::Replaced)
+    }
+}
+
+/// A held claim on one dirty period.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Claim {
+    /// The instance that holds it.
+    pub instance: String,
+    pub period_start: DateTime<Utc>,
+    /// The period's dirty mark when it was claimed: a later mark means readings changed
+    /// during the run, and the period must run again.
+    pub marked_at: DateTime<Utc>,
+}
+
+/// How a recorded run settled its claim.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Settled {
+    /// The period's mark was deleted: its current run is up to date.
+    Cleared,
+    /// Readings changed the period during the run: the mark stays, unclaimed, and the period
+    /// runs again.
+    StillDirty,
+}
+
+/// The roles of docs/api.md ("Tokens and roles"); `admin` may do everything.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Role {
+    Ingest,
+    Read,
+    Maintain,
+    Admin,
+}
+
+impl Role {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Role::Ingest => "ingest",
+            Role::Read => "read",
+            Role::Maintain => "maintain",
+            Role::Admin => "admin",
+        }
+    }
+
+    pub fn parse(text: &str) -> Option<Role> {
+        match text {
+            "ingest" => Some(Role::Ingest),
+            "read" => Some(Role::Read),
+            "maintain" => Some(Role::Maintain),
+            "admin" => Some(Role::Admin),
+            _ => None,
+        }
+    }
+}
+
+impl fmt::Display for Role {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+/// A token just made. `token` is the only copy of the plaintext: show it once.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct NewToken {
+    pub id: i64,
+    pub token: String,
+    pub role: Role,
+    pub plant: Option<String>,
+}
+
+/// What a verified token allows.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Grant {
+    pub token_id: i64,
+    pub role: Role,
+    /// The one plant it may touch; every plant when `None`.
+    pub plant: Option<String>,
+}
+
+impl Grant {
+    /// May this token do what `needed` may, on `plant`?
+    pub fn permits(&self, needed: Role, plant: &str) -> bool {
+        let role_ok = self.role == Role::Admin || self.role == needed;
+        let plant_ok = self.plant.as_deref().is_none_or(|p| p == plant);
+        role_ok && plant_ok
+    }
+}
+
+pub(super) fn quality_str(q: Quality) -> &'static str {
+    match q {
+        Quality::Good => "good",
+        Quality::Uncertain => "uncertain",
+        Quality::Bad => "bad",
+    }
+}
+
+/// A text column that must hold one of an enumeration's names (`what` names it in the error).
+fn named<R: StoreRow, T>(
+    r: &R,
+    column: &str,
+    what: &str,
+    parse: fn(&str) -> Option<T>,
+) -> Result<T> {
+    let text: String = r.read(column)?;
+    parse(&text).ok_or_else(|| StoreError::Corrupt(format!("{what} \"{text}\"")))
+}
+
+// Each decoder reads the columns of the SELECTs that name it (by name, so their order there
+// does not matter).
+
+/// `id, name, created_at` of `plants`.
+pub(super) fn plant<R: StoreRow>(r: &R) -> Result<PlantRow> {
+    Ok(PlantRow {
+        id: r.read("id")?,
+        name: r.read("name")?,
+        created_at: r.instant("created_at")?,
+    })
+}
+
+/// `revision, effective_from, model_json, source, created_at` of `model_revisions`.
+pub(super) fn revision<R: StoreRow>(r: &R) -> Result<ModelRevision> {
+    let revision: i64 = r.read("revision")?;
+    let json: String = r.read("model_json")?;
+    let spec = serde_json::from_str(&json).map_err(|e| {
+        StoreError::Corrupt(format!("model revision {revision} does not parse: {e}"))
+    })?;
+    Ok(ModelRevision {
+        revision,
+        effective_from: r.instant("effective_from")?,
+        spec,
+        source: r.read("source")?,
+        created_at: r.instant("created_at")?,
+    })
+}
+
+/// `tag, stream, quantity, component, uom, range_lo, range_hi` of `meters`.
+pub(super) fn meter<R: StoreRow>(r: &R) -> Result<MeterRow> {
+    let lo: Option<f64> = r.read("range_lo")?;
+    let hi: Option<f64> = r.read("range_hi")?;
+    Ok(MeterRow {
+        tag: r.read("tag")?,
+        stream: r.read("stream")?,
+        quantity: r.read("quantity")?,
+        component: r.read("component")?,
+        uom: r.read("uom")?,
+        range: lo.zip(hi).map(|(lo, hi)| [lo, hi]),
+    })
+}
+
+/// `tag, time, value, quality, received_at, out_of_range` of `readings`.
+pub(super) fn stored_reading<R: StoreRow>(r: &R) -> Result<StoredReading> {
+    Ok(StoredReading {
+        reading: Reading {
+            tag: r.read("tag")?,
+            time: r.instant("time")?,
+            value: r.read("value")?,
+            quality: named(r, "quality", "quality", Quality::parse)?,
+        },
+        received_at: r.instant("received_at")?,
+        out_of_range: r.read("out_of_range")?,
+    })
+}
+
+/// `period_start, marked_at` of `dirty_periods`.
+pub(super) fn dirty_period<R: StoreRow>(r: &R) -> Result<(DateTime<Utc>, DateTime<Utc>)> {
+    Ok((r.instant("period_start")?, r.instant("marked_at")?))
+}
+
+/// `period_start, marked_at` of `dirty_periods`, as claims of `instance`, oldest first.
+pub(super) fn claims<R: StoreRow>(instance: &str, rows: &[R]) -> Result<Vec<Claim>> {
+    let mut claims = rows
+        .iter()
+        .map(|r| {
+            let (period_start, marked_at) = dirty_period(r)?;
+            Ok(Claim {
+                instance: instance.to_string(),
+                period_start,
+                marked_at,
+            })
+        })
+        .collect::<Result<Vec<_>>>()?;
+    claims.sort_by_key(|c| c.period_start);
+    Ok(claims)
+}
+
+/// `id, role, plant` of `api_tokens`.
+pub(super) fn grant<R: StoreRow>(r: &R) -> Result<Grant> {
+    Ok(Grant {
+        token_id: r.read("id")?,
+        role: named(r, "role", "token role", Role::parse)?,
+        plant: r.read("plant")?,
+    })
+}
+
+/// The columns of `runs` but `plant_id` (`runs::COLUMNS`); a run's meter rows are not read
+/// with it.
+pub(super) fn run<R: StoreRow>(r: &R) -> Result<RunRow> {
+    let Json(report) = r.read("report_json")?;
+    let Json(inputs) = r.read("inputs_json")?;
+    Ok(RunRow {
+        id: r.read("id")?,
+        run: NewRun {
+            period_start: r.instant("period_start")?,
+            revision: r.read("revision")?,
+            engine_version: r.read("engine_version")?,
+            status: r.read("status")?,
+            report,
+            inputs,
+            meters: Vec::new(),
+        },
+        created_at: r.instant("created_at")?,
+        current: r.read("current")?,
+    })
+}
+
+/// `id, period_start, revision, status, created_at` of `runs` and their count as `runs`.
+pub(super) fn run_summary<R: StoreRow>(r: &R) -> Result<RunSummary> {
+    Ok(RunSummary {
+        id: r.read("id")?,
+        period_start: r.instant("period_start")?,
+        revision: r.read("revision")?,
+        status: r.read("status")?,
+        created_at: r.instant("created_at")?,
+        runs: r.read("runs")?,
+    })
+}
+
+/// `period_start` and the JSON object `part` of a current report.
+pub(super) fn report_part<R: StoreRow>(r: &R) -> Result<(DateTime<Utc>, serde_json::Value)> {
+    let Json(part) = r.read("part")?;
+    Ok((r.instant("period_start")?, part))
+}
+
+/// Every column of `meter_periods`.
+pub(super) fn meter_period<R: StoreRow>(r: &R) -> Result<(String, MeterPeriod)> {
+    let Json(correlations): Json<BTreeMap<String, f64>> = r.read("correlations")?;
+    Ok((
+        r.read("tag")?,
+        MeterPeriod {
+            period_start: r.instant("period_start")?,
+            measured: r.read("measured")?,
+            reconciled: r.read("reconciled")?,
+            sigma: r.read("sigma")?,
+            adjustment: r.read("adjustment")?,
+            adjustment_sigma: r.read("adjustment_sigma")?,
+            normalized: r.read("normalized_adjustment")?,
+            redundant: r.read("redundant")?,
+            flagged: r.read("flagged")?,
+            readings: r.read("readings")?,
+            bad_readings: r.read("bad_readings")?,
+            out_of_range_readings: r.read("out_of_range_readings")?,
+            correlations,
+        },
+    ))
+}
+
+/// `id, tag, kind, text, effective_at, created_at` of `meter_notes`.
+pub(super) fn note<R: StoreRow>(r: &R) -> Result<MeterNote> {
+    Ok(MeterNote {
+        id: r.read("id")?,
+        tag: r.read("tag")?,
+        kind: named(r, "kind", "note kind", NoteKind::parse)?,
+        text: r.read("text")?,
+        effective_at: r.instant("effective_at")?,
+        created_at: r.instant("created_at")?,
+    })
+}
