@@ -38,10 +38,6 @@ const QUICK_BATCHES: usize = 3;
 /// The first pass (new readings) stops early after this long; later passes use its count.
 const TIME_LIMIT: Duration = Duration::from_secs(60);
 const TARGET: f64 = 100_000.0;
-const MODEL_PATH: &str = concat!(
-    env!("CARGO_MANIFEST_DIR"),
-    "/../tests/data/vantle-methanol.toml"
-);
 
 /// A meter of the model and where its readings sit.
 struct Meter {
@@ -430,7 +426,7 @@ struct Data {
 async fn run() {
     let batches = batches_wanted();
     let dir = tempfile::tempdir().expect("temporary directory");
-    let model_text = std::fs::read_to_string(MODEL_PATH).expect("read the Vantle model");
+    let model_text = testkit::plants::VANTLE.to_string();
     let spec = ModelSpec::from_toml(&model_text).expect("Vantle model parses");
     let meters: Vec<Meter> = spec.meters.iter().map(meter).collect();
     let start = Utc.with_ymd_and_hms(2026, 1, 1, 0, 0, 0).unwrap();

@@ -25,15 +25,13 @@
 //!         cargo bench -p loopbal-server --bench runs
 //!
 //! The true state is the loop's steady state by successive substitution
-//! (`reconcile/benches/common`, shared with the engine's benchmarks); readings are
+//! (`testkit::vantle`, shared with the engine's benchmarks and tests); readings are
 //! `reconcile::simulate::readings` of it: the exact meter value plus Gaussian noise of the
 //! meter's σ, `LOOPBAL_BENCH_PER_HOUR` readings per meter per hour (1 by default), fixed seeds.
 //! No criterion: one timed pass per case, every count checked (each period has exactly one
 //! current run and one run in all afterwards, so none ran twice, and no dirty mark), every loop
 //! bounded in count and in time. The year and the report reads are on SQLite only.
 
-#[path = "../../reconcile/benches/common/mod.rs"]
-mod common;
 mod scratch;
 
 use std::fmt::Write as _;
@@ -529,12 +527,12 @@ async fn run() {
     let context = machine();
     let dir = tempfile::tempdir().expect("temporary directory");
 
-    let model_text = common::VANTLE;
+    let model_text = testkit::plants::VANTLE;
     let spec = ModelSpec::from_toml(model_text).expect("Vantle model parses");
     let plant_name = spec.name.clone();
     let plant = Plant::new(spec).expect("Vantle model is valid");
     let layout = Layout::new(&plant);
-    let z = common::vantle_true_state(&plant, &layout, &common::VantleConditions::default());
+    let z = testkit::vantle_true_state(&plant, &layout, &testkit::VantleConditions::default());
     let meters = plant.meters.len();
     let start = Utc.with_ymd_and_hms(2025, 1, 1, 0, 0, 0).unwrap();
 

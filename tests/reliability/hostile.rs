@@ -82,7 +82,7 @@ const MIN_CASES: usize = 40;
 // ---------------------------------------------------------------------------------------------
 // The tests
 
-crate::both_backends! {
+testkit::both_backends! {
     /// Mutated model files (TOML and JSON), media types, nesting and oversize on the model PUT.
     async fn hostile_model_files(backend: Backend) {
         let mut fx = Fixture::start(backend, "models").await;
@@ -93,7 +93,7 @@ crate::both_backends! {
     }
 }
 
-crate::both_backends! {
+testkit::both_backends! {
     /// Mutated CSV and JSON readings, media types, nesting, oversize and odd HTTP framing.
     async fn hostile_readings_bodies(backend: Backend) {
         let mut fx = Fixture::start(backend, "readings").await;
@@ -108,7 +108,7 @@ crate::both_backends! {
     }
 }
 
-crate::both_backends! {
+testkit::both_backends! {
     /// Hostile paths and query strings on every endpoint, and hostile technicians' notes.
     async fn hostile_queries_and_notes(backend: Backend) {
         let mut fx = Fixture::start(backend, "queries").await;
@@ -737,7 +737,7 @@ impl Fixture {
         );
         let max = MAX_BODY.to_string();
         let timeout = REQUEST_TIMEOUT_S.to_string();
-        let s = Server::start_on(
+        let s = support::LOOPBAL.serve_on(
             &log_at,
             &url,
             &[

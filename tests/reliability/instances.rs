@@ -83,7 +83,7 @@ async fn periods(
         .collect()
 }
 
-crate::both_backends! {
+testkit::both_backends! {
     async fn one_of_two_instances_killed_during_runs_leaves_exactly_one_run_per_period(backend: Backend) {
         let dir = tempfile::tempdir().unwrap();
         let (log_at, url) = backend.fresh(dir.path(), "shared");
@@ -94,8 +94,8 @@ crate::both_backends! {
                 "--run-lease", LEASE_SECONDS, "--instance-name", name,
             ]
         };
-        let alpha = Server::start_on(&dir.path().join("alpha"), &url, &options("alpha"), "loopbal=info,warn");
-        let beta = Server::start_on(&log_at, &url, &options("beta"), "loopbal=info,warn");
+        let alpha = crate::support::LOOPBAL.serve_on(&dir.path().join("alpha"), &url, &options("alpha"), "loopbal=info,warn");
+        let beta = crate::support::LOOPBAL.serve_on(&log_at, &url, &options("beta"), "loopbal=info,warn");
         let c = client();
         let plant = "purge-design";
         let (model, csv) = purge_design_csv(HOURS, &|_, _| false);

@@ -520,7 +520,7 @@ fn loadavg() -> String {
         .unwrap_or_else(|_| "unknown".into())
 }
 
-crate::both_backends! {
+testkit::both_backends! {
     /// Historians and engineers at once for 60 s: no error, nothing lost, periods run.
     async fn sustained_load(backend: Backend) {
         let _turn = ONE_AT_A_TIME.lock().await;
@@ -539,7 +539,7 @@ async fn load(backend: Backend, seconds: u64) {
     let admin = token_on(&url, "admin", None);
     let ingest = token_on(&url, "ingest", None);
     let read = token_on(&url, "read", None);
-    let s = Server::start_on(
+    let s = crate::support::LOOPBAL.serve_on(
         &log_at,
         &url,
         &["--run-grace", "0", "--run-tick", "1"],

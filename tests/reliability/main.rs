@@ -5,8 +5,10 @@
 //! PostgreSQL too when `LOOPBAL_TEST_POSTGRES_URL` is set; see DEVELOPERS.md). `.ci/run` runs
 //! it both ways. The sustained load runs 60 s per backend; `LOOPBAL_LOAD_SECONDS` shortens it.
 
-#[path = "../support/mod.rs"]
-mod support;
+/// The end-to-end harness (testkit::e2e) bound to this package's `loopbal` binary.
+mod support {
+    testkit::e2e_support!();
+}
 
 mod crash;
 mod hostile;
