@@ -30,7 +30,7 @@ use sqlx::sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePoolOptions, S
 use sqlx::Connection;
 
 mod scratch;
-use scratch::{Db, POSTGRES_VAR};
+use scratch::{refuse_unless, Db, POSTGRES_VAR};
 
 const BATCH: usize = 10_000;
 const DEFAULT_BATCHES: usize = 20;
@@ -162,9 +162,10 @@ impl Client {
             .expect("POST readings");
         let status = res.status();
         let text = res.text().await.expect("answer body");
-        assert!(
+        refuse_unless(
             status.is_success(),
-            "POST readings answered {status}: {text}"
+            "tests/api.rs a_historians_life",
+            || format!("POST readings answered {status}: {text}"),
         );
         serde_json::from_str(&text).expect("answer is an IngestAnswer")
     }
@@ -189,10 +190,10 @@ async fn post_all(
         let t = Instant::now();
         let a = client.post(body).await;
         let dt = t.elapsed();
-        assert_eq!(
-            (a.accepted, a.replaced, a.unchanged, a.rejected),
-            (expect.0, expect.1, expect.2, 0),
-            "{case}: unexpected answer"
+        refuse_unless(
+            (a.accepted, a.replaced, a.unchanged, a.rejected) == (expect.0, expect.1, expect.2, 0),
+            "tests/api.rs a_historians_life",
+            || format!("{case}: unexpected answer"),
         );
         elapsed += dt;
         slowest = slowest.max(dt);
@@ -297,7 +298,11 @@ async fn raw_insert(
                 .fetch_one(&$pool)
                 .await
                 .expect("count");
-            assert_eq!(n as usize, done, "raw insert stored every row");
+            refuse_unless(
+                n as usize == done,
+                "nothing: the raw insert is the bench's own baseline",
+                || format!("raw insert stored {n} of {done} rows"),
+            );
             $pool.close().await;
             (done, elapsed)
         }};
@@ -356,7 +361,11 @@ async fn raw_copy(db: Db<'_>, all: &[Reading]) -> Duration {
     copy.send(text.as_bytes()).await.expect("COPY data");
     let rows = copy.finish().await.expect("COPY finished");
     let elapsed = t.elapsed();
-    assert_eq!(rows as usize, all.len(), "COPY stored every row");
+    refuse_unless(
+        rows as usize == all.len(),
+        "nothing: COPY is the bench's own baseline",
+        || format!("COPY stored {rows} of {} rows", all.len()),
+    );
     c.close().await.expect("close");
     elapsed
 }
@@ -505,11 +514,10 @@ async fn measure(db: Db<'_>, data: &Data) -> Vec<Figure> {
         .send()
         .await
         .expect("PUT model");
-    assert!(
-        res.status().is_success(),
-        "PUT model answered {}",
-        res.status()
-    );
+    let status = res.status();
+    refuse_unless(status.is_success(), "tests/api.rs", || {
+        format!("PUT model answered {status}")
+    });
     let client = Client {
         http,
         url: format!("http://{addr}/api/v1/plants/{plant_name}/readings"),
@@ -565,7 +573,11 @@ async fn measure(db: Db<'_>, data: &Data) -> Vec<Figure> {
     let t = Instant::now();
     for body in &data.new_csv[..done] {
         let checked = ingest::check_batch(body.as_bytes(), Format::Csv, &catalogue).expect("check");
-        assert_eq!(checked.good.len(), BATCH);
+        refuse_unless(
+            checked.good.len() == BATCH,
+            "tests/api.rs a_historians_life",
+            || format!("check_batch found {} good of {BATCH}", checked.good.len()),
+        );
     }
     figures.push(Figure {
         case: "check only",
@@ -595,7 +607,11 @@ async fn measure(db: Db<'_>, data: &Data) -> Vec<Figure> {
             .await
             .expect("ingest directly");
         let dt = t.elapsed();
-        assert_eq!(counts.accepted, BATCH, "store direct: every reading new");
+        refuse_unless(
+            counts.accepted == BATCH,
+            "tests/api.rs a_historians_life",
+            || format!("store direct: {} of {BATCH} readings new", counts.accepted),
+        );
         elapsed += dt;
         slowest = slowest.max(dt);
     }

@@ -23,7 +23,7 @@ const LEASE_SECONDS: &str = "3";
 
 /// Run `sql` (one text parameter, `$1`) on the database at `url` and return its first column
 /// as integers: the test reads claims, which the API does not show.
-async fn query_ints(url: &str, sql: &str, param: &str) -> Vec<i64> {
+pub(crate) async fn query_ints(url: &str, sql: &str, param: &str) -> Vec<i64> {
     if url.starts_with("postgres") {
         let pool = sqlx::PgPool::connect(url).await.expect("connect");
         let rows: Vec<i64> = sqlx::query_scalar(sql)
@@ -49,7 +49,7 @@ async fn query_ints(url: &str, sql: &str, param: &str) -> Vec<i64> {
 }
 
 /// The periods of the simulated days: start → (runs, rerun_due, status).
-async fn periods(
+pub(crate) async fn periods(
     c: &reqwest::Client,
     s: &Server,
     tok: &str,

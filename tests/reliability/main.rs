@@ -1,5 +1,6 @@
 //! Reliability: the service under process death, several instances, sustained load and hostile
-//! input. Every loop here is bounded in count and time, and every server listens on loopback.
+//! input, and the correctness of the period runs the benchmarks time (`runs`). Every loop here
+//! is bounded in count and time, and every server listens on loopback.
 //!
 //! One command runs it all: `cargo test -p loopbal-server --test reliability` (SQLite, and
 //! PostgreSQL too when `LOOPBAL_TEST_POSTGRES_URL` is set; see DEVELOPERS.md). `.ci/run` runs
@@ -14,3 +15,4 @@ mod crash;
 mod hostile;
 mod instances;
 mod load;
+mod runs;
