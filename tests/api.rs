@@ -32,7 +32,7 @@ fn fresh(extra: &[&str]) -> (tempfile::TempDir, Server, Tokens) {
         read: token(&db, "read", None),
         maintain: token(&db, "maintain", None),
     };
-    let server = Server::start(&db, extra);
+    let server = support::LOOPBAL.serve(&db, extra);
     (dir, server, tokens)
 }
 
@@ -676,7 +676,7 @@ async fn acknowledged_data_survives_a_restart_and_shutdown_finishes_requests_in_
     assert!(stopped, "exit status 0 after SIGTERM");
     let answer = json_ok(in_flight.await.unwrap().expect("the batch is answered")).await;
     assert_eq!(answer["accepted"], rows.len(), "{answer}");
-    let s = Server::start(&database, &[]);
+    let s = support::LOOPBAL.serve(&database, &[]);
     assert_eq!(
         readings(&c, &s, &t.read, from, to).await.len(),
         264 + rows.len()
@@ -775,7 +775,7 @@ async fn the_log_has_requests_but_no_token_and_no_reading_value() {
     let db = dir.path().join("loopbal.sqlite");
     let admin = token(&db, "admin", None);
     // Debug is what an operator turns on to look closer; even then nothing secret shows.
-    let s = Server::start_logging(&db, &[], "debug");
+    let s = support::LOOPBAL.serve_logging(&db, &[], "debug");
     let c = client();
     let r = put_model(&c, &s, &admin, PLANT, &ombrask_model(), "application/toml").await;
     assert_eq!(r.status(), StatusCode::CREATED);

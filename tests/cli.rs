@@ -8,10 +8,7 @@ use serde_json::Value;
 
 mod support;
 
-const OMBRASK: &str = concat!(
-    env!("CARGO_MANIFEST_DIR"),
-    "/../tests/data/ombrask-loop.toml"
-);
+use testkit::plants::OMBRASK_PATH as OMBRASK;
 
 /// A small linear plant (two feeds, a mixer, a splitter): no reaction, so the estimate is a
 /// linear least-squares problem the engine must solve in a few iterations.
@@ -127,7 +124,7 @@ const OMBRASK_STATE: [(&str, f64); 11] = [
 ];
 
 fn loopbal(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_loopbal"))
+    Command::new(support::BIN)
         .args(args)
         .output()
         .expect("the loopbal binary runs")
@@ -904,15 +901,11 @@ fn usage_errors_exit_2() {
 /// figures and each redundant meter's detectable bias.
 #[test]
 fn a_biased_meter_in_the_readings_is_named_with_its_bias() {
-    use reconcile::simulate::{readings, steady_state, MeterFault, ReadingPlan};
+    use reconcile::simulate::{steady_state, MeterFault, ReadingPlan};
     let dir = tempfile::tempdir().unwrap();
-    let model_text = std::fs::read_to_string(
-        Path::new(env!("CARGO_MANIFEST_DIR")).join("../tests/data/purge-design.toml"),
-    )
-    .unwrap();
-    let plant = reconcile::parse_plant(&model_text).unwrap();
-    let specs = support::purge_design_specs();
-    let z = steady_state(&plant, &specs).unwrap();
+    let model_text = testkit::plants::PURGE_DESIGN;
+    let plant = reconcile::parse_plant(model_text).unwrap();
+    let z = steady_state(&plant, &testkit::purge_design::specs()).unwrap();
     // FI-4, the purge flow meter (σ 1 mol/s), reads 8 mol/s high from hour 2 on.
     let plan = ReadingPlan {
         start: chrono::DateTime::parse_from_rfc3339("2026-06-01T00:00:00Z")
@@ -927,11 +920,8 @@ fn a_biased_meter_in_the_readings_is_named_with_its_bias() {
             value: 8.0,
         }],
     };
-    let mut csv = String::from("tag,time,value,quality\n");
-    for r in readings(&plant, &z, &plan) {
-        csv += &format!("{},{},{},good\n", r.tag, r.time.to_rfc3339(), r.value);
-    }
-    let model = write(dir.path(), "purge-design.toml", &model_text);
+    let csv = testkit::readings_csv(&plant, &z, &plan, &|_, _| false);
+    let model = write(dir.path(), "purge-design.toml", model_text);
     let data = write(dir.path(), "readings.csv", csv);
     let out = reconcile(&model, &data);
     assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));

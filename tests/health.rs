@@ -9,7 +9,7 @@ mod support;
 use std::time::Duration;
 
 use chrono::{DateTime, TimeDelta, Utc};
-use reconcile::simulate::{readings, steady_state, MeterFault, ReadingPlan};
+use reconcile::simulate::{steady_state, MeterFault, ReadingPlan};
 use reqwest::{Client, StatusCode};
 use serde_json::{json, Value};
 use support::{token, Server};
@@ -21,12 +21,8 @@ const PLANT: &str = "purge-design";
 /// feed's argon analyser are correlated at 0.91 through the argon balance, and a week of
 /// evidence sometimes cannot separate them).
 fn model_text() -> String {
-    let base = std::fs::read_to_string(concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/../tests/data/purge-design.toml"
-    ))
-    .unwrap();
-    base + r#"
+    testkit::plants::PURGE_DESIGN.to_string()
+        + r#"
 [[meter]]
 tag = "FI-6"
 stream = "purge"
@@ -46,8 +42,7 @@ fn week_start() -> DateTime<Utc> {
 /// reading per meter per hour, noise at each meter's σ from `seed`, with `faults`.
 fn simulated_csv(start_hour: usize, hours: usize, seed: u64, faults: Vec<MeterFault>) -> String {
     let plant = reconcile::parse_plant(&model_text()).unwrap();
-    let specs = support::purge_design_specs();
-    let z = steady_state(&plant, &specs).unwrap();
+    let z = steady_state(&plant, &testkit::purge_design::specs()).unwrap();
     let plan = ReadingPlan {
         start: week_start() + TimeDelta::hours(start_hour as i64),
         hours,
@@ -55,11 +50,7 @@ fn simulated_csv(start_hour: usize, hours: usize, seed: u64, faults: Vec<MeterFa
         seed,
         faults,
     };
-    let mut csv = String::from("tag,time,value,quality\n");
-    for r in readings(&plant, &z, &plan) {
-        csv += &format!("{},{},{},good\n", r.tag, r.time.to_rfc3339(), r.value);
-    }
-    csv
+    testkit::readings_csv(&plant, &z, &plan, &|_, _| false)
 }
 
 struct Service {
@@ -81,7 +72,7 @@ impl Service {
             ingest: token(&db, "ingest", None),
             read: token(&db, "read", None),
             maintain: token(&db, "maintain", None),
-            server: Server::start(&db, &["--run-grace", "0", "--run-tick", "1"]),
+            server: support::LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]),
             client: Client::builder()
                 .timeout(Duration::from_secs(60))
                 .build()

@@ -24,15 +24,10 @@ const AFTER: &str = "2026-06-01T05:00:00Z";
 /// as CSV, and the figures of the noise-free steady state (noise-free data reconciles to
 /// itself, so these are the true values).
 fn purge_design(skip: &dyn Fn(&str, usize) -> bool) -> (String, String, Vec<Value>) {
-    use reconcile::simulate::{exact_values, readings, steady_state, ReadingPlan};
-    let model = std::fs::read_to_string(concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/../tests/data/purge-design.toml"
-    ))
-    .unwrap();
+    use reconcile::simulate::{exact_values, steady_state, ReadingPlan};
+    let model = testkit::plants::PURGE_DESIGN.to_string();
     let plant = reconcile::parse_plant(&model).unwrap();
-    let specs = support::purge_design_specs();
-    let z = steady_state(&plant, &specs).unwrap();
+    let z = steady_state(&plant, &testkit::purge_design::specs()).unwrap();
     let start = chrono::DateTime::parse_from_rfc3339(START)
         .unwrap()
         .with_timezone(&chrono::Utc);
@@ -43,14 +38,7 @@ fn purge_design(skip: &dyn Fn(&str, usize) -> bool) -> (String, String, Vec<Valu
         seed: 7,
         faults: vec![],
     };
-    let mut csv = String::from("tag,time,value,quality\n");
-    for r in readings(&plant, &z, &plan) {
-        let hour = ((r.time - start).num_seconds() / 3600) as usize;
-        if skip(&r.tag, hour) {
-            continue;
-        }
-        csv += &format!("{},{},{},good\n", r.tag, r.time.to_rfc3339(), r.value);
-    }
+    let csv = testkit::readings_csv(&plant, &z, &plan, skip);
 
     let exact: Vec<reconcile::Reading> = plant
         .meters
@@ -86,7 +74,7 @@ async fn run_hours(skip: &dyn Fn(&str, usize) -> bool) -> Setup {
     let admin = token(&db, "admin", None);
     let ingest = token(&db, "ingest", None);
     let read = token(&db, "read", None);
-    let s = Server::start(&db, &["--run-grace", "0", "--run-tick", "1"]);
+    let s = support::LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]);
     let c = client();
     let (model, csv, truth) = purge_design(skip);
     let r = c

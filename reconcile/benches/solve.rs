@@ -5,7 +5,7 @@
 //!   readings: estimate, classification, every σ and the report.
 //! - `vantle/with_gross_error`: the same period with a gross error of +8σ on the make-up gas
 //!   flow meter VC3-FI-101 (redundant), so that fault identification runs too.
-//! - `estimate/N`: generated networks of N streams × 8 components (benches/common/network.rs):
+//! - `estimate/N`: generated networks of N streams × 8 components (testkit/src/network.rs):
 //!   Layout::new + start::initial_point + solve::solve with the default options.
 //! - `estimate_10_iterations/N`: the same, capped at 10 Gauss–Newton iterations (what a run
 //!   costs when it converges in the usual 5–10).
@@ -20,13 +20,9 @@
 //! Run with `cargo bench -p reconcile --bench solve`. `LOOPBAL_BENCH_PROBE=1` instead times each
 //! case once and prints iterations and status, without criterion.
 
-mod common;
-
 use std::hint::black_box;
 use std::time::{Duration, Instant};
 
-use common::network::{network, Network};
-use common::{exact_values, vantle_true_state, noisy_values, period, VantleConditions, VANTLE};
 use criterion::{criterion_group, BenchmarkId, Criterion};
 use reconcile::classify::{classify, classify_dense};
 use reconcile::equations::Layout;
@@ -34,6 +30,9 @@ use reconcile::model::Plant;
 use reconcile::solve::{solve, Measured, Solution, SolveOptions};
 use reconcile::start::initial_point;
 use reconcile::{parse_plant, reconcile_period};
+use testkit::network::{network, Network};
+use testkit::plants::VANTLE;
+use testkit::{exact_values, noisy_values, period, vantle_true_state, VantleConditions};
 
 /// Network sizes (streams) timed for the estimate, the classification and the whole period.
 const ESTIMATE_SIZES: [usize; 4] = [100, 250, 500, 2000];

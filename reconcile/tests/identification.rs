@@ -1,15 +1,13 @@
 //! Statistical calibration and fault identification on simulated data, with fixed seeds.
 
-#[path = "../benches/common/mod.rs"]
-mod common;
-
-use common::{exact_values, vantle_true_state, noisy_values, VantleConditions, VANTLE};
 use reconcile::equations::Layout;
 use reconcile::faults::identify;
 use reconcile::period::MeterValue;
 use reconcile::report::FaultKind;
 use reconcile::solve::Measured;
 use reconcile::{estimate, parse_plant, Estimate, Plant};
+use testkit::plants::VANTLE;
+use testkit::{exact_values, noisy_values, vantle_true_state, VantleConditions};
 
 fn measured(plant: &Plant, values: &[MeterValue]) -> Vec<Measured> {
     values

@@ -182,7 +182,8 @@ fn fully_measured_linear_network_matches_the_closed_form() {
     assert_eq!(report.redundancy, 3);
     assert!((report.objective.unwrap() - j).abs() < 1e-9 * j.max(1.0));
     let gt = report.global_test.unwrap();
-    // χ²_0.95(3) = 7.815 (NIST/SEMATECH e-Handbook §1.3.6.7.4).
+    // χ²_0.95(3) = 7.815 (NIST/SEMATECH, e-Handbook of Statistical Methods, 2012, §1.3.6.7.4,
+    // table of the chi-square distribution).
     assert!((gt.critical - 7.815).abs() < 1e-3);
     assert_eq!(gt.passed, j <= gt.critical);
 }

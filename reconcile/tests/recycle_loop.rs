@@ -6,7 +6,7 @@ use reconcile::equations::{measurement, Layout};
 use reconcile::period::{MeterValue, PeriodInput};
 use reconcile::{parse_plant, reconcile_period, Plant, ReportStatus};
 
-const MODEL: &str = include_str!("../../tests/data/ombrask-loop.toml");
+use testkit::plants::OMBRASK as MODEL;
 
 /// The loop's true steady state by successive substitution around the recycle: 25 % single-pass
 /// conversion of N2, all NH3 and 5 % of the CH4 leave with the liquid product, 5 % purge.

@@ -6,27 +6,11 @@ use reconcile::period::Quality;
 use reconcile::simulate::{exact_values, readings, steady_state, MeterFault, ReadingPlan, Spec};
 use reconcile::{parse_plant, Plant, Reading};
 
-const MODEL: &str = include_str!("../../tests/data/purge-design.toml");
+use testkit::plants::PURGE_DESIGN as MODEL;
 
+/// The purge-design loop at its design case (testkit::purge_design).
 fn loop_state(plant: &Plant) -> Vec<f64> {
-    let argon = 400.0 * 0.005 / 0.995;
-    let mut specs: Vec<Spec> = [("N2", 100.0), ("H2", 300.0), ("Ar", argon)]
-        .into_iter()
-        .map(|(c, v)| Spec::ComponentFlow {
-            stream: "feed".into(),
-            component: c.into(),
-            value: 3.6 * v,
-        })
-        .collect();
-    specs.push(Spec::Conversion {
-        reaction: "synthesis".into(),
-        value: 0.625,
-    });
-    specs.push(Spec::SplitFraction {
-        stream: "purge".into(),
-        value: 0.1,
-    });
-    steady_state(plant, &specs).unwrap()
+    steady_state(plant, &testkit::purge_design::specs()).unwrap()
 }
 
 fn plan(hours: usize, seed: u64, faults: Vec<MeterFault>) -> ReadingPlan {

@@ -1,18 +1,12 @@
 //! The sparse classification and covariance (covariance.rs, used from SPARSE_THRESHOLD states on)
 //! against the dense projection (classify.rs) on generated networks of a few hundred states.
 
-#[path = "../benches/common/mod.rs"]
-#[allow(dead_code)]
-mod common;
-#[path = "../benches/common/network.rs"]
-#[allow(dead_code)]
-mod network;
-
 use reconcile::classify::{classify_dense, classify_sparse, Classification};
 use reconcile::equations::{measurement, stream_fraction, stream_total, Layout};
 use reconcile::solve::{solve, Measured, SolveOptions, SolveStatus};
 use reconcile::start::initial_point;
 use reconcile::Plant;
+use testkit::network;
 
 fn measured(
     plant: &Plant,
@@ -113,9 +107,9 @@ fn compare(
 
 fn case(streams: usize, keep: impl Fn(&Plant, usize) -> bool) -> (usize, usize) {
     let net = network::network(streams, 7);
-    let values = common::noisy_values(
+    let values = testkit::noisy_values(
         &net.plant,
-        &common::exact_values(&net.plant, &net.layout, &net.z),
+        &testkit::exact_values(&net.plant, &net.layout, &net.z),
         0,
     );
     let m = measured(&net.plant, &values, |k| keep(&net.plant, k));
@@ -157,7 +151,7 @@ fn identification_agrees_between_paths() {
     let net = network::network(80, 7);
     let plant = &net.plant;
     let mut values =
-        common::noisy_values(plant, &common::exact_values(plant, &net.layout, &net.z), 3);
+        testkit::noisy_values(plant, &testkit::exact_values(plant, &net.layout, &net.z), 3);
     // +10σ on a flow meter in the middle of the chain.
     let k = (0..plant.meters.len())
         .find(|&k| {

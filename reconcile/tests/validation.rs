@@ -5,7 +5,7 @@ use proptest::prelude::*;
 use reconcile::equations::{constraints, measurement, Layout};
 use reconcile::{parse_plant, ModelError, ModelProblem, ModelSpec, Plant};
 
-const FIXTURE: &str = include_str!("../../tests/data/ombrask-loop.toml");
+use testkit::plants::OMBRASK as FIXTURE;
 
 /// A small valid loop: makeup and recycle mix, a converter, a separator that drops liquid
 /// ammonia with the water, and a splitter that purges part of the vapour.

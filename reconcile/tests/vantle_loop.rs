@@ -2,12 +2,10 @@
 //! converter, a flash, a let-down vessel, a purge splitter and a recycle, 15 streams, six
 //! components and 26 meters of every kind and many units.
 
-#[path = "../benches/common/mod.rs"]
-mod common;
-
-use common::{exact_values, vantle_true_state, period, VantleConditions, VANTLE};
 use reconcile::equations::{constraints, Layout};
 use reconcile::{parse_plant, reconcile_period, ReportStatus};
+use testkit::plants::VANTLE;
+use testkit::{exact_values, period, vantle_true_state, VantleConditions};
 
 #[test]
 fn true_state_satisfies_every_balance() {

@@ -25,15 +25,14 @@
 //!         cargo bench -p loopbal-server --bench runs
 //!
 //! The true state is the loop's steady state by successive substitution
-//! (`reconcile/benches/common`, shared with the engine's benchmarks); readings are
+//! (`testkit::vantle`, shared with the engine's benchmarks and tests); readings are
 //! `reconcile::simulate::readings` of it: the exact meter value plus Gaussian noise of the
 //! meter's σ, `LOOPBAL_BENCH_PER_HOUR` readings per meter per hour (1 by default), fixed seeds.
-//! No criterion: one timed pass per case, every count checked (each period has exactly one
-//! current run and one run in all afterwards, so none ran twice, and no dirty mark), every loop
-//! bounded in count and in time. The year and the report reads are on SQLite only.
+//! No criterion: one timed pass per case, every loop bounded in count and in time. A case whose
+//! result is wrong (a period without exactly one run, a dirty mark left, a report not the one
+//! asked for) prints no figure (`scratch::refuse_unless`); those properties are asserted by
+//! tests/reliability/runs.rs and instances.rs. The year and the report reads are on SQLite only.
 
-#[path = "../../reconcile/benches/common/mod.rs"]
-mod common;
 mod scratch;
 
 use std::fmt::Write as _;
@@ -49,7 +48,7 @@ use reconcile::equations::Layout;
 use reconcile::simulate::{self, ReadingPlan};
 use reconcile::solve::Measured;
 use reconcile::{ModelSpec, Plant, Quality, Reading};
-use scratch::Db;
+use scratch::{refuse_unless, Db};
 use sqlx::Connection;
 
 const BATCH: usize = 10_000;
@@ -168,11 +167,10 @@ impl Service {
             .await
             .expect("PUT model");
         let status = res.status();
-        assert!(
-            status.is_success(),
-            "PUT model answered {status}: {}",
-            res.text().await.unwrap_or_default()
-        );
+        let text = res.text().await.unwrap_or_default();
+        refuse_unless(status.is_success(), "tests/api.rs", || {
+            format!("PUT model answered {status}: {text}")
+        });
         let row = store
             .plant(plant)
             .await
@@ -206,15 +204,11 @@ impl Service {
                 .expect("POST readings");
             let status = res.status();
             let text = res.text().await.expect("answer body");
-            assert!(
-                status.is_success(),
-                "POST readings answered {status}: {text}"
-            );
-            let answer: serde_json::Value = serde_json::from_str(&text).expect("JSON answer");
-            assert_eq!(
-                answer["accepted"].as_u64(),
-                Some(n as u64),
-                "every reading new: {text}"
+            let answer: serde_json::Value = serde_json::from_str(&text).unwrap_or_default();
+            refuse_unless(
+                status.is_success() && answer["accepted"].as_u64() == Some(n as u64),
+                "tests/api.rs a_historians_life",
+                || format!("POST readings answered {status}, not every reading new: {text}"),
             );
         }
         t.elapsed()
@@ -436,15 +430,22 @@ async fn check_runs(
         .current_runs(&svc.row, start, end)
         .await
         .expect("current runs");
-    assert_eq!(runs.len(), hours, "every period has a current run");
-    assert!(runs.iter().all(|r| r.runs == 1), "one run per period");
-    assert_eq!(
-        svc.total_runs().await,
-        hours as i64,
-        "one run in all per period: none ran twice"
-    );
+    let total = svc.total_runs().await;
     let dirty = store.dirty_periods(&svc.row).await.expect("dirty periods");
-    assert!(dirty.is_empty(), "{} periods still dirty", dirty.len());
+    refuse_unless(
+        runs.len() == hours
+            && runs.iter().all(|r| r.runs == 1)
+            && total == hours as i64
+            && dirty.is_empty(),
+        "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+        || {
+            format!(
+                "{} of {hours} periods with a current run, {total} runs in all, {} still dirty",
+                runs.len(),
+                dirty.len()
+            )
+        },
+    );
     let parts = store
         .current_reports(&svc.row, start, end, &["status", "global_test"])
         .await
@@ -529,12 +530,12 @@ async fn run() {
     let context = machine();
     let dir = tempfile::tempdir().expect("temporary directory");
 
-    let model_text = common::VANTLE;
+    let model_text = testkit::plants::VANTLE;
     let spec = ModelSpec::from_toml(model_text).expect("Vantle model parses");
     let plant_name = spec.name.clone();
     let plant = Plant::new(spec).expect("Vantle model is valid");
     let layout = Layout::new(&plant);
-    let z = common::vantle_true_state(&plant, &layout, &common::VantleConditions::default());
+    let z = testkit::vantle_true_state(&plant, &layout, &testkit::VantleConditions::default());
     let meters = plant.meters.len();
     let start = Utc.with_ymd_and_hms(2025, 1, 1, 0, 0, 0).unwrap();
 
@@ -572,7 +573,11 @@ async fn run() {
     }
     let load_before = load();
     let (periods, engine) = engine_only(&plant, &month);
-    assert_eq!(periods, MONTH_HOURS, "a period input per hour");
+    refuse_unless(
+        periods == MONTH_HOURS,
+        "tests/results.rs and reconcile/src/period.rs periods_align_to_utc",
+        || format!("{periods} period inputs for {MONTH_HOURS} hours"),
+    );
     println!(
         "engine only (no service, no store, one thread): {:.2} s, {:.2} ms/period; load {load_before} -> {}",
         engine.as_secs_f64(),
@@ -596,7 +601,11 @@ async fn run() {
         let chunk = readings(&plant, &z, from, hours, per_hour, 100 + engine_hours as u64);
         post_time += svc.post(&chunk).await;
         let pass = run_passes(std::slice::from_ref(&svc.state), &svc.row, 2, false).await;
-        assert_eq!(pass.ran, hours, "run_due ran every period of the month");
+        refuse_unless(
+            pass.ran == hours,
+            "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+            || format!("run_due ran {} of the month's {hours} periods", pass.ran),
+        );
         run_time += pass.wall;
         rates.push(pass.rate());
         engine_hours += hours;
@@ -652,10 +661,15 @@ async fn run() {
         .current_runs(&svc.row, start, start + TimeDelta::hours(year_hours as i64))
         .await
         .expect("current runs");
-    assert_eq!(
-        runs.len(),
-        year_hours,
-        "a current run for every period of the year"
+    refuse_unless(
+        runs.len() == year_hours,
+        "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+        || {
+            format!(
+                "{} of the year's {year_hours} periods have a current run",
+                runs.len()
+            )
+        },
     );
     println!(
         "   database: {:.1} MB (file, WAL and shared memory)",
@@ -689,18 +703,15 @@ async fn run() {
         let status = res.status();
         let body = res.bytes().await.expect("body");
         let dt = t.elapsed();
-        assert!(status.is_success(), "GET {url} answered {status}");
-        let v: serde_json::Value = serde_json::from_slice(&body).expect("JSON report");
-        assert_eq!(
-            v["start"].as_str(),
-            Some(period.as_str()),
-            "the period asked for"
-        );
-        assert!(
-            v["report"]["meters"]
-                .as_array()
-                .is_some_and(|m| m.len() == meters),
-            "a whole report"
+        let v: serde_json::Value = serde_json::from_slice(&body).unwrap_or_default();
+        refuse_unless(
+            status.is_success()
+                && v["start"].as_str() == Some(period.as_str())
+                && v["report"]["meters"]
+                    .as_array()
+                    .is_some_and(|m| m.len() == meters),
+            "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+            || format!("GET {url} answered {status} without the whole report of that period"),
         );
         if i >= WARM_UP {
             times.push(dt.as_secs_f64() * 1e3);
@@ -845,7 +856,11 @@ async fn month_cases(
             .await
             .expect("dirty")
             .len();
-        assert_eq!(dirty, MONTH_HOURS, "every period marked by the POST");
+        refuse_unless(
+            dirty == MONTH_HOURS,
+            "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+            || format!("{dirty} of {MONTH_HOURS} periods marked by the POST"),
+        );
         let mut states = vec![svc.state.clone()];
         for i in 1..case.instances {
             let label = format!("bench-{}", char::from(b'a' + i as u8));
@@ -854,7 +869,11 @@ async fn month_cases(
         let load_before = load();
         let pass = run_passes(&states, &svc.row, case.workers, postgres).await;
         let load_after = load();
-        assert_eq!(pass.ran, MONTH_HOURS, "the instances ran every period once");
+        refuse_unless(
+            pass.ran == MONTH_HOURS,
+            "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+            || format!("the instances ran {} of {MONTH_HOURS} periods", pass.ran),
+        );
         let (statuses, failed) = check_runs(&svc, start, MONTH_HOURS).await;
         let split = if case.instances > 1 {
             format!(
@@ -1020,12 +1039,20 @@ async fn run_processes(svc: &Service, case: Case, postgres: bool) -> (Pass, Stri
             tokio::time::sleep(Duration::from_millis(20)).await;
         }
         let log = std::fs::read_to_string(&c.log).unwrap_or_default();
-        assert!(!log.contains("ERROR"), "the log has an error: {log}");
+        refuse_unless(
+            !log.contains("ERROR"),
+            "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+            || format!("the log has an error: {log}"),
+        );
         logged.push(log.lines().filter(|l| l.contains("period run")).count());
         drop(c);
     }
     let ran = logged.iter().sum();
-    assert_eq!(ran, MONTH_HOURS, "the processes logged one run per period");
+    refuse_unless(
+        ran == MONTH_HOURS,
+        "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+        || format!("the processes logged {ran} runs for {MONTH_HOURS} periods"),
+    );
     let pass = Pass {
         ran,
         each: logged.clone(),

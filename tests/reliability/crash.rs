@@ -92,7 +92,7 @@ fn answer_problem(batch: &Batch, answer: &Value) -> Option<String> {
 async fn start(log_at: &Path, url: &str) -> Server {
     let (log_at, url) = (log_at.to_path_buf(), url.to_string());
     tokio::task::spawn_blocking(move || {
-        Server::start_on(
+        support::LOOPBAL.serve_on(
             &log_at,
             &url,
             &["--run-grace", "0", "--run-tick", "1", "--run-lease", "2"],
@@ -153,7 +153,7 @@ async fn service_agrees(
     assert_eq!(got, want, "GET readings over {from}..{to} ms");
 }
 
-crate::both_backends! {
+testkit::both_backends! {
     /// Acknowledged batches survive SIGKILL whole, batches in flight are all or nothing, the
     /// database stays healthy and its dirty marks consistent, on every cycle.
     async fn acknowledged_batches_survive_sigkill_whole(backend: Backend) {

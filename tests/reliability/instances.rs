@@ -23,7 +23,7 @@ const LEASE_SECONDS: &str = "3";
 
 /// Run `sql` (one text parameter, `$1`) on the database at `url` and return its first column
 /// as integers: the test reads claims, which the API does not show.
-async fn query_ints(url: &str, sql: &str, param: &str) -> Vec<i64> {
+pub(crate) async fn query_ints(url: &str, sql: &str, param: &str) -> Vec<i64> {
     if url.starts_with("postgres") {
         let pool = sqlx::PgPool::connect(url).await.expect("connect");
         let rows: Vec<i64> = sqlx::query_scalar(sql)
@@ -49,7 +49,7 @@ async fn query_ints(url: &str, sql: &str, param: &str) -> Vec<i64> {
 }
 
 /// The periods of the simulated days: start → (runs, rerun_due, status).
-async fn periods(
+pub(crate) async fn periods(
     c: &reqwest::Client,
     s: &Server,
     tok: &str,
@@ -83,7 +83,7 @@ async fn periods(
         .collect()
 }
 
-crate::both_backends! {
+testkit::both_backends! {
     async fn one_of_two_instances_killed_during_runs_leaves_exactly_one_run_per_period(backend: Backend) {
         let dir = tempfile::tempdir().unwrap();
         let (log_at, url) = backend.fresh(dir.path(), "shared");
@@ -94,8 +94,8 @@ crate::both_backends! {
                 "--run-lease", LEASE_SECONDS, "--instance-name", name,
             ]
         };
-        let alpha = Server::start_on(&dir.path().join("alpha"), &url, &options("alpha"), "loopbal=info,warn");
-        let beta = Server::start_on(&log_at, &url, &options("beta"), "loopbal=info,warn");
+        let alpha = crate::support::LOOPBAL.serve_on(&dir.path().join("alpha"), &url, &options("alpha"), "loopbal=info,warn");
+        let beta = crate::support::LOOPBAL.serve_on(&log_at, &url, &options("beta"), "loopbal=info,warn");
         let c = client();
         let plant = "purge-design";
         let (model, csv) = purge_design_csv(HOURS, &|_, _| false);

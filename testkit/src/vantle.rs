@@ -1,24 +1,9 @@
-//! Plants with a known true state, shared by the benchmarks and (through `#[path]`) by tests:
-//! the Vantle Cross methanol loop of `tests/data/vantle-methanol.toml`, and generated
-//! networks of any size (`network`).
-//!
-//! Each gives the true state z in the engine's layout; `exact_values` turns it into meter
-//! values through the engine's own measurement functions, and `noisy_values` adds Gaussian
-//! noise of each meter's σ with a fixed seed.
+//! The Vantle Cross VC-3 methanol loop of `tests/data/vantle-methanol.toml` with a known true
+//! state: operating conditions and the steady state they give, by successive substitution
+//! around the recycle (independent of the engine's simulator).
 
-#![allow(dead_code)]
-
-pub mod network;
-
-use chrono::{TimeZone, Utc};
-use rand::SeedableRng;
-use rand_chacha::ChaCha8Rng;
-use rand_distr::{Distribution, StandardNormal};
-use reconcile::equations::{measurement, Layout};
-use reconcile::period::{MeterValue, PeriodInput};
+use reconcile::equations::Layout;
 use reconcile::Plant;
-
-pub const VANTLE: &str = include_str!("../../../tests/data/vantle-methanol.toml");
 
 /// Component order of the Vantle model.
 const CO: usize = 0;
@@ -135,43 +120,4 @@ pub fn vantle_true_state(plant: &Plant, layout: &Layout, k: &VantleConditions) -
         .split(purge_stream)
         .expect("purge is the first outlet")] = k.purge_fraction;
     z
-}
-
-/// Every meter's exact value at state z, in its own uom.
-pub fn exact_values(plant: &Plant, layout: &Layout, z: &[f64]) -> Vec<MeterValue> {
-    (0..plant.meters.len())
-        .map(|m| MeterValue {
-            meter: m,
-            value: measurement(plant, layout, &plant.meters[m], z).0,
-            readings: 1,
-            used_uncertain: false,
-            spread: 0.0,
-        })
-        .collect()
-}
-
-/// The exact values with Gaussian noise of each meter's σ (σ of a percent-of-reading meter
-/// taken at the exact value), from a fixed seed.
-pub fn noisy_values(plant: &Plant, exact: &[MeterValue], seed: u64) -> Vec<MeterValue> {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    exact
-        .iter()
-        .map(|v| {
-            let sigma = plant.meters[v.meter].sigma_for(v.value).unwrap_or(0.0);
-            let e: f64 = StandardNormal.sample(&mut rng);
-            MeterValue {
-                value: v.value + sigma * e,
-                ..*v
-            }
-        })
-        .collect()
-}
-
-/// One hourly period holding `values`.
-pub fn period(values: Vec<MeterValue>) -> PeriodInput {
-    PeriodInput {
-        start: Utc.with_ymd_and_hms(2026, 3, 2, 5, 0, 0).unwrap(),
-        end: Utc.with_ymd_and_hms(2026, 3, 2, 6, 0, 0).unwrap(),
-        values,
-    }
 }
