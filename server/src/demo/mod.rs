@@ -111,13 +111,12 @@ pub async fn run(opts: Options) -> anyhow::Result<()> {
     let state = AppState::new(store.clone(), Limits::default());
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
     let worker = tokio::spawn(schedule::worker(
-        state.clone(),
+        state.service().clone(),
         Schedule {
             grace: Duration::ZERO,
             tick: Duration::from_secs(1),
             workers: schedule::default_workers(),
         },
-        state.wake.clone(),
         stop_rx.clone(),
     ));
     let (router, _) = api::router(state);
