@@ -19,6 +19,9 @@ use crate::store::{PlantRow, Store, StoreError};
 /// At most this many rejected lines are listed one by one; the count covers them all.
 pub const MAX_LISTED_REJECTIONS: usize = 10_000;
 
+/// Instrument ranges by tag, of one revision's meters.
+type Ranges = HashMap<String, [f64; 2]>;
+
 /// The meters a batch may name: every tag of every model revision of the plant (a reading
 /// outlives the revision it was taken under). A reading's instrument range is that of the
 /// revision in effect at its time (see [`in_effect`]).
@@ -26,7 +29,7 @@ pub const MAX_LISTED_REJECTIONS: usize = 10_000;
 pub struct Catalogue {
     known: HashSet<String>,
     /// (effective_from, revision, ranges of the revision's meters), in the order of [`in_effect`].
-    revisions: Vec<(DateTime<Utc>, i64, HashMap<String, [f64; 2]>)>,
+    revisions: Vec<(DateTime<Utc>, i64, Ranges)>,
     period_seconds: i64,
 }
 
