@@ -229,3 +229,29 @@ pub async fn store_batch(
         rejections,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_batch_refuses_a_second_reading_within_the_same_millisecond() {
+        // The store keeps instants to the millisecond: two such readings would be one row.
+        let catalogue = Catalogue {
+            known: ["F-1".to_string()].into_iter().collect(),
+            revisions: Vec::new(),
+            period_seconds: 3600,
+        };
+        let body =
+            "tag,time,value\nF-1,2026-03-02T05:00:00.1234Z,1\nF-1,2026-03-02T05:00:00.1239Z,2\n";
+        let checked = check_batch(body.as_bytes(), Format::Csv, &catalogue).unwrap();
+        assert_eq!(checked.good.len(), 1);
+        assert_eq!(checked.good[0].value, 1.0, "the first is kept");
+        assert_eq!(
+            checked.bad[0].problems,
+            [Problem::Repeated {
+                earlier: Place::Line(2)
+            }]
+        );
+    }
+}

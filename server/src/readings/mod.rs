@@ -6,7 +6,7 @@ use std::collections::HashMap;
 use std::fmt;
 use std::path::Path;
 
-use chrono::{DateTime, Datelike, Utc};
+use chrono::{DateTime, Datelike, TimeZone, Utc};
 use reconcile::{Plant, Quality, Reading};
 
 mod csv;
@@ -203,6 +203,17 @@ pub struct RawFields {
 /// A reading's place and either its fields or what made them unreadable.
 pub type RawReading = (Place, Result<RawFields, Vec<Problem>>);
 
+/// Instants are kept to the millisecond, as the service stores them (integer Unix
+/// milliseconds, floored), so `loopbal reconcile` and the service see the same instants: two
+/// readings of one tag within one millisecond are the same instant to both (the later line of
+/// a file replaces the earlier; a batch refuses the second), never two readings to one and one
+/// to the other.
+fn to_millisecond(t: DateTime<Utc>) -> DateTime<Utc> {
+    Utc.timestamp_millis_opt(t.timestamp_millis())
+        .single()
+        .unwrap_or(t)
+}
+
 /// Check every field, collecting all problems of the reading rather than the first.
 fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Problem>> {
     let mut problems = Vec::new();
@@ -227,7 +238,7 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
                 });
                 None
             }
-            Ok(t) => Some(t.with_timezone(&Utc)),
+            Ok(t) => Some(to_millisecond(t.with_timezone(&Utc))),
             Err(e) => {
                 problems.push(Problem::BadTime {
                     text: time_text.to_string(),
@@ -332,6 +343,26 @@ sigma = 1.0
                 earlier: Place::Line(2)
             }]
         );
+    }
+
+    #[test]
+    fn instants_are_kept_to_the_millisecond_so_two_within_one_are_one() {
+        let text = "tag,time,value\nT-1,2026-03-02T05:00:00.1234Z,1\nT-1,2026-03-02T05:00:00.1239Z,2\nT-1,1969-12-31T23:59:59.9995Z,3\n";
+        let parsed = parse(text.as_bytes(), Format::Csv, &plant()).expect("valid");
+        assert_eq!(parsed.readings.len(), 2);
+        assert_eq!(parsed.readings[0].value, 2.0, "the later line replaces");
+        assert_eq!(
+            parsed.readings[0]
+                .time
+                .to_rfc3339_opts(chrono::SecondsFormat::AutoSi, true),
+            "2026-03-02T05:00:00.123Z"
+        );
+        assert_eq!(
+            parsed.readings[1].time.timestamp_millis(),
+            -1,
+            "floored, as stored"
+        );
+        assert_eq!(parsed.replaced.len(), 1);
     }
 
     #[test]

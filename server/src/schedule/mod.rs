@@ -204,3 +204,74 @@ pub async fn worker(service: Service, schedule: Schedule, mut stop: watch::Recei
     }
     tracing::info!("scheduler stopped");
 }
+
+#[cfg(test)]
+mod tests {
+    use chrono::TimeZone;
+    use reconcile::{Quality, Reading};
+
+    use super::*;
+    use crate::store::Store;
+
+    const MODEL: &str = r#"
+name = "tee"
+[[component]]
+id = "A"
+molar_mass = 2.0
+[[unit]]
+id = "n"
+kind = "node"
+[[stream]]
+id = "in"
+from = "outside"
+to = "n"
+[[stream]]
+id = "out"
+from = "n"
+to = "outside"
+[[meter]]
+tag = "F-1"
+stream = "in"
+quantity = "molar_flow"
+uom = "kmol/h"
+sigma = 1.0
+"#;
+
+    #[tokio::test]
+    async fn a_pass_plans_the_plants_with_dirty_periods_closed_at_the_time_given() {
+        let dir = tempfile::tempdir().unwrap();
+        let url = dir.path().join("plans.sqlite");
+        let service = Service::new(Store::open(url.to_str().unwrap()).await.unwrap());
+        let store = &service.store;
+        let t = |h: u32, m: u32| Utc.with_ymd_and_hms(2026, 3, 2, h, m, 0).unwrap();
+        let spec = reconcile::ModelSpec::from_toml(MODEL).unwrap();
+        for name in ["quiet", "busy"] {
+            let plant = store.create_plant(name).await.unwrap();
+            store
+                .put_model_revision(&plant, &spec, MODEL, t(0, 0))
+                .await
+                .unwrap();
+        }
+        let busy = store.plant("busy").await.unwrap().unwrap();
+        let reading = Reading {
+            tag: "F-1".into(),
+            time: t(5, 10),
+            value: 1.0,
+            quality: Quality::Good,
+        };
+        store
+            .ingest_readings(&busy, &[reading], 3600, &|_: &Reading| false)
+            .await
+            .unwrap();
+        let schedule = Schedule {
+            grace: Duration::from_secs(300),
+            tick: Duration::from_secs(1),
+            workers: 1,
+        };
+        let plans = plans(&service, &schedule, t(7, 0)).await.unwrap();
+        assert_eq!(plans.len(), 1, "only the plant with a dirty period");
+        assert_eq!(plans[0].plant.name, "busy");
+        // Closed at 7:00 with 5 minutes' grace: periods starting up to 5:55.
+        assert_eq!(plans[0].starts_up_to, t(5, 55));
+    }
+}
