@@ -323,18 +323,6 @@ async fn openapi_json(State(state): State<AppState>) -> Response {
     response
 }
 
-#[cfg(test)]
-mod tests {
-    use super::plant_of;
-
-    #[test]
-    fn plant_is_read_from_the_path() {
-        assert_eq!(plant_of("/api/v1/plants/ombrask/readings"), "ombrask");
-        assert_eq!(plant_of("/api/v1/plants/"), "-");
-        assert_eq!(plant_of("/healthz"), "-");
-    }
-}
-
 /// The media type of the body, lower case, without parameters (`text/csv; charset=utf-8` is
 /// `text/csv`).
 pub(crate) fn media_type(headers: &axum::http::HeaderMap) -> Option<String> {
@@ -431,5 +419,17 @@ pub(crate) fn run_problem(e: impl Into<RunError>) -> Problem {
             tracing::error!(error = %e, "period run failure");
             Problem::internal()
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::plant_of;
+
+    #[test]
+    fn plant_is_read_from_the_path() {
+        assert_eq!(plant_of("/api/v1/plants/ombrask/readings"), "ombrask");
+        assert_eq!(plant_of("/api/v1/plants/"), "-");
+        assert_eq!(plant_of("/healthz"), "-");
     }
 }
