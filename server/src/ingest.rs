@@ -2,7 +2,8 @@
 //! RFC 3339 time, finite value, quality word), repeats within the batch refused, the good
 //! lines stored in one transaction, and an answer that accounts for every line.
 //!
-//! HTTP-free, so the service, the demo and the benchmarks post batches the same way.
+//! HTTP-free, so the service, the demo and the benchmarks post batches the same way
+//! (`Service::ingest` adds the scheduler's wake-up and the counts).
 
 use std::collections::{HashMap, HashSet};
 
@@ -12,10 +13,14 @@ use serde::Serialize;
 use utoipa::ToSchema;
 
 use crate::readings::{self, BadReading, Format, Place, Problem, ReadingsError};
+use crate::revisions::in_effect;
 use crate::store::{PlantRow, Store, StoreError};
 
 /// At most this many rejected lines are listed one by one; the count covers them all.
 pub const MAX_LISTED_REJECTIONS: usize = 10_000;
+
+/// Instrument ranges by tag, of one revision's meters.
+type Ranges = HashMap<String, [f64; 2]>;
 
 /// The meters a batch may name: every tag of every model revision of the plant (a reading
 /// outlives the revision it was taken under). A reading's instrument range is that of the
@@ -24,20 +29,8 @@ pub const MAX_LISTED_REJECTIONS: usize = 10_000;
 pub struct Catalogue {
     known: HashSet<String>,
     /// (effective_from, revision, ranges of the revision's meters), in the order of [`in_effect`].
-    revisions: Vec<(DateTime<Utc>, i64, HashMap<String, [f64; 2]>)>,
+    revisions: Vec<(DateTime<Utc>, i64, Ranges)>,
     period_seconds: i64,
-}
-
-/// Which revision applies at `t`: the one with the latest `effective_from` not after `t` (of
-/// two with the same instant, the higher number); before the first revision takes effect,
-/// the earliest one, since a plant's first model also describes the history a historian
-/// back-fills. `revisions` holds (effective_from, number) pairs in any order.
-pub fn in_effect(revisions: &[(DateTime<Utc>, i64)], t: DateTime<Utc>) -> Option<usize> {
-    let by_key = |i: &usize| revisions[*i];
-    (0..revisions.len())
-        .filter(|&i| revisions[i].0 <= t)
-        .max_by_key(by_key)
-        .or_else(|| (0..revisions.len()).min_by_key(by_key))
 }
 
 impl Catalogue {
@@ -132,6 +125,9 @@ pub struct IngestAnswer {
 pub enum BatchError {
     #[error("{0}")]
     Unreadable(String),
+    /// Checking the batch stopped before it finished (its thread panicked or was cancelled).
+    #[error("checking the batch stopped unexpectedly: {0}")]
+    Interrupted(String),
     #[error(transparent)]
     Store(#[from] StoreError),
 }
@@ -236,32 +232,26 @@ pub async fn store_batch(
 
 #[cfg(test)]
 mod tests {
-    use chrono::TimeZone;
-
     use super::*;
 
-    fn t(day: u32) -> DateTime<Utc> {
-        Utc.with_ymd_and_hms(2026, 3, day, 0, 0, 0).unwrap()
-    }
-
     #[test]
-    fn the_revision_in_effect_is_the_latest_started_and_the_first_covers_the_past() {
-        // Revision 1 from the 10th, 2 from the 20th, 3 also from the 20th, 4 from the 5th
-        // (a late correction of the early history).
-        let revs = [(t(10), 1), (t(20), 2), (t(20), 3), (t(5), 4)];
+    fn a_batch_refuses_a_second_reading_within_the_same_millisecond() {
+        // The store keeps instants to the millisecond: two such readings would be one row.
+        let catalogue = Catalogue {
+            known: ["F-1".to_string()].into_iter().collect(),
+            revisions: Vec::new(),
+            period_seconds: 3600,
+        };
+        let body =
+            "tag,time,value\nF-1,2026-03-02T05:00:00.1234Z,1\nF-1,2026-03-02T05:00:00.1239Z,2\n";
+        let checked = check_batch(body.as_bytes(), Format::Csv, &catalogue).unwrap();
+        assert_eq!(checked.good.len(), 1);
+        assert_eq!(checked.good[0].value, 1.0, "the first is kept");
         assert_eq!(
-            in_effect(&revs, t(1)),
-            Some(3),
-            "before all: the earliest (revision 4)"
+            checked.bad[0].problems,
+            [Problem::Repeated {
+                earlier: Place::Line(2)
+            }]
         );
-        assert_eq!(in_effect(&revs, t(5)), Some(3));
-        assert_eq!(in_effect(&revs, t(12)), Some(0));
-        assert_eq!(
-            in_effect(&revs, t(20)),
-            Some(2),
-            "same instant: the higher number"
-        );
-        assert_eq!(in_effect(&revs, t(28)), Some(2));
-        assert_eq!(in_effect(&[], t(28)), None);
     }
 }

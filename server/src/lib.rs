@@ -4,18 +4,24 @@
 
 use std::fmt;
 
+// Layers, each using only those below it: `serve` and `demo` start `api` and `schedule`, both
+// of which stand on `service` (state, ingestion) and the pure `period_run`; `revisions`,
+// `ingest` and `store` are below those. Nothing below `api` names it.
 pub mod api;
+pub mod claimant;
 pub mod cli;
 pub mod demo;
 pub mod health;
 pub mod ingest;
 pub mod metrics;
 pub mod model_file;
+pub mod period_run;
 pub mod readings;
-pub mod readings_csv;
+pub mod revisions;
 pub mod run;
 pub mod schedule;
 pub mod serve;
+pub mod service;
 pub mod store;
 pub mod summary;
 

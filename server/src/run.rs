@@ -1,6 +1,8 @@
 //! `loopbal reconcile`: the engine on files, no server. Reads the model and the readings,
-//! reconciles every period found, and prints the reports as one JSON array.
+//! runs every period found as the service does (`period_run`), and prints the reports as one
+//! JSON array.
 
+use std::collections::BTreeMap;
 use std::io::Write;
 use std::path::Path;
 use std::process::ExitCode;
@@ -9,8 +11,13 @@ use anyhow::Context;
 use chrono::{DateTime, Utc};
 use reconcile::{Report, ReportStatus};
 
+use crate::period_run::{self, PeriodReading};
 use crate::readings::{self, ReadingsError};
 use crate::BadInput;
+
+/// A model file stands alone: its runs are of revision 1, as the service numbers a plant's
+/// first model.
+const FILE_REVISION: i64 = 1;
 
 /// Longest listing of bad readings; a file that is wrong throughout says so in a few lines.
 const MAX_LISTED: usize = 50;
@@ -50,18 +57,30 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
         let _ = writeln!(stderr, "note: {file}: no readings, so no periods");
     }
 
-    let periods = reconcile::group_readings(&plant, &parsed.readings)
+    // The service's run of a period, on the periods of the file: the same screens and
+    // warnings as the scheduler's, so the same readings give the same report.
+    let mut periods: BTreeMap<DateTime<Utc>, Vec<PeriodReading>> = BTreeMap::new();
+    for reading in parsed.readings {
+        let start = reconcile::period::period_start(reading.time, plant.period_seconds);
+        let out_of_range = period_run::out_of_range(&plant, &reading);
+        periods.entry(start).or_default().push(PeriodReading {
+            reading,
+            out_of_range,
+        });
+    }
+    let periods = periods
         .into_iter()
-        .filter(|p| opts.from.is_none_or(|from| p.start >= from))
-        .filter(|p| opts.to.is_none_or(|to| p.start < to));
+        .filter(|(start, _)| opts.from.is_none_or(|from| *start >= from))
+        .filter(|(start, _)| opts.to.is_none_or(|to| *start < to));
     let mut reports: Vec<Report> = Vec::new();
     let mut crashed = Vec::new();
-    for period in periods {
+    for (start, readings) in periods {
         // The engine promises not to panic; should it break that promise on some input, the
         // other periods are still reported and the run fails (exit 1) instead of aborting.
-        match std::panic::catch_unwind(|| reconcile::reconcile_period(&plant, &period)) {
-            Ok(report) => reports.push(report),
-            Err(_) => crashed.push(period.start),
+        let run = || period_run::run_period(&plant, FILE_REVISION, start, readings);
+        match std::panic::catch_unwind(run) {
+            Ok(run) => reports.push(run.report),
+            Err(_) => crashed.push(start),
         }
     }
 
@@ -88,10 +107,7 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
             stderr,
             "{file}: period {} was not reconciled: status {} (see its warnings)",
             r.period_start,
-            serde_json::to_value(r.status)
-                .ok()
-                .and_then(|v| v.as_str().map(str::to_string))
-                .unwrap_or_default()
+            period_run::status_word(r.status)
         );
     }
     for start in &crashed {

@@ -8,6 +8,7 @@ use tokio::net::TcpListener;
 
 use crate::api::{self, AppState, Limits};
 use crate::schedule::{self, Claimant, Schedule};
+use crate::service::Service;
 use crate::store::{redacted, Store};
 
 pub struct Options {
@@ -35,16 +36,11 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
     let store = Store::open(&opts.database)
         .await
         .with_context(|| format!("opening the database {}", redacted(&opts.database)))?;
-    let state = AppState::new(store.clone(), opts.limits).with_claimant(opts.claimant);
-    let instance = state.claimant.instance.clone();
+    let service = Service::new(store.clone()).with_claimant(opts.claimant);
+    let instance = service.claimant.instance.clone();
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
-    let worker = tokio::spawn(schedule::worker(
-        state.clone(),
-        opts.schedule,
-        state.wake.clone(),
-        stop_rx,
-    ));
-    let (router, _) = api::router(state);
+    let worker = tokio::spawn(schedule::worker(service.clone(), opts.schedule, stop_rx));
+    let (router, _) = api::router(AppState::with_service(service, opts.limits));
     let listener = TcpListener::bind(opts.listen)
         .await
         .with_context(|| format!("listening on {}", opts.listen))?;

@@ -20,7 +20,7 @@ use super::auth::Caller;
 use super::problem::Problem;
 use super::readings::parse_time;
 use super::{rfc3339, run_problem, AppState};
-use crate::schedule;
+use crate::revisions;
 use crate::store::{PlantRow, Role};
 
 /// Most periods one answer covers (a leap year of hours is 8,784).
@@ -55,7 +55,7 @@ impl PeriodRange {
             return Err(Problem::bad_request("from must be before to"));
         }
         let row = super::plant_row(state, plant).await?;
-        let (model, _) = schedule::model_at(&state.store, &row, to)
+        let (model, _) = revisions::model_at(&state.store, &row, to)
             .await
             .map_err(run_problem)?;
         let secs = model.period_seconds;

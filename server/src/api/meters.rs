@@ -78,7 +78,7 @@ async fn current_spec(state: &AppState, row: &PlantRow) -> Result<ModelSpec, Pro
         .iter()
         .map(|r| (r.effective_from, r.revision))
         .collect();
-    let i = crate::ingest::in_effect(&keys, Utc::now()).ok_or_else(|| {
+    let i = crate::revisions::in_effect(&keys, Utc::now()).ok_or_else(|| {
         Problem::new(
             StatusCode::CONFLICT,
             "no-model",

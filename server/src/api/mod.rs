@@ -18,7 +18,10 @@ use utoipa::{Modify, OpenApi};
 use utoipa_axum::router::OpenApiRouter;
 use utoipa_axum::routes;
 
-use crate::metrics::Metrics;
+use crate::claimant::Claimant;
+use crate::revisions::RevisionError;
+use crate::schedule::RunError;
+use crate::service::Service;
 use crate::store::Store;
 
 pub mod auth;
@@ -50,35 +53,46 @@ impl Default for Limits {
     }
 }
 
-/// What every handler shares.
+/// What every handler shares: the service (store, metrics, the scheduler's wake-up, claimant,
+/// validated models; reached through `Deref`, so `state.store` reads as before) and what only
+/// HTTP needs, the limits and the OpenAPI document.
 #[derive(Clone)]
 pub struct AppState {
-    pub store: Store,
-    pub metrics: Arc<Metrics>,
+    service: Service,
     pub limits: Limits,
-    /// Wakes the scheduler when a batch changed stored readings.
-    pub wake: Arc<tokio::sync::Notify>,
-    /// This instance's name and lease in its claims on periods.
-    pub claimant: Arc<crate::schedule::Claimant>,
     openapi: Arc<OnceLock<String>>,
 }
 
 impl AppState {
     pub fn new(store: Store, limits: Limits) -> AppState {
+        AppState::with_service(Service::new(store), limits)
+    }
+
+    /// The HTTP face of an existing service (the scheduler runs on the same one).
+    pub fn with_service(service: Service, limits: Limits) -> AppState {
         AppState {
-            store,
-            metrics: Arc::new(Metrics::default()),
+            service,
             limits,
-            wake: Arc::new(tokio::sync::Notify::new()),
-            claimant: Arc::new(crate::schedule::Claimant::default()),
             openapi: Arc::new(OnceLock::new()),
         }
     }
 
     /// The same state claiming periods as `claimant`.
-    pub fn with_claimant(mut self, claimant: crate::schedule::Claimant) -> AppState {
-        self.claimant = Arc::new(claimant);
+    pub fn with_claimant(mut self, claimant: Claimant) -> AppState {
+        self.service = self.service.with_claimant(claimant);
         self
+    }
+
+    pub fn service(&self) -> &Service {
+        &self.service
+    }
+}
+
+impl std::ops::Deref for AppState {
+    type Target = Service;
+
+    fn deref(&self) -> &Service {
+        &self.service
     }
 }
 
@@ -309,18 +323,6 @@ async fn openapi_json(State(state): State<AppState>) -> Response {
     response
 }
 
-#[cfg(test)]
-mod tests {
-    use super::plant_of;
-
-    #[test]
-    fn plant_is_read_from_the_path() {
-        assert_eq!(plant_of("/api/v1/plants/ombrask/readings"), "ombrask");
-        assert_eq!(plant_of("/api/v1/plants/"), "-");
-        assert_eq!(plant_of("/healthz"), "-");
-    }
-}
-
 /// The media type of the body, lower case, without parameters (`text/csv; charset=utf-8` is
 /// `text/csv`).
 pub(crate) fn media_type(headers: &axum::http::HeaderMap) -> Option<String> {
@@ -402,19 +404,32 @@ pub(crate) async fn plant_row(
     state.store.plant(plant).await?.ok_or_else(not_found)
 }
 
-/// Why a period could not be run, as a problem.
-pub(crate) fn run_problem(e: crate::schedule::RunError) -> Problem {
-    use crate::schedule::RunError;
-    match e {
-        RunError::NoModel(p) => Problem::new(
+/// Why a period could not be run, or its model found, as a problem.
+pub(crate) fn run_problem(e: impl Into<RunError>) -> Problem {
+    match e.into() {
+        RunError::Revision(RevisionError::NoModel { plant, .. }) => Problem::new(
             StatusCode::CONFLICT,
             "no-model",
-            format!("plant \"{p}\" has no model yet: PUT its model first"),
+            format!("plant \"{plant}\" has no model yet: PUT its model first"),
         ),
-        RunError::Store(e) => e.into(),
-        RunError::Engine(e) => {
-            tracing::error!(error = %e, "engine failure");
+        RunError::Revision(RevisionError::Store(e)) | RunError::Store(e) => e.into(),
+        e @ (RunError::Revision(RevisionError::Invalid { .. })
+        | RunError::Engine { .. }
+        | RunError::Task(_)) => {
+            tracing::error!(error = %e, "period run failure");
             Problem::internal()
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::plant_of;
+
+    #[test]
+    fn plant_is_read_from_the_path() {
+        assert_eq!(plant_of("/api/v1/plants/ombrask/readings"), "ombrask");
+        assert_eq!(plant_of("/api/v1/plants/"), "-");
+        assert_eq!(plant_of("/healthz"), "-");
     }
 }

@@ -13,6 +13,7 @@ use super::figures::PeriodRange;
 use super::problem::Problem;
 use super::readings::parse_time;
 use super::{plant_row, rfc3339, run_problem, AppState};
+use crate::revisions;
 use crate::schedule;
 use crate::store::{PlantRow, Role};
 
@@ -144,7 +145,7 @@ async fn period_start(
     text: &str,
 ) -> Result<DateTime<Utc>, Problem> {
     let start = parse_time("start", text)?;
-    let (model, _) = schedule::model_at(&state.store, row, start)
+    let (model, _) = revisions::model_at(&state.store, row, start)
         .await
         .map_err(run_problem)?;
     let aligned = reconcile::period::period_start(start, model.period_seconds);

@@ -13,7 +13,7 @@ use utoipa::{IntoParams, ToSchema};
 use super::auth::Caller;
 use super::problem::Problem;
 use super::{body_bytes, media_type, plant_row, AppState};
-use crate::ingest::{self, BatchError, Catalogue, IngestAnswer};
+use crate::ingest::{BatchError, IngestAnswer};
 use crate::readings::Format;
 use crate::store::Role;
 
@@ -63,7 +63,7 @@ pub async fn post_readings(
         }
     };
     let row = plant_row(&state, &plant).await?;
-    let catalogue = Catalogue::load(&state.store, &row).await?.ok_or_else(|| {
+    let catalogue = state.catalogue(&row).await?.ok_or_else(|| {
         Problem::new(
             axum::http::StatusCode::CONFLICT,
             "no-model",
@@ -71,34 +71,10 @@ pub async fn post_readings(
         )
     })?;
     let bytes = body_bytes(body, &state)?;
-    // Checking a big batch is CPU work: keep it off the threads that serve requests.
-    let cat = catalogue.clone();
-    let checked = tokio::task::spawn_blocking(move || ingest::check_batch(&bytes, format, &cat))
-        .await
-        .map_err(|e| {
-            tracing::error!(error = %e, "checking a batch failed");
-            Problem::internal()
-        })?
-        .map_err(batch_problem)?;
-    let answer = ingest::store_batch(&state.store, &row, &catalogue, checked)
+    let answer = state
+        .ingest(&row, &catalogue, bytes, format)
         .await
         .map_err(batch_problem)?;
-    if answer.accepted + answer.replaced > 0 {
-        state.wake.notify_one();
-    }
-    state.metrics.readings(
-        answer.accepted,
-        answer.replaced,
-        answer.unchanged,
-        answer.rejected,
-    );
-    tracing::info!(
-        accepted = answer.accepted,
-        replaced = answer.replaced,
-        unchanged = answer.unchanged,
-        rejected = answer.rejected,
-        "batch stored"
-    );
     Ok(Json(answer))
 }
 
@@ -108,6 +84,10 @@ fn batch_problem(e: BatchError) -> Problem {
             "the batch cannot be read: {msg}; nothing was stored"
         )),
         BatchError::Store(e) => e.into(),
+        BatchError::Interrupted(e) => {
+            tracing::error!(error = %e, "checking a batch failed");
+            Problem::internal()
+        }
     }
 }
 

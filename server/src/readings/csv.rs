@@ -1,7 +1,7 @@
 //! The CSV form of readings: a header naming the columns (any order; `quality` optional), then
 //! one reading per line. Lines are numbered as an editor shows them, the header being line 1.
 
-use csv::{ByteRecord, ReaderBuilder, Trim};
+use ::csv::{ByteRecord, ReaderBuilder, Trim};
 
 use crate::readings::{Place, Problem, RawFields, RawReading, RawValue, ReadingsError};
 

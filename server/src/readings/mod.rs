@@ -6,8 +6,11 @@ use std::collections::HashMap;
 use std::fmt;
 use std::path::Path;
 
-use chrono::{DateTime, Datelike, Utc};
+use chrono::{DateTime, Datelike, TimeZone, Utc};
 use reconcile::{Plant, Quality, Reading};
+
+mod csv;
+mod json;
 
 /// Where a reading sits in its file: the physical CSV line (the header is line 1), or the
 /// index in the JSON `readings` array.
@@ -166,8 +169,8 @@ pub fn sort(
 ) -> Result<Sorted, ReadingsError> {
     let body = bytes.strip_prefix(BOM).unwrap_or(bytes);
     let raw = match format {
-        Format::Csv => crate::readings_csv::raw_readings(body)?,
-        Format::Json => raw_json(body)?,
+        Format::Csv => csv::raw_readings(body)?,
+        Format::Json => json::raw_readings(body)?,
     };
     let mut good = Vec::with_capacity(raw.len());
     let mut bad = Vec::new();
@@ -200,6 +203,17 @@ pub struct RawFields {
 /// A reading's place and either its fields or what made them unreadable.
 pub type RawReading = (Place, Result<RawFields, Vec<Problem>>);
 
+/// Instants are kept to the millisecond, as the service stores them (integer Unix
+/// milliseconds, floored), so `loopbal reconcile` and the service see the same instants: two
+/// readings of one tag within one millisecond are the same instant to both (the later line of
+/// a file replaces the earlier; a batch refuses the second), never two readings to one and one
+/// to the other.
+fn to_millisecond(t: DateTime<Utc>) -> DateTime<Utc> {
+    Utc.timestamp_millis_opt(t.timestamp_millis())
+        .single()
+        .unwrap_or(t)
+}
+
 /// Check every field, collecting all problems of the reading rather than the first.
 fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Problem>> {
     let mut problems = Vec::new();
@@ -224,7 +238,7 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
                 });
                 None
             }
-            Ok(t) => Some(t.with_timezone(&Utc)),
+            Ok(t) => Some(to_millisecond(t.with_timezone(&Utc))),
             Err(e) => {
                 problems.push(Problem::BadTime {
                     text: time_text.to_string(),
@@ -267,70 +281,6 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
         }),
         _ => Err(problems),
     }
-}
-
-/// `{"readings": [{"tag", "time", "value", "quality"}]}`; other keys of a reading are ignored.
-fn raw_json(body: &[u8]) -> Result<Vec<RawReading>, ReadingsError> {
-    use serde_json::Value;
-    let doc: Value = serde_json::from_slice(body)
-        .map_err(|e| ReadingsError::File(format!("not valid JSON: {e}")))?;
-    let Some(list) = doc.get("readings").and_then(Value::as_array) else {
-        return Err(ReadingsError::File(
-            "expected a JSON object {\"readings\": [...]}".into(),
-        ));
-    };
-    let text = |r: &Value, field: &'static str, problems: &mut Vec<Problem>| -> Option<String> {
-        match r.get(field) {
-            None | Some(Value::Null) => Some(String::new()),
-            Some(Value::String(s)) => Some(s.clone()),
-            Some(_) => {
-                problems.push(Problem::WrongType {
-                    field,
-                    expected: "a string",
-                });
-                None
-            }
-        }
-    };
-    let raw = list
-        .iter()
-        .enumerate()
-        .map(|(i, r)| {
-            if !r.is_object() {
-                return (Place::Index(i), Err(vec![Problem::NotAnObject]));
-            }
-            let mut problems = Vec::new();
-            let tag = text(r, "tag", &mut problems);
-            let time = text(r, "time", &mut problems);
-            let quality = text(r, "quality", &mut problems);
-            let value = match r.get("value") {
-                None | Some(Value::Null) => Some(RawValue::Missing),
-                // Without arbitrary precision serde_json holds every number as an f64 (a number
-                // too large for one fails the parse above), so NaN here is unreachable.
-                Some(Value::Number(n)) => Some(RawValue::Number(n.as_f64().unwrap_or(f64::NAN))),
-                Some(_) => {
-                    problems.push(Problem::WrongType {
-                        field: "value",
-                        expected: "a number",
-                    });
-                    None
-                }
-            };
-            let fields = match (tag, time, value, quality) {
-                (Some(tag), Some(time), Some(value), Some(quality)) if problems.is_empty() => {
-                    Ok(RawFields {
-                        tag,
-                        time,
-                        value,
-                        quality: Some(quality),
-                    })
-                }
-                _ => Err(problems),
-            };
-            (Place::Index(i), fields)
-        })
-        .collect();
-    Ok(raw)
 }
 
 #[cfg(test)]
@@ -393,6 +343,26 @@ sigma = 1.0
                 earlier: Place::Line(2)
             }]
         );
+    }
+
+    #[test]
+    fn instants_are_kept_to_the_millisecond_so_two_within_one_are_one() {
+        let text = "tag,time,value\nT-1,2026-03-02T05:00:00.1234Z,1\nT-1,2026-03-02T05:00:00.1239Z,2\nT-1,1969-12-31T23:59:59.9995Z,3\n";
+        let parsed = parse(text.as_bytes(), Format::Csv, &plant()).expect("valid");
+        assert_eq!(parsed.readings.len(), 2);
+        assert_eq!(parsed.readings[0].value, 2.0, "the later line replaces");
+        assert_eq!(
+            parsed.readings[0]
+                .time
+                .to_rfc3339_opts(chrono::SecondsFormat::AutoSi, true),
+            "2026-03-02T05:00:00.123Z"
+        );
+        assert_eq!(
+            parsed.readings[1].time.timestamp_millis(),
+            -1,
+            "floored, as stored"
+        );
+        assert_eq!(parsed.replaced.len(), 1);
     }
 
     #[test]

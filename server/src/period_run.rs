@@ -1,0 +1,398 @@
+//! One period's run, as pure computation: the period's readings (of any quality, each with
+//! its out-of-range flag) in, the report, what the engine ran on and each meter's health
+//! record out. No store, no clock, no async: `loopbal reconcile` on files and the service's
+//! scheduler both call [`run_period`], so the same readings give the same report, warnings
+//! included.
+//!
+//! The steps: each meter's mean of its good and uncertain readings (bad ones are kept but not
+//! used), the steadiness screen, the engine, the inputs as the engine saw them (missing and
+//! unsteady tags), and per meter its figures with the counts of bad and out-of-range readings.
+
+use std::collections::{BTreeMap, HashMap};
+
+use chrono::{DateTime, TimeDelta, Utc};
+use reconcile::{Analysis, PeriodInput, Plant, Quality, Reading, Report, ReportStatus};
+use serde::Serialize;
+
+use crate::health::MeterPeriod;
+
+/// A meter whose readings within one period spread over more than this many σ makes the
+/// period unsteady. The range of n independent normal readings exceeds 8σ with probability
+/// well below 10⁻³ for n up to 100 (mean range of 100 readings about 5.0σ, sd near 0.4σ; from
+/// memory), so a wider spread means the process moved within the period, not noise.
+pub const UNSTEADY_SPREAD_SIGMAS: f64 = 8.0;
+
+/// Smallest |ρ| kept in a meter's record.
+const KEPT_CORRELATION: f64 = 0.2;
+
+/// A reading of the period and whether it lies outside its meter's instrument range (the
+/// service flags that when the reading is stored, against the revision in effect at its time).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PeriodReading {
+    pub reading: Reading,
+    pub out_of_range: bool,
+}
+
+/// The period's inputs as the engine saw them, stored with every run.
+#[derive(Debug, Clone, Serialize)]
+pub struct RunInputs {
+    pub revision: i64,
+    /// Readings found in the period, of any quality.
+    pub readings: usize,
+    pub meters: Vec<MeterInput>,
+    /// Tags of the revision with no usable reading in the period (unmeasured this period).
+    pub missing: Vec<String>,
+    /// Tags whose readings spread beyond the steadiness screen.
+    pub unsteady: Vec<String>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct MeterInput {
+    pub tag: String,
+    /// Mean of the good and uncertain readings, in the meter's uom.
+    pub value: f64,
+    pub readings: usize,
+    pub used_uncertain: bool,
+    pub spread: f64,
+}
+
+/// What one period's run gives.
+#[derive(Debug, Clone)]
+pub struct PeriodRun {
+    pub report: Report,
+    pub inputs: RunInputs,
+    /// Each meter of the report with its figures, for its health record.
+    pub meters: Vec<(String, MeterPeriod)>,
+}
+
+/// Run the period of `plant` (revision number `revision`) starting at `start` on its readings.
+/// Readings outside the period, or of tags the revision does not have, count in
+/// [`RunInputs::readings`] but are not used.
+pub fn run_period(
+    plant: &Plant,
+    revision: i64,
+    start: DateTime<Utc>,
+    readings: Vec<PeriodReading>,
+) -> PeriodRun {
+    let found = readings.len();
+    let screens = screens(&readings);
+    let mut readings: Vec<Reading> = readings.into_iter().map(|r| r.reading).collect();
+    // A meter's mean is summed in time order whatever order the readings came in (a file as
+    // written, the store by time), so both paths agree to the last bit.
+    readings.sort_by(|a, b| a.time.cmp(&b.time).then_with(|| a.tag.cmp(&b.tag)));
+    let input = period_input(plant, &readings, start);
+    let (unsteady, warnings) = steadiness(plant, &input);
+    let analysis = reconcile::analyse_period(plant, &input);
+    let correlations = correlations_by_tag(plant, &analysis);
+    let mut report = analysis.report;
+    report.warnings.extend(warnings);
+    let inputs = run_inputs(plant, &input, revision, found, unsteady);
+    let meters = meter_rows(&report, start, &screens, correlations);
+    PeriodRun {
+        report,
+        inputs,
+        meters,
+    }
+}
+
+/// Outside the instrument range its meter has in `plant` (a meter without one has no outside).
+pub fn out_of_range(plant: &Plant, reading: &Reading) -> bool {
+    plant
+        .meter_index(&reading.tag)
+        .and_then(|i| plant.meters[i].range)
+        .is_some_and(|[lo, hi]| !(lo..=hi).contains(&reading.value))
+}
+
+/// A report status as the report writes it (`solved`, `no_data`, ...).
+pub fn status_word(status: ReportStatus) -> String {
+    serde_json::to_value(status)
+        .ok()
+        .and_then(|v| v.as_str().map(str::to_string))
+        .unwrap_or_else(|| "unknown".into())
+}
+
+/// Per tag: (bad readings, readings outside the instrument range), for the health screens.
+fn screens(readings: &[PeriodReading]) -> HashMap<String, (i64, i64)> {
+    let mut screens: HashMap<String, (i64, i64)> = HashMap::new();
+    for r in readings {
+        let e = screens.entry(r.reading.tag.clone()).or_default();
+        e.0 += i64::from(r.reading.quality == Quality::Bad);
+        e.1 += i64::from(r.out_of_range);
+    }
+    screens
+}
+
+/// The period's input: each meter's mean of its good and uncertain readings.
+fn period_input(plant: &Plant, readings: &[Reading], start: DateTime<Utc>) -> PeriodInput {
+    reconcile::group_readings(plant, readings)
+        .into_iter()
+        .find(|p| p.start == start)
+        .unwrap_or_else(|| PeriodInput {
+            start,
+            end: start + TimeDelta::seconds(plant.period_seconds),
+            values: Vec::new(),
+        })
+}
+
+/// Tags whose readings within the period spread beyond the screen, with a warning for each.
+fn steadiness(plant: &Plant, input: &PeriodInput) -> (Vec<String>, Vec<String>) {
+    let mut unsteady = Vec::new();
+    let mut warnings = Vec::new();
+    for v in &input.values {
+        let meter = &plant.meters[v.meter];
+        let Some(sigma) = meter.sigma_for(v.value) else {
+            continue;
+        };
+        if v.readings >= 2 && v.spread > UNSTEADY_SPREAD_SIGMAS * sigma {
+            warnings.push(format!(
+                "unsteady: meter \"{}\" spread {:.4} {} within the period, {:.1} σ (screen {} σ); \
+                 the period is reconciled on its mean, but the loop was moving",
+                meter.tag,
+                v.spread,
+                meter.uom,
+                v.spread / sigma,
+                UNSTEADY_SPREAD_SIGMAS
+            ));
+            unsteady.push(meter.tag.clone());
+        }
+    }
+    (unsteady, warnings)
+}
+
+fn run_inputs(
+    plant: &Plant,
+    input: &PeriodInput,
+    revision: i64,
+    readings: usize,
+    unsteady: Vec<String>,
+) -> RunInputs {
+    let meters: Vec<MeterInput> = input
+        .values
+        .iter()
+        .map(|v| MeterInput {
+            tag: plant.meters[v.meter].tag.clone(),
+            value: v.value,
+            readings: v.readings,
+            used_uncertain: v.used_uncertain,
+            spread: v.spread,
+        })
+        .collect();
+    let missing = plant
+        .meters
+        .iter()
+        .filter(|m| !meters.iter().any(|v| v.tag == m.tag))
+        .map(|m| m.tag.clone())
+        .collect();
+    RunInputs {
+        revision,
+        readings,
+        meters,
+        missing,
+        unsteady,
+    }
+}
+
+/// Each meter's figures of a report, for its health record.
+fn meter_rows(
+    report: &Report,
+    start: DateTime<Utc>,
+    screens: &HashMap<String, (i64, i64)>,
+    mut correlations: HashMap<String, BTreeMap<String, f64>>,
+) -> Vec<(String, MeterPeriod)> {
+    report
+        .meters
+        .iter()
+        .map(|m| {
+            let (bad, out) = screens.get(&m.tag).copied().unwrap_or_default();
+            (
+                m.tag.clone(),
+                MeterPeriod {
+                    period_start: start,
+                    measured: m.measured,
+                    reconciled: m.reconciled,
+                    sigma: m.sigma,
+                    adjustment: m.adjustment,
+                    adjustment_sigma: m.adjustment_sigma,
+                    normalized: m.normalized_adjustment,
+                    redundant: m.redundant,
+                    flagged: m.suspect || m.measurement_test_failed,
+                    readings: m.readings as i64,
+                    bad_readings: bad,
+                    out_of_range_readings: out,
+                    correlations: correlations.remove(&m.tag).unwrap_or_default(),
+                },
+            )
+        })
+        .collect()
+}
+
+/// Each measured meter's adjustment correlations this period, by tag (see
+/// `reconcile::Estimate::adjustment_correlations`): how a bias in it would show elsewhere,
+/// which is how meter health tells the biased meter from those its balances drag along.
+fn correlations_by_tag(
+    plant: &Plant,
+    analysis: &Analysis,
+) -> HashMap<String, BTreeMap<String, f64>> {
+    let mut out: HashMap<String, BTreeMap<String, f64>> = HashMap::new();
+    let Some(est) = &analysis.estimate else {
+        return out;
+    };
+    let tag = |k: usize| plant.meters[est.measured[k].meter].tag.clone();
+    for (i, j, rho) in est.adjustment_correlations(KEPT_CORRELATION) {
+        out.entry(tag(i)).or_default().insert(tag(j), rho);
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use chrono::TimeZone;
+    use reconcile::period::MeterValue;
+
+    use super::*;
+
+    const MODEL: &str = r#"
+name = "tee"
+[[component]]
+id = "A"
+molar_mass = 2.0
+[[unit]]
+id = "n"
+kind = "node"
+[[stream]]
+id = "in"
+from = "outside"
+to = "n"
+[[stream]]
+id = "out"
+from = "n"
+to = "outside"
+[[meter]]
+tag = "F-1"
+stream = "in"
+quantity = "molar_flow"
+uom = "kmol/h"
+sigma = 1.0
+range = [0.0, 200.0]
+[[meter]]
+tag = "F-2"
+stream = "out"
+quantity = "molar_flow"
+uom = "kmol/h"
+sigma = 1.0
+"#;
+
+    fn start() -> DateTime<Utc> {
+        Utc.with_ymd_and_hms(2026, 3, 2, 5, 0, 0).unwrap()
+    }
+
+    #[test]
+    fn a_spread_beyond_eight_sigma_makes_the_period_unsteady() {
+        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let value = |meter, spread| MeterValue {
+            meter,
+            value: 100.0,
+            readings: 4,
+            used_uncertain: false,
+            spread,
+        };
+        let input = PeriodInput {
+            start: start(),
+            end: start(),
+            values: vec![value(0, 7.9), value(1, 8.1)],
+        };
+        let (unsteady, warnings) = steadiness(&plant, &input);
+        assert_eq!(unsteady, ["F-2"]);
+        assert!(
+            warnings[0].contains("F-2") && warnings[0].contains("8.1 σ"),
+            "{warnings:?}"
+        );
+        // One reading has no spread to judge.
+        let input = PeriodInput {
+            start: start(),
+            end: start(),
+            values: vec![MeterValue {
+                readings: 1,
+                ..value(0, 50.0)
+            }],
+        };
+        assert!(steadiness(&plant, &input).0.is_empty());
+    }
+
+    #[test]
+    fn run_inputs_list_the_missing_tags() {
+        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let input = PeriodInput {
+            start: start(),
+            end: start(),
+            values: vec![MeterValue {
+                meter: 1,
+                value: 3.0,
+                readings: 2,
+                used_uncertain: true,
+                spread: 0.1,
+            }],
+        };
+        let inputs = run_inputs(&plant, &input, 4, 3, vec![]);
+        assert_eq!(inputs.missing, ["F-1"]);
+        assert_eq!(inputs.meters[0].tag, "F-2");
+        assert_eq!(inputs.revision, 4);
+    }
+
+    fn reading(tag: &str, minute: i64, value: f64, quality: Quality) -> PeriodReading {
+        PeriodReading {
+            reading: Reading {
+                tag: tag.into(),
+                time: start() + TimeDelta::minutes(minute),
+                value,
+                quality,
+            },
+            out_of_range: false,
+        }
+    }
+
+    #[test]
+    fn a_run_screens_counts_and_warns_whatever_the_order_of_its_readings() {
+        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let mut readings = vec![
+            reading("F-1", 0, 100.1, Quality::Good),
+            reading("F-1", 20, 99.7, Quality::Uncertain),
+            reading("F-1", 40, 250.0, Quality::Bad),
+            reading("F-2", 0, 100.0, Quality::Good),
+            reading("F-2", 20, 112.0, Quality::Good),
+            // Not of this period: counted as found, never used.
+            reading("F-2", 60, 1.0, Quality::Good),
+        ];
+        readings[2].out_of_range = out_of_range(&plant, &readings[2].reading);
+        assert!(readings[2].out_of_range);
+        assert!(
+            !out_of_range(&plant, &readings[4].reading),
+            "F-2 has no range"
+        );
+        let run = run_period(&plant, 3, start(), readings.clone());
+        assert_eq!(run.inputs.readings, 6);
+        assert_eq!(run.inputs.unsteady, ["F-2"]);
+        assert!(run.inputs.meters[0].used_uncertain);
+        assert_eq!(
+            run.inputs.meters[0].readings, 2,
+            "the bad reading is not used"
+        );
+        assert!(
+            run.report
+                .warnings
+                .iter()
+                .any(|w| w.starts_with("unsteady: meter \"F-2\"")),
+            "{:?}",
+            run.report.warnings
+        );
+        let f1 = &run.meters.iter().find(|(t, _)| t == "F-1").unwrap().1;
+        assert_eq!((f1.bad_readings, f1.out_of_range_readings), (1, 1));
+        assert_eq!(status_word(run.report.status), "solved");
+        readings.reverse();
+        let reversed = run_period(&plant, 3, start(), readings);
+        assert_eq!(
+            serde_json::to_value(&reversed.report).unwrap(),
+            serde_json::to_value(&run.report).unwrap()
+        );
+    }
+}

@@ -1,0 +1,82 @@
+//! Runs under a claim. Several instances may share one database: each period is claimed before
+//! it runs (see `store::claims`), for a lease the instance renews while the run goes on, and
+//! its run is recorded only while the claim is held. No period runs on two instances at once,
+//! and the claims of an instance that dies lapse, so its periods are taken by another.
+
+use std::time::Duration;
+
+use chrono::{DateTime, Utc};
+
+use super::record::{record_period, RunError, RunOutcome};
+use crate::revisions::Models;
+use crate::service::Service;
+use crate::store::{Claim, PlantRow, StoreError};
+
+/// Run one period now and store the run as its current one. If the period is dirty and no
+/// other instance holds it, it is claimed first and the run settles its mark; if another
+/// instance is running it, this run is recorded as well, and whichever is recorded last is
+/// current.
+pub async fn run_period(
+    service: &Service,
+    plant: &PlantRow,
+    start: DateTime<Utc>,
+) -> Result<RunOutcome, RunError> {
+    let claimant = &service.claimant;
+    let claim = service
+        .store
+        .claim_due(plant, &claimant.instance, start..=start, claimant.lease, 1)
+        .await?
+        .pop();
+    match claim {
+        Some(claim) => {
+            let models = service.models(plant).await?;
+            run_claimed(service, plant, &models, &claim, claimant.lease).await
+        }
+        None => {
+            let (model, revision) = service.model_at(plant, start).await?;
+            record_period(service, plant, start, model, revision, None).await
+        }
+    }
+}
+
+/// Run a claimed period, renewing the claim every third of its lease until the run is
+/// recorded; a run that fails gives its claim up, so the period stays dirty and runs again.
+pub(super) async fn run_claimed(
+    service: &Service,
+    plant: &PlantRow,
+    models: &Models,
+    claim: &Claim,
+    lease: Duration,
+) -> Result<RunOutcome, RunError> {
+    let start = claim.period_start;
+    let outcome = match models.at(start) {
+        Ok((model, revision)) => {
+            let run = record_period(service, plant, start, model, revision, Some(claim));
+            tokio::pin!(run);
+            let mut beat = tokio::time::interval((lease / 3).max(Duration::from_millis(1)));
+            beat.tick().await; // the first tick is immediate: the claim is fresh
+            loop {
+                tokio::select! {
+                    outcome = &mut run => break outcome,
+                    _ = beat.tick() => match service.store.renew_claim(plant, claim, lease).await {
+                        Ok(true) => {}
+                        Ok(false) => tracing::warn!(plant = %plant.name, period = %start,
+                            "the claim on this period lapsed during its run; its result will be refused"),
+                        Err(e) => tracing::warn!(plant = %plant.name, period = %start, error = %e,
+                            "could not renew the claim on this period"),
+                    },
+                }
+            }
+        }
+        Err(e) => Err(e.into()),
+    };
+    if let Err(e) = &outcome {
+        if !matches!(e, RunError::Store(StoreError::ClaimLost(_))) {
+            if let Err(release) = service.store.release_claim(plant, claim).await {
+                tracing::warn!(plant = %plant.name, period = %start, error = %release,
+                    "could not give up the claim of a failed run; it lapses with its lease");
+            }
+        }
+    }
+    outcome
+}

@@ -1,0 +1,277 @@
+//! Hourly runs: a background worker reconciles every period whose inputs changed (its dirty
+//! mark) once the period is closed — its end plus a grace delay has passed, so the historian's
+//! late readings of the hour are in — and again whenever a reading of it is added or replaced.
+//!
+//! A pass claims closed dirty periods (`claims`: claim, renew, release around each run) and
+//! runs them `workers` at a time; each run (`record`) is the pure period run
+//! (`crate::period_run`) between reading the store and recording in it.
+
+use std::collections::VecDeque;
+use std::sync::Arc;
+use std::time::Duration;
+
+use chrono::{DateTime, TimeDelta, Utc};
+use tokio::sync::watch;
+
+use crate::revisions::{Models, RevisionError};
+use crate::service::Service;
+use crate::store::{Claim, PlantRow, StoreError};
+
+mod claims;
+mod record;
+
+pub use crate::claimant::{instance_name, Claimant};
+pub use crate::period_run::{MeterInput, RunInputs, UNSTEADY_SPREAD_SIGMAS};
+pub use claims::run_period;
+pub use record::{RunError, RunOutcome};
+
+use claims::run_claimed;
+
+/// When the worker runs periods.
+#[derive(Debug, Clone, Copy)]
+pub struct Schedule {
+    /// A period is closed this long after its end.
+    pub grace: Duration,
+    /// How often the worker looks for due periods (it also wakes on every stored batch).
+    pub tick: Duration,
+    /// Periods run at once (each solve on its own blocking thread).
+    pub workers: usize,
+}
+
+impl Default for Schedule {
+    fn default() -> Schedule {
+        Schedule {
+            grace: Duration::from_secs(300),
+            tick: Duration::from_secs(30),
+            workers: default_workers(),
+        }
+    }
+}
+
+/// One worker per core.
+pub fn default_workers() -> usize {
+    std::thread::available_parallelism().map_or(1, |n| n.get())
+}
+
+/// A plant with dirty periods in this pass: its models and the latest period start that is
+/// closed.
+struct Plan {
+    plant: PlantRow,
+    models: Arc<Models>,
+    starts_up_to: DateTime<Utc>,
+}
+
+/// Claim and run every closed dirty period of every plant that no other instance holds, oldest
+/// first per plant, the plants taking turns, up to `schedule.workers` at a time; returns how
+/// many ran. A period is claimed only when a worker is free to run it, so no claim waits in a
+/// queue while its lease runs down.
+pub async fn run_due(service: &Service, schedule: &Schedule) -> Result<usize, RunError> {
+    let mut plans = plans(service, schedule, Utc::now()).await?;
+    let workers = schedule.workers.max(1);
+    let claimant = &service.claimant;
+    let mut ran = 0;
+    let mut failure: Option<RunError> = None;
+    let mut running = tokio::task::JoinSet::new();
+    loop {
+        while running.len() < workers && failure.is_none() {
+            let Some(plan) = plans.front() else { break };
+            let wanted = workers - running.len();
+            let claims = match service
+                .store
+                .claim_due(
+                    &plan.plant,
+                    &claimant.instance,
+                    DateTime::<Utc>::MIN_UTC..=plan.starts_up_to,
+                    claimant.lease,
+                    wanted,
+                )
+                .await
+            {
+                Ok(claims) => claims,
+                Err(e) => {
+                    failure = Some(e.into());
+                    break;
+                }
+            };
+            if claims.len() < wanted {
+                // Nothing more of this plant is free this pass.
+                let plan = plans.pop_front().expect("a plan");
+                spawn_runs(&mut running, service, &plan, claims, claimant.lease);
+            } else {
+                spawn_runs(&mut running, service, plan, claims, claimant.lease);
+                plans.rotate_left(1);
+            }
+        }
+        let Some(joined) = running.join_next().await else {
+            break;
+        };
+        match joined.map_err(|e| RunError::Task(e.to_string())) {
+            Ok((_, _, Ok(_))) => ran += 1,
+            Ok((plant, start, Err(RunError::Store(StoreError::ClaimLost(_))))) => {
+                tracing::warn!(plant = %plant, period = %start,
+                    "period run outlived its claim; another instance ran the period, this result was dropped");
+            }
+            Ok((_, _, Err(RunError::Store(e)))) => {
+                failure.get_or_insert(e.into());
+            }
+            Ok((plant, start, Err(e))) => {
+                tracing::error!(plant = %plant, period = %start, error = %e, "period run failed");
+            }
+            Err(e) => {
+                failure.get_or_insert(e);
+            }
+        }
+    }
+    match failure {
+        Some(e) => Err(e),
+        None => Ok(ran),
+    }
+}
+
+/// The plants with dirty periods at `now`, each with its validated models and the latest
+/// period start that is closed then.
+async fn plans(
+    service: &Service,
+    schedule: &Schedule,
+    now: DateTime<Utc>,
+) -> Result<VecDeque<Plan>, RunError> {
+    let grace = TimeDelta::from_std(schedule.grace).unwrap_or(TimeDelta::zero());
+    let mut plans = VecDeque::new();
+    for plant in service.store.plants().await? {
+        if !service.store.has_dirty_periods(&plant).await? {
+            continue;
+        }
+        // Read once per plant and pass, not once per period; validated once per process.
+        let models = match service.models(&plant).await {
+            Ok(models) => models,
+            Err(RevisionError::Store(e)) => return Err(e.into()),
+            Err(e) => {
+                // One plant's broken revision must not hold up the others' runs.
+                tracing::error!(plant = %plant.name, error = %e, "the plant's periods cannot run");
+                continue;
+            }
+        };
+        let Ok((current, _)) = models.at(now) else {
+            continue;
+        };
+        let starts_up_to = now - TimeDelta::seconds(current.period_seconds) - grace;
+        plans.push_back(Plan {
+            plant,
+            models: Arc::new(models),
+            starts_up_to,
+        });
+    }
+    Ok(plans)
+}
+
+type Joined = (String, DateTime<Utc>, Result<RunOutcome, RunError>);
+
+fn spawn_runs(
+    running: &mut tokio::task::JoinSet<Joined>,
+    service: &Service,
+    plan: &Plan,
+    claims: Vec<Claim>,
+    lease: Duration,
+) {
+    for claim in claims {
+        let service = service.clone();
+        let plant = plan.plant.clone();
+        let models = Arc::clone(&plan.models);
+        running.spawn(async move {
+            let start = claim.period_start;
+            let outcome = run_claimed(&service, &plant, &models, &claim, lease).await;
+            (plant.name, start, outcome)
+        });
+    }
+}
+
+/// The background worker: runs due periods on every tick and whenever the service's `wake` is
+/// notified (a batch changed stored readings), until `stop` turns true. A run in progress is
+/// finished before it stops.
+pub async fn worker(service: Service, schedule: Schedule, mut stop: watch::Receiver<bool>) {
+    loop {
+        if *stop.borrow() {
+            break;
+        }
+        if let Err(e) = run_due(&service, &schedule).await {
+            tracing::error!(error = %e, "scheduler pass failed; retrying on the next tick");
+        }
+        tokio::select! {
+            _ = tokio::time::sleep(schedule.tick) => {}
+            _ = service.wake.notified() => {}
+            _ = stop.changed() => {}
+        }
+    }
+    tracing::info!("scheduler stopped");
+}
+
+#[cfg(test)]
+mod tests {
+    use chrono::TimeZone;
+    use reconcile::{Quality, Reading};
+
+    use super::*;
+    use crate::store::Store;
+
+    const MODEL: &str = r#"
+name = "tee"
+[[component]]
+id = "A"
+molar_mass = 2.0
+[[unit]]
+id = "n"
+kind = "node"
+[[stream]]
+id = "in"
+from = "outside"
+to = "n"
+[[stream]]
+id = "out"
+from = "n"
+to = "outside"
+[[meter]]
+tag = "F-1"
+stream = "in"
+quantity = "molar_flow"
+uom = "kmol/h"
+sigma = 1.0
+"#;
+
+    #[tokio::test]
+    async fn a_pass_plans_the_plants_with_dirty_periods_closed_at_the_time_given() {
+        let dir = tempfile::tempdir().unwrap();
+        let url = dir.path().join("plans.sqlite");
+        let service = Service::new(Store::open(url.to_str().unwrap()).await.unwrap());
+        let store = &service.store;
+        let t = |h: u32, m: u32| Utc.with_ymd_and_hms(2026, 3, 2, h, m, 0).unwrap();
+        let spec = reconcile::ModelSpec::from_toml(MODEL).unwrap();
+        for name in ["quiet", "busy"] {
+            let plant = store.create_plant(name).await.unwrap();
+            store
+                .put_model_revision(&plant, &spec, MODEL, t(0, 0))
+                .await
+                .unwrap();
+        }
+        let busy = store.plant("busy").await.unwrap().unwrap();
+        let reading = Reading {
+            tag: "F-1".into(),
+            time: t(5, 10),
+            value: 1.0,
+            quality: Quality::Good,
+        };
+        store
+            .ingest_readings(&busy, &[reading], 3600, &|_: &Reading| false)
+            .await
+            .unwrap();
+        let schedule = Schedule {
+            grace: Duration::from_secs(300),
+            tick: Duration::from_secs(1),
+            workers: 1,
+        };
+        let plans = plans(&service, &schedule, t(7, 0)).await.unwrap();
+        assert_eq!(plans.len(), 1, "only the plant with a dirty period");
+        assert_eq!(plans[0].plant.name, "busy");
+        // Closed at 7:00 with 5 minutes' grace: periods starting up to 5:55.
+        assert_eq!(plans[0].starts_up_to, t(5, 55));
+    }
+}

@@ -1,0 +1,104 @@
+//! The service's shared state, below both the HTTP API and the scheduler and knowing nothing of
+//! either: the store, the metrics, the scheduler's wake-up, this instance's claimant and the
+//! validated model revisions. Ingestion goes through here so that every writer of readings
+//! wakes the scheduler the same way.
+
+use std::sync::Arc;
+
+use chrono::{DateTime, Utc};
+use reconcile::Plant;
+use tokio::sync::Notify;
+
+use crate::claimant::Claimant;
+use crate::ingest::{self, BatchError, Catalogue, IngestAnswer};
+use crate::metrics::Metrics;
+use crate::readings::Format;
+use crate::revisions::{ModelCache, Models, RevisionError};
+use crate::store::{PlantRow, Store, StoreError};
+
+/// What the handlers and the scheduler share. Cheap to clone: every part is shared.
+#[derive(Clone)]
+pub struct Service {
+    pub store: Store,
+    pub metrics: Arc<Metrics>,
+    /// Wakes the scheduler when a batch changed stored readings.
+    pub wake: Arc<Notify>,
+    /// This instance's name and lease in its claims on periods.
+    pub claimant: Arc<Claimant>,
+    models: Arc<ModelCache>,
+}
+
+impl Service {
+    pub fn new(store: Store) -> Service {
+        Service {
+            store,
+            metrics: Arc::new(Metrics::default()),
+            wake: Arc::new(Notify::new()),
+            claimant: Arc::new(Claimant::default()),
+            models: Arc::new(ModelCache::default()),
+        }
+    }
+
+    /// The same service claiming periods as `claimant`.
+    pub fn with_claimant(mut self, claimant: Claimant) -> Service {
+        self.claimant = Arc::new(claimant);
+        self
+    }
+
+    /// The plant's revisions, each validated once per process.
+    pub async fn models(&self, plant: &PlantRow) -> Result<Models, RevisionError> {
+        self.models.models(&self.store, plant).await
+    }
+
+    /// The validated model in effect at `t` and its revision number.
+    pub async fn model_at(
+        &self,
+        plant: &PlantRow,
+        t: DateTime<Utc>,
+    ) -> Result<(Arc<Plant>, i64), RevisionError> {
+        self.models.model_at(&self.store, plant, t).await
+    }
+
+    /// The tags and ranges a batch of the plant is checked against; `None` before its first
+    /// model.
+    pub async fn catalogue(&self, plant: &PlantRow) -> Result<Option<Catalogue>, StoreError> {
+        Catalogue::load(&self.store, plant).await
+    }
+
+    /// Check a batch (off the async threads: a big one is CPU work), store its good readings,
+    /// wake the scheduler if anything changed, and count it.
+    pub async fn ingest<B>(
+        &self,
+        plant: &PlantRow,
+        catalogue: &Catalogue,
+        body: B,
+        format: Format,
+    ) -> Result<IngestAnswer, BatchError>
+    where
+        B: AsRef<[u8]> + Send + 'static,
+    {
+        let cat = catalogue.clone();
+        let checked =
+            tokio::task::spawn_blocking(move || ingest::check_batch(body.as_ref(), format, &cat))
+                .await
+                .map_err(|e| BatchError::Interrupted(e.to_string()))??;
+        let answer = ingest::store_batch(&self.store, plant, catalogue, checked).await?;
+        if answer.accepted + answer.replaced > 0 {
+            self.wake.notify_one();
+        }
+        self.metrics.readings(
+            answer.accepted,
+            answer.replaced,
+            answer.unchanged,
+            answer.rejected,
+        );
+        tracing::info!(
+            accepted = answer.accepted,
+            replaced = answer.replaced,
+            unchanged = answer.unchanged,
+            rejected = answer.rejected,
+            "batch stored"
+        );
+        Ok(answer)
+    }
+}
