@@ -12,7 +12,7 @@ use std::time::{Duration, Instant};
 
 use reqwest::StatusCode;
 use serde_json::Value;
-use support::{client, json_ok, purge_design_csv, token, Server, BIN};
+use support::{client, json_ok, purge_design_csv, token, BIN, LOOPBAL};
 
 const PLANT: &str = "purge-design";
 const HOURS: usize = 5;
@@ -105,7 +105,7 @@ async fn service_reports(
     let admin = token(&db, "admin", None);
     let ingest = token(&db, "ingest", None);
     let read = token(&db, "read", None);
-    let s = Server::start(&db, &["--run-grace", "0", "--run-tick", "1"]);
+    let s = LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]);
     let c = client();
     let r = c
         .put(s.url(&format!("/api/v1/plants/{PLANT}/model")))
