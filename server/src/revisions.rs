@@ -187,29 +187,7 @@ mod tests {
         assert_eq!(in_effect(&[], t(28)), None);
     }
 
-    const MODEL: &str = r#"
-name = "tee"
-[[component]]
-id = "A"
-molar_mass = 2.0
-[[unit]]
-id = "n"
-kind = "node"
-[[stream]]
-id = "in"
-from = "outside"
-to = "n"
-[[stream]]
-id = "out"
-from = "n"
-to = "outside"
-[[meter]]
-tag = "F-1"
-stream = "in"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-"#;
+    use crate::test_plants::TEE as MODEL;
 
     #[tokio::test]
     async fn the_cache_validates_each_revision_once_and_sees_new_ones() {

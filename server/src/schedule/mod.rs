@@ -213,29 +213,7 @@ mod tests {
     use super::*;
     use crate::store::Store;
 
-    const MODEL: &str = r#"
-name = "tee"
-[[component]]
-id = "A"
-molar_mass = 2.0
-[[unit]]
-id = "n"
-kind = "node"
-[[stream]]
-id = "in"
-from = "outside"
-to = "n"
-[[stream]]
-id = "out"
-from = "n"
-to = "outside"
-[[meter]]
-tag = "F-1"
-stream = "in"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-"#;
+    use crate::test_plants::TEE as MODEL;
 
     #[tokio::test]
     async fn a_pass_plans_the_plants_with_dirty_periods_closed_at_the_time_given() {
