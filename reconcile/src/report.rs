@@ -21,6 +21,45 @@ pub enum ReportStatus {
     NoData,
 }
 
+impl ReportStatus {
+    /// Every status, in declaration order.
+    pub const ALL: [ReportStatus; 5] = [
+        ReportStatus::Solved,
+        ReportStatus::NotConverged,
+        ReportStatus::Unobservable,
+        ReportStatus::Infeasible,
+        ReportStatus::NoData,
+    ];
+
+    /// The word the report writes (`solved`, `no_data`, ...).
+    pub fn as_str(self) -> &'static str {
+        match self {
+            ReportStatus::Solved => "solved",
+            ReportStatus::NotConverged => "not_converged",
+            ReportStatus::Unobservable => "unobservable",
+            ReportStatus::Infeasible => "infeasible",
+            ReportStatus::NoData => "no_data",
+        }
+    }
+
+    /// The status a word names, as [`ReportStatus::as_str`] writes it.
+    pub fn parse(word: &str) -> Option<ReportStatus> {
+        ReportStatus::ALL.into_iter().find(|s| s.as_str() == word)
+    }
+
+    /// The run gave values that may be used: converged, with the observable ones reported
+    /// (those the meters cannot determine are null).
+    pub fn is_usable(self) -> bool {
+        matches!(self, ReportStatus::Solved | ReportStatus::Unobservable)
+    }
+}
+
+impl std::fmt::Display for ReportStatus {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
 /// The global test as reported.
 pub type GlobalTestReport = crate::stats::GlobalTest;
 
@@ -211,3 +250,19 @@ pub struct Report {
 pub const CAUTION: &str = "Reconciled values are statistical estimates with the stated \
 uncertainty; a suspect meter is a candidate for inspection, not proof of a fault. Purge and \
 operating changes follow the site's procedures, local codes and licensed engineering practice.";
+
+#[cfg(test)]
+mod tests {
+    use super::ReportStatus;
+
+    #[test]
+    fn each_status_word_is_the_one_serde_writes_and_reads_back() {
+        for status in ReportStatus::ALL {
+            let json = serde_json::to_value(status).expect("serialises");
+            assert_eq!(json, serde_json::Value::from(status.as_str()));
+            assert_eq!(ReportStatus::parse(status.as_str()), Some(status));
+        }
+        assert_eq!(ReportStatus::parse("Solved"), None);
+        assert_eq!(ReportStatus::parse("pending"), None);
+    }
+}

@@ -17,6 +17,7 @@ pub mod metrics;
 pub mod model_file;
 pub mod period_run;
 pub mod readings;
+pub mod results;
 pub mod revisions;
 pub mod run;
 pub mod schedule;

@@ -11,7 +11,7 @@
 use std::collections::{BTreeMap, HashMap};
 
 use chrono::{DateTime, TimeDelta, Utc};
-use reconcile::{Analysis, PeriodInput, Plant, Quality, Reading, Report, ReportStatus};
+use reconcile::{Analysis, PeriodInput, Plant, Quality, Reading, Report};
 use serde::Serialize;
 
 use crate::health::MeterPeriod;
@@ -101,14 +101,6 @@ pub fn out_of_range(plant: &Plant, reading: &Reading) -> bool {
         .meter_index(&reading.tag)
         .and_then(|i| plant.meters[i].range)
         .is_some_and(|[lo, hi]| !(lo..=hi).contains(&reading.value))
-}
-
-/// A report status as the report writes it (`solved`, `no_data`, ...).
-pub fn status_word(status: ReportStatus) -> String {
-    serde_json::to_value(status)
-        .ok()
-        .and_then(|v| v.as_str().map(str::to_string))
-        .unwrap_or_else(|| "unknown".into())
 }
 
 /// Per tag: (bad readings, readings outside the instrument range), for the health screens.
@@ -387,7 +379,7 @@ sigma = 1.0
         );
         let f1 = &run.meters.iter().find(|(t, _)| t == "F-1").unwrap().1;
         assert_eq!((f1.bad_readings, f1.out_of_range_readings), (1, 1));
-        assert_eq!(status_word(run.report.status), "solved");
+        assert_eq!(run.report.status, reconcile::ReportStatus::Solved);
         readings.reverse();
         let reversed = run_period(&plant, 3, start(), readings);
         assert_eq!(

@@ -107,7 +107,7 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
             stderr,
             "{file}: period {} was not reconciled: status {} (see its warnings)",
             r.period_start,
-            period_run::status_word(r.status)
+            r.status
         );
     }
     for start in &crashed {

@@ -19,11 +19,10 @@ use utoipa_axum::router::OpenApiRouter;
 use utoipa_axum::routes;
 
 use crate::claimant::Claimant;
-use crate::revisions::RevisionError;
-use crate::schedule::RunError;
 use crate::service::Service;
 use crate::store::Store;
 
+pub mod access;
 pub mod auth;
 mod balances;
 mod figures;
@@ -31,6 +30,7 @@ mod meters;
 mod models;
 mod periods;
 pub mod problem;
+mod range;
 pub(crate) mod readings;
 
 use problem::Problem;
@@ -373,52 +373,6 @@ pub fn check_plant_name(name: &str) -> Result<(), Problem> {
             "plant name \"{name}\" must be 1 to 64 letters, digits, '.', '_' or '-', not \
              starting with '.'"
         )))
-    }
-}
-
-/// A query string that does not fit its parameters (checked after the token, so a caller
-/// without the right role learns nothing about them).
-pub(crate) fn query_problem(e: axum::extract::rejection::QueryRejection) -> Problem {
-    Problem::bad_request(format!(
-        "the query string is not as expected: {}",
-        e.body_text()
-    ))
-}
-
-/// An instant as the API writes it: RFC 3339 in UTC, whole seconds.
-pub(crate) fn rfc3339(t: chrono::DateTime<chrono::Utc>) -> String {
-    t.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
-}
-
-/// The stored plant of a path, or 404 naming it. A name no plant can have (see
-/// [`check_plant_name`]) is not looked up: it may hold what a store cannot even compare, such
-/// as U+0000, which PostgreSQL's text refuses with an error.
-pub(crate) async fn plant_row(
-    state: &AppState,
-    plant: &str,
-) -> Result<crate::store::PlantRow, Problem> {
-    let not_found = || Problem::not_found(format!("no plant named \"{plant}\""));
-    if check_plant_name(plant).is_err() {
-        return Err(not_found());
-    }
-    state.store.plant(plant).await?.ok_or_else(not_found)
-}
-
-/// Why a period could not be run, or its model found, as a problem.
-pub(crate) fn run_problem(e: impl Into<RunError>) -> Problem {
-    match e.into() {
-        RunError::Revision(RevisionError::NoModel { plant, .. }) => Problem::new(
-            StatusCode::CONFLICT,
-            "no-model",
-            format!("plant \"{plant}\" has no model yet: PUT its model first"),
-        ),
-        RunError::Revision(RevisionError::Store(e)) | RunError::Store(e) => e.into(),
-        e @ (RunError::Revision(RevisionError::Invalid { .. })
-        | RunError::Engine { .. }
-        | RunError::Task(_)) => {
-            tracing::error!(error = %e, "period run failure");
-            Problem::internal()
-        }
     }
 }
 

@@ -3,19 +3,22 @@
 
 use axum::body::Bytes;
 use axum::extract::rejection::{BytesRejection, QueryRejection};
-use axum::extract::{Path, Query, State};
+use axum::extract::{Query, State};
 use axum::http::{header, HeaderMap, HeaderValue, StatusCode};
 use axum::response::{IntoResponse, Response};
 use axum::Json;
-use chrono::{DateTime, Utc};
-use reconcile::{ModelError, ModelSpec, Plant};
+use chrono::Utc;
+use reconcile::ModelSpec;
 use serde::{Deserialize, Serialize};
 use utoipa::{IntoParams, ToSchema};
 
-use super::auth::Caller;
-use super::problem::{ItemError, Problem};
-use super::{body_bytes, check_plant_name, media_type, plant_row, rfc3339, AppState};
-use crate::store::{ModelRevision, Role, StoreError};
+use super::access::{Admin, OnPlant, PlantName, Read};
+use super::problem::Problem;
+use super::{body_bytes, media_type, AppState};
+use crate::results::range::parse_time;
+use crate::results::rfc3339;
+use crate::revisions::admit::{self, ModelFormat};
+use crate::store::ModelRevision;
 
 #[derive(Debug, Deserialize, IntoParams)]
 pub struct PutModelQuery {
@@ -86,25 +89,15 @@ fn summary(plant: &str, rev: &ModelRevision) -> RevisionSummary {
 )]
 pub async fn put_model(
     State(state): State<AppState>,
-    caller: Caller,
-    Path(plant): Path<String>,
+    access: PlantName<Admin>,
     query: Result<Query<PutModelQuery>, QueryRejection>,
     headers: HeaderMap,
     body: Result<Bytes, BytesRejection>,
 ) -> Result<Response, Problem> {
-    check_plant_name(&plant)?;
-    caller.require(Role::Admin, &plant)?;
-    let Query(query) = query.map_err(super::query_problem)?;
+    let Query(query) = query?;
     let effective_from = match query.effective_from.as_deref() {
         None => Utc::now(),
-        Some(text) => DateTime::parse_from_rfc3339(text.trim())
-            .map(|t| t.with_timezone(&Utc))
-            .map_err(|e| {
-                Problem::bad_request(format!(
-                    "effective_from \"{text}\" is not an RFC 3339 time such as \
-                     2026-03-02T05:00:00Z ({e})"
-                ))
-            })?,
+        Some(text) => parse_time("effective_from", text)?,
     };
     let bytes = body_bytes(body, &state)?;
     let text = std::str::from_utf8(&bytes).map_err(|e| {
@@ -114,10 +107,10 @@ pub async fn put_model(
             "the model is not UTF-8 text (invalid byte at line {line}, offset {at})"
         ))
     })?;
-    let parsed = match media_type(&headers).as_deref() {
-        Some("application/json") => ModelSpec::from_json(text),
-        Some(m) if m.ends_with("+json") => ModelSpec::from_json(text),
-        Some("application/toml" | "text/toml" | "text/x-toml") => ModelSpec::from_toml(text),
+    let format = match media_type(&headers).as_deref() {
+        Some("application/json") => ModelFormat::Json,
+        Some(m) if m.ends_with("+json") => ModelFormat::Json,
+        Some("application/toml" | "text/toml" | "text/x-toml") => ModelFormat::Toml,
         other => {
             return Err(Problem::unsupported_media(format!(
                 "a model is sent as application/toml or application/json, not {}",
@@ -125,132 +118,13 @@ pub async fn put_model(
             )))
         }
     };
-    let spec = parsed.map_err(invalid_model)?;
-    if spec.name != plant {
-        return Err(Problem::unprocessable(format!(
-            "the model is named \"{}\" but was sent to plant \"{plant}\"; a model is stored \
-             under its own name, so send it to /api/v1/plants/{}/model or rename it",
-            spec.name, spec.name
-        ))
-        .with_errors(vec![ItemError {
-            item: "name".into(),
-            message: format!(
-                "\"{}\" differs from the plant \"{plant}\" in the path",
-                spec.name
-            ),
-        }]));
-    }
-    // The engine's validator decides; a model it refuses is never stored.
-    Plant::new(spec.clone()).map_err(invalid_model)?;
-    let nul = nul_items(&spec);
-    if !nul.is_empty() || text.contains('\0') {
-        return Err(Problem::unprocessable(
-            "the model holds the character U+0000, which no text of a model may hold",
-        )
-        .with_errors(if nul.is_empty() {
-            vec![ItemError {
-                item: "body".into(),
-                message: "holds U+0000".into(),
-            }]
-        } else {
-            nul
-        }));
-    }
-    let row = match state.store.plant(&plant).await? {
-        Some(row) => row,
-        None => match state.store.create_plant(&plant).await {
-            Ok(row) => row,
-            // Another request created it in between: use that one.
-            Err(StoreError::PlantExists(_)) => state
-                .store
-                .plant(&plant)
-                .await?
-                .ok_or_else(Problem::internal)?,
-            Err(e) => return Err(e.into()),
-        },
-    };
-    let revision = state
-        .store
-        .put_model_revision(&row, &spec, text, effective_from)
-        .await?;
-    let stored = state
-        .store
-        .model_revision(&row, revision)
-        .await?
-        .ok_or_else(Problem::internal)?;
-    tracing::info!(plant = %plant, revision, "model revision stored");
-    let mut response = (StatusCode::CREATED, Json(summary(&plant, &stored))).into_response();
+    let plant = &access.name;
+    let stored = admit::admit(&state, plant, text, format, effective_from).await?;
+    let mut response = (StatusCode::CREATED, Json(summary(plant, &stored))).into_response();
     if let Ok(location) = HeaderValue::from_str(&format!("/api/v1/plants/{plant}/model")) {
         response.headers_mut().insert(header::LOCATION, location);
     }
     Ok(response)
-}
-
-/// Every text of the model (ids, references, names, keys) that holds U+0000, by its place in
-/// the model (`meter[3].tag`). The engine has no quarrel with such ids, but no store keeps
-/// them: PostgreSQL's text refuses the character.
-fn nul_items(spec: &ModelSpec) -> Vec<ItemError> {
-    fn walk(value: &serde_json::Value, at: &str, found: &mut Vec<ItemError>) {
-        use serde_json::Value;
-        let hit = |item: String| ItemError {
-            item,
-            message: "holds the character U+0000".into(),
-        };
-        match value {
-            Value::String(s) if s.contains('\0') => found.push(hit(at.to_string())),
-            Value::Array(items) => {
-                for (i, v) in items.iter().enumerate() {
-                    walk(v, &format!("{at}[{i}]"), found);
-                }
-            }
-            Value::Object(fields) => {
-                for (k, v) in fields {
-                    let place = if at.is_empty() {
-                        k.clone()
-                    } else {
-                        format!("{at}.{k}")
-                    };
-                    if k.contains('\0') {
-                        found.push(hit(place.clone()));
-                    }
-                    walk(v, &place, found);
-                }
-            }
-            _ => {}
-        }
-    }
-    let mut found = Vec::new();
-    if let Ok(value) = serde_json::to_value(spec) {
-        walk(&value, "", &mut found);
-    }
-    found
-}
-
-fn invalid_model(e: ModelError) -> Problem {
-    match e {
-        ModelError::Syntax { format, message } => {
-            let first = message.lines().next().unwrap_or("").trim().to_string();
-            Problem::unprocessable(format!("the model is not valid {format}: {first}")).with_errors(
-                vec![ItemError {
-                    item: "body".into(),
-                    message: message.trim_end().to_string(),
-                }],
-            )
-        }
-        ModelError::Invalid(problems) => Problem::unprocessable(format!(
-            "the model has {} problem(s); each is listed in errors",
-            problems.len()
-        ))
-        .with_errors(
-            problems
-                .into_iter()
-                .map(|p| ItemError {
-                    item: p.item,
-                    message: p.message,
-                })
-                .collect(),
-        ),
-    }
 }
 
 /// The model revision in effect now.
@@ -269,22 +143,21 @@ fn invalid_model(e: ModelError) -> Problem {
 )]
 pub async fn get_model(
     State(state): State<AppState>,
-    caller: Caller,
-    Path(plant): Path<String>,
+    access: OnPlant<Read>,
 ) -> Result<Json<RevisionBody>, Problem> {
-    caller.require(Role::Read, &plant)?;
-    let row = plant_row(&state, &plant).await?;
+    let plant = &access.plant;
     let rev = state
         .store
-        .current_model(&row, Utc::now())
+        .current_model(plant, Utc::now())
         .await?
         .ok_or_else(|| {
             Problem::not_found(format!(
-                "plant \"{plant}\" has no model revision in effect now (see /model/revisions)"
+                "plant \"{}\" has no model revision in effect now (see /model/revisions)",
+                plant.name
             ))
         })?;
     Ok(Json(RevisionBody {
-        summary: summary(&plant, &rev),
+        summary: summary(&plant.name, &rev),
         model: rev.spec,
         source: rev.source,
     }))
@@ -306,32 +179,12 @@ pub async fn get_model(
 )]
 pub async fn list_revisions(
     State(state): State<AppState>,
-    caller: Caller,
-    Path(plant): Path<String>,
+    access: OnPlant<Read>,
 ) -> Result<Json<Vec<RevisionSummary>>, Problem> {
-    caller.require(Role::Read, &plant)?;
-    let row = plant_row(&state, &plant).await?;
-    let mut revisions = state.store.list_revisions(&row).await?;
+    let plant = &access.plant;
+    let mut revisions = state.store.list_revisions(plant).await?;
     revisions.sort_by_key(|r| r.revision);
-    Ok(Json(revisions.iter().map(|r| summary(&plant, r)).collect()))
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn a_nul_in_any_text_of_a_model_is_named_by_its_place() {
-        let text = std::fs::read_to_string(concat!(
-            env!("CARGO_MANIFEST_DIR"),
-            "/../tests/data/ombrask-loop.toml"
-        ))
-        .expect("the ombrask model");
-        let mut spec = ModelSpec::from_toml(&text).expect("parses");
-        assert!(nul_items(&spec).is_empty());
-        spec.meters[10].tag = "OB2-FI-501\0".into();
-        spec.components[0].id = "\0".into();
-        let items: Vec<String> = nul_items(&spec).into_iter().map(|e| e.item).collect();
-        assert_eq!(items, ["component[0].id", "meter[10].tag"]);
-    }
+    Ok(Json(
+        revisions.iter().map(|r| summary(&plant.name, r)).collect(),
+    ))
 }

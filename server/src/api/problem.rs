@@ -8,6 +8,14 @@ use axum::response::{IntoResponse, Response};
 use serde::Serialize;
 use utoipa::ToSchema;
 
+use axum::extract::rejection::QueryRejection;
+use reconcile::ModelError;
+
+use crate::ingest::BatchError;
+use crate::results::ResultsError;
+use crate::revisions::admit::Refusal;
+use crate::revisions::RevisionError;
+use crate::schedule::RunError;
 use crate::store::StoreError;
 
 pub const CONTENT_TYPE: &str = "application/problem+json";
@@ -131,6 +139,145 @@ impl From<StoreError> for Problem {
                 tracing::error!(error = %other, "store failure");
                 Problem::internal()
             }
+        }
+    }
+}
+
+impl From<QueryRejection> for Problem {
+    /// A query string that does not fit its parameters (checked after the token, so a caller
+    /// without the right role learns nothing about them).
+    fn from(e: QueryRejection) -> Problem {
+        Problem::bad_request(format!(
+            "the query string is not as expected: {}",
+            e.body_text()
+        ))
+    }
+}
+
+impl From<RevisionError> for Problem {
+    fn from(e: RevisionError) -> Problem {
+        match e {
+            RevisionError::NoModel { plant, .. } => Problem::new(
+                StatusCode::CONFLICT,
+                "no-model",
+                format!("plant \"{plant}\" has no model yet: PUT its model first"),
+            ),
+            RevisionError::Store(e) => e.into(),
+            e @ RevisionError::Invalid { .. } => {
+                tracing::error!(error = %e, "stored revision no longer validates");
+                Problem::internal()
+            }
+        }
+    }
+}
+
+impl From<RunError> for Problem {
+    fn from(e: RunError) -> Problem {
+        match e {
+            RunError::Revision(e) => e.into(),
+            RunError::Store(e) => e.into(),
+            e @ (RunError::Engine { .. } | RunError::Task(_)) => {
+                tracing::error!(error = %e, "period run failure");
+                Problem::internal()
+            }
+        }
+    }
+}
+
+impl From<ResultsError> for Problem {
+    fn from(e: ResultsError) -> Problem {
+        match e {
+            ResultsError::Refused(detail) => Problem::bad_request(detail),
+            e @ ResultsError::TooManyPeriods { .. } => Problem::unprocessable(e.to_string()),
+            ResultsError::NotFound(detail) => Problem::not_found(detail),
+            ResultsError::NoSuchFigure(detail) => {
+                Problem::new(StatusCode::NOT_FOUND, "no-such-figure", detail)
+            }
+            ResultsError::Revision(e) => e.into(),
+            ResultsError::Store(e) => e.into(),
+            e @ ResultsError::Corrupt { .. } => {
+                tracing::error!(error = %e, "stored report unreadable");
+                Problem::internal()
+            }
+        }
+    }
+}
+
+impl From<BatchError> for Problem {
+    fn from(e: BatchError) -> Problem {
+        match e {
+            BatchError::Unreadable(msg) => Problem::bad_request(format!(
+                "the batch cannot be read: {msg}; nothing was stored"
+            )),
+            BatchError::Store(e) => e.into(),
+            BatchError::Interrupted(e) => {
+                tracing::error!(error = %e, "checking a batch failed");
+                Problem::internal()
+            }
+        }
+    }
+}
+
+impl From<ModelError> for Problem {
+    /// A model the engine refuses: every problem listed by the item it names.
+    fn from(e: ModelError) -> Problem {
+        match e {
+            ModelError::Syntax { format, message } => {
+                let first = message.lines().next().unwrap_or("").trim().to_string();
+                Problem::unprocessable(format!("the model is not valid {format}: {first}"))
+                    .with_errors(vec![ItemError {
+                        item: "body".into(),
+                        message: message.trim_end().to_string(),
+                    }])
+            }
+            ModelError::Invalid(problems) => Problem::unprocessable(format!(
+                "the model has {} problem(s); each is listed in errors",
+                problems.len()
+            ))
+            .with_errors(
+                problems
+                    .into_iter()
+                    .map(|p| ItemError {
+                        item: p.item,
+                        message: p.message,
+                    })
+                    .collect(),
+            ),
+        }
+    }
+}
+
+impl From<Refusal> for Problem {
+    fn from(e: Refusal) -> Problem {
+        match e {
+            Refusal::Model(e) => e.into(),
+            Refusal::Misnamed { model, plant } => Problem::unprocessable(format!(
+                "the model is named \"{model}\" but was sent to plant \"{plant}\"; a model is \
+                 stored under its own name, so send it to /api/v1/plants/{model}/model or \
+                 rename it"
+            ))
+            .with_errors(vec![ItemError {
+                item: "name".into(),
+                message: format!("\"{model}\" differs from the plant \"{plant}\" in the path"),
+            }]),
+            Refusal::HoldsNul(places) => Problem::unprocessable(
+                "the model holds the character U+0000, which no text of a model may hold",
+            )
+            .with_errors(if places.is_empty() {
+                vec![ItemError {
+                    item: "body".into(),
+                    message: "holds U+0000".into(),
+                }]
+            } else {
+                places
+                    .into_iter()
+                    .map(|p| ItemError {
+                        item: p.item,
+                        message: p.message,
+                    })
+                    .collect()
+            }),
+            Refusal::Store(e) => e.into(),
         }
     }
 }

@@ -2,7 +2,7 @@
 
 use axum::body::Bytes;
 use axum::extract::rejection::{BytesRejection, QueryRejection};
-use axum::extract::{Path, Query, State};
+use axum::extract::{Query, State};
 use axum::http::HeaderMap;
 use axum::Json;
 use chrono::{DateTime, SecondsFormat, Utc};
@@ -10,12 +10,12 @@ use reconcile::Quality;
 use serde::{Deserialize, Serialize};
 use utoipa::{IntoParams, ToSchema};
 
-use super::auth::Caller;
+use super::access::{Ingest, OnPlant, Read};
 use super::problem::Problem;
-use super::{body_bytes, media_type, plant_row, AppState};
-use crate::ingest::{BatchError, IngestAnswer};
+use super::{body_bytes, media_type, AppState};
+use crate::ingest::IngestAnswer;
 use crate::readings::Format;
-use crate::store::Role;
+use crate::results::range::parse_time;
 
 /// Post a batch of readings.
 ///
@@ -46,12 +46,10 @@ use crate::store::Role;
 )]
 pub async fn post_readings(
     State(state): State<AppState>,
-    caller: Caller,
-    Path(plant): Path<String>,
+    access: OnPlant<Ingest>,
     headers: HeaderMap,
     body: Result<Bytes, BytesRejection>,
 ) -> Result<Json<IngestAnswer>, Problem> {
-    caller.require(Role::Ingest, &plant)?;
     let format = match media_type(&headers).as_deref() {
         Some("text/csv") => Format::Csv,
         Some("application/json") => Format::Json,
@@ -62,33 +60,20 @@ pub async fn post_readings(
             )))
         }
     };
-    let row = plant_row(&state, &plant).await?;
-    let catalogue = state.catalogue(&row).await?.ok_or_else(|| {
+    let plant = &access.plant;
+    let catalogue = state.catalogue(plant).await?.ok_or_else(|| {
         Problem::new(
             axum::http::StatusCode::CONFLICT,
             "no-model",
-            format!("plant \"{plant}\" has no model yet, so no tag is known: PUT its model first"),
+            format!(
+                "plant \"{}\" has no model yet, so no tag is known: PUT its model first",
+                plant.name
+            ),
         )
     })?;
     let bytes = body_bytes(body, &state)?;
-    let answer = state
-        .ingest(&row, &catalogue, bytes, format)
-        .await
-        .map_err(batch_problem)?;
+    let answer = state.ingest(plant, &catalogue, bytes, format).await?;
     Ok(Json(answer))
-}
-
-fn batch_problem(e: BatchError) -> Problem {
-    match e {
-        BatchError::Unreadable(msg) => Problem::bad_request(format!(
-            "the batch cannot be read: {msg}; nothing was stored"
-        )),
-        BatchError::Store(e) => e.into(),
-        BatchError::Interrupted(e) => {
-            tracing::error!(error = %e, "checking a batch failed");
-            Problem::internal()
-        }
-    }
 }
 
 /// Most readings one query answers; a longer range is refused with advice to narrow it.
@@ -127,16 +112,6 @@ pub struct ReadingsBody {
     pub readings: Vec<StoredReadingBody>,
 }
 
-pub(crate) fn parse_time(name: &str, text: &str) -> Result<DateTime<Utc>, Problem> {
-    DateTime::parse_from_rfc3339(text.trim())
-        .map(|t| t.with_timezone(&Utc))
-        .map_err(|e| {
-            Problem::bad_request(format!(
-                "{name} \"{text}\" is not an RFC 3339 time such as 2026-03-02T05:00:00Z ({e})"
-            ))
-        })
-}
-
 fn rfc3339(t: DateTime<Utc>) -> String {
     t.to_rfc3339_opts(SecondsFormat::AutoSi, true)
 }
@@ -160,12 +135,10 @@ fn rfc3339(t: DateTime<Utc>) -> String {
 )]
 pub async fn get_readings(
     State(state): State<AppState>,
-    caller: Caller,
-    Path(plant): Path<String>,
+    access: OnPlant<Read>,
     query: Result<Query<ReadingsQuery>, QueryRejection>,
 ) -> Result<Json<ReadingsBody>, Problem> {
-    caller.require(Role::Read, &plant)?;
-    let Query(query) = query.map_err(super::query_problem)?;
+    let Query(query) = query?;
     let from = parse_time("from", &query.from)?;
     let to = parse_time("to", &query.to)?;
     if from >= to {
@@ -174,8 +147,7 @@ pub async fn get_readings(
             query.from, query.to
         )));
     }
-    let row = plant_row(&state, &plant).await?;
-    let stored = state.store.readings_in(&row, from, to).await?;
+    let stored = state.store.readings_in(&access.plant, from, to).await?;
     let readings: Vec<StoredReadingBody> = stored
         .into_iter()
         .filter(|s| query.tag.as_deref().is_none_or(|t| t == s.reading.tag))
@@ -201,7 +173,7 @@ pub async fn get_readings(
         )));
     }
     Ok(Json(ReadingsBody {
-        plant,
+        plant: access.plant.name.clone(),
         from: rfc3339(from),
         to: rfc3339(to),
         readings,

@@ -73,13 +73,13 @@ pub(super) async fn record_period(
     })
     .await
     .map_err(|e| engine(e.to_string()))?;
-    let status = period_run::status_word(run.report.status);
+    let status = run.report.status;
     let new = NewRun {
         meters: run.meters,
         period_start: start,
         revision,
         engine_version: reconcile::ENGINE_VERSION.to_string(),
-        status: status.clone(),
+        status,
         report: serde_json::to_value(&run.report)
             .map_err(|e| engine(format!("report does not serialise: {e}")))?,
         inputs: serde_json::to_value(&run.inputs)
@@ -95,7 +95,7 @@ pub(super) async fn record_period(
         }
         None => service.store.record_run(plant, &new).await?,
     };
-    service.metrics.run(&status, began.elapsed());
+    service.metrics.run(status.as_str(), began.elapsed());
     tracing::info!(plant = %plant.name, period = %start, status = %status, "period run");
     Ok(RunOutcome {
         run_id,

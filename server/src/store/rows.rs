@@ -5,7 +5,7 @@ use std::collections::BTreeMap;
 use std::fmt;
 
 use chrono::{DateTime, Utc};
-use reconcile::{ModelSpec, Quality, Reading};
+use reconcile::{ModelSpec, Quality, Reading, ReportStatus};
 use sqlx::types::Json;
 
 use super::values::StoreRow;
@@ -65,8 +65,8 @@ pub struct NewRun {
     /// The model revision it used.
     pub revision: i64,
     pub engine_version: String,
-    /// The report's status ("solved", "no_data", ...).
-    pub status: String,
+    /// The report's status.
+    pub status: ReportStatus,
     pub report: serde_json::Value,
     /// The period's meter values as the engine saw them, so a run can be explained and
     /// repeated after later readings replaced them.
@@ -82,7 +82,7 @@ pub struct RunSummary {
     pub id: i64,
     pub period_start: DateTime<Utc>,
     pub revision: i64,
-    pub status: String,
+    pub status: ReportStatus,
     pub created_at: DateTime<Utc>,
     /// How many runs the period has had, this one included.
     pub runs: i64,
@@ -339,7 +339,7 @@ pub(super) fn run<R: StoreRow>(r: &R) -> Result<RunRow> {
             period_start: r.instant("period_start")?,
             revision: r.read("revision")?,
             engine_version: r.read("engine_version")?,
-            status: r.read("status")?,
+            status: named(r, "status", "run status", ReportStatus::parse)?,
             report,
             inputs,
             meters: Vec::new(),
@@ -355,7 +355,7 @@ pub(super) fn run_summary<R: StoreRow>(r: &R) -> Result<RunSummary> {
         id: r.read("id")?,
         period_start: r.instant("period_start")?,
         revision: r.read("revision")?,
-        status: r.read("status")?,
+        status: named(r, "status", "run status", ReportStatus::parse)?,
         created_at: r.instant("created_at")?,
         runs: r.read("runs")?,
     })

@@ -76,7 +76,7 @@ impl Store {
                 .bind(start)
                 .bind(run.revision)
                 .bind(&run.engine_version)
-                .bind(&run.status)
+                .bind(run.status.as_str())
                 .bind(&report)
                 .bind(&inputs)
                 .bind(Millis::now())

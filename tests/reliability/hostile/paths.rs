@@ -256,6 +256,11 @@ impl QueryCase {
         if !segments.iter().all(|s| decodes(s)) || (self.endpoint == 8 && self.tag == "..") {
             return (self.tag != "..").then(|| vec![400]);
         }
+        let ours = [PLANT, SCRATCH].contains(&self.plant);
+        // The plant of the path is looked up before its query is read (docs/api.md, Errors).
+        if !ours && self.endpoint <= 9 {
+            return Some(vec![404]);
+        }
         let ranged = matches!(self.endpoint, 2 | 3 | 5 | 6);
         let from = self.from.and_then(|t| decoded_time(t, true));
         let to = self.to.and_then(|t| decoded_time(t, true));
@@ -263,7 +268,6 @@ impl QueryCase {
         if ranged && !range_ok {
             return Some(vec![400]);
         }
-        let ours = [PLANT, SCRATCH].contains(&self.plant);
         let unknown = ["ombrask-ob9", "OMBRASK-OB2"].contains(&self.plant);
         let start_ok = decoded_time(self.start, self.endpoint == 10).is_some();
         match self.endpoint {

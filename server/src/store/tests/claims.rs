@@ -50,7 +50,7 @@ fn stand_in_run(start: DateTime<Utc>, revision: i64, instance: &str) -> NewRun {
         period_start: start,
         revision,
         engine_version: reconcile::ENGINE_VERSION.to_string(),
-        status: "solved".into(),
+        status: reconcile::ReportStatus::Solved,
         report: serde_json::json!({ "by": instance }),
         inputs: serde_json::json!([]),
         meters: Vec::new(),

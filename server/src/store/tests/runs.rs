@@ -1,5 +1,6 @@
 //! Runs, their listings and reports, and the meter records and notes written beside them.
 
+use reconcile::ReportStatus;
 use crate::health::MeterPeriod;
 
 use super::*;
@@ -21,7 +22,7 @@ async fn runs_keep_history_with_one_current_per_period(db: Scratch) {
         period_start: t(start),
         revision,
         engine_version: reconcile::ENGINE_VERSION.to_string(),
-        status: status.to_string(),
+        status: ReportStatus::parse(status).expect("a status word"),
         report: serde_json::json!({ "status": status }),
         inputs: serde_json::json!([{ "tag": "FT-1", "value": 50.0 }]),
         meters: Vec::new(),
@@ -116,7 +117,7 @@ async fn listings_reports_meter_records_and_notes(db: Scratch) {
         period_start: t(start),
         revision,
         engine_version: reconcile::ENGINE_VERSION.to_string(),
-        status: status.to_string(),
+        status: ReportStatus::parse(status).expect("a status word"),
         report: serde_json::json!({
             "status": status,
             "figures": { "closure": measured / 3.0, "tiny": 1.0e-300, "huge": 1.7e308 },

@@ -162,7 +162,7 @@ async fn json_is_stored_as_written(db: Scratch) {
         period_start: t("2026-03-02T05:00:00Z"),
         revision,
         engine_version: reconcile::ENGINE_VERSION.to_string(),
-        status: "solved".into(),
+        status: reconcile::ReportStatus::Solved,
         report: report.clone(),
         inputs: serde_json::json!([]),
         meters: Vec::new(),

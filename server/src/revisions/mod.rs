@@ -2,6 +2,8 @@
 //! each takes effect from its instant; this module is the one home of that rule, for the
 //! period runs, the API's period grid and ingestion's instrument ranges alike.
 
+pub mod admit;
+
 use std::collections::HashMap;
 use std::sync::{Arc, Mutex};
 

@@ -1,0 +1,50 @@
+//! Results read back from stored runs and shaped for the people who use them: the period
+//! listing, range balances and their coverage, figure series, the meter ranking and one
+//! meter's history. Plain async functions over the [`Service`](crate::service::Service) and
+//! pure functions over stored report parts; nothing here knows of HTTP (the API turns a
+//! [`ResultsError`] into a problem answer).
+
+pub mod balances;
+pub mod figures;
+pub mod meters;
+pub mod periods;
+pub mod range;
+pub mod stored;
+
+use chrono::{DateTime, Utc};
+
+use crate::revisions::RevisionError;
+use crate::store::StoreError;
+
+pub use range::{rfc3339, PeriodRange, MAX_PERIODS};
+
+/// Why a result could not be given.
+#[derive(Debug, thiserror::Error)]
+pub enum ResultsError {
+    /// The caller asked for something malformed (the sentence says what).
+    #[error("{0}")]
+    Refused(String),
+    /// The range asked for is too long for one answer.
+    #[error(
+        "the range holds {count} periods, more than the {MAX_PERIODS} one answer covers; ask \
+         for a shorter range"
+    )]
+    TooManyPeriods { count: i64 },
+    /// Nothing of that name (a figure, a subject, a meter, a period's run).
+    #[error("{0}")]
+    NotFound(String),
+    /// No figure of that name or subject in the range; the sentence names those there are.
+    #[error("{0}")]
+    NoSuchFigure(String),
+    #[error(transparent)]
+    Revision(#[from] RevisionError),
+    #[error(transparent)]
+    Store(#[from] StoreError),
+    /// A stored report that does not read as the engine's report: a fault of ours.
+    #[error("the stored report of period {period} of plant \"{plant}\" does not read: {reason}")]
+    Corrupt {
+        plant: String,
+        period: DateTime<Utc>,
+        reason: String,
+    },
+}

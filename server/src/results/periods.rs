@@ -1,0 +1,173 @@
+//! Periods and their runs: the listing of a range with each period's status, and the current
+//! run of one period with its report.
+
+use chrono::{DateTime, TimeDelta, Utc};
+use serde::Serialize;
+use utoipa::ToSchema;
+
+use super::range::parse_time;
+use super::{rfc3339, PeriodRange, ResultsError};
+use crate::service::Service;
+use crate::store::PlantRow;
+
+/// One period of the listing.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct PeriodStatus {
+    /// RFC 3339, UTC.
+    pub start: String,
+    pub end: String,
+    /// The current report's status (solved, unobservable, not_converged, infeasible, no_data),
+    /// `pending` when readings arrived but the period has not been run yet, or `no_readings`.
+    pub status: String,
+    /// Readings changed since the current run (or since none): a run is due.
+    pub rerun_due: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub run_id: Option<i64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub revision: Option<i64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub run_at: Option<String>,
+    /// Runs of this period so far (history included).
+    pub runs: i64,
+}
+
+#[derive(Debug, Serialize, ToSchema)]
+pub struct PeriodList {
+    pub plant: String,
+    pub period_seconds: i64,
+    pub periods: Vec<PeriodStatus>,
+}
+
+/// Every period of the range with the status of its current run, or `pending` (readings
+/// arrived, not run yet) or `no_readings`.
+pub async fn listing(
+    service: &Service,
+    plant: &PlantRow,
+    range: &PeriodRange,
+) -> Result<PeriodList, ResultsError> {
+    let secs = range.period_seconds;
+    let runs = service
+        .store
+        .current_runs(plant, range.first(), range.to)
+        .await?;
+    let dirty = service.store.dirty_periods(plant).await?;
+    let mut periods = Vec::new();
+    for &start in &range.starts {
+        let end = start + TimeDelta::seconds(secs);
+        let run = runs.iter().find(|r| r.period_start == start);
+        let due = dirty.iter().any(|(s, _)| *s == start);
+        let status = match (run, due) {
+            (Some(r), _) => r.status.as_str().to_string(),
+            (None, true) => "pending".to_string(),
+            (None, false) => "no_readings".to_string(),
+        };
+        periods.push(PeriodStatus {
+            start: rfc3339(start),
+            end: rfc3339(end),
+            status,
+            rerun_due: due,
+            run_id: run.map(|r| r.id),
+            revision: run.map(|r| r.revision),
+            run_at: run.map(|r| rfc3339(r.created_at)),
+            runs: run.map_or(0, |r| r.runs),
+        });
+    }
+    Ok(PeriodList {
+        plant: plant.name.clone(),
+        period_seconds: secs,
+        periods,
+    })
+}
+
+/// The current run of one period: its report (docs/report.md), what it
+/// ran on, and when.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct PeriodRun {
+    pub plant: String,
+    pub start: String,
+    pub run_id: i64,
+    pub revision: i64,
+    pub engine_version: String,
+    pub status: String,
+    pub run_at: String,
+    /// Runs of this period so far; the earlier ones are kept as history.
+    pub runs: usize,
+    /// Readings changed since this run: a new run is due.
+    pub rerun_due: bool,
+    /// Meter values the engine used, missing tags, unsteady tags.
+    #[schema(value_type = Object)]
+    pub inputs: serde_json::Value,
+    /// The period's report.
+    #[schema(value_type = Object)]
+    pub report: serde_json::Value,
+}
+
+/// The start of a period given as text, checked against the plant's period grid (of the
+/// revision in effect then).
+pub async fn period_start(
+    service: &Service,
+    plant: &PlantRow,
+    text: &str,
+) -> Result<DateTime<Utc>, ResultsError> {
+    let start = parse_time("start", text)?;
+    let (model, _) = service.model_at(plant, start).await?;
+    let aligned = reconcile::period::period_start(start, model.period_seconds);
+    if aligned != start {
+        return Err(ResultsError::Refused(format!(
+            "{text} is not the start of a period; periods of plant \"{}\" are {} s long, \
+             aligned to UTC, so the period containing it starts at {}",
+            plant.name,
+            model.period_seconds,
+            rfc3339(aligned)
+        )));
+    }
+    Ok(start)
+}
+
+/// The current run of the period starting at `start`, with its report as stored (the
+/// engine's report, passed through unchanged), or not found.
+pub async fn current(
+    service: &Service,
+    plant: &PlantRow,
+    start: DateTime<Utc>,
+) -> Result<PeriodRun, ResultsError> {
+    let not_run = || {
+        ResultsError::NotFound(format!(
+            "period {} of plant \"{}\" has not been run (see /periods for its status)",
+            rfc3339(start),
+            plant.name
+        ))
+    };
+    // The current run whole, and only the count of the earlier ones: a period re-run many
+    // times does not make its report slower to read.
+    let run = service
+        .store
+        .current_run(plant, start)
+        .await?
+        .ok_or_else(not_run)?;
+    let runs = service
+        .store
+        .current_runs(plant, start, start + TimeDelta::milliseconds(1))
+        .await?
+        .first()
+        .map_or(1, |r| r.runs);
+    let due = service
+        .store
+        .dirty_periods(plant)
+        .await?
+        .iter()
+        .any(|(s, _)| *s == start);
+    Ok(PeriodRun {
+        plant: plant.name.clone(),
+        start: rfc3339(start),
+        run_id: run.id,
+        revision: run.run.revision,
+        engine_version: run.run.engine_version.clone(),
+        status: run.run.status.as_str().to_string(),
+        run_at: rfc3339(run.created_at),
+        runs: runs as usize,
+        rerun_due: due,
+        inputs: run.run.inputs,
+        report: run.run.report,
+    })
+}
