@@ -243,36 +243,9 @@ mod tests {
 
     use super::*;
 
-    const MODEL: &str = r#"
-name = "tee"
-[[component]]
-id = "A"
-molar_mass = 2.0
-[[unit]]
-id = "n"
-kind = "node"
-[[stream]]
-id = "in"
-from = "outside"
-to = "n"
-[[stream]]
-id = "out"
-from = "n"
-to = "outside"
-[[meter]]
-tag = "F-1"
-stream = "in"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-range = [0.0, 200.0]
-[[meter]]
-tag = "F-2"
-stream = "out"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-"#;
+    fn model() -> String {
+        crate::test_plants::metered_tee("F-1", "F-2", 200.0)
+    }
 
     fn start() -> DateTime<Utc> {
         Utc.with_ymd_and_hms(2026, 3, 2, 5, 0, 0).unwrap()
@@ -280,7 +253,7 @@ sigma = 1.0
 
     #[test]
     fn a_spread_beyond_eight_sigma_makes_the_period_unsteady() {
-        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let plant = reconcile::parse_plant(&model()).unwrap();
         let value = |meter, spread| MeterValue {
             meter,
             value: 100.0,
@@ -313,7 +286,7 @@ sigma = 1.0
 
     #[test]
     fn run_inputs_list_the_missing_tags() {
-        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let plant = reconcile::parse_plant(&model()).unwrap();
         let input = PeriodInput {
             start: start(),
             end: start(),
@@ -345,7 +318,7 @@ sigma = 1.0
 
     #[test]
     fn a_run_screens_counts_and_warns_whatever_the_order_of_its_readings() {
-        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let plant = reconcile::parse_plant(&model()).unwrap();
         let mut readings = vec![
             reading("F-1", 0, 100.1, Quality::Good),
             reading("F-1", 20, 99.7, Quality::Uncertain),
