@@ -32,7 +32,8 @@ pub enum Spec {
     Extent { reaction: String, value: f64 },
     /// Single-pass conversion of the reaction's key reactant: |ν_key| ξ = X × reactor inlet.
     Conversion { reaction: String, value: f64 },
-    /// Split fraction of a splitter outlet.
+    /// Split fraction of a splitter outlet: its own φ, or for the last outlet 1 − Σ of the
+    /// others' φ.
     SplitFraction { stream: String, value: f64 },
     /// Share of a unit's inflow of a component that leaves by the given outlet.
     Recovery {
@@ -40,6 +41,27 @@ pub enum Spec {
         component: String,
         value: f64,
     },
+    /// Mole fraction of a component in the combined inlet of a unit (a reactor's inert or
+    /// excess reactant): Σ_in n_c = x Σ_in Σ_k n_k, linear in the state.
+    InletFraction {
+        unit: String,
+        component: String,
+        value: f64,
+    },
+}
+
+impl Spec {
+    /// The specified value.
+    pub fn value(&self) -> f64 {
+        match self {
+            Spec::ComponentFlow { value, .. }
+            | Spec::Extent { value, .. }
+            | Spec::Conversion { value, .. }
+            | Spec::SplitFraction { value, .. }
+            | Spec::Recovery { value, .. }
+            | Spec::InletFraction { value, .. } => *value,
+        }
+    }
 }
 
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -52,8 +74,49 @@ pub enum SimulateError {
     NoSteadyState(String),
 }
 
-/// Equation of one spec, linear in the state: Σ a_i z_i = value.
-struct SpecRow(Vec<(usize, f64)>, f64);
+/// Equation of one spec, linear in the state: r(z, v) = Σ a_i z_i − (rhs + v) = 0 for a spec
+/// that fixes a quantity at v, or Σ a_i z_i − v Σ_{i∈B} z_i = 0 for a ratio v of two flows
+/// (conversion, recovery, inlet fraction), whose terms in B carry −v inside `coefs`.
+struct SpecRow {
+    coefs: Vec<(usize, f64)>,
+    /// Right-hand side: rhs + v for a fixed quantity, 0 for a ratio.
+    rhs: f64,
+    /// The states of B for a ratio (∂r/∂v = −Σ_B z_i); empty for a fixed quantity (∂r/∂v = −1).
+    ratio_of: Vec<usize>,
+}
+
+impl SpecRow {
+    fn fixed(coefs: Vec<(usize, f64)>, rhs: f64) -> SpecRow {
+        SpecRow {
+            coefs,
+            rhs,
+            ratio_of: Vec::new(),
+        }
+    }
+
+    /// aᵀz = v bᵀz with b the unit vectors of `base` (and `scale` on a).
+    fn ratio(mut coefs: Vec<(usize, f64)>, base: Vec<usize>, value: f64) -> SpecRow {
+        coefs.extend(base.iter().map(|&i| (i, -value)));
+        SpecRow {
+            coefs,
+            rhs: 0.0,
+            ratio_of: base,
+        }
+    }
+
+    fn residual(&self, z: &[f64]) -> f64 {
+        self.coefs.iter().map(|&(i, a)| a * z[i]).sum::<f64>() - self.rhs
+    }
+
+    /// ∂r/∂v at z.
+    fn d_value(&self, z: &[f64]) -> f64 {
+        if self.ratio_of.is_empty() {
+            -1.0
+        } else {
+            -self.ratio_of.iter().map(|&i| z[i]).sum::<f64>()
+        }
+    }
+}
 
 fn resolve(
     plant: &Plant,
@@ -92,9 +155,9 @@ fn resolve(
             stream: s,
             component: c,
             value,
-        } => SpecRow(vec![(flow(stream(s)?, component(c)?)?, 1.0)], *value),
+        } => SpecRow::fixed(vec![(flow(stream(s)?, component(c)?)?, 1.0)], *value),
         Spec::Extent { reaction: r, value } => {
-            SpecRow(vec![(layout.extent(reaction(r)?), 1.0)], *value)
+            SpecRow::fixed(vec![(layout.extent(reaction(r)?), 1.0)], *value)
         }
         Spec::Conversion { reaction: r, value } => {
             let r = reaction(r)?;
@@ -103,20 +166,37 @@ fn resolve(
                 .key
                 .ok_or_else(|| bad(format!("reaction \"{}\" has no key reactant", reac.id)))?;
             let nu = reac.coefficient(key).abs();
-            let mut row = vec![(layout.extent(r), nu)];
-            for &s in &plant.units[reac.unit].inlets {
-                if let Some(i) = layout.flow(plant, s, key) {
-                    row.push((i, -value));
-                }
-            }
-            SpecRow(row, 0.0)
+            let inlet: Vec<usize> = plant.units[reac.unit]
+                .inlets
+                .iter()
+                .filter_map(|&s| layout.flow(plant, s, key))
+                .collect();
+            SpecRow::ratio(vec![(layout.extent(r), nu)], inlet, *value)
         }
         Spec::SplitFraction { stream: s, value } => {
             let s = stream(s)?;
-            let i = layout
-                .split(s)
-                .ok_or_else(|| bad(format!("stream \"{}\" is not a splitter outlet with its own fraction (the last outlet takes the rest)", plant.streams[s].id)))?;
-            SpecRow(vec![(i, 1.0)], *value)
+            let unit = plant.streams[s]
+                .from
+                .filter(|&u| plant.units[u].kind == crate::model::UnitKind::Splitter)
+                .ok_or_else(|| {
+                    bad(format!(
+                        "stream \"{}\" is not a splitter outlet",
+                        plant.streams[s].id
+                    ))
+                })?;
+            match layout.split(s) {
+                Some(i) => SpecRow::fixed(vec![(i, 1.0)], *value),
+                // The last outlet has no φ of its own: 1 − Σ_others φ = v.
+                None => {
+                    let others = plant.units[unit]
+                        .outlets
+                        .iter()
+                        .filter_map(|&o| layout.split(o))
+                        .map(|i| (i, -1.0))
+                        .collect();
+                    SpecRow::fixed(others, *value - 1.0)
+                }
+            }
         }
         Spec::Recovery {
             stream: s,
@@ -130,103 +210,199 @@ fn resolve(
                     plant.streams[s].id
                 ))
             })?;
-            let mut row = vec![(flow(s, c)?, 1.0)];
-            for &i in &plant.units[unit].inlets {
-                if let Some(k) = layout.flow(plant, i, c) {
-                    row.push((k, -value));
-                }
+            let inlet: Vec<usize> = plant.units[unit]
+                .inlets
+                .iter()
+                .filter_map(|&i| layout.flow(plant, i, c))
+                .collect();
+            SpecRow::ratio(vec![(flow(s, c)?, 1.0)], inlet, *value)
+        }
+        Spec::InletFraction {
+            unit: u,
+            component: c,
+            value,
+        } => {
+            let u = plant
+                .units
+                .iter()
+                .position(|unit| unit.id == *u)
+                .ok_or_else(|| bad(format!("unknown unit \"{u}\"")))?;
+            let c = component(c)?;
+            let inlets = &plant.units[u].inlets;
+            let of_c: Vec<(usize, f64)> = inlets
+                .iter()
+                .filter_map(|&s| layout.flow(plant, s, c))
+                .map(|i| (i, 1.0))
+                .collect();
+            if of_c.is_empty() {
+                return Err(bad(format!(
+                    "no inlet of unit \"{}\" carries \"{}\"",
+                    plant.units[u].id, plant.components[c].id
+                )));
             }
-            SpecRow(row, 0.0)
+            let total: Vec<usize> = inlets
+                .iter()
+                .flat_map(|&s| layout.stream_flows(plant, s))
+                .collect();
+            SpecRow::ratio(of_c, total, *value)
         }
     })
 }
 
 /// The true steady state z of the loop under the specifications.
 pub fn steady_state(plant: &Plant, specs: &[Spec]) -> Result<Vec<f64>, SimulateError> {
-    let layout = Layout::new(plant);
-    let rows: Vec<SpecRow> = specs
-        .iter()
-        .enumerate()
-        .map(|(k, s)| resolve(plant, &layout, k, s))
-        .collect::<Result<_, _>>()?;
-    let p = layout.rows.len();
-    let n = layout.n;
-    if p + rows.len() != n {
-        return Err(SimulateError::Count {
-            specs: rows.len(),
-            free: n.saturating_sub(p),
-        });
+    SpecSystem::new(plant, specs)?.solve(plant, None)
+}
+
+/// Largest share of the way to a zero flow that one Newton step may go: the steps stay in
+/// n ≥ 0 (fraction to the boundary, as interior-point methods keep their iterates inside).
+const TO_BOUNDARY: f64 = 0.995;
+
+/// The model's equations g(z) = 0 with one row per specification below them: a square system
+/// when the specifications fix every degree of freedom.
+pub struct SpecSystem<'a> {
+    specs: &'a [Spec],
+    layout: Layout,
+    rows: Vec<SpecRow>,
+}
+
+impl<'a> SpecSystem<'a> {
+    pub fn new(plant: &Plant, specs: &'a [Spec]) -> Result<SpecSystem<'a>, SimulateError> {
+        let layout = Layout::new(plant);
+        let rows: Vec<SpecRow> = specs
+            .iter()
+            .enumerate()
+            .map(|(k, s)| resolve(plant, &layout, k, s))
+            .collect::<Result<_, _>>()?;
+        let (p, n) = (layout.rows.len(), layout.n);
+        if p + rows.len() != n {
+            return Err(SimulateError::Count {
+                specs: rows.len(),
+                free: n.saturating_sub(p),
+            });
+        }
+        Ok(SpecSystem {
+            specs,
+            layout,
+            rows,
+        })
     }
-    // Start: every flow at the mean specified flow, fractions at an even split.
-    let mean_flow = {
-        let flows: Vec<f64> = specs
+
+    pub fn layout(&self) -> &Layout {
+        &self.layout
+    }
+
+    /// Row of specification k in the system.
+    pub fn spec_row(&self, k: usize) -> usize {
+        self.layout.rows.len() + k
+    }
+
+    /// F(z) and its Jacobian F_z (square).
+    pub fn residual(&self, plant: &Plant, z: &[f64]) -> (Vec<f64>, Triplets) {
+        let (p, n) = (self.layout.rows.len(), self.layout.n);
+        let mut jac = Triplets::new(n, n);
+        let mut f = constraints(plant, &self.layout, z, Some(&mut jac));
+        for (k, row) in self.rows.iter().enumerate() {
+            for &(i, a) in &row.coefs {
+                jac.push(p + k, i, a);
+            }
+            f.push(row.residual(z));
+        }
+        (f, jac)
+    }
+
+    /// ∂F_{spec_row(k)}/∂v_k at z for each specification k (the only row its value enters):
+    /// the column F_p of the implicit function theorem, dz/dv = −F_z⁻¹ F_p.
+    pub fn value_derivatives(&self, z: &[f64]) -> Vec<f64> {
+        self.rows.iter().map(|r| r.d_value(z)).collect()
+    }
+
+    /// Newton's method on F(z) = 0 from `start` (or from every flow at the mean specified
+    /// flow and even splits), the flows kept non-negative.
+    pub fn solve(&self, plant: &Plant, start: Option<&[f64]>) -> Result<Vec<f64>, SimulateError> {
+        let layout = &self.layout;
+        let n = layout.n;
+        let mut z = match start {
+            Some(z) if z.len() == n => z.to_vec(),
+            _ => self.default_start(plant),
+        };
+        let mut residual = f64::INFINITY;
+        let mut blocked: Option<usize> = None;
+        for _ in 0..60 {
+            let (f, jac) = self.residual(plant, &z);
+            let scale = z.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
+            residual = f.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
+            if residual <= 1e-11 * scale {
+                break;
+            }
+            let Some(lu) = SparseLu::new(&jac) else {
+                return Err(SimulateError::NoSteadyState(accumulation_diagnosis(plant)));
+            };
+            let dz = lu.solve(&f);
+            if dz.iter().any(|v| !v.is_finite()) {
+                return Err(SimulateError::NoSteadyState(accumulation_diagnosis(plant)));
+            }
+            // The step z − α dz with α ≤ 1 keeping every positive flow positive; a flow at zero
+            // that the step would make negative stays at zero.
+            let mut alpha = 1.0_f64;
+            blocked = None;
+            for i in 0..layout.extent_start {
+                if z[i] > 0.0 && z[i] - dz[i] < 0.0 {
+                    let a = TO_BOUNDARY * z[i] / dz[i];
+                    if a < alpha {
+                        alpha = a;
+                        blocked = Some(i);
+                    }
+                }
+            }
+            for i in 0..n {
+                z[i] -= alpha * dz[i];
+            }
+            for v in &mut z[..layout.extent_start] {
+                *v = v.max(0.0);
+            }
+        }
+        let scale = z.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
+        if residual > 1e-8 * scale {
+            let negative = blocked.map_or(String::new(), |i| {
+                format!(
+                    "the balances need a negative {}; ",
+                    crate::equations::var_name(plant, layout, i)
+                )
+            });
+            return Err(SimulateError::NoSteadyState(format!(
+                "Newton's method did not close the balances (residual {residual:.3e} kmol/h); {negative}{}",
+                accumulation_diagnosis(plant)
+            )));
+        }
+        Ok(z)
+    }
+
+    /// Every flow at the mean specified component flow, extents at zero, fractions at an even
+    /// split.
+    fn default_start(&self, plant: &Plant) -> Vec<f64> {
+        let flows: Vec<f64> = self
+            .specs
             .iter()
             .filter_map(|s| match s {
                 Spec::ComponentFlow { value, .. } => Some(*value),
                 _ => None,
             })
             .collect();
-        if flows.is_empty() {
+        let mean_flow = if flows.is_empty() {
             100.0
         } else {
             flows.iter().sum::<f64>() / flows.len() as f64
-        }
-    };
-    let mut z = vec![mean_flow; n];
-    for r in 0..plant.reactions.len() {
-        z[layout.extent(r)] = 0.0;
-    }
-    for &(_, i) in &layout.splits {
-        z[i] = 0.5;
-    }
-    let mut residual = f64::INFINITY;
-    for _ in 0..50 {
-        let mut jac = Triplets::new(n, n);
-        let mut f = constraints(plant, &layout, &z, Some(&mut jac));
-        for (k, row) in rows.iter().enumerate() {
-            let SpecRow(coefs, value) = row;
-            let mut v = -value;
-            for &(i, a) in coefs {
-                v += a * z[i];
-                jac.push(p + k, i, a);
-            }
-            f.push(v);
-        }
-        let scale = z.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
-        residual = f.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
-        if residual <= 1e-11 * scale {
-            break;
-        }
-        let Some(lu) = SparseLu::new(&jac) else {
-            return Err(SimulateError::NoSteadyState(accumulation_diagnosis(plant)));
         };
-        let dz = lu.solve(&f);
-        if dz.iter().any(|v| !v.is_finite()) {
-            return Err(SimulateError::NoSteadyState(accumulation_diagnosis(plant)));
+        let mut z = vec![mean_flow; self.layout.n];
+        for r in 0..plant.reactions.len() {
+            z[self.layout.extent(r)] = 0.0;
         }
-        for i in 0..n {
-            z[i] -= dz[i];
+        for &(_, i) in &self.layout.splits {
+            z[i] = 0.5;
         }
+        z
     }
-    let scale = z.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
-    if residual > 1e-8 * scale {
-        return Err(SimulateError::NoSteadyState(format!(
-            "Newton's method did not close the balances (residual {residual:.3e} kmol/h); {}",
-            accumulation_diagnosis(plant)
-        )));
-    }
-    for i in 0..layout.extent_start {
-        if z[i] < -1e-9 * scale {
-            let name = crate::equations::var_name(plant, &layout, i);
-            return Err(SimulateError::NoSteadyState(format!(
-                "the balances need a negative {name} ({:.4} kmol/h); {}",
-                z[i],
-                accumulation_diagnosis(plant)
-            )));
-        }
-        z[i] = z[i].max(0.0);
-    }
-    Ok(z)
 }
 
 /// Components that no stream can take out of the plant: an inert among them accumulates; a
