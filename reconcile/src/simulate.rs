@@ -254,10 +254,6 @@ pub fn steady_state(plant: &Plant, specs: &[Spec]) -> Result<Vec<f64>, SimulateE
     SpecSystem::new(plant, specs)?.solve(plant, None)
 }
 
-/// Largest share of the way to a zero flow that one Newton step may go: the steps stay in
-/// n ≥ 0 (fraction to the boundary, as interior-point methods keep their iterates inside).
-const TO_BOUNDARY: f64 = 0.995;
-
 /// The model's equations g(z) = 0 with one row per specification below them: a square system
 /// when the specifications fix every degree of freedom.
 pub struct SpecSystem<'a> {
@@ -318,7 +314,7 @@ impl<'a> SpecSystem<'a> {
     }
 
     /// Newton's method on F(z) = 0 from `start` (or from every flow at the mean specified
-    /// flow and even splits), the flows kept non-negative.
+    /// flow and even splits); a solution that needs a negative flow is refused.
     pub fn solve(&self, plant: &Plant, start: Option<&[f64]>) -> Result<Vec<f64>, SimulateError> {
         let layout = &self.layout;
         let n = layout.n;
@@ -327,8 +323,7 @@ impl<'a> SpecSystem<'a> {
             _ => self.default_start(plant),
         };
         let mut residual = f64::INFINITY;
-        let mut blocked: Option<usize> = None;
-        for _ in 0..60 {
+        for _ in 0..50 {
             let (f, jac) = self.residual(plant, &z);
             let scale = z.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
             residual = f.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
@@ -342,38 +337,31 @@ impl<'a> SpecSystem<'a> {
             if dz.iter().any(|v| !v.is_finite()) {
                 return Err(SimulateError::NoSteadyState(accumulation_diagnosis(plant)));
             }
-            // The step z − α dz with α ≤ 1 keeping every positive flow positive; a flow at zero
-            // that the step would make negative stays at zero.
-            let mut alpha = 1.0_f64;
-            blocked = None;
-            for i in 0..layout.extent_start {
-                if z[i] > 0.0 && z[i] - dz[i] < 0.0 {
-                    let a = TO_BOUNDARY * z[i] / dz[i];
-                    if a < alpha {
-                        alpha = a;
-                        blocked = Some(i);
-                    }
-                }
-            }
+            // Full Newton steps: the equations are linear but for the splitter rows, and an
+            // iterate may pass through negative flows on its way (a step cut at n = 0 can stall
+            // far from the solution); the solution itself must have none.
             for i in 0..n {
-                z[i] -= alpha * dz[i];
-            }
-            for v in &mut z[..layout.extent_start] {
-                *v = v.max(0.0);
+                z[i] -= dz[i];
             }
         }
         let scale = z.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
         if residual > 1e-8 * scale {
-            let negative = blocked.map_or(String::new(), |i| {
-                format!(
-                    "the balances need a negative {}; ",
-                    crate::equations::var_name(plant, layout, i)
-                )
-            });
             return Err(SimulateError::NoSteadyState(format!(
-                "Newton's method did not close the balances (residual {residual:.3e} kmol/h); {negative}{}",
+                "Newton's method did not close the balances (residual {residual:.3e} kmol/h); {}",
                 accumulation_diagnosis(plant)
             )));
+        }
+        // Flows are kept non-negative: a steady state that needs a negative flow is none.
+        for i in 0..layout.extent_start {
+            if z[i] < -1e-9 * scale {
+                let name = crate::equations::var_name(plant, layout, i);
+                return Err(SimulateError::NoSteadyState(format!(
+                    "the balances need a negative {name} ({:.4} kmol/h); {}",
+                    z[i],
+                    accumulation_diagnosis(plant)
+                )));
+            }
+            z[i] = z[i].max(0.0);
         }
         Ok(z)
     }
