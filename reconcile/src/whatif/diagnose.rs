@@ -6,6 +6,10 @@
 use crate::model::{Plant, UnitKind};
 use crate::simulate::Spec;
 
+/// Reactants fed within this relative margin of stoichiometric proportion are taken as fed
+/// in it (a reconciled feed carries rounding of about 1e-9).
+const STOICHIOMETRIC: f64 = 1e-6;
+
 /// The reason a loop under `specs` has no steady state, or `None` when every fed component has
 /// a way out (then the cause is elsewhere, and the solver's own message says what it found).
 pub fn accumulation(plant: &Plant, specs: &[Spec]) -> Option<String> {
@@ -30,6 +34,7 @@ pub fn accumulation(plant: &Plant, specs: &[Spec]) -> Option<String> {
             .sum()
     };
     let mut notes = Vec::new();
+    let mut balanced: Vec<String> = Vec::new();
     for (c, comp) in plant.components.iter().enumerate() {
         let fed = feed_of(c);
         if fed <= 0.0 || leaves(plant, c, &closed) {
@@ -69,7 +74,8 @@ pub fn accumulation(plant: &Plant, specs: &[Spec]) -> Option<String> {
             continue;
         }
         // A reactant that can leave only by reaction: fed beyond what its reactions can take
-        // with the other reactants fed, it accumulates.
+        // with the other reactants fed, it accumulates; fed in exact proportion, it does not,
+        // but nothing then fixes how much of it circulates.
         let mut excess = None;
         for r in &reacting {
             let nu_c = r.coefficient(c).abs();
@@ -80,7 +86,7 @@ pub fn accumulation(plant: &Plant, specs: &[Spec]) -> Option<String> {
                 .map(|&(k, nu)| (k, feed_of(k) / nu.abs()))
                 .min_by(|a, b| a.1.total_cmp(&b.1));
             if let Some((k, extent)) = limiting {
-                if fed > nu_c * extent * (1.0 + 1e-9) {
+                if fed > nu_c * extent * (1.0 + STOICHIOMETRIC) {
                     excess = Some(format!(
                         "fed at {fed:.4} kmol/h, beyond the {:.4} kmol/h that the \"{}\" fed can react by \"{}\"",
                         nu_c * extent,
@@ -90,10 +96,23 @@ pub fn accumulation(plant: &Plant, specs: &[Spec]) -> Option<String> {
                 }
             }
         }
-        let what = excess.unwrap_or_else(|| "any excess over stoichiometry".into());
+        match excess {
+            Some(what) => notes.push(format!(
+                "\"{}\" accumulates: it can leave only by reaction ({what}) and {because}; a reactant fed beyond stoichiometry needs a purge",
+                comp.id
+            )),
+            None => balanced.push(comp.id.clone()),
+        }
+    }
+    if !balanced.is_empty() {
         notes.push(format!(
-            "\"{}\" accumulates: it can leave only by reaction ({what}) and {because}; a reactant fed beyond stoichiometry needs a purge",
-            comp.id
+            "{} can leave only by reaction and {} fed in stoichiometric proportion, so the balances do not fix how much circulates (the loop's pressure would): there is no isolated steady state",
+            balanced
+                .iter()
+                .map(|c| format!("\"{c}\""))
+                .collect::<Vec<_>>()
+                .join(" and "),
+            if balanced.len() == 1 { "is" } else { "are" }
         ));
     }
     (!notes.is_empty()).then(|| notes.join("; "))
