@@ -77,6 +77,7 @@ pub fn accumulation(plant: &Plant, specs: &[Spec]) -> Option<String> {
         // with the other reactants fed, it accumulates; fed in exact proportion, it does not,
         // but nothing then fixes how much of it circulates.
         let mut excess = None;
+        let mut limiting_somewhere = false;
         for r in &reacting {
             let nu_c = r.coefficient(c).abs();
             let limiting = r
@@ -86,6 +87,10 @@ pub fn accumulation(plant: &Plant, specs: &[Spec]) -> Option<String> {
                 .map(|&(k, nu)| (k, feed_of(k) / nu.abs()))
                 .min_by(|a, b| a.1.total_cmp(&b.1));
             if let Some((k, extent)) = limiting {
+                if fed < nu_c * extent * (1.0 - STOICHIOMETRIC) {
+                    // c limits this reaction: it is used up, another reactant is in excess.
+                    limiting_somewhere = true;
+                }
                 if fed > nu_c * extent * (1.0 + STOICHIOMETRIC) {
                     excess = Some(format!(
                         "fed at {fed:.4} kmol/h, beyond the {:.4} kmol/h that the \"{}\" fed can react by \"{}\"",
@@ -101,6 +106,7 @@ pub fn accumulation(plant: &Plant, specs: &[Spec]) -> Option<String> {
                 "\"{}\" accumulates: it can leave only by reaction ({what}) and {because}; a reactant fed beyond stoichiometry needs a purge",
                 comp.id
             )),
+            None if limiting_somewhere => {}
             None => balanced.push(comp.id.clone()),
         }
     }

@@ -268,6 +268,10 @@ pub fn what_if(
                 Err(reason) => Some(reason.clone()),
             };
             if let Some(reason) = reason {
+                let reason = match reachable(plant, est, &point_sets, t, purge, request.hold)? {
+                    Some(range) => range,
+                    None => reason,
+                };
                 if sweep.is_none() {
                     return Err(WhatIfError::Unreachable {
                         name: t.name.clone(),
@@ -326,4 +330,68 @@ pub fn free_fraction(
                 .sum::<f64>()
         }
     }
+}
+
+/// What an inlet fraction can be by moving the purge alone: its value with everything purged
+/// (no recycle) and with a purge of 0.1 %, as the trade would say why a target is out of reach.
+fn reachable(
+    plant: &Plant,
+    est: &Estimate,
+    sets: &[Set],
+    target: &Set,
+    purge: usize,
+    hold: ReactionHold,
+) -> Result<Option<String>, WhatIfError> {
+    let Setting::InletFraction { unit, component } = target.setting else {
+        return Ok(None);
+    };
+    let name = format!("split:{}", plant.streams[purge].id);
+    let at = |phi: f64| -> Result<Option<f64>, WhatIfError> {
+        let mut s: Vec<Set> = sets
+            .iter()
+            .filter(|s| s.name != target.name)
+            .cloned()
+            .collect();
+        s.push(Set {
+            name: name.clone(),
+            setting: Setting::Split { stream: purge },
+            value: phi,
+        });
+        let params = calibrated(plant, est, &s, None, hold)?;
+        Ok(
+            match point::solve(plant, &params, &est.solution.z, &est.classification)? {
+                Ok(solved) => {
+                    let inlets = &plant.units[unit].inlets;
+                    let of = |c: Option<usize>| -> f64 {
+                        inlets
+                            .iter()
+                            .flat_map(|&k| {
+                                est.layout
+                                    .stream_flows(plant, k)
+                                    .zip(&plant.streams[k].components)
+                            })
+                            .filter(|(_, &k)| c.is_none_or(|c| c == k))
+                            .map(|(i, _)| solved.z[i])
+                            .sum()
+                    };
+                    Some(of(Some(component)) / of(None).max(1e-300))
+                }
+                Err(_) => None,
+            },
+        )
+    };
+    let (open, nearly_closed) = (at(1.0)?, at(1e-3)?);
+    let what = format!(
+        "\"{}\" at the inlet of \"{}\"",
+        plant.components[component].id, plant.units[unit].id
+    );
+    Ok(match (open, nearly_closed) {
+        (Some(a), Some(b)) => Some(format!(
+            "moving {name} alone, {what} goes from {a:.6} with everything purged ({name} = 1, no recycle) to {b:.6} at {name} = 0.001"
+        )),
+        (Some(a), None) => Some(format!(
+            "moving {name} alone, {what} is {a:.6} with everything purged ({name} = 1, no recycle)"
+        )),
+        _ => None,
+    })
 }
