@@ -21,7 +21,7 @@ use reconcile::equations::Layout;
 use reconcile::period::{MeterValue, PeriodInput};
 use reconcile::simulate::{exact_values, steady_state};
 use reconcile::whatif::{
-    self, optimum::margin_at, Economics, InletLimit, PointStatus, Request, Sweep, WhatIf,
+    self, optimum::margin_at, BaseCase, Economics, InletLimit, PointStatus, Request, Sweep, WhatIf,
     WhatIfError,
 };
 use reconcile::{analyse_period, parse_plant, Analysis, Plant, ReportStatus};
@@ -364,7 +364,9 @@ fn an_inlet_fraction_target_is_reached_by_moving_the_purge() {
 #[test]
 fn the_optimum_purge_is_where_the_margin_stops_rising() {
     let (plant, a) = design();
-    let est = whatif::base_estimate(&a).unwrap();
+    let base = BaseCase {
+        estimates: vec![whatif::base_estimate(&a).unwrap()],
+    };
     let economics = Economics {
         product_price: [("NH3".to_string(), 10.0)].into(),
         loss_value: [("N2".to_string(), 4.0), ("H2".to_string(), 1.0)].into(),
@@ -383,8 +385,18 @@ fn the_optimum_purge_is_where_the_margin_stops_rising() {
         opt.value, opt.margin, opt.margin_sigma
     );
     assert!(opt.bound.is_none(), "{opt:?}");
-    let m =
-        |phi: f64| margin_at(&plant, est, &[], None, Default::default(), &economics, phi).unwrap();
+    let m = |phi: f64| {
+        margin_at(
+            &plant,
+            &base,
+            &[],
+            None,
+            Default::default(),
+            &economics,
+            phi,
+        )
+        .unwrap()
+    };
     let (left, mid, right) = (m(opt.value - 1e-3), m(opt.value), m(opt.value + 1e-3));
     assert!(
         mid > left && mid > right,
@@ -680,4 +692,64 @@ fn mass_closes_at_every_point_of_a_sweep_on_the_vantle_loop() {
             );
         }
     }
+}
+
+/// A range of periods: each period's calibrated values combined by their covariance. A range
+/// of one period is that period; over three noisy periods of one steady state the combined σ
+/// is about 1/√3 of one period's, and it matches a Monte Carlo of the three periods' readings
+/// (500 draws: the sample σ's relative standard error is 1/√(2 · 499) = 3.2 %, so 10 % is about
+/// three standard errors).
+#[test]
+fn a_range_of_periods_combines_their_values_by_covariance() {
+    let plant = parse_plant(PURGE_DESIGN).unwrap();
+    let z = steady_state(&plant, &DESIGN.specs()).unwrap();
+    let request = set(&[("split:purge", 0.10)]);
+    let pick = |w: &WhatIf| figure(w, 0, "inert_fraction_reactor_inlet", "conv:Ar");
+
+    let mut rng = ChaCha8Rng::seed_from_u64(31);
+    let one = analyse(&plant, values(&plant, &z, Some(&mut rng)));
+    let single = whatif::what_if(&plant, &one, &request).unwrap();
+    let ranged = whatif::what_if_range(&plant, std::slice::from_ref(&one), &request).unwrap();
+    close(
+        "range of one: value",
+        pick(&ranged).0,
+        pick(&single).0,
+        1e-12,
+    );
+    close("range of one: σ", pick(&ranged).1, pick(&single).1, 1e-9);
+    assert_eq!(ranged.base.periods, Some(1));
+
+    let exact = analyse(&plant, values(&plant, &z, None));
+    let sigma_one = pick(&whatif::what_if(&plant, &exact, &request).unwrap()).1;
+    let three: Vec<Analysis> = (0..3)
+        .map(|_| analyse(&plant, values(&plant, &z, None)))
+        .collect();
+    let w = whatif::what_if_range(&plant, &three, &request).unwrap();
+    assert_eq!(w.base.periods, Some(3));
+    close(
+        "σ over three periods",
+        pick(&w).1,
+        sigma_one / 3f64.sqrt(),
+        1e-6,
+    );
+
+    const DRAWS: usize = 500;
+    let mut x = Vec::with_capacity(DRAWS);
+    for _ in 0..DRAWS {
+        let periods: Vec<Analysis> = (0..3)
+            .map(|_| analyse(&plant, values(&plant, &z, Some(&mut rng))))
+            .collect();
+        x.push(pick(&whatif::what_if_range(&plant, &periods, &request).unwrap()).0);
+    }
+    let mean = x.iter().sum::<f64>() / DRAWS as f64;
+    let sd = (x.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (DRAWS - 1) as f64).sqrt();
+    eprintln!(
+        "range of 3: delta method σ {:.6e}, Monte Carlo {sd:.6e}",
+        pick(&w).1
+    );
+    assert!(
+        (pick(&w).1 / sd - 1.0).abs() < 0.10,
+        "{} against {sd}",
+        pick(&w).1
+    );
 }

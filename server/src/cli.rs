@@ -58,6 +58,13 @@ pub enum Command {
         /// in R).
         #[arg(long, value_name = "T", value_parser = parse_time)]
         period: Option<DateTime<Utc>>,
+        /// A range as the base case instead: the periods starting at or after this time, their
+        /// calibrated values combined by their covariance.
+        #[arg(long, value_name = "TIME", value_parser = parse_time, conflicts_with = "period")]
+        period_from: Option<DateTime<Utc>>,
+        /// A range as the base case: the periods starting before this time.
+        #[arg(long, value_name = "TIME", value_parser = parse_time, conflicts_with = "period")]
+        period_to: Option<DateTime<Utc>>,
         /// A setting, repeatable: split:STREAM=FRACTION, feed:STREAM=KMOL_PER_H,
         /// conversion:REACTION=FRACTION, inlet_fraction:UNIT:COMPONENT=FRACTION (a target
         /// reached by moving the purge split).

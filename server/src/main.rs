@@ -29,6 +29,8 @@ fn main() -> ExitCode {
             model,
             readings,
             period,
+            period_from,
+            period_to,
             set,
             sweep,
             free,
@@ -43,6 +45,8 @@ fn main() -> ExitCode {
             model,
             readings,
             period: *period,
+            range: (period_from.is_some() || period_to.is_some())
+                .then_some((*period_from, *period_to)),
             set,
             sweep: sweep.as_deref(),
             free: free.as_deref(),

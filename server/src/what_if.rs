@@ -38,6 +38,8 @@ pub struct Options<'a> {
     pub model: &'a Path,
     pub readings: &'a Path,
     pub period: Option<DateTime<Utc>>,
+    /// A range of periods [from, to) as the base case, either end open.
+    pub range: Option<(Option<DateTime<Utc>>, Option<DateTime<Utc>>)>,
     pub set: &'a [String],
     pub sweep: Option<&'a str>,
     pub free: Option<&'a str>,
@@ -73,28 +75,48 @@ pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
             out_of_range,
         });
     }
-    let (start, readings) = match opts.period {
-        Some(t) => {
-            let start = reconcile::period::period_start(t, plant.period_seconds);
-            let readings = periods.remove(&start).ok_or_else(|| {
-                BadInput::new(format!(
-                    "--period: {file} has no readings in the period starting {}",
-                    start.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
+    let result = match opts.range {
+        Some((from, to)) => {
+            let analyses: Vec<reconcile::Analysis> = periods
+                .into_iter()
+                .filter(|(start, _)| from.is_none_or(|f| *start >= f))
+                .filter(|(start, _)| to.is_none_or(|t| *start < t))
+                .map(|(start, readings)| period_run::analyse(&plant, start, readings))
+                .collect();
+            if analyses.is_empty() {
+                return Err(BadInput::new(format!(
+                    "--period-from/--period-to: {file} has no readings in that range"
                 ))
-            })?;
-            (start, readings)
+                .into());
+            }
+            whatif::what_if_range(&plant, &analyses, &request)
         }
-        None => periods
-            .pop_last()
-            .ok_or_else(|| BadInput::new(format!("{file}: no readings, so no base case")))?,
+        None => {
+            let (start, readings) = match opts.period {
+                Some(t) => {
+                    let start = reconcile::period::period_start(t, plant.period_seconds);
+                    let readings = periods.remove(&start).ok_or_else(|| {
+                        BadInput::new(format!(
+                            "--period: {file} has no readings in the period starting {}",
+                            start.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
+                        ))
+                    })?;
+                    (start, readings)
+                }
+                None => periods.pop_last().ok_or_else(|| {
+                    BadInput::new(format!("{file}: no readings, so no base case"))
+                })?,
+            };
+            let analysis = period_run::analyse(&plant, start, readings);
+            whatif::what_if(&plant, &analysis, &request)
+        }
     };
-    let analysis = period_run::analyse(&plant, start, readings);
-    let answer = match whatif::what_if(&plant, &analysis, &request) {
+    let answer = match result {
         Ok(answer) => answer,
         // A base case that did not reconcile, or leaves unobservable what the what-if needs,
         // is a failed run on good input.
         Err(e @ (WhatIfError::BaseNotSolved(_) | WhatIfError::Unobservable(_))) => {
-            anyhow::bail!("what-if of period {}: {e}", analysis.report.period_start)
+            anyhow::bail!("what-if: {e}")
         }
         Err(e) => return Err(bad(e)),
     };

@@ -33,8 +33,67 @@ pub struct Param {
     pub spec: Spec,
     /// ∂value/∂z_base (sparse); empty when the value is a setting (no uncertainty).
     pub grad: Vec<(usize, f64)>,
-    /// What is held, in words, with its base value; `None` for a setting.
-    pub hold: Option<String>,
+    /// What is held, for the list of holds; `None` for a setting and for each feed component
+    /// but the last (the feed is listed once).
+    pub hold: Option<Hold>,
+}
+
+/// A held quantity, in words.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Hold {
+    /// A fresh feed's flow and composition.
+    Feed { stream: String },
+    /// A fresh feed's composition (its flow is set).
+    FeedComposition { stream: String },
+    /// One value: the spec's.
+    Value { what: String },
+}
+
+/// The held quantities with their values, in words.
+pub fn holds(params: &[Param]) -> Vec<String> {
+    params
+        .iter()
+        .filter_map(|p| {
+            Some(match p.hold.as_ref()? {
+                Hold::Feed { stream } => {
+                    let total: f64 = params
+                        .iter()
+                        .filter_map(|q| match &q.spec {
+                            Spec::ComponentFlow {
+                                stream: s, value, ..
+                            } if s == stream => Some(*value),
+                            _ => None,
+                        })
+                        .sum();
+                    format!("fresh feed \"{stream}\": {total:.6} kmol/h and its composition")
+                }
+                Hold::FeedComposition { stream } => {
+                    format!("composition of fresh feed \"{stream}\"")
+                }
+                Hold::Value { what } => format!("{what}: {:.6}", p.spec.value()),
+            })
+        })
+        .collect()
+}
+
+/// The quantity a specification fixes, in words (for a refusal naming it).
+pub fn quantity(spec: &Spec) -> String {
+    match spec {
+        Spec::ComponentFlow {
+            stream, component, ..
+        } => format!("flow of \"{component}\" in stream \"{stream}\""),
+        Spec::Extent { reaction, .. } => format!("extent of reaction \"{reaction}\""),
+        Spec::Conversion { reaction, .. } => {
+            format!("single-pass conversion of reaction \"{reaction}\"")
+        }
+        Spec::SplitFraction { stream, .. } => format!("split fraction of stream \"{stream}\""),
+        Spec::Recovery {
+            stream, component, ..
+        } => format!("split of \"{component}\" to stream \"{stream}\""),
+        Spec::InletFraction {
+            unit, component, ..
+        } => format!("mole fraction of \"{component}\" at the inlet of \"{unit}\""),
+    }
 }
 
 /// The splitter outlet that moves to reach an inlet-fraction target.
@@ -122,11 +181,12 @@ pub fn calibrate(
             });
         }
         let hold = match set {
-            Some(_) => format!("composition of fresh feed \"{}\"", stream.id),
-            None => format!(
-                "fresh feed \"{}\": {:.6} kmol/h and its composition",
-                stream.id, total
-            ),
+            Some(_) => Hold::FeedComposition {
+                stream: stream.id.clone(),
+            },
+            None => Hold::Feed {
+                stream: stream.id.clone(),
+            },
         };
         params.last_mut().expect("a feed carries a component").hold = Some(hold);
     }
@@ -173,7 +233,7 @@ pub fn calibrate(
                         value: x,
                     },
                     grad,
-                    hold: Some(format!("{what}: {x:.6}")),
+                    hold: Some(Hold::Value { what }),
                 });
             }
             _ => params.push(Param {
@@ -182,10 +242,9 @@ pub fn calibrate(
                     value: z[xi],
                 },
                 grad: vec![(xi, 1.0)],
-                hold: Some(format!(
-                    "extent of reaction \"{}\": {:.6} kmol/h",
-                    reaction.id, z[xi]
-                )),
+                hold: Some(Hold::Value {
+                    what: format!("extent of reaction \"{}\" (kmol/h)", reaction.id),
+                }),
             }),
         }
     }
@@ -307,7 +366,9 @@ fn splitter(
                         value: v,
                     },
                     grad,
-                    hold: Some(format!("split fraction of stream \"{id}\": {v:.6}")),
+                    hold: Some(Hold::Value {
+                        what: format!("split fraction of stream \"{id}\""),
+                    }),
                 }
             }
         };
@@ -364,7 +425,7 @@ fn component_splits(
                     value: r,
                 },
                 grad,
-                hold: Some(format!("{what}: {r:.6}")),
+                hold: Some(Hold::Value { what }),
             });
         }
     }

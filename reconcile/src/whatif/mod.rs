@@ -9,6 +9,7 @@
 //! along one setting; an economic optimum searches the purge split (optimum.rs). When the loop
 //! has no steady state, diagnose.rs says which component accumulates.
 
+pub mod base;
 pub mod calibrate;
 pub mod diagnose;
 pub mod optimum;
@@ -26,6 +27,7 @@ use crate::model::Plant;
 use crate::report::{ReportStatus, CAUTION};
 use crate::simulate::SimulateError;
 
+pub use base::{BaseCase, Calibrated};
 pub use calibrate::ReactionHold;
 pub use optimum::{Economics, InletLimit, Optimum};
 pub use point::{Point, PointStatus};
@@ -111,8 +113,19 @@ pub struct Request {
 /// The base case a what-if starts from.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Base {
+    /// The period's start (of a range: its first reconciled period's).
     pub period_start: String,
+    /// `solved`, or `unobservable` when some value the what-if does not need is unknown.
     pub status: ReportStatus,
+    /// Of a range: the start of its last reconciled period.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub period_last: Option<String>,
+    /// Of a range: the number of periods combined.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub periods: Option<usize>,
+    /// Of a range: periods left out because they were not reconciled.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub skipped: Vec<String>,
 }
 
 /// The answer: the base case, what was held, each point, the optimum when asked.
@@ -179,26 +192,6 @@ pub fn resolve_free(plant: &Plant, free: Option<&str>) -> Result<Option<usize>, 
     }
 }
 
-/// The model's specifications at these settings, every uncertain one checked observable in
-/// the base case.
-pub fn calibrated(
-    plant: &Plant,
-    est: &Estimate,
-    sets: &[Set],
-    free: Option<usize>,
-    hold: ReactionHold,
-) -> Result<Vec<calibrate::Param>, WhatIfError> {
-    let params = calibrate::calibrate(plant, &est.layout, &est.solution.z, sets, free, hold)?;
-    for p in &params {
-        if !p.grad.is_empty() && !est.classification.is_observable(&p.grad) {
-            let what = p.hold.clone().unwrap_or_else(|| format!("{:?}", p.spec));
-            let what = what.split(':').next().unwrap_or(&what).to_string();
-            return Err(WhatIfError::Unobservable(what));
-        }
-    }
-    Ok(params)
-}
-
 /// The what-if of `request` from the base case `analysis`.
 pub fn what_if(
     plant: &Plant,
@@ -206,6 +199,64 @@ pub fn what_if(
     request: &Request,
 ) -> Result<WhatIf, WhatIfError> {
     let est = base_estimate(analysis)?;
+    let base = BaseCase {
+        estimates: vec![est],
+    };
+    let label = Base {
+        period_start: analysis.report.period_start.clone(),
+        status: analysis.report.status,
+        period_last: None,
+        periods: None,
+        skipped: Vec::new(),
+    };
+    run(plant, &base, label, request)
+}
+
+/// The what-if of `request` from a range of periods, their calibrated values combined by
+/// their covariance (base.rs). Periods that were not reconciled are skipped and listed.
+pub fn what_if_range(
+    plant: &Plant,
+    analyses: &[Analysis],
+    request: &Request,
+) -> Result<WhatIf, WhatIfError> {
+    let mut estimates = Vec::new();
+    let mut used = Vec::new();
+    let mut skipped = Vec::new();
+    for a in analyses {
+        match base_estimate(a) {
+            Ok(est) => {
+                estimates.push(est);
+                used.push(a);
+            }
+            Err(_) => skipped.push(a.report.period_start.clone()),
+        }
+    }
+    let (Some(first), Some(last)) = (used.first(), used.last()) else {
+        return Err(WhatIfError::BaseNotSolved(
+            "no period of the range was reconciled".into(),
+        ));
+    };
+    let all_solved = used.iter().all(|a| a.report.status == ReportStatus::Solved);
+    let label = Base {
+        period_start: first.report.period_start.clone(),
+        status: if all_solved {
+            ReportStatus::Solved
+        } else {
+            ReportStatus::Unobservable
+        },
+        period_last: Some(last.report.period_start.clone()),
+        periods: Some(used.len()),
+        skipped,
+    };
+    run(plant, &BaseCase { estimates }, label, request)
+}
+
+fn run(
+    plant: &Plant,
+    base: &BaseCase,
+    label: Base,
+    request: &Request,
+) -> Result<WhatIf, WhatIfError> {
     let sets = resolve_sets(plant, &request.set)?;
     let free = resolve_free(plant, request.free.as_deref())?;
     let sweep = match &request.sweep {
@@ -224,8 +275,7 @@ pub fn what_if(
         Some((_, s)) => s.values().into_iter().map(Some).collect(),
         None => vec![None],
     };
-    let base_z = &est.solution.z;
-    let mut start = base_z.clone();
+    let mut start = base.start().to_vec();
     let mut points = Vec::with_capacity(values.len());
     let mut holds: Option<Vec<String>> = None;
     for v in values {
@@ -244,11 +294,11 @@ pub fn what_if(
                 .map(|s| (s.name.clone(), s.value))
                 .collect::<Vec<_>>(),
         )?;
-        let params = calibrated(plant, est, &point_sets, free, request.hold)?;
+        let calibrated = base.calibrated(plant, &point_sets, free, request.hold)?;
         if holds.is_none() {
-            holds = Some(params.iter().filter_map(|p| p.hold.clone()).collect());
+            holds = Some(calibrate::holds(&calibrated.params));
         }
-        let mut solved = point::solve(plant, &params, &start, &est.classification)?;
+        let mut solved = point::solve(plant, &calibrated, &start)?;
         // A target is reached by moving the free purge split, which must stay in [0, 1].
         if let Some(t) = point_sets
             .iter()
@@ -257,7 +307,7 @@ pub fn what_if(
             let purge = calibrate::free_outlet(plant, free)?;
             let reason = match &solved {
                 Ok(s) => {
-                    let phi = free_fraction(plant, &est.layout, purge, &s.z);
+                    let phi = free_fraction(plant, base.layout(), purge, &s.z);
                     (!(-1e-12..=1.0 + 1e-12).contains(&phi)).then(|| {
                         format!(
                             "reaching it needs split:{} = {phi:.6}, outside [0, 1]",
@@ -268,7 +318,7 @@ pub fn what_if(
                 Err(reason) => Some(reason.clone()),
             };
             if let Some(reason) = reason {
-                let reason = match reachable(plant, est, &point_sets, t, purge, request.hold)? {
+                let reason = match reachable(plant, base, &point_sets, t, purge, request.hold)? {
                     Some(range) => range,
                     None => reason,
                 };
@@ -293,17 +343,14 @@ pub fn what_if(
             .iter()
             .map(|s| (s.name.clone(), s.value))
             .collect();
-        points.push(point::report(plant, &est.layout, settings, &solved));
+        points.push(point::report(plant, base.layout(), settings, &solved));
     }
     let optimum = match &request.economics {
-        Some(e) => Some(optimum::optimum(plant, est, &sets, free, request.hold, e)?),
+        Some(e) => Some(optimum::optimum(plant, base, &sets, free, request.hold, e)?),
         None => None,
     };
     Ok(WhatIf {
-        base: Base {
-            period_start: analysis.report.period_start.clone(),
-            status: analysis.report.status,
-        },
+        base: label,
         holds: holds.unwrap_or_default(),
         points,
         optimum,
@@ -336,7 +383,7 @@ pub fn free_fraction(
 /// (no recycle) and with a purge of 0.1 %, as the trade would say why a target is out of reach.
 fn reachable(
     plant: &Plant,
-    est: &Estimate,
+    base: &BaseCase,
     sets: &[Set],
     target: &Set,
     purge: usize,
@@ -357,28 +404,26 @@ fn reachable(
             setting: Setting::Split { stream: purge },
             value: phi,
         });
-        let params = calibrated(plant, est, &s, None, hold)?;
-        Ok(
-            match point::solve(plant, &params, &est.solution.z, &est.classification)? {
-                Ok(solved) => {
-                    let inlets = &plant.units[unit].inlets;
-                    let of = |c: Option<usize>| -> f64 {
-                        inlets
-                            .iter()
-                            .flat_map(|&k| {
-                                est.layout
-                                    .stream_flows(plant, k)
-                                    .zip(&plant.streams[k].components)
-                            })
-                            .filter(|(_, &k)| c.is_none_or(|c| c == k))
-                            .map(|(i, _)| solved.z[i])
-                            .sum()
-                    };
-                    Some(of(Some(component)) / of(None).max(1e-300))
-                }
-                Err(_) => None,
-            },
-        )
+        let calibrated = base.calibrated(plant, &s, None, hold)?;
+        Ok(match point::solve(plant, &calibrated, base.start())? {
+            Ok(solved) => {
+                let inlets = &plant.units[unit].inlets;
+                let of = |c: Option<usize>| -> f64 {
+                    inlets
+                        .iter()
+                        .flat_map(|&k| {
+                            base.layout()
+                                .stream_flows(plant, k)
+                                .zip(&plant.streams[k].components)
+                        })
+                        .filter(|(_, &k)| c.is_none_or(|c| c == k))
+                        .map(|(i, _)| solved.z[i])
+                        .sum()
+                };
+                Some(of(Some(component)) / of(None).max(1e-300))
+            }
+            Err(_) => None,
+        })
     };
     let (open, nearly_closed) = (at(1.0)?, at(1e-3)?);
     let what = format!(

@@ -14,15 +14,15 @@ use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
 
-use crate::estimate::Estimate;
 use crate::model::Plant;
 use crate::report::CAUTION;
 use crate::uncertainty::Uncertainty;
 
-use super::calibrate::{free_outlet, ReactionHold};
+use super::base::BaseCase;
+use super::calibrate::{free_outlet, holds, ReactionHold};
 use super::point::{self, product_streams, Point, Solved};
 use super::settings::{Set, Setting};
-use super::{calibrated, WhatIfError};
+use super::WhatIfError;
 
 /// Golden-section search stops when the bracket is this narrow (in split fraction).
 const TOLERANCE: f64 = 1e-7;
@@ -138,7 +138,7 @@ fn check(e: &Economics) -> Result<(), WhatIfError> {
 /// The purge split that maximises the margin.
 pub fn optimum(
     plant: &Plant,
-    est: &Estimate,
+    base: &BaseCase,
     sets: &[Set],
     free: Option<usize>,
     hold: ReactionHold,
@@ -155,7 +155,7 @@ pub fn optimum(
             "{name} is set, and it is the split the optimum moves"
         )));
     }
-    let layout = &est.layout;
+    let layout = base.layout();
     let grad = margin_gradient(plant, layout, purge, e)?;
     let at = |phi: f64, start: &[f64]| -> Result<(Vec<Set>, Result<Solved, String>), WhatIfError> {
         let mut s = sets.to_vec();
@@ -164,8 +164,8 @@ pub fn optimum(
             setting: Setting::Split { stream: purge },
             value: phi,
         });
-        let params = calibrated(plant, est, &s, free, hold)?;
-        Ok((s, point::solve(plant, &params, start, &est.classification)?))
+        let calibrated = base.calibrated(plant, &s, free, hold)?;
+        Ok((s, point::solve(plant, &calibrated, start)?))
     };
     let margin = |solved: &Result<Solved, String>| match solved {
         Ok(s) => grad.iter().map(|&(i, a)| a * s.z[i]).sum(),
@@ -185,8 +185,8 @@ pub fn optimum(
             setting,
             value: l.max,
         });
-        let params = calibrated(plant, est, &s, Some(purge), hold)?;
-        match point::solve(plant, &params, &est.solution.z, &est.classification)? {
+        let calibrated = base.calibrated(plant, &s, Some(purge), hold)?;
+        match point::solve(plant, &calibrated, base.start())? {
             Ok(solved) => {
                 let phi = super::free_fraction(plant, layout, purge, &solved.z);
                 if phi > lo {
@@ -212,7 +212,7 @@ pub fn optimum(
     // Golden section on [a, b] for the maximum of M.
     let g = (5.0_f64.sqrt() - 1.0) / 2.0;
     let (mut a, mut b) = (lo, hi);
-    let start = est.solution.z.clone();
+    let start = base.start().to_vec();
     let mut x1 = b - g * (b - a);
     let mut x2 = a + g * (b - a);
     let mut f1 = margin(&at(x1, &start)?.1);
@@ -265,8 +265,7 @@ pub fn optimum(
     } else {
         None
     };
-    let params = calibrated(plant, est, &s, free, hold)?;
-    let holds = params.iter().filter_map(|p| p.hold.clone()).collect();
+    let holds = holds(&base.calibrated(plant, &s, free, hold)?.params);
     let settings = s.iter().map(|x| (x.name.clone(), x.value)).collect();
     Ok(Optimum {
         setting: name,
@@ -284,7 +283,7 @@ pub fn optimum(
 /// against its neighbours.
 pub fn margin_at(
     plant: &Plant,
-    est: &Estimate,
+    base: &BaseCase,
     sets: &[Set],
     free: Option<usize>,
     hold: ReactionHold,
@@ -292,18 +291,16 @@ pub fn margin_at(
     phi: f64,
 ) -> Result<f64, WhatIfError> {
     let purge = free_outlet(plant, free)?;
-    let grad = margin_gradient(plant, &est.layout, purge, e)?;
+    let grad = margin_gradient(plant, base.layout(), purge, e)?;
     let mut s = sets.to_vec();
     s.push(Set {
         name: format!("split:{}", plant.streams[purge].id),
         setting: Setting::Split { stream: purge },
         value: phi,
     });
-    let params = calibrated(plant, est, &s, free, hold)?;
-    Ok(
-        match point::solve(plant, &params, &est.solution.z, &est.classification)? {
-            Ok(sol) => grad.iter().map(|&(i, a)| a * sol.z[i]).sum(),
-            Err(_) => f64::NEG_INFINITY,
-        },
-    )
+    let calibrated = base.calibrated(plant, &s, free, hold)?;
+    Ok(match point::solve(plant, &calibrated, base.start())? {
+        Ok(sol) => grad.iter().map(|&(i, a)| a * sol.z[i]).sum(),
+        Err(_) => f64::NEG_INFINITY,
+    })
 }

@@ -6,7 +6,6 @@ use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
 
-use crate::classify::Classification;
 use crate::equations::Layout;
 use crate::figures::{loop_figures_of, Builder};
 use crate::model::{Plant, UnitKind};
@@ -14,7 +13,7 @@ use crate::period_report::stream_report;
 use crate::report::{Figure, StreamReport};
 use crate::simulate::{SimulateError, Spec, SpecSystem};
 
-use super::calibrate::Param;
+use super::base::Calibrated;
 use super::diagnose;
 use super::propagate::Propagated;
 use super::WhatIfError;
@@ -48,11 +47,10 @@ pub struct Solved {
 /// Solve the specifications from `start`; `Err(reason)` when the loop has no steady state.
 pub fn solve(
     plant: &Plant,
-    params: &[Param],
+    calibrated: &Calibrated,
     start: &[f64],
-    base: &Classification,
 ) -> Result<Result<Solved, String>, WhatIfError> {
-    let specs: Vec<Spec> = params.iter().map(|p| p.spec.clone()).collect();
+    let specs: Vec<Spec> = calibrated.params.iter().map(|p| p.spec.clone()).collect();
     let system = SpecSystem::new(plant, &specs).map_err(WhatIfError::Model)?;
     let z = match system.solve(plant, Some(start)) {
         Ok(z) => z,
@@ -61,7 +59,7 @@ pub fn solve(
         }
         Err(e) => return Err(WhatIfError::Model(e)),
     };
-    match Propagated::new(plant, &system, params, &z, base) {
+    match Propagated::new(plant, &system, calibrated, &z) {
         Some(propagated) => Ok(Ok(Solved { z, propagated })),
         None => Ok(Err(diagnose::accumulation(plant, &specs).unwrap_or_else(
             || "the balances do not fix an isolated steady state at these settings".into(),

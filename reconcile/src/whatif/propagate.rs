@@ -9,12 +9,11 @@
 
 use nalgebra::DMatrix;
 
-use crate::classify::Classification;
 use crate::simulate::SpecSystem;
 use crate::sparse::SparseLu;
 use crate::uncertainty::Uncertainty;
 
-use super::calibrate::Param;
+use super::base::Calibrated;
 
 /// The sensitivity of the new state to the uncertain specification values and their
 /// covariance: an [`Uncertainty`] for figures and streams of the new state.
@@ -32,19 +31,15 @@ impl Propagated {
     pub fn new(
         plant: &crate::model::Plant,
         system: &SpecSystem,
-        params: &[Param],
+        calibrated: &Calibrated,
         z: &[f64],
-        base: &Classification,
     ) -> Option<Propagated> {
         let (_, jac) = system.residual(plant, z);
         let lu = SparseLu::new(&jac)?;
         let d_value = system.value_derivatives(z);
-        let uncertain: Vec<usize> = (0..params.len())
-            .filter(|&k| !params[k].grad.is_empty())
-            .collect();
         let n = jac.ncols;
-        let mut sensitivity = Vec::with_capacity(uncertain.len());
-        for &k in &uncertain {
+        let mut sensitivity = Vec::with_capacity(calibrated.uncertain.len());
+        for &k in &calibrated.uncertain {
             let mut e = vec![0.0; n];
             e[system.spec_row(k)] = d_value[k];
             let s: Vec<f64> = lu.solve(&e).into_iter().map(|v| -v).collect();
@@ -53,11 +48,10 @@ impl Propagated {
             }
             sensitivity.push(s);
         }
-        let cov = parameter_covariance(base, params, &uncertain);
         Some(Propagated {
-            uncertain,
+            uncertain: calibrated.uncertain.clone(),
             sensitivity,
-            cov,
+            cov: calibrated.cov.clone(),
         })
     }
 
@@ -92,38 +86,4 @@ impl Uncertainty for Propagated {
         }
         total
     }
-}
-
-/// Cov(v) = D P Dᵀ over the uncertain values, by the base classification's covariance of two
-/// linear functions of the base state (dense or sparse path alike).
-fn parameter_covariance(
-    base: &Classification,
-    params: &[Param],
-    uncertain: &[usize],
-) -> DMatrix<f64> {
-    let m = uncertain.len();
-    let mut cov = DMatrix::zeros(m, m);
-    if base.sparse.is_none() {
-        // Dense path: P = L Lᵀ, so Cov = (Lᵀ D_k) · (Lᵀ D_l); project each once.
-        let proj: Vec<Vec<f64>> = uncertain
-            .iter()
-            .map(|&k| base.project(&params[k].grad))
-            .collect();
-        for k in 0..m {
-            for l in 0..=k {
-                let c: f64 = proj[k].iter().zip(&proj[l]).map(|(x, y)| x * y).sum();
-                cov[(k, l)] = c;
-                cov[(l, k)] = c;
-            }
-        }
-        return cov;
-    }
-    for k in 0..m {
-        for l in 0..=k {
-            let c = base.covariance(&params[uncertain[k]].grad, &params[uncertain[l]].grad);
-            cov[(k, l)] = c;
-            cov[(l, k)] = c;
-        }
-    }
-    cov
 }
