@@ -34,12 +34,15 @@ pub enum HoldArg {
     Extent,
 }
 
+/// A range of period starts [from, to), either end open.
+pub type PeriodRange = (Option<DateTime<Utc>>, Option<DateTime<Utc>>);
+
 pub struct Options<'a> {
     pub model: &'a Path,
     pub readings: &'a Path,
     pub period: Option<DateTime<Utc>>,
     /// A range of periods [from, to) as the base case, either end open.
-    pub range: Option<(Option<DateTime<Utc>>, Option<DateTime<Utc>>)>,
+    pub range: Option<PeriodRange>,
     pub set: &'a [String],
     pub sweep: Option<&'a str>,
     pub free: Option<&'a str>,
