@@ -753,3 +753,118 @@ fn a_range_of_periods_combines_their_values_by_covariance() {
         pick(&w).1
     );
 }
+
+/// Properties: the what-if at the base case's own settings (the purge, the feed and the
+/// conversion set to their reconciled values) returns the base case; held at its extent, the
+/// reaction makes the same ammonia whatever the purge (2ξ), and the purge then moves only the
+/// circulation.
+#[test]
+fn the_base_case_settings_give_the_base_case_and_a_held_extent_holds_the_production() {
+    let plant = parse_plant(PURGE_DESIGN).unwrap();
+    let z = steady_state(&plant, &DESIGN.specs()).unwrap();
+    let mut rng = ChaCha8Rng::seed_from_u64(99);
+    let a = analyse(&plant, values(&plant, &z, Some(&mut rng)));
+    let base_fig = |name: &str, subject: &str| {
+        a.report
+            .figures
+            .iter()
+            .find(|f| f.name == name && f.subject == subject)
+            .unwrap()
+            .value
+            .unwrap()
+    };
+    let feed = a
+        .report
+        .streams
+        .iter()
+        .find(|s| s.id == "feed")
+        .unwrap()
+        .molar_flow
+        .unwrap();
+    let w = whatif::what_if(
+        &plant,
+        &a,
+        &set(&[
+            ("split:purge", base_fig("purge_fraction", "purge")),
+            ("feed:feed", feed),
+            (
+                "conversion:synthesis",
+                base_fig("single_pass_conversion", "synthesis"),
+            ),
+        ]),
+    )
+    .unwrap();
+    // Only the feed's composition is still the base case's.
+    assert_eq!(
+        w.holds,
+        vec!["composition of fresh feed \"feed\"".to_string()]
+    );
+    for s in &a.report.streams {
+        close(&s.id, flow(&w, 0, &s.id).0, s.molar_flow.unwrap(), 1e-9);
+    }
+    assert!(
+        flow(&w, 0, "feed").1 < 1e-9,
+        "the feed's flow was set: no σ"
+    );
+
+    let held = |phi: f64| {
+        let request = Request {
+            hold: whatif::ReactionHold::Extent,
+            ..set(&[("split:purge", phi)])
+        };
+        whatif::what_if(&plant, &a, &request).unwrap()
+    };
+    let (w1, w2) = (held(0.04), held(0.08));
+    assert!(
+        w1.holds
+            .iter()
+            .any(|h| h.starts_with("extent of reaction \"synthesis\"")),
+        "{:?}",
+        w1.holds
+    );
+    let made = |w: &WhatIf| figure(w, 0, "product_made", "NH3").0;
+    close("NH3 at a held extent", made(&w1), made(&w2), 1e-10);
+    close(
+        "NH3 = 2ξ of the base",
+        made(&w1),
+        2.0 * a.report.extents[0].value.unwrap(),
+        1e-9,
+    );
+    let conversion = |w: &WhatIf| figure(w, 0, "single_pass_conversion", "synthesis").0;
+    assert!(conversion(&w1) != conversion(&w2));
+}
+
+/// A negative feed, a NaN and a sweep of zero points are refused naming the setting.
+#[test]
+fn impossible_values_are_refused_naming_the_setting() {
+    let (plant, a) = design();
+    for (request, want) in [
+        (
+            set(&[("feed:feed", -5.0)]),
+            "\"feed:feed\": -5 is outside ≥ 0",
+        ),
+        (
+            set(&[("conversion:synthesis", f64::NAN)]),
+            "\"conversion:synthesis\": the value must be a finite number",
+        ),
+        (
+            set(&[("split:purge", 0.1), ("split:purge", 0.2)]),
+            "\"split:purge\" is given twice",
+        ),
+        (
+            set(&[("split:recycle", 0.7), ("split:purge", 0.4)]),
+            "sum to 1.1",
+        ),
+    ] {
+        let err = whatif::what_if(&plant, &a, &request)
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains(want), "{err} should say {want}");
+    }
+    assert!(Sweep::parse("split:purge=0..1:0")
+        .unwrap_err()
+        .to_string()
+        .contains("at least one point"));
+    let values = Sweep::parse("split:purge=0.1..0.3:3").unwrap().values();
+    assert_eq!(values, vec![0.1, 0.2, 0.3]);
+}
