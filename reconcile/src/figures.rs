@@ -11,19 +11,20 @@ use crate::equations::Layout;
 use crate::estimate::Estimate;
 use crate::model::{Plant, UnitKind};
 use crate::report::Figure;
+use crate::uncertainty::Uncertainty;
 use crate::uom::Quantity;
 
 /// A sparse linear function of the state.
 #[derive(Debug, Clone, Default)]
-struct Linear(BTreeMap<usize, f64>);
+pub(crate) struct Linear(pub(crate) BTreeMap<usize, f64>);
 
 impl Linear {
-    fn add(mut self, i: usize, v: f64) -> Self {
+    pub(crate) fn add(mut self, i: usize, v: f64) -> Self {
         *self.0.entry(i).or_insert(0.0) += v;
         self
     }
 
-    fn plus(mut self, other: &Linear, scale: f64) -> Self {
+    pub(crate) fn plus(mut self, other: &Linear, scale: f64) -> Self {
         for (&i, &v) in &other.0 {
             *self.0.entry(i).or_insert(0.0) += scale * v;
         }
@@ -43,20 +44,23 @@ impl Linear {
     }
 }
 
-struct Builder<'a> {
-    plant: &'a Plant,
-    layout: &'a Layout,
-    est: &'a Estimate,
-    out: Vec<Figure>,
+/// Builds figures of a state z with σ from an [`Uncertainty`]; the what-if adds its own
+/// figures with it.
+pub(crate) struct Builder<'a> {
+    pub(crate) plant: &'a Plant,
+    pub(crate) layout: &'a Layout,
+    pub(crate) z: &'a [f64],
+    pub(crate) unc: &'a dyn Uncertainty,
+    pub(crate) out: Vec<Figure>,
 }
 
 impl Builder<'_> {
     fn z(&self) -> &[f64] {
-        &self.est.solution.z
+        self.z
     }
 
     /// n_{s,c} for each stream in `streams` that carries c.
-    fn component(&self, streams: &[usize], c: usize) -> Linear {
+    pub(crate) fn component(&self, streams: &[usize], c: usize) -> Linear {
         streams.iter().fold(Linear::default(), |acc, &s| {
             match self.layout.flow(self.plant, s, c) {
                 Some(i) => acc.add(i, 1.0),
@@ -66,7 +70,7 @@ impl Builder<'_> {
     }
 
     /// Total molar flow of the streams.
-    fn total(&self, streams: &[usize]) -> Linear {
+    pub(crate) fn total(&self, streams: &[usize]) -> Linear {
         (0..self.plant.components.len()).fold(Linear::default(), |acc, c| {
             acc.plus(&self.component(streams, c), 1.0)
         })
@@ -80,7 +84,7 @@ impl Builder<'_> {
         value: f64,
         grad: Vec<(usize, f64)>,
     ) {
-        let c = &self.est.classification;
+        let c = self.unc;
         let (value, sigma) = if value.is_finite() && c.is_observable(&grad) {
             (Some(value), Some(c.sigma(&grad)))
         } else {
@@ -95,7 +99,14 @@ impl Builder<'_> {
         });
     }
 
-    fn linear(&mut self, name: &str, subject: String, uom: &str, f: &Linear, scale: f64) {
+    pub(crate) fn linear(
+        &mut self,
+        name: &str,
+        subject: String,
+        uom: &str,
+        f: &Linear,
+        scale: f64,
+    ) {
         self.affine(name, subject, uom, f, 0.0, scale);
     }
 
@@ -115,7 +126,7 @@ impl Builder<'_> {
     }
 
     /// scale × aᵀz / bᵀz; null when the denominator vanishes.
-    fn ratio(
+    pub(crate) fn ratio(
         &mut self,
         name: &str,
         subject: String,
@@ -137,8 +148,8 @@ impl Builder<'_> {
             .into_iter()
             .map(|(i, v)| (i, scale * v / den))
             .collect();
-        let c = &self.est.classification;
-        if c.sparse.is_some() && f.is_finite() && c.is_observable(&grad) {
+        let c = self.unc;
+        if c.by_parts() && f.is_finite() && c.is_observable(&grad) {
             // Var(a/b) = (aᵀPa − 2f aᵀPb + f² bᵀPb) / b², in parts: a denominator such as the
             // fresh-feed total recurs in many figures, and its P b is solved for once.
             let (ga, gb) = (a.grad(), b.grad());
@@ -159,11 +170,21 @@ impl Builder<'_> {
 
 /// Every loop figure of the estimate.
 pub fn loop_figures(plant: &Plant, est: &Estimate) -> Vec<Figure> {
-    let layout = &est.layout;
+    loop_figures_of(plant, &est.layout, &est.solution.z, &est.classification)
+}
+
+/// Every loop figure of state z, σ from `unc`.
+pub fn loop_figures_of(
+    plant: &Plant,
+    layout: &Layout,
+    z: &[f64],
+    unc: &dyn Uncertainty,
+) -> Vec<Figure> {
     let mut b = Builder {
         plant,
         layout,
-        est,
+        z,
+        unc,
         out: Vec::new(),
     };
     let feeds: Vec<usize> = (0..plant.streams.len())
@@ -335,7 +356,11 @@ pub fn loop_figures(plant: &Plant, est: &Estimate) -> Vec<Figure> {
 
 /// φ of a splitter outlet as linear part and constant: its own variable, or 1 − Σ of the
 /// others for the last outlet.
-fn split_fraction(layout: &Layout, unit: &crate::model::Unit, outlet: usize) -> (Linear, f64) {
+pub(crate) fn split_fraction(
+    layout: &Layout,
+    unit: &crate::model::Unit,
+    outlet: usize,
+) -> (Linear, f64) {
     match layout.split(outlet) {
         Some(i) => (Linear::default().add(i, 1.0), 0.0),
         None => (

@@ -4,7 +4,7 @@
 use std::collections::BTreeMap;
 
 use crate::classify::{classify, Classification, SPARSE_THRESHOLD};
-use crate::equations::{measurement, stream_fraction, stream_total, var_name};
+use crate::equations::{measurement, stream_fraction, stream_total, var_name, Layout};
 use crate::estimate::Estimate;
 use crate::faults::{detectable_bias, identify_at};
 use crate::figures::{loop_figures, raw_imbalances};
@@ -16,6 +16,7 @@ use crate::report::{
 };
 use crate::solve::SolveStatus;
 use crate::stats::{global_test, measurement_test_critical, sidak};
+use crate::uncertainty::Uncertainty;
 
 /// The report entry of a meter without a usable value in the period.
 pub(crate) fn unmeasured_meter(plant: &Plant, m: &Meter) -> MeterReport {
@@ -43,7 +44,7 @@ pub(crate) fn unmeasured_meter(plant: &Plant, m: &Meter) -> MeterReport {
 }
 
 /// A value and σ of a function with gradient `grad`, or nulls when it is unobservable.
-fn observed(c: &Classification, value: f64, grad: &[(usize, f64)]) -> (Option<f64>, Option<f64>) {
+fn observed(c: &dyn Uncertainty, value: f64, grad: &[(usize, f64)]) -> (Option<f64>, Option<f64>) {
     if c.is_observable(grad) {
         (Some(value), Some(c.sigma(grad)))
     } else {
@@ -160,44 +161,8 @@ pub(crate) fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, re
 
     // Streams.
     for (s, stream) in plant.streams.iter().enumerate() {
-        let (f, grad) = stream_total(plant, layout, s, z);
-        let (molar_flow, molar_flow_sigma) = observed(c, f, &grad);
-        let mass_grad: Vec<(usize, f64)> = layout
-            .stream_flows(plant, s)
-            .zip(&stream.components)
-            .map(|(i, &k)| (i, plant.components[k].molar_mass))
-            .collect();
-        let mass: f64 = mass_grad.iter().map(|&(i, m)| m * z[i]).sum();
-        let (mass_flow, mass_flow_sigma) = observed(c, mass, &mass_grad);
-        let mut entry = StreamReport {
-            id: stream.id.clone(),
-            from: stream
-                .from
-                .map_or("outside".into(), |u| plant.units[u].id.clone()),
-            to: stream
-                .to
-                .map_or("outside".into(), |u| plant.units[u].id.clone()),
-            molar_flow,
-            molar_flow_sigma,
-            mass_flow,
-            mass_flow_sigma,
-            composition: BTreeMap::new(),
-            composition_sigma: BTreeMap::new(),
-            component_flows: BTreeMap::new(),
-            component_flows_sigma: BTreeMap::new(),
-            observable: molar_flow.is_some(),
-        };
-        for &k in &stream.components {
-            let id = plant.components[k].id.clone();
-            let (x, grad) = stream_fraction(plant, layout, s, k, z);
-            let (x, xs) = observed(c, x, &grad);
-            entry.composition.insert(id.clone(), x);
-            entry.composition_sigma.insert(id.clone(), xs);
-            let i = layout.flow(plant, s, k).expect("carried");
-            let (n, ns) = observed(c, z[i], &[(i, 1.0)]);
-            entry.component_flows.insert(id.clone(), n);
-            entry.component_flows_sigma.insert(id, ns);
-        }
+        let entry = stream_report(plant, layout, s, z, c);
+        let molar_flow = entry.molar_flow;
         if molar_flow.is_none() {
             report
                 .unobservable
@@ -273,4 +238,54 @@ pub(crate) fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, re
     if report.status == ReportStatus::Solved && any_flow_or_extent_unobservable {
         report.status = ReportStatus::Unobservable;
     }
+}
+
+/// A stream's flows and composition at state z with σ from `unc` (null where unobservable).
+pub(crate) fn stream_report(
+    plant: &Plant,
+    layout: &Layout,
+    s: usize,
+    z: &[f64],
+    unc: &dyn Uncertainty,
+) -> StreamReport {
+    let stream = &plant.streams[s];
+    let (f, grad) = stream_total(plant, layout, s, z);
+    let (molar_flow, molar_flow_sigma) = observed(unc, f, &grad);
+    let mass_grad: Vec<(usize, f64)> = layout
+        .stream_flows(plant, s)
+        .zip(&stream.components)
+        .map(|(i, &k)| (i, plant.components[k].molar_mass))
+        .collect();
+    let mass: f64 = mass_grad.iter().map(|&(i, m)| m * z[i]).sum();
+    let (mass_flow, mass_flow_sigma) = observed(unc, mass, &mass_grad);
+    let mut entry = StreamReport {
+        id: stream.id.clone(),
+        from: stream
+            .from
+            .map_or("outside".into(), |u| plant.units[u].id.clone()),
+        to: stream
+            .to
+            .map_or("outside".into(), |u| plant.units[u].id.clone()),
+        molar_flow,
+        molar_flow_sigma,
+        mass_flow,
+        mass_flow_sigma,
+        composition: BTreeMap::new(),
+        composition_sigma: BTreeMap::new(),
+        component_flows: BTreeMap::new(),
+        component_flows_sigma: BTreeMap::new(),
+        observable: molar_flow.is_some(),
+    };
+    for &k in &stream.components {
+        let id = plant.components[k].id.clone();
+        let (x, grad) = stream_fraction(plant, layout, s, k, z);
+        let (x, xs) = observed(unc, x, &grad);
+        entry.composition.insert(id.clone(), x);
+        entry.composition_sigma.insert(id.clone(), xs);
+        let i = layout.flow(plant, s, k).expect("carried");
+        let (n, ns) = observed(unc, z[i], &[(i, 1.0)]);
+        entry.component_flows.insert(id.clone(), n);
+        entry.component_flows_sigma.insert(id, ns);
+    }
+    entry
 }

@@ -44,6 +44,65 @@ pub enum Command {
         #[arg(long, value_name = "TIME", value_parser = parse_time)]
         period_to: Option<DateTime<Utc>>,
     },
+    /// The loop's new steady state after a change (a purge split, a feed, a conversion, a
+    /// target inlet fraction), from the reconciled base case of one period, every value with
+    /// σ carried from the base case; JSON on stdout (docs/what-if.md).
+    WhatIf {
+        /// The model file (TOML or JSON).
+        #[arg(long, value_name = "M")]
+        model: PathBuf,
+        /// The readings file (CSV or JSON, as for `reconcile`).
+        #[arg(long, value_name = "R")]
+        readings: PathBuf,
+        /// The base case: the period containing this RFC 3339 time (default: the last period
+        /// in R).
+        #[arg(long, value_name = "T", value_parser = parse_time)]
+        period: Option<DateTime<Utc>>,
+        /// A range as the base case instead: the periods starting at or after this time, their
+        /// calibrated values combined by their covariance.
+        #[arg(long, value_name = "TIME", value_parser = parse_time, conflicts_with = "period")]
+        period_from: Option<DateTime<Utc>>,
+        /// A range as the base case: the periods starting before this time.
+        #[arg(long, value_name = "TIME", value_parser = parse_time, conflicts_with = "period")]
+        period_to: Option<DateTime<Utc>>,
+        /// A setting, repeatable: split:STREAM=FRACTION, feed:STREAM=KMOL_PER_H,
+        /// conversion:REACTION=FRACTION, inlet_fraction:UNIT:COMPONENT=FRACTION (a target
+        /// reached by moving the purge split).
+        #[arg(long = "set", value_name = "NAME=VALUE")]
+        set: Vec<String>,
+        /// A sweep of one setting: NAME=FROM..TO:N (N points, ends included, at most 1000).
+        #[arg(long, value_name = "NAME=FROM..TO:N")]
+        sweep: Option<String>,
+        /// The splitter outlet that moves to reach a target or the optimum, split:STREAM
+        /// (default: the one splitter outlet that leaves the plant).
+        #[arg(long, value_name = "split:STREAM")]
+        free: Option<String>,
+        /// What each reaction is held at: its single-pass conversion of the key reactant, or
+        /// its extent.
+        #[arg(long, value_enum, default_value = "conversion")]
+        hold_reactions: crate::what_if::HoldArg,
+        /// Output: json (default), csv (one line per point and figure or stream) or text.
+        #[arg(long, value_enum, default_value = "json")]
+        format: crate::what_if::Format,
+        /// For the optimum: price per kmol of a product component made, COMPONENT=VALUE
+        /// (repeatable).
+        #[arg(long = "price", value_name = "COMPONENT=VALUE")]
+        price: Vec<String>,
+        /// For the optimum: value per kmol of a reactant lost in the purge, COMPONENT=VALUE
+        /// (repeatable).
+        #[arg(long = "loss-value", value_name = "COMPONENT=VALUE")]
+        loss_value: Vec<String>,
+        /// For the optimum: cost per kmol of recycle (a compression proxy).
+        #[arg(long, value_name = "VALUE")]
+        recycle_cost: Option<f64>,
+        /// For the optimum: an upper limit on a mole fraction at a reactor inlet,
+        /// UNIT:COMPONENT=MAX.
+        #[arg(long, value_name = "UNIT:COMPONENT=MAX")]
+        max_inlet_fraction: Option<String>,
+        /// For the optimum: the purge split range searched, LO..HI.
+        #[arg(long, value_name = "LO..HI", default_value = "0.001..0.5")]
+        purge_range: String,
+    },
     /// Run the HTTP service.
     Serve {
         /// Address and port to listen on.

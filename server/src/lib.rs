@@ -27,6 +27,7 @@ pub mod store;
 pub mod summary;
 #[cfg(test)]
 mod test_plants;
+pub mod what_if;
 
 /// The user's input is at fault (exit status 2). Each line names the file and the line or
 /// item; anything else that stops a command is a failed run (exit status 1).

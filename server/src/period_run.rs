@@ -95,6 +95,18 @@ pub fn run_period(
     }
 }
 
+/// The engine's analysis of the period (report and estimate) as [`run_period`] makes it, with
+/// the same steadiness warnings: the base case of a what-if.
+pub fn analyse(plant: &Plant, start: DateTime<Utc>, readings: Vec<PeriodReading>) -> Analysis {
+    let mut readings: Vec<Reading> = readings.into_iter().map(|r| r.reading).collect();
+    readings.sort_by(|a, b| a.time.cmp(&b.time).then_with(|| a.tag.cmp(&b.tag)));
+    let input = period_input(plant, &readings, start);
+    let (_, warnings) = steadiness(plant, &input);
+    let mut analysis = reconcile::analyse_period(plant, &input);
+    analysis.report.warnings.extend(warnings);
+    analysis
+}
+
 /// Outside the instrument range its meter has in `plant` (a meter without one has no outside).
 pub fn out_of_range(plant: &Plant, reading: &Reading) -> bool {
     plant

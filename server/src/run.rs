@@ -124,7 +124,7 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
     })
 }
 
-fn describe(file: &dyn std::fmt::Display, error: ReadingsError) -> BadInput {
+pub(crate) fn describe(file: &dyn std::fmt::Display, error: ReadingsError) -> BadInput {
     match error {
         ReadingsError::File(message) => BadInput::new(format!("{file}: {message}")),
         ReadingsError::Bad(bad) => {
