@@ -12,6 +12,7 @@ use tokio::sync::Notify;
 use crate::claimant::Claimant;
 use crate::ingest::{self, BatchError, Catalogue, IngestAnswer};
 use crate::metrics::Metrics;
+use crate::period_run::PeriodReading;
 use crate::readings::Format;
 use crate::revisions::{ModelCache, Models, RevisionError};
 use crate::store::{PlantRow, Store, StoreError};
@@ -57,6 +58,26 @@ impl Service {
         t: DateTime<Utc>,
     ) -> Result<(Arc<Plant>, i64), RevisionError> {
         self.models.model_at(&self.store, plant, t).await
+    }
+
+    /// The stored readings of the period `start..start + seconds`, as a period run takes them.
+    pub async fn period_readings(
+        &self,
+        plant: &PlantRow,
+        start: DateTime<Utc>,
+        seconds: i64,
+    ) -> Result<Vec<PeriodReading>, StoreError> {
+        let end = start + chrono::TimeDelta::seconds(seconds);
+        Ok(self
+            .store
+            .readings_in(plant, start, end)
+            .await?
+            .into_iter()
+            .map(|s| PeriodReading {
+                reading: s.reading,
+                out_of_range: s.out_of_range,
+            })
+            .collect())
     }
 
     /// The tags and ranges a batch of the plant is checked against; `None` before its first

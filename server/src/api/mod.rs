@@ -32,6 +32,7 @@ mod periods;
 pub mod problem;
 mod range;
 pub(crate) mod readings;
+mod what_if;
 
 use problem::Problem;
 
@@ -147,6 +148,7 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
         .routes(routes!(meters::post_note))
         .routes(routes!(figures::get_figures))
         .routes(routes!(balances::get_balances))
+        .routes(routes!(what_if::post_what_if))
         .split_for_parts();
     let text = serde_json::to_string_pretty(&openapi).unwrap_or_default();
     let _ = state.openapi.set(text);

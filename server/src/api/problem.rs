@@ -195,8 +195,23 @@ impl From<ResultsError> for Problem {
             }
             ResultsError::Revision(e) => e.into(),
             ResultsError::Store(e) => e.into(),
-            e @ ResultsError::Corrupt { .. } => {
-                tracing::error!(error = %e, "stored report unreadable");
+            ResultsError::WhatIf(e) => {
+                use reconcile::whatif::WhatIfError as W;
+                match e {
+                    // Good input the base case cannot carry.
+                    W::BaseNotSolved(_)
+                    | W::Unobservable(_)
+                    | W::Unreachable { .. }
+                    | W::Model(_) => Problem::new(
+                        StatusCode::UNPROCESSABLE_ENTITY,
+                        "base-case-cannot-carry",
+                        e.to_string(),
+                    ),
+                    e => Problem::bad_request(e.to_string()),
+                }
+            }
+            e @ (ResultsError::Corrupt { .. } | ResultsError::Task(_)) => {
+                tracing::error!(error = %e, "result failure");
                 Problem::internal()
             }
         }

@@ -1,6 +1,6 @@
-//! Results read back from stored runs and shaped for the people who use them: the period
-//! listing, range balances and their coverage, figure series, the meter ranking and one
-//! meter's history. Plain async functions over the [`Service`](crate::service::Service) and
+//! Results read back from stored runs and readings and shaped for the people who use them:
+//! the period listing, range balances and their coverage, figure series, the meter ranking
+//! and one meter's history, and the what-if of a stored period. Plain async functions over the [`Service`](crate::service::Service) and
 //! pure functions over stored report parts; nothing here knows of HTTP (the API turns a
 //! [`ResultsError`] into a problem answer).
 
@@ -10,6 +10,7 @@ pub mod meters;
 pub mod periods;
 pub mod range;
 pub mod stored;
+pub mod what_if;
 
 use chrono::{DateTime, Utc};
 
@@ -40,6 +41,13 @@ pub enum ResultsError {
     Revision(#[from] RevisionError),
     #[error(transparent)]
     Store(#[from] StoreError),
+    /// A what-if refused: a setting, sweep or value at fault (named), or a base case that
+    /// cannot carry it.
+    #[error(transparent)]
+    WhatIf(reconcile::whatif::WhatIfError),
+    /// The engine's task ended without an answer (it panicked): a fault of ours.
+    #[error("the engine stopped unexpectedly: {0}")]
+    Task(String),
     /// A stored report that does not read as the engine's report: a fault of ours.
     #[error("the stored report of period {period} of plant \"{plant}\" does not read: {reason}")]
     Corrupt {

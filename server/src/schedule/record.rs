@@ -6,10 +6,10 @@
 use std::sync::Arc;
 use std::time::Instant;
 
-use chrono::{DateTime, TimeDelta, Utc};
+use chrono::{DateTime, Utc};
 use reconcile::{Plant, Report};
 
-use crate::period_run::{self, PeriodReading, RunInputs};
+use crate::period_run::{self, RunInputs};
 use crate::revisions::RevisionError;
 use crate::service::Service;
 use crate::store::{Claim, NewRun, PlantRow, StoreError};
@@ -52,17 +52,9 @@ pub(super) async fn record_period(
     claim: Option<&Claim>,
 ) -> Result<RunOutcome, RunError> {
     let began = Instant::now();
-    let end = start + TimeDelta::seconds(model.period_seconds);
-    let readings: Vec<PeriodReading> = service
-        .store
-        .readings_in(plant, start, end)
-        .await?
-        .into_iter()
-        .map(|s| PeriodReading {
-            reading: s.reading,
-            out_of_range: s.out_of_range,
-        })
-        .collect();
+    let readings = service
+        .period_readings(plant, start, model.period_seconds)
+        .await?;
     let engine = |reason: String| RunError::Engine {
         plant: plant.name.clone(),
         period: start,
