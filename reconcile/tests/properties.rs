@@ -46,8 +46,8 @@ fn generate(seed: u64) -> Case {
     let has_product = !product_components.is_empty();
 
     let mut t = String::from("name = \"generated\"\n");
-    for c in 0..nc {
-        t += &format!("[[component]]\nid = \"C{c}\"\nmolar_mass = {}\n", masses[c]);
+    for (c, mass) in masses.iter().enumerate() {
+        t += &format!("[[component]]\nid = \"C{c}\"\nmolar_mass = {mass}\n");
     }
     let mut units = vec![
         ("mix", "mixer"),

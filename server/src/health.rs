@@ -133,7 +133,7 @@ fn pooled_bias(periods: &[&MeterPeriod]) -> Option<(f64, f64)> {
         let (Some(a), Some(sa), Some(s)) = (p.adjustment, p.adjustment_sigma, p.sigma) else {
             continue;
         };
-        if !(sa > 0.0 && s > 0.0) || !p.redundant || p.normalized.is_none() {
+        if !(sa > 0.0 && s > 0.0 && p.redundant) || p.normalized.is_none() {
             continue;
         }
         // b̂ₕ = −a σ²/σ_a² with weight σ_a²/σ⁴: Σ w b̂ = Σ −a/σ², Σ w = Σ σ_a²/σ⁴.

@@ -33,7 +33,7 @@ pub struct Network {
 }
 
 fn has_feed(k: usize) -> bool {
-    k % 3 == 0
+    k.is_multiple_of(3)
 }
 
 fn has_recycle(k: usize) -> bool {
