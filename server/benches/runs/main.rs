@@ -33,6 +33,7 @@
 //! asked for) prints no figure (`scratch::refuse_unless`); those properties are asserted by
 //! tests/reliability/runs.rs and instances.rs. The year and the report reads are on SQLite only.
 
+#[path = "../scratch/mod.rs"]
 mod scratch;
 
 use std::fmt::Write as _;

@@ -29,6 +29,7 @@ use sqlx::postgres::{PgConnection, PgPoolOptions};
 use sqlx::sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePoolOptions, SqliteSynchronous};
 use sqlx::Connection;
 
+#[path = "../scratch/mod.rs"]
 mod scratch;
 use scratch::{refuse_unless, Db, POSTGRES_VAR};
 
