@@ -7,10 +7,11 @@ mod support;
 use std::collections::BTreeSet;
 use std::time::Duration;
 
-use reqwest::{Client, Response, StatusCode};
+use reqwest::{Client, StatusCode};
 use serde_json::{json, Value};
 use support::{
-    client, json_ok, ombrask_model, problem, purge_design_csv, token, Server, OMBRASK_TAGS,
+    client, json_ok, metrics, ombrask_model, post_readings, problem, purge_design_csv, put_model,
+    token, wait_for_periods, Server, OMBRASK_TAGS,
 };
 
 const PLANT: &str = "ombrask-ob2";
@@ -36,31 +37,11 @@ fn fresh(extra: &[&str]) -> (tempfile::TempDir, Server, Tokens) {
     (dir, server, tokens)
 }
 
-async fn put_model(
-    c: &Client,
-    s: &Server,
-    tok: &str,
-    plant: &str,
-    body: &str,
-    ctype: &str,
-) -> Response {
-    c.put(s.url(&format!("/api/v1/plants/{plant}/model")))
-        .bearer_auth(tok)
-        .header("content-type", ctype)
-        .body(body.to_string())
-        .send()
-        .await
-        .expect("PUT model")
-}
-
-async fn post(c: &Client, s: &Server, tok: &str, body: &str, ctype: &str) -> Response {
-    c.post(s.url(&format!("/api/v1/plants/{PLANT}/readings")))
-        .bearer_auth(tok)
-        .header("content-type", ctype)
-        .body(body.to_string())
-        .send()
-        .await
-        .expect("POST readings")
+/// The Ombrask model PUT as `PLANT` with `tok`: created (asserted); the answer.
+async fn create_ombrask(c: &Client, s: &Server, tok: &str) -> Value {
+    let r = put_model(c, s, tok, PLANT, &ombrask_model(), "application/toml").await;
+    assert_eq!(r.status(), StatusCode::CREATED);
+    r.json().await.expect("JSON")
 }
 
 /// Hourly readings of every ombrask tag for one UTC day, the value scaled by `scale`.
@@ -116,37 +97,49 @@ fn counts(answer: &Value) -> [u64; 4] {
 async fn a_historians_life() {
     let (_dir, s, t) = fresh(&[]);
     let c = client();
-    let r = put_model(
-        &c,
-        &s,
-        &t.admin,
-        PLANT,
-        &ombrask_model(),
-        "application/toml",
-    )
-    .await;
-    assert_eq!(r.status(), StatusCode::CREATED);
-    let created: Value = r.json().await.expect("JSON");
+    let created = create_ombrask(&c, &s, &t.admin).await;
     assert_eq!(created["revision"], 1);
     assert_eq!(created["meters"], 11);
 
     // A day as CSV, the next as JSON: every reading new.
     let day1 = day_rows("2026-03-02", 1.0);
-    let answer = json_ok(post(&c, &s, &t.ingest, &csv(&day1), "text/csv").await).await;
+    let answer =
+        json_ok(post_readings(&c, &s, &t.ingest, PLANT, &csv(&day1), "text/csv").await).await;
     assert_eq!(counts(&answer), [264, 0, 0, 0], "{answer}");
     let day2 = day_rows("2026-03-03", 1.01);
-    let answer =
-        json_ok(post(&c, &s, &t.ingest, &json_batch(&day2), "application/json").await).await;
+    let answer = json_ok(
+        post_readings(
+            &c,
+            &s,
+            &t.ingest,
+            PLANT,
+            &json_batch(&day2),
+            "application/json",
+        )
+        .await,
+    )
+    .await;
     assert_eq!(counts(&answer), [264, 0, 0, 0], "{answer}");
 
     // The same batch again changes nothing.
-    let answer =
-        json_ok(post(&c, &s, &t.ingest, &csv(&day1), "text/csv; charset=utf-8").await).await;
+    let answer = json_ok(
+        post_readings(
+            &c,
+            &s,
+            &t.ingest,
+            PLANT,
+            &csv(&day1),
+            "text/csv; charset=utf-8",
+        )
+        .await,
+    )
+    .await;
     assert_eq!(counts(&answer), [0, 0, 264, 0], "{answer}");
 
     // A correction replaces one value; the rest of the day is untouched.
     let correction = "tag,time,value\nOB2-FI-101,2026-03-02T05:00:00+00:00,20999.5\n";
-    let answer = json_ok(post(&c, &s, &t.ingest, correction, "text/csv").await).await;
+    let answer =
+        json_ok(post_readings(&c, &s, &t.ingest, PLANT, correction, "text/csv").await).await;
     assert_eq!(counts(&answer), [0, 1, 0, 0], "{answer}");
     let stored = readings(
         &c,
@@ -178,7 +171,7 @@ OB2-FI-201,2026-03-04T00:00:00Z,5400,good
 OB2-FI-401,2026-03-04T00:00:00Z,500,good
 OB2-FI-501,2026-03-04T00:00:00Z,4300,bad
 ";
-    let answer = json_ok(post(&c, &s, &t.ingest, mixed, "text/csv").await).await;
+    let answer = json_ok(post_readings(&c, &s, &t.ingest, PLANT, mixed, "text/csv").await).await;
     assert_eq!(counts(&answer), [4, 0, 0, 6], "{answer}");
     assert_eq!(
         answer["out_of_range"], 1,
@@ -240,7 +233,8 @@ OB2-FI-501,2026-03-04T00:00:00Z,4300,bad
         "not an object",
     ]})
     .to_string();
-    let answer = json_ok(post(&c, &s, &t.ingest, &body, "application/json").await).await;
+    let answer =
+        json_ok(post_readings(&c, &s, &t.ingest, PLANT, &body, "application/json").await).await;
     assert_eq!(counts(&answer), [1, 0, 0, 3], "{answer}");
     let indices: Vec<u64> = answer["rejections"]
         .as_array()
@@ -251,14 +245,7 @@ OB2-FI-501,2026-03-04T00:00:00Z,4300,bad
     assert_eq!(indices, [1, 2, 3]);
 
     // The counters follow: 264 + 264 + 4 + 1 new, 1 replaced, 264 unchanged, 9 rejected.
-    let metrics = c
-        .get(s.url("/metrics"))
-        .send()
-        .await
-        .unwrap()
-        .text()
-        .await
-        .unwrap();
+    let metrics = metrics(&c, &s).await;
     for line in [
         "loopbal_readings_accepted_total 533",
         "loopbal_readings_replaced_total 1",
@@ -391,7 +378,7 @@ async fn a_new_revision_leaves_stored_readings_alone() {
         .unwrap();
     assert_eq!(r.status(), StatusCode::CREATED);
     let day = day_rows("2026-03-02", 1.0);
-    json_ok(post(&c, &s, &t.ingest, &csv(&day), "text/csv").await).await;
+    json_ok(post_readings(&c, &s, &t.ingest, PLANT, &csv(&day), "text/csv").await).await;
     let (from, to) = ("2026-03-02T00:00:00Z", "2026-03-03T00:00:00Z");
     let before = readings(&c, &s, &t.read, from, to).await;
 
@@ -447,7 +434,7 @@ async fn a_new_revision_leaves_stored_readings_alone() {
     // from noon of the 2nd, revision 1 before it.
     let late =
         "tag,time,value\nOB2-FI-401,2026-03-03T00:00:00Z,48\nOB2-FI-401,2026-03-01T00:00:00Z,48\n";
-    let answer = json_ok(post(&c, &s, &t.ingest, late, "text/csv").await).await;
+    let answer = json_ok(post_readings(&c, &s, &t.ingest, PLANT, late, "text/csv").await).await;
     assert_eq!(answer["out_of_range"], 1, "{answer}");
     let flags: Vec<(String, bool)> = readings(
         &c,
@@ -615,21 +602,13 @@ async fn every_endpoint_needs_a_suitable_token_and_the_openapi_document_lists_ev
 async fn acknowledged_data_survives_a_restart_and_shutdown_finishes_requests_in_flight() {
     let (_dir, s, t) = fresh(&[]);
     let c = client();
-    let r = put_model(
-        &c,
-        &s,
-        &t.admin,
-        PLANT,
-        &ombrask_model(),
-        "application/toml",
-    )
-    .await;
-    assert_eq!(r.status(), StatusCode::CREATED);
+    create_ombrask(&c, &s, &t.admin).await;
     json_ok(
-        post(
+        post_readings(
             &c,
             &s,
             &t.ingest,
+            PLANT,
             &csv(&day_rows("2026-03-02", 1.0)),
             "text/csv",
         )
@@ -688,34 +667,46 @@ async fn bad_requests_get_problem_details_and_change_nothing() {
     let (_dir, s, t) = fresh(&["--max-body-bytes", "4096"]);
     let c = client();
     // Readings for a plant that does not exist yet.
-    let r = post(&c, &s, &t.ingest, "tag,time,value\n", "text/csv").await;
+    let r = post_readings(&c, &s, &t.ingest, PLANT, "tag,time,value\n", "text/csv").await;
     problem(r, StatusCode::NOT_FOUND).await;
-    let r = put_model(
-        &c,
-        &s,
-        &t.admin,
-        PLANT,
-        &ombrask_model(),
-        "application/toml",
-    )
-    .await;
-    assert_eq!(r.status(), StatusCode::CREATED);
+    create_ombrask(&c, &s, &t.admin).await;
 
     let big = csv(&day_rows("2026-03-02", 1.0));
     assert!(big.len() > 4096);
-    let r = post(&c, &s, &t.ingest, &big, "text/csv").await;
+    let r = post_readings(&c, &s, &t.ingest, PLANT, &big, "text/csv").await;
     let body = problem(r, StatusCode::PAYLOAD_TOO_LARGE).await;
     assert!(body["detail"].as_str().unwrap().contains("4096"), "{body}");
 
-    let r = post(&c, &s, &t.ingest, "tag,time,value\n", "application/xml").await;
-    problem(r, StatusCode::UNSUPPORTED_MEDIA_TYPE).await;
-    let r = post(&c, &s, &t.ingest, "{\"readings\": [", "application/json").await;
-    problem(r, StatusCode::BAD_REQUEST).await;
-    let r = post(&c, &s, &t.ingest, "{\"rows\": []}", "application/json").await;
-    problem(r, StatusCode::BAD_REQUEST).await;
-    let r = post(&c, &s, &t.ingest, "", "text/csv").await;
-    problem(r, StatusCode::BAD_REQUEST).await;
-    let r = post(&c, &s, &t.ingest, "tag,time,value\n\u{0}\u{ff}", "text/csv").await;
+    for (body, ctype, status) in [
+        (
+            "tag,time,value\n",
+            "application/xml",
+            StatusCode::UNSUPPORTED_MEDIA_TYPE,
+        ),
+        (
+            "{\"readings\": [",
+            "application/json",
+            StatusCode::BAD_REQUEST,
+        ),
+        (
+            "{\"rows\": []}",
+            "application/json",
+            StatusCode::BAD_REQUEST,
+        ),
+        ("", "text/csv", StatusCode::BAD_REQUEST),
+    ] {
+        let r = post_readings(&c, &s, &t.ingest, PLANT, body, ctype).await;
+        problem(r, status).await;
+    }
+    let r = post_readings(
+        &c,
+        &s,
+        &t.ingest,
+        PLANT,
+        "tag,time,value\n\u{0}\u{ff}",
+        "text/csv",
+    )
+    .await;
     assert!(
         r.status().is_client_error() || r.status() == StatusCode::OK,
         "{}",
@@ -777,11 +768,10 @@ async fn the_log_has_requests_but_no_token_and_no_reading_value() {
     // Debug is what an operator turns on to look closer; even then nothing secret shows.
     let s = support::LOOPBAL.serve_logging(&db, &[], "debug");
     let c = client();
-    let r = put_model(&c, &s, &admin, PLANT, &ombrask_model(), "application/toml").await;
-    assert_eq!(r.status(), StatusCode::CREATED);
+    create_ombrask(&c, &s, &admin).await;
     let batch = "tag,time,value\nOB2-FI-101,2026-03-02T05:00:00Z,20417.123456\n";
-    json_ok(post(&c, &s, &admin, batch, "text/csv").await).await;
-    let r = post(&c, &s, "lb_not_a_real_token_4242", batch, "text/csv").await;
+    json_ok(post_readings(&c, &s, &admin, PLANT, batch, "text/csv").await).await;
+    let r = post_readings(&c, &s, "lb_not_a_real_token_4242", PLANT, batch, "text/csv").await;
     assert_eq!(r.status(), StatusCode::UNAUTHORIZED);
     let s_log = s.stop_and_log();
     assert!(s_log.contains("/api/v1/plants/{plant}/readings"), "{s_log}");
@@ -794,38 +784,6 @@ async fn the_log_has_requests_but_no_token_and_no_reading_value() {
     assert!(!s_log.contains("20417.12"), "a reading value is in the log");
 }
 
-/// Poll the period listing until `done` holds for it (at most 60 s).
-async fn wait_for_periods(
-    c: &Client,
-    s: &Server,
-    tok: &str,
-    plant: &str,
-    from: &str,
-    to: &str,
-    done: impl Fn(&[Value]) -> bool,
-) -> Vec<Value> {
-    let deadline = std::time::Instant::now() + Duration::from_secs(60);
-    loop {
-        let r = c
-            .get(s.url(&format!("/api/v1/plants/{plant}/periods")))
-            .query(&[("from", from), ("to", to)])
-            .bearer_auth(tok)
-            .send()
-            .await
-            .unwrap();
-        let list = json_ok(r).await;
-        let periods = list["periods"].as_array().unwrap().clone();
-        if done(&periods) {
-            return periods;
-        }
-        assert!(
-            std::time::Instant::now() < deadline,
-            "periods never settled: {periods:?}"
-        );
-        tokio::time::sleep(Duration::from_millis(200)).await;
-    }
-}
-
 #[tokio::test]
 async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
     let (_dir, s, t) = fresh(&["--run-grace", "0", "--run-tick", "1"]);
@@ -835,14 +793,7 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
     let (model, csv) = purge_design_csv(4, &|tag, hour| tag == "FI-4" && hour == 3);
     let r = put_model(&c, &s, &t.admin, plant, &model, "application/toml").await;
     assert_eq!(r.status(), StatusCode::CREATED);
-    let r = c
-        .post(s.url(&format!("/api/v1/plants/{plant}/readings")))
-        .bearer_auth(&t.ingest)
-        .header("content-type", "text/csv")
-        .body(csv)
-        .send()
-        .await
-        .unwrap();
+    let r = post_readings(&c, &s, &t.ingest, plant, &csv, "text/csv").await;
     let answer = json_ok(r).await;
     assert_eq!(answer["rejected"], 0, "{answer}");
 
@@ -891,14 +842,7 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
 
     // A correction of hour 1 makes it run again; the first report stays as history.
     let correction = "tag,time,value\nFI-4,2026-06-01T01:00:00Z,150.0\nFI-4,2026-06-01T01:20:00Z,150.0\nFI-4,2026-06-01T01:40:00Z,150.0\n";
-    let r = c
-        .post(s.url(&format!("/api/v1/plants/{plant}/readings")))
-        .bearer_auth(&t.ingest)
-        .header("content-type", "text/csv")
-        .body(correction)
-        .send()
-        .await
-        .unwrap();
+    let r = post_readings(&c, &s, &t.ingest, plant, correction, "text/csv").await;
     let answer = json_ok(r).await;
     assert_eq!(answer["replaced"], 3, "{answer}");
     wait_for_periods(&c, &s, &t.read, plant, from, to, |p| {
@@ -968,14 +912,7 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
     let r = get("2026-06-02T00:00:00Z").await.unwrap();
     problem(r, StatusCode::NOT_FOUND).await;
 
-    let metrics = c
-        .get(s.url("/metrics"))
-        .send()
-        .await
-        .unwrap()
-        .text()
-        .await
-        .unwrap();
+    let metrics = metrics(&c, &s).await;
     let solved: u64 = metrics
         .lines()
         .find_map(|l| l.strip_prefix("loopbal_runs_total{status=\"solved\"} "))

@@ -34,9 +34,10 @@
 
 use chrono::{TimeZone, Utc};
 use reconcile::equations::Layout;
-use reconcile::period::{MeterValue, PeriodInput};
+use reconcile::period::PeriodInput;
 use reconcile::simulate::{exact_values, steady_state, SimulateError, Spec};
 use reconcile::{parse_plant, reconcile_period, Plant, Report, ReportStatus};
+use testkit::one_reading_each;
 use testkit::plants::PURGE_DESIGN as MODEL;
 use testkit::purge_design::{Operating, DESIGN, LARGE_PURGE, MOL_S};
 
@@ -143,17 +144,7 @@ fn simulate(plant: &Plant, op: &Operating) -> Vec<f64> {
 }
 
 fn reconcile_exact(plant: &Plant, z: &[f64]) -> Report {
-    let values = exact_values(plant, z)
-        .into_iter()
-        .enumerate()
-        .map(|(meter, value)| MeterValue {
-            meter,
-            value,
-            readings: 1,
-            used_uncertain: false,
-            spread: 0.0,
-        })
-        .collect();
+    let values = one_reading_each(exact_values(plant, z));
     reconcile_period(
         plant,
         &PeriodInput {

@@ -251,36 +251,16 @@ mod tests {
 
     use super::*;
 
-    const MODEL: &str = r#"
-name = "tee"
-[[component]]
-id = "A"
-molar_mass = 2.0
-[[unit]]
-id = "n"
-kind = "node"
-[[stream]]
-id = "in"
-from = "outside"
-to = "n"
-[[stream]]
-id = "out"
-from = "n"
-to = "outside"
-[[meter]]
-tag = "F-1"
-stream = "in"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-range = [0.0, 200.0]
-[[meter]]
-tag = "F-2"
-stream = "out"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-"#;
+    use crate::test_plants::{tee, FlowMeter};
+
+    /// The tee with a ranged meter on its feed and an unranged one on its outlet.
+    fn plant() -> reconcile::Plant {
+        reconcile::parse_plant(&tee(&[
+            FlowMeter("F-1", "in", Some([0.0, 200.0])),
+            FlowMeter("F-2", "out", None),
+        ]))
+        .unwrap()
+    }
 
     fn start() -> DateTime<Utc> {
         Utc.with_ymd_and_hms(2026, 3, 2, 5, 0, 0).unwrap()
@@ -288,7 +268,7 @@ sigma = 1.0
 
     #[test]
     fn a_spread_beyond_eight_sigma_makes_the_period_unsteady() {
-        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let plant = plant();
         let value = |meter, spread| MeterValue {
             meter,
             value: 100.0,
@@ -321,7 +301,7 @@ sigma = 1.0
 
     #[test]
     fn run_inputs_list_the_missing_tags() {
-        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let plant = plant();
         let input = PeriodInput {
             start: start(),
             end: start(),
@@ -353,7 +333,7 @@ sigma = 1.0
 
     #[test]
     fn a_run_screens_counts_and_warns_whatever_the_order_of_its_readings() {
-        let plant = reconcile::parse_plant(MODEL).unwrap();
+        let plant = plant();
         let mut readings = vec![
             reading("F-1", 0, 100.1, Quality::Good),
             reading("F-1", 20, 99.7, Quality::Uncertain),

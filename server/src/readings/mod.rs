@@ -287,33 +287,10 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
 mod tests {
     use super::*;
 
+    use crate::test_plants::{tee, FlowMeter};
+
     fn plant() -> Plant {
-        reconcile::parse_plant(
-            r#"
-name = "tit-line"
-[[component]]
-id = "A"
-molar_mass = 2.0
-[[unit]]
-id = "n"
-kind = "node"
-[[stream]]
-id = "in"
-from = "outside"
-to = "n"
-[[stream]]
-id = "out"
-from = "n"
-to = "outside"
-[[meter]]
-tag = "T-1"
-stream = "in"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-"#,
-        )
-        .expect("valid test model")
+        reconcile::parse_plant(&tee(&[FlowMeter("T-1", "in", None)])).expect("valid test model")
     }
 
     #[test]
