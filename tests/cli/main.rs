@@ -6,7 +6,10 @@ use std::process::{Command, Output};
 
 use serde_json::Value;
 
-mod support;
+/// The end-to-end harness (testkit::e2e) bound to this package's `loopbal` binary.
+mod support {
+    testkit::e2e_support!();
+}
 
 use testkit::plants::OMBRASK_PATH as OMBRASK;
 

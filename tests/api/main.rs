@@ -2,7 +2,10 @@
 //! a free loopback port with a temporary SQLite file, driven over HTTP as the historian, the
 //! engineer and the administrator would.
 
-mod support;
+/// The end-to-end harness (testkit::e2e) bound to this package's `loopbal` binary.
+mod support {
+    testkit::e2e_support!();
+}
 
 use std::collections::BTreeSet;
 use std::time::Duration;
