@@ -2,9 +2,9 @@
 //! every period runs exactly once (one current run, one run in all), no dirty mark is left,
 //! the instances log one "period run" line per period between them and no error, and a report
 //! read back is the period asked for with every meter. These are the checks the period-run
-//! benchmark (server/benches/runs.rs) relies on for its figures; they are asserted here.
+//! benchmark (server/benches/runs/) relies on for its figures; they are asserted here.
 //! (instances.rs kills one of the two instances; the posts' counts are asserted in
-//! tests/api.rs as well.)
+//! tests/api/readings.rs as well.)
 
 use crate::instances::{periods, query_ints};
 use crate::support::{client, json_ok, post_readings, purge_design_csv, put_model, token_on};

@@ -196,7 +196,7 @@ pub async fn store_direct(db: Db<'_>, data: &Data, done: usize) -> Figure {
         let dt = t.elapsed();
         refuse_unless(
             counts.accepted == BATCH,
-            "tests/api.rs a_historians_life",
+            "server/src/store/tests/readings.rs readings_are_idempotent_and_changes_mark_their_period",
             || format!("store direct: {} of {BATCH} readings new", counts.accepted),
         );
         elapsed += dt;

@@ -25,7 +25,7 @@ async fn post(served: &InProcess, body: String) -> Answer {
     let (status, text) = served.post_csv(body).await;
     refuse_unless(
         status.is_success(),
-        "tests/api.rs a_historians_life",
+        "tests/api/readings.rs a_historians_life",
         || format!("POST readings answered {status}: {text}"),
     );
     serde_json::from_str(&text).expect("answer is an IngestAnswer")
@@ -52,7 +52,7 @@ async fn post_all(
         let dt = t.elapsed();
         refuse_unless(
             (a.accepted, a.replaced, a.unchanged, a.rejected) == (expect.0, expect.1, expect.2, 0),
-            "tests/api.rs a_historians_life",
+            "tests/api/readings.rs a_historians_life",
             || format!("{case}: unexpected answer"),
         );
         elapsed += dt;
@@ -136,7 +136,7 @@ pub async fn http_cases(db: Db<'_>, data: &Data) -> (Vec<Figure>, usize) {
         let checked = ingest::check_batch(body.as_bytes(), Format::Csv, &catalogue).expect("check");
         refuse_unless(
             checked.good.len() == BATCH,
-            "tests/api.rs a_historians_life",
+            "tests/api/readings.rs a_historians_life",
             || format!("check_batch found {} good of {BATCH}", checked.good.len()),
         );
     }

@@ -63,7 +63,7 @@ impl Service {
             let answer: serde_json::Value = serde_json::from_str(&text).unwrap_or_default();
             refuse_unless(
                 status.is_success() && answer["accepted"].as_u64() == Some(n as u64),
-                "tests/api.rs a_historians_life",
+                "tests/api/readings.rs a_historians_life",
                 || format!("POST readings answered {status}, not every reading new: {text}"),
             );
         }

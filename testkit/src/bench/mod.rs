@@ -162,7 +162,7 @@ impl InProcess {
             .expect("PUT model");
         let status = res.status();
         let text = res.text().await.unwrap_or_default();
-        refuse_unless(status.is_success(), "tests/api.rs", || {
+        refuse_unless(status.is_success(), "tests/api/models.rs", || {
             format!("PUT model answered {status}: {text}")
         });
         InProcess {
