@@ -4,7 +4,6 @@
 use std::process::Command;
 
 use loopbal_server::demo::scenario;
-use reconcile::period::MeterValue;
 use reconcile::PeriodInput;
 use serde_json::Value;
 
@@ -12,7 +11,11 @@ const BIN: &str = env!("CARGO_BIN_EXE_loopbal");
 
 fn demo(extra: &[&str]) -> std::process::Output {
     let dir = tempfile::tempdir().unwrap();
-    let db = dir.path().join("demo.sqlite");
+    demo_on(&dir.path().join("demo.sqlite"), extra)
+}
+
+/// `loopbal demo --no-serve` on the database file `db`.
+fn demo_on(db: &std::path::Path, extra: &[&str]) -> std::process::Output {
     Command::new(BIN)
         .args([
             "demo",
@@ -21,7 +24,7 @@ fn demo(extra: &[&str]) -> std::process::Output {
             "127.0.0.1:0",
             "--database",
         ])
-        .arg(&db)
+        .arg(db)
         .args(extra)
         .output()
         .expect("run loopbal demo")
@@ -37,17 +40,7 @@ fn true_figures() -> Vec<Value> {
     let input = PeriodInput {
         start,
         end: start + chrono::TimeDelta::hours(1),
-        values: exact
-            .iter()
-            .enumerate()
-            .map(|(meter, &value)| MeterValue {
-                meter,
-                value,
-                readings: 1,
-                used_uncertain: false,
-                spread: 0.0,
-            })
-            .collect(),
+        values: testkit::one_reading_each(exact),
     };
     let report = reconcile::reconcile_period(&plant, &input);
     serde_json::to_value(&report.figures)
@@ -148,17 +141,7 @@ fn the_text_summary_reads_as_a_report_and_refuses_an_existing_database() {
     let dir = tempfile::tempdir().unwrap();
     let db = dir.path().join("taken.sqlite");
     std::fs::write(&db, b"not a demo").unwrap();
-    let out = Command::new(BIN)
-        .args([
-            "demo",
-            "--no-serve",
-            "--listen",
-            "127.0.0.1:0",
-            "--database",
-        ])
-        .arg(&db)
-        .output()
-        .unwrap();
+    let out = demo_on(&db, &[]);
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("taken.sqlite"));
     assert_eq!(

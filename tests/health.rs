@@ -12,7 +12,7 @@ use chrono::{DateTime, TimeDelta, Utc};
 use reconcile::simulate::{steady_state, MeterFault, ReadingPlan};
 use reqwest::{Client, StatusCode};
 use serde_json::{json, Value};
-use support::{token, Server};
+use support::{post_readings, put_model, token, Server};
 
 const PLANT: &str = "purge-design";
 
@@ -79,29 +79,15 @@ impl Service {
                 .unwrap(),
             _dir: dir,
         };
-        let r = s
-            .client
-            .put(s.server.url(&format!("/api/v1/plants/{PLANT}/model")))
-            .bearer_auth(&s.admin)
-            .header("content-type", "application/toml")
-            .body(model_text())
-            .send()
-            .await
-            .unwrap();
+        let (c, model) = (&s.client, model_text());
+        let r = put_model(c, &s.server, &s.admin, PLANT, &model, "application/toml").await;
         assert_eq!(r.status(), StatusCode::CREATED);
         s
     }
 
     async fn post(&self, csv: String) -> Value {
-        let r = self
-            .client
-            .post(self.server.url(&format!("/api/v1/plants/{PLANT}/readings")))
-            .bearer_auth(&self.ingest)
-            .header("content-type", "text/csv")
-            .body(csv)
-            .send()
-            .await
-            .unwrap();
+        let (c, s) = (&self.client, &self.server);
+        let r = post_readings(c, s, &self.ingest, PLANT, &csv, "text/csv").await;
         assert_eq!(r.status(), StatusCode::OK);
         let answer: Value = r.json().await.unwrap();
         assert_eq!(answer["rejected"], 0, "{answer}");

@@ -5,11 +5,12 @@
 mod support;
 
 use std::collections::BTreeMap;
-use std::time::Duration;
 
 use reqwest::{Client, StatusCode};
 use serde_json::Value;
-use support::{client, json_ok, problem, token, Server};
+use support::{
+    client, json_ok, post_readings, problem, put_model, token, wait_for_periods, Server,
+};
 
 const PLANT: &str = "purge-design";
 /// Four simulated hours, 00:00 to 04:00; the range around them has an unrun hour at each end.
@@ -77,49 +78,19 @@ async fn run_hours(skip: &dyn Fn(&str, usize) -> bool) -> Setup {
     let s = support::LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]);
     let c = client();
     let (model, csv, truth) = purge_design(skip);
-    let r = c
-        .put(s.url(&format!("/api/v1/plants/{PLANT}/model")))
-        .bearer_auth(&admin)
-        .header("content-type", "application/toml")
-        .body(model)
-        .send()
-        .await
-        .unwrap();
+    let r = put_model(&c, &s, &admin, PLANT, &model, "application/toml").await;
     assert_eq!(r.status(), StatusCode::CREATED);
-    let r = c
-        .post(s.url(&format!("/api/v1/plants/{PLANT}/readings")))
-        .bearer_auth(&ingest)
-        .header("content-type", "text/csv")
-        .body(csv)
-        .send()
-        .await
-        .unwrap();
+    let r = post_readings(&c, &s, &ingest, PLANT, &csv, "text/csv").await;
     let answer = json_ok(r).await;
     assert_eq!(answer["rejected"], 0, "{answer}");
 
-    let deadline = std::time::Instant::now() + Duration::from_secs(60);
-    loop {
-        let r = c
-            .get(s.url(&format!("/api/v1/plants/{PLANT}/periods")))
-            .query(&[("from", START), ("to", END)])
-            .bearer_auth(&read)
-            .send()
-            .await
-            .unwrap();
-        let periods = json_ok(r).await["periods"].as_array().unwrap().clone();
-        let done = periods.len() == HOURS
+    wait_for_periods(&c, &s, &read, PLANT, START, END, |periods| {
+        periods.len() == HOURS
             && periods
                 .iter()
-                .all(|p| p["runs"] == 1 && p["rerun_due"] == false);
-        if done {
-            break;
-        }
-        assert!(
-            std::time::Instant::now() < deadline,
-            "periods never settled: {periods:?}"
-        );
-        tokio::time::sleep(Duration::from_millis(200)).await;
-    }
+                .all(|p| p["runs"] == 1 && p["rerun_due"] == false)
+    })
+    .await;
     Setup {
         _dir: dir,
         s,
@@ -132,12 +103,10 @@ async fn run_hours(skip: &dyn Fn(&str, usize) -> bool) -> Setup {
 /// As `run_hours` with every reading: every hour is solved.
 async fn solved_hours() -> Setup {
     let t = run_hours(&|_, _| false).await;
-    let r = t
-        .get("periods", &[("from", START), ("to", END)])
-        .send()
-        .await
-        .unwrap();
-    for p in json_ok(r).await["periods"].as_array().unwrap() {
+    for p in t.json("periods", &[("from", START), ("to", END)]).await["periods"]
+        .as_array()
+        .unwrap()
+    {
         assert_eq!(p["status"], "solved", "{p}");
     }
     t
@@ -151,13 +120,13 @@ impl Setup {
             .bearer_auth(&self.read)
     }
 
+    /// The JSON answer of `GET …/{path}` with `query` (200 asserted).
+    async fn json(&self, path: &str, query: &[(&str, &str)]) -> Value {
+        json_ok(self.get(path, query).send().await.unwrap()).await
+    }
+
     async fn report(&self, start: &str) -> Value {
-        let r = self
-            .get(&format!("periods/{start}"), &[])
-            .send()
-            .await
-            .unwrap();
-        json_ok(r).await["report"].clone()
+        self.json(&format!("periods/{start}"), &[]).await["report"].clone()
     }
 }
 
@@ -174,13 +143,7 @@ async fn figures_are_a_time_series_with_sigma_as_json_and_as_csv() {
     let t = solved_hours().await;
 
     // Every figure of the solved hours: one point per period, each with a value and a σ.
-    let all = json_ok(
-        t.get("figures", &[("from", START), ("to", END)])
-            .send()
-            .await
-            .unwrap(),
-    )
-    .await;
+    let all = t.json("figures", &[("from", START), ("to", END)]).await;
     assert_eq!(all["plant"], PLANT);
     assert_eq!(all["periods"], HOURS);
     let names: Vec<&str> = all["names"]
@@ -224,8 +187,8 @@ async fn figures_are_a_time_series_with_sigma_as_json_and_as_csv() {
         ("purge_fraction", "purge"),
         ("inert_fraction_reactor_inlet", "conv:Ar"),
     ] {
-        let answer = json_ok(
-            t.get(
+        let answer = t
+            .json(
                 "figures",
                 &[
                     ("from", START),
@@ -234,11 +197,7 @@ async fn figures_are_a_time_series_with_sigma_as_json_and_as_csv() {
                     ("subject", subject),
                 ],
             )
-            .send()
-            .await
-            .unwrap(),
-        )
-        .await;
+            .await;
         let series = answer["series"].as_array().unwrap();
         assert_eq!(series.len(), 1, "{answer}");
         let truth = t
@@ -259,13 +218,7 @@ async fn figures_are_a_time_series_with_sigma_as_json_and_as_csv() {
 
     // The range around the simulated hours: its first and last periods were never run, and
     // their points are there with null, as gaps.
-    let wide = json_ok(
-        t.get("figures", &[("from", BEFORE), ("to", AFTER)])
-            .send()
-            .await
-            .unwrap(),
-    )
-    .await;
+    let wide = t.json("figures", &[("from", BEFORE), ("to", AFTER)]).await;
     for s in wide["series"].as_array().unwrap() {
         let points = s["points"].as_array().unwrap();
         assert_eq!(points.len(), HOURS + 2);
@@ -394,13 +347,7 @@ fn close(a: f64, b: f64) -> bool {
 #[tokio::test]
 async fn balances_are_the_reports_flows_summed_over_the_range_with_sigma() {
     let t = solved_hours().await;
-    let answer = json_ok(
-        t.get("balances", &[("from", START), ("to", END)])
-            .send()
-            .await
-            .unwrap(),
-    )
-    .await;
+    let answer = t.json("balances", &[("from", START), ("to", END)]).await;
     assert_eq!(answer["plant"], PLANT);
     assert_eq!(answer["period_seconds"], 3600);
     let coverage = &answer["coverage"];
@@ -502,13 +449,7 @@ async fn balances_are_the_reports_flows_summed_over_the_range_with_sigma() {
 
     // A range with unrun periods at both ends reports them, and sums no fewer hours than it
     // has: every total is null.
-    let wide = json_ok(
-        t.get("balances", &[("from", BEFORE), ("to", AFTER)])
-            .send()
-            .await
-            .unwrap(),
-    )
-    .await;
+    let wide = t.json("balances", &[("from", BEFORE), ("to", AFTER)]).await;
     let coverage = &wide["coverage"];
     assert_eq!(coverage["periods"], HOURS + 2);
     assert_eq!(coverage["covered"], HOURS);
@@ -567,13 +508,7 @@ async fn a_stream_unobservable_in_one_hour_has_a_gap_and_no_total() {
         .unwrap();
     assert!(recycle["molar_flow"].is_null(), "{recycle}");
 
-    let answer = json_ok(
-        t.get("balances", &[("from", START), ("to", END)])
-            .send()
-            .await
-            .unwrap(),
-    )
-    .await;
+    let answer = t.json("balances", &[("from", START), ("to", END)]).await;
     let coverage = &answer["coverage"];
     assert_eq!(
         coverage["covered"], HOURS,
@@ -602,16 +537,12 @@ async fn a_stream_unobservable_in_one_hour_has_a_gap_and_no_total() {
     assert!(number(&feed["amount_kmol"]) > 0.0, "{feed}");
 
     // The recycle ratio of that hour is a gap in its series, not a number.
-    let figures = json_ok(
-        t.get(
+    let figures = t
+        .json(
             "figures",
             &[("from", START), ("to", END), ("name", "recycle_ratio")],
         )
-        .send()
-        .await
-        .unwrap(),
-    )
-    .await;
+        .await;
     let points = figures["series"][0]["points"].as_array().unwrap();
     assert_eq!(points.len(), HOURS);
     assert_eq!(points[2]["status"], "unobservable");

@@ -12,7 +12,7 @@ use std::time::{Duration, Instant};
 
 use reqwest::StatusCode;
 use serde_json::Value;
-use support::{client, json_ok, purge_design_csv, token, BIN, LOOPBAL};
+use support::{client, json_ok, purge_design_csv, put_model, token, BIN, LOOPBAL};
 
 const PLANT: &str = "purge-design";
 const HOURS: usize = 5;
@@ -107,14 +107,7 @@ async fn service_reports(
     let read = token(&db, "read", None);
     let s = LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]);
     let c = client();
-    let r = c
-        .put(s.url(&format!("/api/v1/plants/{PLANT}/model")))
-        .bearer_auth(&admin)
-        .header("content-type", "application/toml")
-        .body(model.to_string())
-        .send()
-        .await
-        .expect("PUT model");
+    let r = put_model(&c, &s, &admin, PLANT, model, "application/toml").await;
     assert_eq!(r.status(), StatusCode::CREATED);
     let post = |body: String| {
         c.post(s.url(&format!("/api/v1/plants/{PLANT}/readings")))

@@ -7,7 +7,7 @@ use reconcile::report::FaultKind;
 use reconcile::solve::Measured;
 use reconcile::{estimate, parse_plant, Estimate, Plant};
 use testkit::plants::VANTLE;
-use testkit::{exact_values, noisy_values, vantle_true_state, VantleConditions};
+use testkit::{exact_values, noisy_values, one_reading_each, vantle_true_state, VantleConditions};
 
 fn measured(plant: &Plant, values: &[MeterValue]) -> Vec<Measured> {
     values
@@ -234,23 +234,12 @@ fn small_loop_values(plant: &Plant) -> Vec<MeterValue> {
     let (feed, argon) = (100.0, 1.0);
     let purge = feed; // at steady state everything fed leaves with the purge
     let recycle = 4.0 * purge;
-    plant
-        .meters
-        .iter()
-        .enumerate()
-        .map(|(meter, m)| MeterValue {
-            meter,
-            value: match m.tag.as_str() {
-                "FI-1" | "FI-1B" => feed,
-                "FI-2" => purge,
-                "FI-3" => recycle,
-                _ => argon,
-            },
-            readings: 1,
-            used_uncertain: false,
-            spread: 0.0,
-        })
-        .collect()
+    one_reading_each(plant.meters.iter().map(|m| match m.tag.as_str() {
+        "FI-1" | "FI-1B" => feed,
+        "FI-2" => purge,
+        "FI-3" => recycle,
+        _ => argon,
+    }))
 }
 
 fn identify_with(model: &str, bias: (&str, f64), seed: u64) -> Vec<reconcile::report::Fault> {
@@ -382,17 +371,7 @@ fn leak_values(plant: &Plant, at: &str, lost: f64, seed: u64) -> Vec<MeterValue>
     let s5 = s2 - s6 - n2_loss;
     let s4 = s3 - n4_loss;
     let s7 = s4 + s5;
-    let exact: Vec<MeterValue> = [s1, s2, s3, s4, s5, s6, s7]
-        .iter()
-        .enumerate()
-        .map(|(meter, &value)| MeterValue {
-            meter,
-            value,
-            readings: 1,
-            used_uncertain: false,
-            spread: 0.0,
-        })
-        .collect();
+    let exact = one_reading_each([s1, s2, s3, s4, s5, s6, s7]);
     noisy_values(plant, &exact, seed)
 }
 

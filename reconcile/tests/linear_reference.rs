@@ -7,8 +7,9 @@ use clarabel::solver::{
     DefaultSettingsBuilder, DefaultSolver, IPSolver, SolverStatus, SupportedConeT,
 };
 use nalgebra::{DMatrix, DVector};
-use reconcile::period::{MeterValue, PeriodInput};
+use reconcile::period::PeriodInput;
 use reconcile::{parse_plant, reconcile_period, Report, ReportStatus};
+use testkit::one_reading_each;
 
 /// Three balance nodes, six single-component streams, every stream metered; stream s3 is
 /// metered in mol/s, the others in kmol/h.
@@ -106,15 +107,7 @@ const MOL_S: f64 = 1000.0 / 3600.0; // mol/s per kmol/h
 /// Run the engine on readings given in kmol/h (F3 is converted to its mol/s uom).
 fn run(y: [f64; 6]) -> Report {
     let plant = parse_plant(MODEL).unwrap();
-    let values = (0..6)
-        .map(|k| MeterValue {
-            meter: k,
-            value: if k == 2 { y[k] * MOL_S } else { y[k] },
-            readings: 1,
-            used_uncertain: false,
-            spread: 0.0,
-        })
-        .collect();
+    let values = one_reading_each((0..6).map(|k| if k == 2 { y[k] * MOL_S } else { y[k] }));
     reconcile_period(
         &plant,
         &PeriodInput {

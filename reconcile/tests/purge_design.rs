@@ -34,9 +34,10 @@
 
 use chrono::{TimeZone, Utc};
 use reconcile::equations::Layout;
-use reconcile::period::{MeterValue, PeriodInput};
+use reconcile::period::PeriodInput;
 use reconcile::simulate::{exact_values, steady_state, SimulateError, Spec};
 use reconcile::{parse_plant, reconcile_period, Plant, Report, ReportStatus};
+use testkit::one_reading_each;
 use testkit::plants::PURGE_DESIGN as MODEL;
 use testkit::purge_design::{Operating, DESIGN, LARGE_PURGE, MOL_S};
 
@@ -143,17 +144,7 @@ fn simulate(plant: &Plant, op: &Operating) -> Vec<f64> {
 }
 
 fn reconcile_exact(plant: &Plant, z: &[f64]) -> Report {
-    let values = exact_values(plant, z)
-        .into_iter()
-        .enumerate()
-        .map(|(meter, value)| MeterValue {
-            meter,
-            value,
-            readings: 1,
-            used_uncertain: false,
-            spread: 0.0,
-        })
-        .collect();
+    let values = one_reading_each(exact_values(plant, z));
     reconcile_period(
         plant,
         &PeriodInput {
@@ -306,17 +297,19 @@ fn large_purge_reconciles_to_2_4_percent_inert_at_the_reactor_inlet() {
     check_reconciled(&LARGE_PURGE);
 }
 
-/// Without a purge, a reactant fed in excess of stoichiometry can leave only by reaction: there
-/// is no steady state, and the simulator says which component accumulates.
-#[test]
-fn excess_reactant_without_purge_has_no_steady_state() {
-    let model = MODEL
+/// The purge-design model without its purge: no purge stream, the splitter a plain node.
+fn without_purge() -> String {
+    MODEL
         .replace("[[stream]]\nid = \"purge\"\nfrom = \"split\"\nto = \"outside\"\ncomponents = [\"N2\", \"H2\", \"Ar\"]\n", "")
-        .replace("id = \"split\"\nkind = \"splitter\"", "id = \"split\"\nkind = \"node\"");
-    let model: String = model
+        .replace("id = \"split\"\nkind = \"splitter\"", "id = \"split\"\nkind = \"node\"")
+}
+
+/// `model` without the meters whose text `drop` picks.
+fn drop_meters(model: &str, drop: impl Fn(&str) -> bool) -> String {
+    model
         .split("[[meter]]")
         .enumerate()
-        .filter(|(k, m)| *k == 0 || (!m.contains("\"purge\"") && !m.contains("\"Ar\"")))
+        .filter(|(k, m)| *k == 0 || !drop(m))
         .map(|(k, m)| {
             if k == 0 {
                 m.to_string()
@@ -324,7 +317,16 @@ fn excess_reactant_without_purge_has_no_steady_state() {
                 format!("[[meter]]{m}")
             }
         })
-        .collect();
+        .collect()
+}
+
+/// Without a purge, a reactant fed in excess of stoichiometry can leave only by reaction: there
+/// is no steady state, and the simulator says which component accumulates.
+#[test]
+fn excess_reactant_without_purge_has_no_steady_state() {
+    let model = drop_meters(&without_purge(), |m| {
+        m.contains("\"purge\"") || m.contains("\"Ar\"")
+    });
     let model = model.replace(
         "components = [\"N2\", \"H2\", \"Ar\"]\n[[stream]]\nid = \"conv-in\"",
         "components = [\"N2\", \"H2\"]\n[[stream]]\nid = \"conv-in\"",
@@ -359,22 +361,11 @@ fn excess_reactant_without_purge_has_no_steady_state() {
 /// When the inert leaves with the product, the loop has a steady state with no purge at all.
 #[test]
 fn inert_leaving_with_the_product_needs_no_purge() {
-    let model = MODEL
-        .replace("[[stream]]\nid = \"purge\"\nfrom = \"split\"\nto = \"outside\"\ncomponents = [\"N2\", \"H2\", \"Ar\"]\n", "")
-        .replace("id = \"split\"\nkind = \"splitter\"", "id = \"split\"\nkind = \"node\"")
-        .replace("to = \"outside\"\ncomponents = [\"NH3\"]", "to = \"outside\"\ncomponents = [\"NH3\", \"Ar\"]");
-    let model: String = model
-        .split("[[meter]]")
-        .enumerate()
-        .filter(|(_, m)| !m.contains("\"purge\""))
-        .map(|(k, m)| {
-            if k == 0 {
-                m.to_string()
-            } else {
-                format!("[[meter]]{m}")
-            }
-        })
-        .collect();
+    let model = without_purge().replace(
+        "to = \"outside\"\ncomponents = [\"NH3\"]",
+        "to = \"outside\"\ncomponents = [\"NH3\", \"Ar\"]",
+    );
+    let model = drop_meters(&model, |m| m.contains("\"purge\""));
     let plant = parse_plant(&model).unwrap_or_else(|e| panic!("{e}"));
     let specs = vec![
         Spec::ComponentFlow {

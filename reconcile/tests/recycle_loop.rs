@@ -1,12 +1,11 @@
 //! A recycle loop with a reactor, a separator and a purge splitter, where flows are metered on
 //! some streams and compositions on others (tests/data/ombrask-loop.toml).
 
-use chrono::{TimeZone, Utc};
-use reconcile::equations::{measurement, Layout};
-use reconcile::period::{MeterValue, PeriodInput};
+use reconcile::equations::Layout;
 use reconcile::{parse_plant, reconcile_period, Plant, ReportStatus};
 
 use testkit::plants::OMBRASK as MODEL;
+use testkit::{exact_values, period};
 
 /// The loop's true steady state by successive substitution around the recycle: 25 % single-pass
 /// conversion of N2, all NH3 and 5 % of the CH4 leave with the liquid product, 5 % purge.
@@ -58,32 +57,12 @@ pub fn true_state(
     z
 }
 
-fn period(values: Vec<MeterValue>) -> PeriodInput {
-    PeriodInput {
-        start: Utc.with_ymd_and_hms(2026, 3, 2, 5, 0, 0).unwrap(),
-        end: Utc.with_ymd_and_hms(2026, 3, 2, 6, 0, 0).unwrap(),
-        values,
-    }
-}
-
-fn exact_readings(plant: &Plant, layout: &Layout, z: &[f64]) -> Vec<MeterValue> {
-    (0..plant.meters.len())
-        .map(|m| MeterValue {
-            meter: m,
-            value: measurement(plant, layout, &plant.meters[m], z).0,
-            readings: 1,
-            used_uncertain: false,
-            spread: 0.0,
-        })
-        .collect()
-}
-
 #[test]
 fn noise_free_loop_reconciles_to_itself() {
     let plant = parse_plant(MODEL).unwrap();
     let layout = Layout::new(&plant);
     let z = true_state(&plant, &layout, [247.0, 740.0, 0.0, 3.0, 10.0], 0.05);
-    let report = reconcile_period(&plant, &period(exact_readings(&plant, &layout, &z)));
+    let report = reconcile_period(&plant, &period(exact_values(&plant, &layout, &z)));
     println!("{}", serde_json::to_string_pretty(&report).unwrap());
     assert_eq!(report.status, ReportStatus::Solved, "{:?}", report.warnings);
     assert!(report.objective.unwrap() < 1e-12);
@@ -138,7 +117,7 @@ fn noisy_hours_converge() {
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(7);
     let mut solved = 0;
     for _ in 0..40 {
-        let mut values = exact_readings(&plant, &layout, &z);
+        let mut values = exact_values(&plant, &layout, &z);
         for v in &mut values {
             let sigma = plant.meters[v.meter].sigma_for(v.value).unwrap();
             v.value += Normal::new(0.0, sigma).unwrap().sample(&mut rng);

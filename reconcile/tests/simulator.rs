@@ -166,3 +166,31 @@ fn bad_specifications_are_refused_naming_the_item() {
     .unwrap_err();
     assert!(err.to_string().contains("degrees of freedom"), "{err}");
 }
+
+/// The simulator's readings of `hours` hours group into one hourly period an hour, in order,
+/// each holding every meter with the hour's readings (what the period-run benchmark relies on
+/// when it gives the engine a month of readings: server/benches/runs/month.rs).
+#[test]
+fn hourly_readings_group_into_one_period_an_hour() {
+    let plant = parse_plant(MODEL).unwrap();
+    let z = loop_state(&plant);
+    let hours = 48;
+    let plan = ReadingPlan {
+        per_hour: 3,
+        ..plan(hours, 11, vec![])
+    };
+    let all = readings(&plant, &z, &plan);
+    assert_eq!(all.len(), hours * 3 * plant.meters.len());
+    let periods = reconcile::group_readings(&plant, &all);
+    assert_eq!(periods.len(), hours);
+    for (h, p) in periods.iter().enumerate() {
+        assert_eq!(
+            p.start,
+            plan.start + chrono::TimeDelta::hours(h as i64),
+            "period {h}"
+        );
+        assert_eq!(p.end - p.start, chrono::TimeDelta::hours(1), "period {h}");
+        assert_eq!(p.values.len(), plant.meters.len(), "period {h}");
+        assert!(p.values.iter().all(|v| v.readings == 3), "period {h}");
+    }
+}

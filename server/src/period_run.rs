@@ -255,8 +255,15 @@ mod tests {
 
     use super::*;
 
-    fn model() -> String {
-        crate::test_plants::metered_tee("F-1", "F-2", 200.0)
+    use crate::test_plants::{tee, FlowMeter};
+
+    /// The tee with a ranged meter on its feed and an unranged one on its outlet.
+    fn plant() -> reconcile::Plant {
+        reconcile::parse_plant(&tee(&[
+            FlowMeter("F-1", "in", Some([0.0, 200.0])),
+            FlowMeter("F-2", "out", None),
+        ]))
+        .unwrap()
     }
 
     fn start() -> DateTime<Utc> {
@@ -265,7 +272,7 @@ mod tests {
 
     #[test]
     fn a_spread_beyond_eight_sigma_makes_the_period_unsteady() {
-        let plant = reconcile::parse_plant(&model()).unwrap();
+        let plant = plant();
         let value = |meter, spread| MeterValue {
             meter,
             value: 100.0,
@@ -298,7 +305,7 @@ mod tests {
 
     #[test]
     fn run_inputs_list_the_missing_tags() {
-        let plant = reconcile::parse_plant(&model()).unwrap();
+        let plant = plant();
         let input = PeriodInput {
             start: start(),
             end: start(),
@@ -330,7 +337,7 @@ mod tests {
 
     #[test]
     fn a_run_screens_counts_and_warns_whatever_the_order_of_its_readings() {
-        let plant = reconcile::parse_plant(&model()).unwrap();
+        let plant = plant();
         let mut readings = vec![
             reading("F-1", 0, 100.1, Quality::Good),
             reading("F-1", 20, 99.7, Quality::Uncertain),

@@ -1,7 +1,14 @@
-//! The smallest plants the shell's unit tests need: one node between a feed and a product.
+//! The smallest plants the shell's unit tests need: a tee (one node `n` with a feed `in` and
+//! an outlet `out`, one component `A`) with the molar-flow meters a test asks for.
 
-/// The tee with one meter, `F-1`, on its feed.
-pub(crate) const TEE: &str = r#"
+/// A molar-flow meter of the tee, σ 1 kmol/h: its tag, its stream (`in` or `out`) and its
+/// range, if it has one.
+pub(crate) struct FlowMeter(pub &'static str, pub &'static str, pub Option<[f64; 2]>);
+
+/// The tee's model file with `meters`.
+pub(crate) fn tee(meters: &[FlowMeter]) -> String {
+    let mut text = String::from(
+        r#"
 name = "tee"
 [[component]]
 id = "A"
@@ -17,29 +24,21 @@ to = "n"
 id = "out"
 from = "n"
 to = "outside"
-[[meter]]
-tag = "F-1"
-stream = "in"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-"#;
-
-/// The tee with a meter on each stream: `feed` on the feed, with an instrument range of 0 to
-/// `range` kmol/h, and `product` on the product (a redundant pair: each tests the other).
-pub(crate) fn metered_tee(feed: &str, product: &str, range: f64) -> String {
-    let feed_meter = TEE.replace("tag = \"F-1\"", &format!("tag = \"{feed}\""));
-    format!(
-        "{feed_meter}range = [0.0, {range:?}]\n[[meter]]\ntag = \"{product}\"\nstream = \"out\"\n\
-         quantity = \"molar_flow\"\nuom = \"kmol/h\"\nsigma = 1.0\n"
-    )
+"#,
+    );
+    for FlowMeter(tag, stream, range) in meters {
+        text += &format!(
+            "[[meter]]\ntag = \"{tag}\"\nstream = \"{stream}\"\nquantity = \"molar_flow\"\n\
+             uom = \"kmol/h\"\nsigma = 1.0\n"
+        );
+        if let Some([lo, hi]) = range {
+            text += &format!("range = [{lo:?}, {hi:?}]\n");
+        }
+    }
+    text
 }
 
-#[test]
-fn the_metered_tee_is_a_valid_model_with_both_meters() {
-    let plant = reconcile::parse_plant(&metered_tee("FT-1", "FT-2", 100.0)).expect("valid");
-    let tags: Vec<&str> = plant.meters.iter().map(|m| m.tag.as_str()).collect();
-    assert_eq!(tags, ["FT-1", "FT-2"]);
-    assert_eq!(plant.meters[0].range, Some([0.0, 100.0]));
-    assert_eq!(plant.meters[1].range, None);
+/// The tee with one meter, F-1 on the feed (revisions, the scheduler).
+pub(crate) fn tee_with_feed_meter() -> String {
+    tee(&[FlowMeter("F-1", "in", None)])
 }

@@ -310,28 +310,123 @@ pub async fn json_ok(r: reqwest::Response) -> serde_json::Value {
     serde_json::from_str(&text).expect("JSON answer")
 }
 
+/// `PUT /api/v1/plants/{plant}/model` with `body` of the media type `ctype`.
+pub async fn put_model(
+    c: &reqwest::Client,
+    s: &Server,
+    token: &str,
+    plant: &str,
+    body: &str,
+    ctype: &str,
+) -> reqwest::Response {
+    let put = c.put(s.url(&format!("/api/v1/plants/{plant}/model")));
+    with_body(put, token, body, ctype).await.expect("PUT model")
+}
+
+/// `POST /api/v1/plants/{plant}/readings` with `body` of the media type `ctype`.
+pub async fn post_readings(
+    c: &reqwest::Client,
+    s: &Server,
+    token: &str,
+    plant: &str,
+    body: &str,
+    ctype: &str,
+) -> reqwest::Response {
+    let post = c.post(s.url(&format!("/api/v1/plants/{plant}/readings")));
+    with_body(post, token, body, ctype)
+        .await
+        .expect("POST readings")
+}
+
+/// Send `request` with `token` and `body` of the media type `ctype`.
+async fn with_body(
+    request: reqwest::RequestBuilder,
+    token: &str,
+    body: &str,
+    ctype: &str,
+) -> reqwest::Result<reqwest::Response> {
+    request
+        .bearer_auth(token)
+        .header("content-type", ctype)
+        .body(body.to_string())
+        .send()
+        .await
+}
+
+/// Poll the plant's period listing of [from, to) until `done` holds for it (at most 60 s).
+pub async fn wait_for_periods(
+    c: &reqwest::Client,
+    s: &Server,
+    token: &str,
+    plant: &str,
+    from: &str,
+    to: &str,
+    done: impl Fn(&[serde_json::Value]) -> bool,
+) -> Vec<serde_json::Value> {
+    let deadline = Instant::now() + Duration::from_secs(60);
+    loop {
+        let r = c
+            .get(s.url(&format!("/api/v1/plants/{plant}/periods")))
+            .query(&[("from", from), ("to", to)])
+            .bearer_auth(token)
+            .send()
+            .await
+            .unwrap();
+        let list = json_ok(r).await;
+        let periods = list["periods"].as_array().unwrap().clone();
+        if done(&periods) {
+            return periods;
+        }
+        assert!(
+            Instant::now() < deadline,
+            "periods never settled: {periods:?}"
+        );
+        tokio::time::sleep(Duration::from_millis(200)).await;
+    }
+}
+
+/// The service's metrics, as `GET /metrics` gives them.
+pub async fn metrics(c: &reqwest::Client, s: &Server) -> String {
+    c.get(s.url("/metrics"))
+        .send()
+        .await
+        .unwrap()
+        .text()
+        .await
+        .unwrap()
+}
+
 /// A problem details answer: checks the media type, the status, a sentence in `detail` and a
 /// URN `type`; returns the object.
 pub async fn problem(r: reqwest::Response, status: reqwest::StatusCode) -> serde_json::Value {
     assert_eq!(r.status(), status);
-    let ctype = r
-        .headers()
+    assert_eq!(content_type(&r), "application/problem+json");
+    let body: serde_json::Value = r.json().await.expect("problem JSON");
+    check_problem(&body, status.as_u16(), "problem details");
+    body
+}
+
+/// The answer's media type as sent (empty when it has none).
+pub fn content_type(r: &reqwest::Response) -> String {
+    r.headers()
         .get("content-type")
         .and_then(|v| v.to_str().ok())
         .unwrap_or("")
-        .to_string();
-    assert_eq!(ctype, "application/problem+json");
-    let body: serde_json::Value = r.json().await.expect("problem JSON");
-    assert_eq!(body["status"], status.as_u16());
+        .to_string()
+}
+
+/// A problem details object of the answer `what`: its `status`, a sentence in `detail` and a
+/// URN `type`.
+pub fn check_problem(p: &serde_json::Value, status: u16, what: &str) {
+    assert_eq!(p["status"], status, "{what}: {p}");
     assert!(
-        body["detail"].as_str().is_some_and(|d| !d.is_empty()),
-        "{body}"
+        p["detail"].as_str().is_some_and(|d| !d.is_empty()),
+        "{what}: {p}"
     );
     assert!(
-        body["type"].as_str().is_some_and(|t| t.starts_with("urn:")),
-        "{body}"
+        p["type"].as_str().is_some_and(|t| t.starts_with("urn:")),
+        "{what}: {p}"
     );
-    body
 }
 
 /// The purge-design model's text and `hours` hours of its readings as CSV from

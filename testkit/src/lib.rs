@@ -8,8 +8,12 @@
 //! - [`vantle`]: the Vantle loop's true state from its operating conditions;
 //! - [`network`]: generated networks of any size with their true state;
 //! - [`values`]: exact and noisy meter values of a state, one hourly period, and the
-//!   simulator's readings as CSV.
+//!   simulator's readings as CSV;
+//! - behind the `e2e` feature, [`e2e`] (the `loopbal serve` harness) and [`bench`] (what the
+//!   service's benchmarks share).
 
+#[cfg(feature = "e2e")]
+pub mod bench;
 #[cfg(feature = "e2e")]
 pub mod e2e;
 pub mod network;
@@ -18,5 +22,5 @@ pub mod purge_design;
 pub mod values;
 pub mod vantle;
 
-pub use values::{exact_values, noisy_values, period, readings_csv};
+pub use values::{exact_values, noisy_values, one_reading_each, period, readings_csv};
 pub use vantle::{vantle_true_state, VantleConditions};

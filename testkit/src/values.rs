@@ -10,10 +10,23 @@ use reconcile::Plant;
 
 /// Every meter's exact value at state z, in its own uom.
 pub fn exact_values(plant: &Plant, layout: &Layout, z: &[f64]) -> Vec<MeterValue> {
-    (0..plant.meters.len())
-        .map(|m| MeterValue {
-            meter: m,
-            value: measurement(plant, layout, &plant.meters[m], z).0,
+    one_reading_each(
+        plant
+            .meters
+            .iter()
+            .map(|meter| measurement(plant, layout, meter, z).0),
+    )
+}
+
+/// Meter values in the order of the plant's meters, each the one good reading of its meter in
+/// the period.
+pub fn one_reading_each(values: impl IntoIterator<Item = f64>) -> Vec<MeterValue> {
+    values
+        .into_iter()
+        .enumerate()
+        .map(|(meter, value)| MeterValue {
+            meter,
+            value,
             readings: 1,
             used_uncertain: false,
             spread: 0.0,

@@ -14,7 +14,9 @@ use std::time::{Duration, Instant};
 use rand::Rng;
 use serde_json::Value;
 
-use crate::support::{client, json_ok, purge_design_csv, token_on, Server};
+use crate::support::{
+    client, json_ok, post_readings, purge_design_csv, put_model, token_on, Server,
+};
 
 /// Simulated hours posted: enough periods that both instances are busy for a while.
 const HOURS: usize = 240;
@@ -99,14 +101,7 @@ testkit::both_backends! {
         let c = client();
         let plant = "purge-design";
         let (model, csv) = purge_design_csv(HOURS, &|_, _| false);
-        let r = c
-            .put(alpha.url(&format!("/api/v1/plants/{plant}/model")))
-            .bearer_auth(&admin)
-            .header("content-type", "application/toml")
-            .body(model)
-            .send()
-            .await
-            .unwrap();
+        let r = put_model(&c, &alpha, &admin, plant, &model, "application/toml").await;
         assert_eq!(r.status(), reqwest::StatusCode::CREATED, "{}", r.text().await.unwrap());
         // Two historians post half the readings each, one to each instance, at once; both
         // instances are woken and claim from the same dirty periods.
@@ -114,16 +109,13 @@ testkit::both_backends! {
         let (header, rows) = lines.split_first().expect("a header");
         let half = rows.len() / 2;
         let batch = |rows: &[&str]| format!("{header}\n{}\n", rows.join("\n"));
-        let post = |s: &Server, body: String| {
-            c.post(s.url(&format!("/api/v1/plants/{plant}/readings")))
-                .bearer_auth(&admin)
-                .header("content-type", "text/csv")
-                .body(body)
-                .send()
-        };
-        let (a, b) = tokio::join!(post(&alpha, batch(&rows[..half])), post(&beta, batch(&rows[half..])));
+        let (first, second) = (batch(&rows[..half]), batch(&rows[half..]));
+        let (a, b) = tokio::join!(
+            post_readings(&c, &alpha, &admin, plant, &first, "text/csv"),
+            post_readings(&c, &beta, &admin, plant, &second, "text/csv"),
+        );
         for r in [a, b] {
-            let answer = json_ok(r.unwrap()).await;
+            let answer = json_ok(r).await;
             assert_eq!(answer["rejected"], 0, "{answer}");
         }
 

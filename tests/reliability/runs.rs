@@ -2,12 +2,12 @@
 //! every period runs exactly once (one current run, one run in all), no dirty mark is left,
 //! the instances log one "period run" line per period between them and no error, and a report
 //! read back is the period asked for with every meter. These are the checks the period-run
-//! benchmark (server/benches/runs.rs) relies on for its figures; they are asserted here.
+//! benchmark (server/benches/runs/) relies on for its figures; they are asserted here.
 //! (instances.rs kills one of the two instances; the posts' counts are asserted in
-//! tests/api.rs as well.)
+//! tests/api/readings.rs as well.)
 
 use crate::instances::{periods, query_ints};
-use crate::support::{client, json_ok, purge_design_csv, token_on};
+use crate::support::{client, json_ok, post_readings, purge_design_csv, put_model, token_on};
 
 /// Simulated hours posted: periods enough for both instances to claim some.
 const HOURS: usize = 96;
@@ -27,26 +27,12 @@ testkit::both_backends! {
         let c = client();
         let plant = testkit::purge_design::PLANT;
         let (model, csv) = purge_design_csv(HOURS, &|_, _| false);
-        let r = c
-            .put(alpha.url(&format!("/api/v1/plants/{plant}/model")))
-            .bearer_auth(&admin)
-            .header("content-type", "application/toml")
-            .body(model)
-            .send()
-            .await
-            .unwrap();
+        let r = put_model(&c, &alpha, &admin, plant, &model, "application/toml").await;
         assert_eq!(r.status(), reqwest::StatusCode::CREATED, "{}", r.text().await.unwrap());
         // One batch to one instance: every reading is new and every period dirty; both
         // instances' schedulers then contend for the same periods.
         let rows = csv.lines().count() - 1;
-        let r = c
-            .post(beta.url(&format!("/api/v1/plants/{plant}/readings")))
-            .bearer_auth(&admin)
-            .header("content-type", "text/csv")
-            .body(csv)
-            .send()
-            .await
-            .unwrap();
+        let r = post_readings(&c, &beta, &admin, plant, &csv, "text/csv").await;
         let answer = json_ok(r).await;
         assert_eq!(answer["accepted"], rows, "every reading new: {answer}");
         assert_eq!(answer["rejected"], 0, "{answer}");

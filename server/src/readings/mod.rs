@@ -287,13 +287,15 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
 mod tests {
     use super::*;
 
+    use crate::test_plants::{tee, FlowMeter};
+
     fn plant() -> Plant {
-        reconcile::parse_plant(crate::test_plants::TEE).expect("valid test model")
+        reconcile::parse_plant(&tee(&[FlowMeter("T-1", "in", None)])).expect("valid test model")
     }
 
     #[test]
     fn crlf_bom_and_blank_lines_keep_physical_line_numbers() {
-        let text = "\u{feff}tag,time,value\r\n\r\nF-1,2026-03-02T05:00:00Z,1\r\n\r\n\r\nF-1,2026-03-02T05:00:00Z,x\r\n";
+        let text = "\u{feff}tag,time,value\r\n\r\nT-1,2026-03-02T05:00:00Z,1\r\n\r\n\r\nT-1,2026-03-02T05:00:00Z,x\r\n";
         let err = parse(text.as_bytes(), Format::Csv, &plant()).expect_err("line 6 is bad");
         assert_eq!(
             err,
@@ -306,7 +308,7 @@ mod tests {
 
     #[test]
     fn one_instant_in_two_offsets_is_one_reading_and_the_later_wins() {
-        let text = "tag,time,value,quality\nF-1,2026-03-02T05:00:00Z,1,\nF-1,2026-03-02T07:00:00+02:00,2,Uncertain\n";
+        let text = "tag,time,value,quality\nT-1,2026-03-02T05:00:00Z,1,\nT-1,2026-03-02T07:00:00+02:00,2,Uncertain\n";
         let parsed = parse(text.as_bytes(), Format::Csv, &plant()).expect("valid");
         assert_eq!(parsed.readings.len(), 1);
         assert_eq!(parsed.readings[0].value, 2.0);
@@ -322,7 +324,7 @@ mod tests {
 
     #[test]
     fn instants_are_kept_to_the_millisecond_so_two_within_one_are_one() {
-        let text = "tag,time,value\nF-1,2026-03-02T05:00:00.1234Z,1\nF-1,2026-03-02T05:00:00.1239Z,2\nF-1,1969-12-31T23:59:59.9995Z,3\n";
+        let text = "tag,time,value\nT-1,2026-03-02T05:00:00.1234Z,1\nT-1,2026-03-02T05:00:00.1239Z,2\nT-1,1969-12-31T23:59:59.9995Z,3\n";
         let parsed = parse(text.as_bytes(), Format::Csv, &plant()).expect("valid");
         assert_eq!(parsed.readings.len(), 2);
         assert_eq!(parsed.readings[0].value, 2.0, "the later line replaces");

@@ -189,8 +189,6 @@ mod tests {
         assert_eq!(in_effect(&[], t(28)), None);
     }
 
-    use crate::test_plants::TEE as MODEL;
-
     #[tokio::test]
     async fn the_cache_validates_each_revision_once_and_sees_new_ones() {
         let dir = tempfile::tempdir().unwrap();
@@ -203,9 +201,10 @@ mod tests {
             matches!(&none, Err(RevisionError::NoModel { plant, at }) if plant == "tee" && *at == t(1)),
             "{none:?}"
         );
-        let spec = reconcile::ModelSpec::from_toml(MODEL).unwrap();
+        let model = crate::test_plants::tee_with_feed_meter();
+        let spec = reconcile::ModelSpec::from_toml(&model).unwrap();
         store
-            .put_model_revision(&plant, &spec, MODEL, t(10))
+            .put_model_revision(&plant, &spec, &model, t(10))
             .await
             .unwrap();
         let (first, n) = cache.model_at(&store, &plant, t(1)).await.unwrap();
@@ -213,7 +212,7 @@ mod tests {
         let (again, _) = cache.model_at(&store, &plant, t(12)).await.unwrap();
         assert!(Arc::ptr_eq(&first, &again), "validated once, then shared");
         store
-            .put_model_revision(&plant, &spec, MODEL, t(20))
+            .put_model_revision(&plant, &spec, &model, t(20))
             .await
             .unwrap();
         let (_, n) = cache.model_at(&store, &plant, t(21)).await.unwrap();

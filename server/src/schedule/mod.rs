@@ -213,8 +213,6 @@ mod tests {
     use super::*;
     use crate::store::Store;
 
-    use crate::test_plants::TEE as MODEL;
-
     #[tokio::test]
     async fn a_pass_plans_the_plants_with_dirty_periods_closed_at_the_time_given() {
         let dir = tempfile::tempdir().unwrap();
@@ -222,11 +220,12 @@ mod tests {
         let service = Service::new(Store::open(url.to_str().unwrap()).await.unwrap());
         let store = &service.store;
         let t = |h: u32, m: u32| Utc.with_ymd_and_hms(2026, 3, 2, h, m, 0).unwrap();
-        let spec = reconcile::ModelSpec::from_toml(MODEL).unwrap();
+        let model = crate::test_plants::tee_with_feed_meter();
+        let spec = reconcile::ModelSpec::from_toml(&model).unwrap();
         for name in ["quiet", "busy"] {
             let plant = store.create_plant(name).await.unwrap();
             store
-                .put_model_revision(&plant, &spec, MODEL, t(0, 0))
+                .put_model_revision(&plant, &spec, &model, t(0, 0))
                 .await
                 .unwrap();
         }

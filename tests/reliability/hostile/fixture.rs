@@ -42,12 +42,7 @@ pub(crate) async fn send(req: RequestBuilder, what: &str) -> Answer {
         }
     };
     let status = r.status().as_u16();
-    let ctype = r
-        .headers()
-        .get("content-type")
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("")
-        .to_string();
+    let ctype = crate::support::content_type(&r);
     let body = r
         .bytes()
         .await
@@ -78,15 +73,7 @@ pub(crate) fn check(a: &Answer, what: &str) {
         );
         let p: Value = serde_json::from_slice(&a.body)
             .unwrap_or_else(|e| panic!("{what}: the problem is not JSON ({e}): {}", a.text()));
-        assert_eq!(p["status"], a.status, "{what}: {p}");
-        assert!(
-            p["detail"].as_str().is_some_and(|d| !d.is_empty()),
-            "{what}: {p}"
-        );
-        assert!(
-            p["type"].as_str().is_some_and(|t| t.starts_with("urn:")),
-            "{what}: {p}"
-        );
+        crate::support::check_problem(&p, a.status, what);
     }
 }
 

@@ -3,6 +3,28 @@
 
 use super::*;
 
+/// `GET /api/v1/plants/{plant}/{what}` over hours `from..to`: the JSON answer (200 asserted).
+async fn over_hours(
+    http: &Client,
+    s: &Server,
+    read: &str,
+    plant: &str,
+    what: &str,
+    (from, to): (i64, i64),
+) -> Value {
+    let r = http
+        .get(s.url(&format!("/api/v1/plants/{plant}/{what}")))
+        .query(&[
+            ("from", rfc3339(hour_start(from))),
+            ("to", rfc3339(hour_start(to))),
+        ])
+        .bearer_auth(read)
+        .send()
+        .await
+        .unwrap_or_else(|e| panic!("GET {what} after the load: {e}"));
+    crate::support::json_ok(r).await
+}
+
 /// Every stored reading of `plant` over hours `0..=last`, keyed as the historians keep them.
 pub(crate) async fn stored(
     http: &Client,
@@ -15,17 +37,7 @@ pub(crate) async fn stored(
     let mut from = 0;
     while from <= last {
         let to = (from + 1000).min(last + 1);
-        let r = http
-            .get(s.url(&format!("/api/v1/plants/{plant}/readings")))
-            .query(&[
-                ("from", rfc3339(hour_start(from))),
-                ("to", rfc3339(hour_start(to))),
-            ])
-            .bearer_auth(read)
-            .send()
-            .await
-            .expect("GET readings after the load");
-        let list = crate::support::json_ok(r).await;
+        let list = over_hours(http, s, read, plant, "readings", (from, to)).await;
         for r in list["readings"].as_array().expect("readings") {
             let time = DateTime::parse_from_rfc3339(r["time"].as_str().expect("time"))
                 .expect("RFC 3339")
@@ -59,17 +71,7 @@ pub(crate) async fn periods(
     let mut from = 0;
     while from <= last {
         let to = (from + 5000).min(last + 1);
-        let r = http
-            .get(s.url(&format!("/api/v1/plants/{plant}/periods")))
-            .query(&[
-                ("from", rfc3339(hour_start(from))),
-                ("to", rfc3339(hour_start(to))),
-            ])
-            .bearer_auth(read)
-            .send()
-            .await
-            .expect("GET periods after the load");
-        let list = crate::support::json_ok(r).await;
+        let list = over_hours(http, s, read, plant, "periods", (from, to)).await;
         out.extend(list["periods"].as_array().expect("periods").iter().cloned());
         from = to;
     }

@@ -18,12 +18,7 @@ const LONG: Duration = Duration::from_secs(60);
 /// A plant with the tee model and one reading in each of `hours` hourly periods from
 /// 2026-03-02T00:00Z; its revision number.
 async fn plant_with_dirty_hours(store: &Store, hours: u32) -> (PlantRow, i64) {
-    let plant = store.create_plant("west").await.unwrap();
-    let spec = ModelSpec::from_toml(MODEL).unwrap();
-    let revision = store
-        .put_model_revision(&plant, &spec, MODEL, t("2026-03-01T00:00:00Z"))
-        .await
-        .unwrap();
+    let (plant, revision) = west_with_tee(store).await;
     let batch: Vec<Reading> = (0..hours)
         .map(|h| {
             reading(
@@ -34,10 +29,7 @@ async fn plant_with_dirty_hours(store: &Store, hours: u32) -> (PlantRow, i64) {
             )
         })
         .collect();
-    store
-        .ingest_readings(&plant, &batch, 3600, &outside(&ranges()))
-        .await
-        .unwrap();
+    ingest(store, &plant, &batch).await;
     (plant, revision)
 }
 
@@ -153,14 +145,10 @@ async fn a_due_period_is_claimed_by_one_instance_until_its_lease_lapses(db: Scra
             .map(|r| r.id),
         Some(id)
     );
-    let left: Vec<_> = store
-        .dirty_periods(&plant)
-        .await
-        .unwrap()
-        .into_iter()
-        .map(|d| d.0)
-        .collect();
-    assert_eq!(left, [hour(0), hour(1), hour(2), hour(4)]);
+    assert_eq!(
+        dirty_starts(store, &plant).await,
+        [hour(0), hour(1), hour(2), hour(4)]
+    );
 }
 
 async fn a_claimed_run_settles_its_mark_or_leaves_it_for_a_rerun(db: Scratch) {
@@ -173,15 +161,8 @@ async fn a_claimed_run_settles_its_mark_or_leaves_it_for_a_rerun(db: Scratch) {
         .remove(0);
     // A reading of the period arrives while it runs: the run is recorded, but the period
     // stays dirty, unclaimed, and is claimed again for a second run.
-    store
-        .ingest_readings(
-            &plant,
-            &[reading("FT-2", "2026-03-02T00:20:00Z", 49.0, Quality::Good)],
-            3600,
-            &outside(&ranges()),
-        )
-        .await
-        .unwrap();
+    let late = reading("FT-2", "2026-03-02T00:20:00Z", 49.0, Quality::Good);
+    ingest(store, &plant, &[late]).await;
     let (run1, settled) = store
         .record_claimed_run(&plant, &stand_in_run(hour(0), revision, "a"), &first)
         .await

@@ -209,37 +209,32 @@ fn scratch_urls_keep_server_and_options() {
     );
 }
 
-const MODEL: &str = r#"
-name = "tee"
-period = "1h"
-[[component]]
-id = "A"
-molar_mass = 2.0
-[[unit]]
-id = "n"
-kind = "node"
-[[stream]]
-id = "in"
-from = "outside"
-to = "n"
-[[stream]]
-id = "out"
-from = "n"
-to = "outside"
-[[meter]]
-tag = "FT-1"
-stream = "in"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-range = [0.0, 100.0]
-[[meter]]
-tag = "FT-2"
-stream = "out"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.0
-"#;
+/// The tee with a ranged meter FT-1 on its feed and an unranged FT-2 on its outlet
+/// (crate::test_plants).
+fn tee_model() -> String {
+    use crate::test_plants::{tee, FlowMeter};
+    tee(&[
+        FlowMeter("FT-1", "in", Some([0.0, 100.0])),
+        FlowMeter("FT-2", "out", None),
+    ])
+}
+
+/// The plant `west` with the tee model in effect from 2026-03-01T00:00Z; its revision number.
+async fn west_with_tee(store: &Store) -> (PlantRow, i64) {
+    let plant = store.create_plant("west").await.unwrap();
+    let revision = put_tee(store, &plant).await;
+    (plant, revision)
+}
+
+/// The tee model put as a revision of `plant` in effect from 2026-03-01T00:00Z; its number.
+async fn put_tee(store: &Store, plant: &PlantRow) -> i64 {
+    let model = tee_model();
+    let spec = ModelSpec::from_toml(&model).unwrap();
+    store
+        .put_model_revision(plant, &spec, &model, t("2026-03-01T00:00:00Z"))
+        .await
+        .unwrap()
+}
 
 fn t(text: &str) -> DateTime<Utc> {
     DateTime::parse_from_rfc3339(text)
@@ -258,6 +253,36 @@ fn reading(tag: &str, time: &str, value: f64, quality: Quality) -> Reading {
 
 fn ranges() -> BTreeMap<String, [f64; 2]> {
     BTreeMap::from([("FT-1".to_string(), [0.0, 100.0])])
+}
+
+/// `batch` stored for `plant` in hourly periods, FT-1 checked against its range.
+async fn ingest(store: &Store, plant: &PlantRow, batch: &[Reading]) -> IngestCounts {
+    store
+        .ingest_readings(plant, batch, 3600, &outside(&ranges()))
+        .await
+        .unwrap()
+}
+
+/// What a batch did: how many readings were new, replaced and unchanged.
+fn counts(accepted: usize, replaced: usize, unchanged: usize) -> IngestCounts {
+    IngestCounts {
+        accepted,
+        replaced,
+        unchanged,
+    }
+}
+
+/// The starts of the plant's dirty periods, in order.
+async fn dirty_starts(store: &Store, plant: &PlantRow) -> Vec<DateTime<Utc>> {
+    let dirty = store.dirty_periods(plant).await.unwrap();
+    dirty.into_iter().map(|d| d.0).collect()
+}
+
+/// Clear every dirty mark of the plant, as a run that read them would.
+async fn clear_all_dirty(store: &Store, plant: &PlantRow) {
+    for (start, marked) in store.dirty_periods(plant).await.unwrap() {
+        assert!(store.clear_dirty(plant, start, marked).await.unwrap());
+    }
 }
 
 #[tokio::test]

@@ -43,7 +43,8 @@ async fn schema_is_created_on_first_open_and_reopen_changes_nothing(db: Scratch)
 async fn revisions_are_numbered_and_immutable(db: Scratch) {
     let store = &db.store;
     let plant = store.create_plant("west").await.unwrap();
-    let spec = ModelSpec::from_toml(MODEL).unwrap();
+    let model = tee_model();
+    let spec = ModelSpec::from_toml(&model).unwrap();
     let from = [
         "2026-03-01T00:00:00Z",
         "2026-03-02T00:00:00Z",
@@ -51,7 +52,7 @@ async fn revisions_are_numbered_and_immutable(db: Scratch) {
     ];
     for (i, f) in from.iter().enumerate() {
         let n = store
-            .put_model_revision(&plant, &spec, MODEL, t(f))
+            .put_model_revision(&plant, &spec, &model, t(f))
             .await
             .unwrap();
         assert_eq!(n, i as i64 + 1);
@@ -62,7 +63,7 @@ async fn revisions_are_numbered_and_immutable(db: Scratch) {
         [1, 2, 3]
     );
     assert_eq!(listed[0].spec, spec);
-    assert_eq!(listed[0].source, MODEL);
+    assert_eq!(listed[0].source, model);
     let at = |s| store.current_model(&plant, t(s));
     assert_eq!(
         at("2026-03-02T12:00:00Z").await.unwrap().unwrap().revision,
@@ -90,12 +91,14 @@ async fn revisions_are_numbered_and_immutable(db: Scratch) {
 async fn concurrent_revisions_take_distinct_numbers(db: Scratch) {
     let store = &db.store;
     let plant = store.create_plant("west").await.unwrap();
-    let spec = ModelSpec::from_toml(MODEL).unwrap();
+    let model = tee_model();
+    let spec = ModelSpec::from_toml(&model).unwrap();
     let puts = (0..8).map(|_| {
         let (store, plant, spec) = (store.clone(), plant.clone(), spec.clone());
+        let model = model.clone();
         tokio::spawn(async move {
             store
-                .put_model_revision(&plant, &spec, MODEL, t("2026-03-01T00:00:00Z"))
+                .put_model_revision(&plant, &spec, &model, t("2026-03-01T00:00:00Z"))
                 .await
         })
     });

@@ -24,60 +24,23 @@ async fn readings_are_idempotent_and_changes_mark_their_period(db: Scratch) {
         reading("FT-2", "2026-03-02T05:00:00Z", 49.0, Quality::Good),
         reading("FT-1", "2026-03-02T06:10:00Z", 51.0, Quality::Good),
     ];
-    let first = store
-        .ingest_readings(&plant, &batch, 3600, &outside(&ranges()))
-        .await
-        .unwrap();
+    assert_eq!(ingest(store, &plant, &batch).await, counts(3, 0, 0));
     assert_eq!(
-        first,
-        IngestCounts {
-            accepted: 3,
-            replaced: 0,
-            unchanged: 0
-        }
-    );
-    let dirty = store.dirty_periods(&plant).await.unwrap();
-    let starts: Vec<_> = dirty.iter().map(|d| d.0).collect();
-    assert_eq!(
-        starts,
+        dirty_starts(store, &plant).await,
         [t("2026-03-02T05:00:00Z"), t("2026-03-02T06:00:00Z")]
     );
-    for (start, marked) in &dirty {
-        assert!(store.clear_dirty(&plant, *start, *marked).await.unwrap());
-    }
+    clear_all_dirty(store, &plant).await;
 
     // The same batch again (one instant spelled with another offset) changes nothing.
     let mut again = batch.clone();
     again[0].time = t("2026-03-02T07:00:00+02:00");
-    let second = store
-        .ingest_readings(&plant, &again, 3600, &outside(&ranges()))
-        .await
-        .unwrap();
-    assert_eq!(
-        second,
-        IngestCounts {
-            accepted: 0,
-            replaced: 0,
-            unchanged: 3
-        }
-    );
+    assert_eq!(ingest(store, &plant, &again).await, counts(0, 0, 3));
     assert!(store.dirty_periods(&plant).await.unwrap().is_empty());
 
     // A late correction replaces the value and marks only its own period.
     let mut fixed = batch.clone();
     fixed[2].value = 52.5;
-    let third = store
-        .ingest_readings(&plant, &fixed, 3600, &outside(&ranges()))
-        .await
-        .unwrap();
-    assert_eq!(
-        third,
-        IngestCounts {
-            accepted: 0,
-            replaced: 1,
-            unchanged: 2
-        }
-    );
+    assert_eq!(ingest(store, &plant, &fixed).await, counts(0, 1, 2));
     let dirty = store.dirty_periods(&plant).await.unwrap();
     assert_eq!(dirty.len(), 1);
     assert_eq!(dirty[0].0, t("2026-03-02T06:00:00Z"));
@@ -92,10 +55,7 @@ async fn readings_are_idempotent_and_changes_mark_their_period(db: Scratch) {
     // recorded under a claim settles it the same way: tests/claims.rs).
     let stale = dirty[0].1;
     fixed[2].quality = Quality::Uncertain;
-    store
-        .ingest_readings(&plant, &fixed, 3600, &outside(&ranges()))
-        .await
-        .unwrap();
+    ingest(store, &plant, &fixed).await;
     assert!(!store.clear_dirty(&plant, dirty[0].0, stale).await.unwrap());
     assert_eq!(store.dirty_periods(&plant).await.unwrap().len(), 1);
 }
@@ -108,11 +68,7 @@ async fn out_of_range_and_bad_readings_are_stored_and_flagged(db: Scratch) {
         reading("FT-1", "2026-03-02T05:01:00Z", 100.0, Quality::Good),
         reading("FT-2", "2026-03-02T05:00:00Z", -3.0, Quality::Bad),
     ];
-    let counts = store
-        .ingest_readings(&plant, &batch, 3600, &outside(&ranges()))
-        .await
-        .unwrap();
-    assert_eq!(counts.accepted, 3);
+    assert_eq!(ingest(store, &plant, &batch).await.accepted, 3);
     let stored = store
         .readings_in(&plant, t("2026-03-02T00:00:00Z"), t("2026-03-03T00:00:00Z"))
         .await
@@ -236,25 +192,14 @@ fn hourly(n: usize, tags: &[&str]) -> Vec<Reading> {
 async fn long_batches_count_and_mark_as_one_statement_per_reading_would(db: Scratch) {
     let store = &db.store;
     let plant = store.create_plant("west").await.unwrap();
-    let ranges = BTreeMap::from([("FT-1".to_string(), [0.0, 100.0])]);
     let n = 2 * READINGS_PER_STATEMENT + 203;
     let batch = hourly(n, &["FT-1", "FT-2"]);
     let periods = n.div_ceil(2);
     assert!(periods > MARKS_PER_STATEMENT);
 
-    let counts = store
-        .ingest_readings(&plant, &batch, 3600, &outside(&ranges))
-        .await
-        .unwrap();
-    assert_eq!(
-        (counts.accepted, counts.replaced, counts.unchanged),
-        (n, 0, 0)
-    );
-    let dirty = store.dirty_periods(&plant).await.unwrap();
-    assert_eq!(dirty.len(), periods);
-    for (start, marked) in &dirty {
-        assert!(store.clear_dirty(&plant, *start, *marked).await.unwrap());
-    }
+    assert_eq!(ingest(store, &plant, &batch).await, counts(n, 0, 0));
+    assert_eq!(dirty_starts(store, &plant).await.len(), periods);
+    clear_all_dirty(store, &plant).await;
     let stored = store
         .readings_in(
             &plant,
@@ -280,21 +225,8 @@ async fn long_batches_count_and_mark_as_one_statement_per_reading_would(db: Scra
         again[i].value += 1.0;
     }
     again[7].quality = Quality::Uncertain;
-    let counts = store
-        .ingest_readings(&plant, &again, 3600, &outside(&ranges))
-        .await
-        .unwrap();
-    assert_eq!(
-        (counts.accepted, counts.replaced, counts.unchanged),
-        (0, 5, n - 5)
-    );
-    let marked: Vec<_> = store
-        .dirty_periods(&plant)
-        .await
-        .unwrap()
-        .into_iter()
-        .map(|d| d.0)
-        .collect();
+    assert_eq!(ingest(store, &plant, &again).await, counts(0, 5, n - 5));
+    let marked = dirty_starts(store, &plant).await;
     let mut want: Vec<_> = edges.iter().chain([&7]).map(|&i| batch[i].time).collect();
     want.sort();
     want.dedup();
@@ -313,15 +245,8 @@ async fn long_batches_count_and_mark_as_one_statement_per_reading_would(db: Scra
         value: repeats[0].value + 1.0,
         ..repeats[0].clone()
     };
-    let counts = store
-        .ingest_readings(&plant, &batch, 3600, &outside(&ranges))
-        .await
-        .unwrap();
     let m = batch.len();
-    assert_eq!(
-        (counts.accepted, counts.replaced, counts.unchanged),
-        (m - 2, 1, 1)
-    );
+    assert_eq!(ingest(store, &plant, &batch).await, counts(m - 2, 1, 1));
 }
 
 async fn periods_are_marked_as_the_engine_floors_them_before_1970_too(db: Scratch) {
@@ -355,16 +280,7 @@ async fn periods_are_marked_as_the_engine_floors_them_before_1970_too(db: Scratc
         let mut want: Vec<_> = batch.iter().map(|r| period_start(r.time, period)).collect();
         want.sort();
         want.dedup();
-        let marked: Vec<_> = store
-            .dirty_periods(&plant)
-            .await
-            .unwrap()
-            .into_iter()
-            .map(|d| d.0)
-            .collect();
-        assert_eq!(marked, want, "period {period} s");
-        for (start, at) in store.dirty_periods(&plant).await.unwrap() {
-            store.clear_dirty(&plant, start, at).await.unwrap();
-        }
+        assert_eq!(dirty_starts(store, &plant).await, want, "period {period} s");
+        clear_all_dirty(store, &plant).await;
     }
 }

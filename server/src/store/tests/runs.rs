@@ -12,12 +12,7 @@ on_both_backends!(
 
 async fn runs_keep_history_with_one_current_per_period(db: Scratch) {
     let store = &db.store;
-    let plant = store.create_plant("west").await.unwrap();
-    let spec = ModelSpec::from_toml(MODEL).unwrap();
-    let revision = store
-        .put_model_revision(&plant, &spec, MODEL, t("2026-03-01T00:00:00Z"))
-        .await
-        .unwrap();
+    let (plant, revision) = west_with_tee(store).await;
     let run = |start: &str, status: &str| NewRun {
         period_start: t(start),
         revision,
@@ -96,11 +91,8 @@ async fn listings_reports_meter_records_and_notes(db: Scratch) {
         .collect();
     assert_eq!(names, ["East", "Z-1", "east", "west"]);
     let plant = store.plant("west").await.unwrap().unwrap();
-    let spec = ModelSpec::from_toml(MODEL).unwrap();
-    let revision = store
-        .put_model_revision(&plant, &spec, MODEL, t("2026-03-01T00:00:00Z"))
-        .await
-        .unwrap();
+    let revision = put_tee(store, &plant).await;
+    let spec = ModelSpec::from_toml(&tee_model()).unwrap();
     assert_eq!(
         store
             .model_revision(&plant, revision)

@@ -151,12 +151,7 @@ async fn a_stored_instant_out_of_range_is_corrupt(db: Scratch) {
 /// (PostgreSQL's `json`, not `jsonb`, which would rewrite it).
 async fn json_is_stored_as_written(db: Scratch) {
     let store = &db.store;
-    let plant = store.create_plant("west").await.unwrap();
-    let spec = ModelSpec::from_toml(MODEL).unwrap();
-    let revision = store
-        .put_model_revision(&plant, &spec, MODEL, t("2026-03-01T00:00:00Z"))
-        .await
-        .unwrap();
+    let (plant, revision) = west_with_tee(store).await;
     let report = serde_json::json!({ "status": "solved", "figures": { "z": 1.5e-7, "a": 1.0 } });
     let run = NewRun {
         period_start: t("2026-03-02T05:00:00Z"),

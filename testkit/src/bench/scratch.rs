@@ -1,8 +1,7 @@
 //! Fresh databases for the service's benches: a file in a temporary directory, or a scratch
 //! database `loopbal_bench_*` made on the PostgreSQL server named by
 //! `LOOPBAL_BENCH_POSTGRES_URL` and dropped (`WITH (FORCE)`) when the bench ends, also when it
-//! panics; and `refuse_unless`, the benches' answer to a wrong result. Shared by `ingest.rs`
-//! and `runs.rs` (`mod scratch;`).
+//! panics. Shared by the `ingest` and `runs` benches.
 
 use std::path::Path;
 use std::sync::Mutex;
@@ -11,15 +10,6 @@ use sqlx::postgres::PgConnection;
 use sqlx::Connection;
 
 use loopbal_server::store::with_database;
-
-/// Benches time; tests assert. A bench that meets a wrong result prints no figure for it: it
-/// says why and which test asserts the property it relies on, and exits 1.
-pub fn refuse_unless(ok: bool, asserted_by: &str, why: impl FnOnce() -> String) {
-    if !ok {
-        eprintln!("bench: no figure: {} (asserted by {asserted_by})", why());
-        std::process::exit(1);
-    }
-}
 
 /// The URL of a database on a PostgreSQL server: when set, the benches measure PostgreSQL as
 /// well, each case on a scratch database `loopbal_bench_*` made for it and dropped at the end.

@@ -1,0 +1,200 @@
+//! A year of periods run by the scheduler a month at a time, within a time budget, and the
+//! report reads timed with that year stored (SQLite only).
+
+use std::time::{Duration, Instant};
+
+use chrono::{DateTime, TimeDelta, Utc};
+use loopbal_server::store::NewRun;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use reconcile::Plant;
+use testkit::bench::{load_average as load, refuse_unless, rfc3339};
+
+use crate::passes::{check_runs, run_passes, tally};
+use crate::service::{readings, Service};
+use crate::{MONTH_HOURS, READ_LIMIT, WARM_UP};
+
+/// What the year is made of: the plant, its true state, the first hour, how many hours and
+/// readings per meter per hour, and the engine's time budget.
+pub struct Year<'a> {
+    pub plant: &'a Plant,
+    pub z: &'a [f64],
+    pub start: DateTime<Utc>,
+    pub hours: usize,
+    pub per_hour: usize,
+    pub budget: Duration,
+}
+
+/// The year's readings POSTed and run a month at a time by `run_due` with 2 workers, on the
+/// service `svc`; after the budget, the periods left get copies of stored runs.
+pub async fn run_year(svc: &Service, year: &Year<'_>) {
+    let Year {
+        plant,
+        z,
+        start,
+        hours: year_hours,
+        per_hour,
+        budget: year_budget,
+    } = *year;
+    let year_began = Instant::now();
+    let mut engine_hours = 0;
+    let mut run_time = Duration::ZERO;
+    let mut post_time = Duration::ZERO;
+    let mut rates = Vec::new();
+    while engine_hours < year_hours && year_began.elapsed() < year_budget {
+        let hours = MONTH_HOURS.min(year_hours - engine_hours);
+        let from = start + TimeDelta::hours(engine_hours as i64);
+        let chunk = readings(plant, z, from, hours, per_hour, 100 + engine_hours as u64);
+        post_time += svc.post(&chunk).await;
+        let pass = run_passes(std::slice::from_ref(svc.state()), &svc.row, 2, false).await;
+        refuse_unless(
+            pass.ran == hours,
+            "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+            || format!("run_due ran {} of the month's {hours} periods", pass.ran),
+        );
+        run_time += pass.wall;
+        rates.push(pass.rate());
+        engine_hours += hours;
+    }
+    let (statuses, failed) = check_runs(svc, start, engine_hours).await;
+    println!(
+        "   engine runs: {engine_hours} periods in {:.1} s of run_due ({:.0} periods/s; per month {}), POST {:.1} s",
+        run_time.as_secs_f64(),
+        engine_hours as f64 / run_time.as_secs_f64(),
+        rates.iter().map(|r| format!("{r:.0}")).collect::<Vec<_>>().join(" "),
+        post_time.as_secs_f64()
+    );
+    println!(
+        "   reports: {} (global test failed in {failed})",
+        tally(&statuses)
+    );
+    if engine_hours < year_hours {
+        // Over budget: the remaining periods get copies of the stored runs (report and inputs
+        // of period h mod engine_hours, with their own start and end), through the store's
+        // own record_run. Their reports are as large as real ones; they have no readings and
+        // no meter records.
+        let t = Instant::now();
+        let store = &svc.state().store;
+        for h in engine_hours..year_hours {
+            let src = start + TimeDelta::hours((h % engine_hours) as i64);
+            let dst = start + TimeDelta::hours(h as i64);
+            let history = store.run_history(&svc.row, src).await.expect("run history");
+            let row = history
+                .iter()
+                .rev()
+                .find(|r| r.current)
+                .expect("a current run");
+            let mut report = row.run.report.clone();
+            report["period_start"] = rfc3339(dst).into();
+            report["period_end"] = rfc3339(dst + TimeDelta::hours(1)).into();
+            let run = NewRun {
+                period_start: dst,
+                report,
+                meters: Vec::new(),
+                ..row.run.clone()
+            };
+            store.record_run(&svc.row, &run).await.expect("record run");
+        }
+        println!(
+            "   NOTE: the engine budget ({} s) ran out; periods {engine_hours}..{year_hours} got copies of stored runs by Store::record_run ({:.1} s)",
+            year_budget.as_secs(),
+            t.elapsed().as_secs_f64()
+        );
+    }
+    let runs = svc
+        .state()
+        .store
+        .current_runs(&svc.row, start, start + TimeDelta::hours(year_hours as i64))
+        .await
+        .expect("current runs");
+    refuse_unless(
+        runs.len() == year_hours,
+        "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+        || {
+            format!(
+                "{} of the year's {year_hours} periods have a current run",
+                runs.len()
+            )
+        },
+    );
+    println!(
+        "   database: {:.1} MB (file, WAL and shared memory)",
+        svc.db_bytes() as f64 / 1e6
+    );
+}
+
+/// `reads` timed `GET …/periods/{start}` of random periods of the year (after [`WARM_UP`]
+/// untimed ones), each answer the whole report of that period with its `meters`; answers the
+/// median in milliseconds.
+pub async fn report_reads(svc: &Service, year: &Year<'_>, reads: usize, meters: usize) -> f64 {
+    let (start, year_hours) = (year.start, year.hours);
+    // Report reads: one keep-alive client, one request at a time, random periods of the year.
+    let mut rng = ChaCha8Rng::seed_from_u64(3);
+    let client = reqwest::Client::builder()
+        .pool_max_idle_per_host(1)
+        .build()
+        .expect("client");
+    let mut times = Vec::with_capacity(reads);
+    let mut bytes = Vec::with_capacity(reads);
+    let load_before = load();
+    let reads_began = Instant::now();
+    for i in 0..WARM_UP + reads {
+        if reads_began.elapsed() > READ_LIMIT {
+            break;
+        }
+        let h = rng.gen_range(0..year_hours);
+        let period = rfc3339(start + TimeDelta::hours(h as i64));
+        let url = format!("{}/periods/{period}", svc.served.base);
+        let t = Instant::now();
+        let res = client
+            .get(&url)
+            .bearer_auth(&svc.served.token)
+            .send()
+            .await
+            .expect("GET period");
+        let status = res.status();
+        let body = res.bytes().await.expect("body");
+        let dt = t.elapsed();
+        let v: serde_json::Value = serde_json::from_slice(&body).unwrap_or_default();
+        refuse_unless(
+            status.is_success()
+                && v["start"].as_str() == Some(period.as_str())
+                && v["report"]["meters"]
+                    .as_array()
+                    .is_some_and(|m| m.len() == meters),
+            "tests/reliability/runs.rs two_live_instances_run_every_period_exactly_once",
+            || format!("GET {url} answered {status} without the whole report of that period"),
+        );
+        if i >= WARM_UP {
+            times.push(dt.as_secs_f64() * 1e3);
+            bytes.push(body.len());
+        }
+    }
+    let load_after = load();
+    refuse_unless(
+        !times.is_empty(),
+        "nothing: the reads' own time bound",
+        || format!("no timed reads within {READ_LIMIT:?}"),
+    );
+    let mean = times.iter().sum::<f64>() / times.len() as f64;
+    times.sort_by(f64::total_cmp);
+    bytes.sort_unstable();
+    let median = percentile(&times, 50.0);
+    println!(
+        "   GET /periods/{{start}}: {} timed reads (after {WARM_UP} warm-up), median {:.2} ms, p90 {:.2} ms, p99 {:.2} ms, max {:.2} ms, mean {:.2} ms; body {} bytes (median); load {load_before} -> {load_after}",
+        times.len(),
+        median,
+        percentile(&times, 90.0),
+        percentile(&times, 99.0),
+        times[times.len() - 1],
+        mean,
+        bytes[bytes.len() / 2],
+    );
+    median
+}
+
+pub fn percentile(sorted: &[f64], p: f64) -> f64 {
+    // Nearest rank.
+    let rank = ((p / 100.0) * sorted.len() as f64).ceil().max(1.0) as usize;
+    sorted[rank.min(sorted.len()) - 1]
+}

@@ -1,0 +1,141 @@
+//! Period runs: closed periods reconciled, run again when a reading changes, and on an
+//! administrator's demand.
+
+use super::*;
+
+#[tokio::test]
+async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
+    let (_dir, s, t) = fresh(&["--run-grace", "0", "--run-tick", "1"]);
+    let c = client();
+    let plant = "purge-design";
+    // Hour 3 has no reading of the purge flow meter FI-4: it is unmeasured that hour.
+    let (model, csv) = purge_design_csv(4, &|tag, hour| tag == "FI-4" && hour == 3);
+    let r = put_model(&c, &s, &t.admin, plant, &model, "application/toml").await;
+    assert_eq!(r.status(), StatusCode::CREATED);
+    let r = post_readings(&c, &s, &t.ingest, plant, &csv, "text/csv").await;
+    let answer = json_ok(r).await;
+    assert_eq!(answer["rejected"], 0, "{answer}");
+
+    let (from, to) = ("2026-05-31T23:00:00Z", "2026-06-01T05:00:00Z");
+    let periods = wait_for_periods(&c, &s, &t.read, plant, from, to, |p| {
+        p[1..5]
+            .iter()
+            .all(|x| x["runs"] == 1 && x["rerun_due"] == false)
+    })
+    .await;
+    assert_eq!(periods.len(), 6);
+    assert_eq!(periods[0]["status"], "no_readings");
+    assert_eq!(periods[5]["status"], "no_readings");
+    for p in &periods[1..5] {
+        assert_eq!(p["status"], "solved", "{p}");
+        assert_eq!(p["revision"], 1);
+    }
+
+    let get = |start: &'static str| {
+        c.get(s.url(&format!("/api/v1/plants/{plant}/periods/{start}")))
+            .bearer_auth(&t.read)
+            .send()
+    };
+    let hour0 = json_ok(get("2026-06-01T00:00:00Z").await.unwrap()).await;
+    assert_eq!(hour0["report"]["status"], "solved");
+    assert_eq!(hour0["report"]["plant"], plant);
+    assert!(hour0["report"]["caution"]
+        .as_str()
+        .unwrap()
+        .contains("procedures"));
+    assert_eq!(hour0["inputs"]["meters"].as_array().unwrap().len(), 9);
+    let hour3 = json_ok(get("2026-06-01T03:00:00Z").await.unwrap()).await;
+    assert_eq!(
+        hour3["inputs"]["missing"],
+        json!(["FI-4"]),
+        "{}",
+        hour3["inputs"]
+    );
+    let fi4 = hour3["report"]["meters"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|m| m["tag"] == "FI-4")
+        .expect("FI-4 in the report");
+    assert!(fi4["measured"].is_null(), "{fi4}");
+
+    // A correction of hour 1 makes it run again; the first report stays as history.
+    let correction = "tag,time,value\nFI-4,2026-06-01T01:00:00Z,150.0\nFI-4,2026-06-01T01:20:00Z,150.0\nFI-4,2026-06-01T01:40:00Z,150.0\n";
+    let r = post_readings(&c, &s, &t.ingest, plant, correction, "text/csv").await;
+    let answer = json_ok(r).await;
+    assert_eq!(answer["replaced"], 3, "{answer}");
+    wait_for_periods(&c, &s, &t.read, plant, from, to, |p| {
+        p[2]["runs"] == 2 && p[2]["rerun_due"] == false
+    })
+    .await;
+    // Exactly one new run, of that period only, even after the worker has looked again.
+    tokio::time::sleep(Duration::from_millis(2500)).await;
+    let periods = wait_for_periods(&c, &s, &t.read, plant, from, to, |_| true).await;
+    let runs: Vec<i64> = periods
+        .iter()
+        .map(|p| p["runs"].as_i64().unwrap())
+        .collect();
+    assert_eq!(runs, [0, 1, 2, 1, 1, 0]);
+    let hour1 = json_ok(get("2026-06-01T01:00:00Z").await.unwrap()).await;
+    assert_eq!(hour1["runs"], 2);
+    // The new report differs as it should: the measured purge flow is the corrected one, and
+    // the reconciled flow moved towards it.
+    let before = json_ok(get("2026-06-01T02:00:00Z").await.unwrap()).await;
+    let purge = |r: &Value| {
+        r["report"]["meters"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|m| m["tag"] == "FI-4")
+            .unwrap()["reconciled"]
+            .as_f64()
+            .unwrap()
+    };
+    assert!(
+        purge(&hour1) > purge(&before),
+        "{} vs {}",
+        purge(&hour1),
+        purge(&before)
+    );
+    let fi4 = hour1["report"]["meters"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|m| m["tag"] == "FI-4")
+        .unwrap();
+    assert_eq!(fi4["measured"], 150.0);
+
+    // An administrator runs hour 0 again on demand.
+    let r = c
+        .post(s.url(&format!(
+            "/api/v1/plants/{plant}/periods/2026-06-01T00:00:00Z/reconcile"
+        )))
+        .bearer_auth(&t.admin)
+        .send()
+        .await
+        .unwrap();
+    let rerun = json_ok(r).await;
+    assert_eq!(rerun["runs"], 2);
+    assert_ne!(rerun["run_id"], hour0["run_id"]);
+
+    // Not a period start, and a period never run.
+    let r = get("2026-06-01T00:30:00Z").await.unwrap();
+    let body = problem(r, StatusCode::BAD_REQUEST).await;
+    assert!(
+        body["detail"]
+            .as_str()
+            .unwrap()
+            .contains("2026-06-01T00:00:00Z"),
+        "{body}"
+    );
+    let r = get("2026-06-02T00:00:00Z").await.unwrap();
+    problem(r, StatusCode::NOT_FOUND).await;
+
+    let metrics = metrics(&c, &s).await;
+    let solved: u64 = metrics
+        .lines()
+        .find_map(|l| l.strip_prefix("loopbal_runs_total{status=\"solved\"} "))
+        .and_then(|n| n.parse().ok())
+        .unwrap_or(0);
+    assert!(solved >= 6, "{metrics}");
+}
