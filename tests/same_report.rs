@@ -254,3 +254,170 @@ async fn the_cli_and_the_service_give_equal_reports_on_the_same_readings() {
         assert_eq!(c, s, "hour {hour}: the CLI's report, then the service's");
     }
 }
+
+/// `loopbal what-if` on the readings file, JSON.
+fn cli_what_if(dir: &std::path::Path, model: &str, csv: &str, args: &[&str]) -> Value {
+    let model_path = dir.join("purge-design.toml");
+    std::fs::write(&model_path, model).expect("write the model");
+    let readings_path = dir.join("what-if-readings.csv");
+    std::fs::write(&readings_path, csv).expect("write the readings");
+    let out = Command::new(BIN)
+        .arg("what-if")
+        .arg("--model")
+        .arg(&model_path)
+        .arg("--readings")
+        .arg(&readings_path)
+        .args(args)
+        .output()
+        .expect("run loopbal what-if");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(0), "{stderr}");
+    serde_json::from_slice(&out.stdout).expect("a what-if as JSON")
+}
+
+#[tokio::test]
+async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (model, csv) = purge_design_csv(3, &|_, _| false);
+    let db = dir.path().join("loopbal.sqlite");
+    let admin = token(&db, "admin", None);
+    let ingest = token(&db, "ingest", None);
+    let read = token(&db, "read", None);
+    let s = LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]);
+    let c = client();
+    let r = put_model(&c, &s, &admin, PLANT, &model, "application/toml").await;
+    assert_eq!(r.status(), StatusCode::CREATED);
+    let r = c
+        .post(s.url(&format!("/api/v1/plants/{PLANT}/readings")))
+        .bearer_auth(&ingest)
+        .header("content-type", "text/csv")
+        .body(csv.clone())
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(json_ok(r).await["rejected"], 0);
+    let what_if = |body: Value| {
+        c.post(s.url(&format!("/api/v1/plants/{PLANT}/what-if")))
+            .bearer_auth(&read)
+            .json(&body)
+            .send()
+    };
+
+    // One period, a sweep of the purge split and an optimum at given values.
+    let service = json_ok(
+        what_if(serde_json::json!({
+            "period": "2026-06-01T01:00:00Z",
+            "sweep": {"name": "split:purge", "from": 0.05, "to": 0.2, "points": 4},
+            "economics": {"product_price": {"NH3": 10.0}, "loss_value": {"H2": 2.0, "N2": 1.0},
+                          "recycle_cost": 0.05},
+        }))
+        .await
+        .unwrap(),
+    )
+    .await;
+    let cli = cli_what_if(
+        dir.path(),
+        &model,
+        &csv,
+        &[
+            "--period",
+            "2026-06-01T01:00:00Z",
+            "--sweep",
+            "split:purge=0.05..0.2:4",
+            "--price",
+            "NH3=10",
+            "--loss-value",
+            "H2=2",
+            "--loss-value",
+            "N2=1",
+            "--recycle-cost",
+            "0.05",
+        ],
+    );
+    // Not vacuous: four solved points with σ, an optimum, the base period named.
+    assert_eq!(service["base"]["period_start"], "2026-06-01T01:00:00Z");
+    let points = service["points"].as_array().expect("points");
+    assert_eq!(points.len(), 4);
+    assert!(points.iter().all(|p| p["status"] == "solved"), "{service}");
+    assert!(points[0]["figures"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|f| f["sigma"].as_f64().is_some_and(|s| s > 0.0)));
+    assert!(service["optimum"].is_object(), "{service}");
+    assert_eq!(cli, service, "the CLI's what-if, then the service's");
+
+    // A range of periods as the base case, combined: the same on both.
+    let service = json_ok(
+        what_if(serde_json::json!({
+            "period": "2026-06-01T00:00:00Z", "period_to": "2026-06-01T03:00:00Z",
+            "set": {"split:purge": 0.08},
+        }))
+        .await
+        .unwrap(),
+    )
+    .await;
+    let cli = cli_what_if(
+        dir.path(),
+        &model,
+        &csv,
+        &[
+            "--period-from",
+            "2026-06-01T00:00:00Z",
+            "--period-to",
+            "2026-06-01T03:00:00Z",
+            "--set",
+            "split:purge=0.08",
+        ],
+    );
+    assert_eq!(service["base"]["periods"], 3, "{service}");
+    assert_eq!(cli, service, "the CLI's range what-if, then the service's");
+
+    // Bad input is named and refused; a period without readings is not found.
+    for (body, status, names) in [
+        (
+            serde_json::json!({"period": "2026-06-01T01:00:00Z", "set": {"split:nowhere": 0.1}}),
+            400,
+            "nowhere",
+        ),
+        (
+            serde_json::json!({"period": "2026-06-01T01:00:00Z", "set": {"split:purge": 1.5}}),
+            400,
+            "split:purge",
+        ),
+        (
+            serde_json::json!({"period": "2026-06-01T01:00:00Z",
+                               "sweep": {"name": "split:purge", "from": 0.1, "to": 0.2, "points": 100000}}),
+            400,
+            "points",
+        ),
+        (
+            serde_json::json!({"period": "yesterday"}),
+            400,
+            "period",
+        ),
+        (
+            serde_json::json!({"period": "2026-06-01T01:00:00Z", "hold": "pressure"}),
+            400,
+            "pressure",
+        ),
+        (
+            serde_json::json!({"period": "2026-06-01T01:00:00Z", "colour": "red"}),
+            400,
+            "colour",
+        ),
+        (
+            serde_json::json!({"period": "2026-07-01T01:00:00Z"}),
+            404,
+            "no readings",
+        ),
+    ] {
+        let r = what_if(body.clone()).await.unwrap();
+        assert_eq!(r.status().as_u16(), status, "{body}");
+        let problem: Value = r.json().await.expect("a problem");
+        assert!(
+            problem["detail"].as_str().unwrap().contains(names),
+            "{body}: {problem}"
+        );
+    }
+}
