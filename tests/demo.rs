@@ -117,6 +117,46 @@ fn the_demo_finds_the_biased_meter_watches_the_drifting_one_and_blames_no_other(
             f["subject"]
         );
     }
+
+    // The purge trade-off of the last day: five solved points of a purge sweep, in which a
+    // larger purge takes out more inert (less methane at the converter inlet), circulates
+    // less (a smaller recycle ratio) and makes less methanol, as a loop's mass balance has it;
+    // and an optimum inside the range searched.
+    let purge = &s["purge"];
+    let points = purge["points"].as_array().expect("the purge sweep");
+    assert_eq!(points.len(), 5, "{purge}");
+    let figure = |p: &Value, name: &str, subject: &str| -> f64 {
+        p["figures"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|f| f["name"] == name && f["subject"] == subject)
+            .and_then(|f| f["value"].as_f64())
+            .unwrap_or_else(|| panic!("{name} {subject} in {p}"))
+    };
+    let split = |p: &Value| p["settings"]["split:purge"].as_f64().unwrap();
+    for pair in points.windows(2) {
+        let (a, b) = (&pair[0], &pair[1]);
+        assert_eq!(a["status"], "solved", "{a}");
+        assert!(split(a) < split(b));
+        assert!(figure(a, "product_made", "CH3OH") > figure(b, "product_made", "CH3OH"));
+        assert!(figure(a, "recycle_ratio", "purge-split") > figure(b, "recycle_ratio", "purge-split"));
+        assert!(
+            figure(a, "inert_fraction_reactor_inlet", "converter:CH4")
+                > figure(b, "inert_fraction_reactor_inlet", "converter:CH4")
+        );
+    }
+    let optimum = purge["optimum"]["value"].as_f64().expect("an optimum");
+    let base = figures
+        .iter()
+        .find(|f| f["name"] == "purge_fraction")
+        .and_then(|f| f["value"].as_f64())
+        .unwrap();
+    assert!(
+        optimum > base * 0.25 && optimum < base * 4.0,
+        "{optimum} within the range searched around {base}"
+    );
+    assert!(purge["optimum"]["margin_sigma"].as_f64().unwrap() > 0.0);
 }
 
 #[test]
@@ -131,6 +171,8 @@ fn the_text_summary_reads_as_a_report_and_refuses_an_existing_database() {
     for needle in [
         "Meters to look at",
         "Loop figures of the last hour",
+        "The purge trade-off",
+        "the margin is highest at a purge split of",
         "48 of 48 periods reconciled",
         scenario::BIASED,
         "Tokens of this demo database",

@@ -55,6 +55,38 @@ impl Historian {
         Ok(body)
     }
 
+    /// The purge trade-off of the last day: a sweep of the purge split around its reconciled
+    /// value, and the optimum at the demo's invented prices (`scenario::PURGE_PRICES`), from
+    /// the day's periods combined as the base case.
+    pub(super) async fn purge_trade_off(
+        &self,
+        from: &str,
+        to: &str,
+        base_split: f64,
+    ) -> anyhow::Result<Value> {
+        let body = serde_json::json!({
+            "period": from,
+            "period_to": to,
+            "sweep": {"name": format!("split:{}", scenario::PURGE),
+                      "from": base_split * 0.5, "to": base_split * 2.0, "points": 5},
+            "economics": scenario::purge_prices(base_split),
+        });
+        let path = "/what-if";
+        let r = self
+            .client
+            .post(self.url(path))
+            .bearer_auth(&self.read)
+            .json(&body)
+            .send()
+            .await?;
+        let status = r.status();
+        let answer: Value = r.json().await?;
+        if !status.is_success() {
+            bail!("POST {path}: {status}: {answer}");
+        }
+        Ok(answer)
+    }
+
     async fn post_csv(&self, csv: String) -> anyhow::Result<Value> {
         let r = self
             .client
@@ -210,6 +242,26 @@ impl Historian {
             .iter()
             .filter(|p| p["runs"].as_i64().unwrap_or(0) >= 1)
             .count();
+        // The last day (at most 24 periods) as the base case of the purge trade-off.
+        let day_from = periods
+            .iter()
+            .rev()
+            .take(24)
+            .last()
+            .and_then(|p| p["start"].as_str())
+            .unwrap_or_default()
+            .to_string();
+        let base_split = figures
+            .iter()
+            .find(|f| f["name"] == "purge_fraction" && f["subject"] == scenario::PURGE)
+            .and_then(|f| f["value"].as_f64());
+        let purge = match base_split {
+            Some(split) => self
+                .purge_trade_off(&day_from, &to, split)
+                .await
+                .map_err(|e| e.to_string()),
+            None => Err("the last hour has no reconciled purge split".to_string()),
+        };
         Ok(Summary {
             plant: scenario::PLANT_NAME.to_string(),
             first_period: from,
@@ -225,6 +277,9 @@ impl Historian {
             meters: flagged,
             last_period: last,
             figures,
+            purge_day_from: day_from,
+            purge: purge.as_ref().ok().cloned(),
+            purge_problem: purge.err(),
             seconds: began.elapsed().as_secs_f64(),
             base_url: base.to_string(),
             tokens: tokens.clone(),

@@ -54,6 +54,12 @@ pub struct Summary {
     /// The loop figures of the last period.
     pub last_period: String,
     pub figures: Vec<Value>,
+    /// The first period of the last day, the base case of the purge trade-off.
+    pub purge_day_from: String,
+    /// The what-if of the purge over the last day (a sweep and the optimum), or why not.
+    pub purge: Option<Value>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub purge_problem: Option<String>,
     pub seconds: f64,
     pub base_url: String,
     pub tokens: std::collections::BTreeMap<String, String>,
@@ -182,6 +188,98 @@ fn num(v: &Value) -> String {
     }
 }
 
+/// A figure of a what-if point as `value ± σ`, by name and subject (the first subject of the
+/// name when none is given).
+fn point_figure(point: &Value, name: &str, subject: Option<&str>) -> String {
+    let found = point["figures"].as_array().and_then(|fs| {
+        fs.iter()
+            .find(|f| f["name"] == name && subject.is_none_or(|s| f["subject"] == s))
+    });
+    match found {
+        Some(f) if f["value"].is_number() => format!("{} ± {}", num(&f["value"]), num(&f["sigma"])),
+        _ => "—".into(),
+    }
+}
+
+/// The purge trade-off of the last day: one line per purge split swept, then the optimum.
+fn purge_table(t: &mut String, s: &Summary) {
+    let _ = writeln!(
+        t,
+        "The purge trade-off, from the last day reconciled (from {}; σ carried from it):",
+        s.purge_day_from
+    );
+    let Some(w) = &s.purge else {
+        let _ = writeln!(
+            t,
+            "  not available: {}",
+            s.purge_problem.as_deref().unwrap_or("no answer")
+        );
+        return;
+    };
+    let _ = writeln!(
+        t,
+        "  {:>11}  {:>20}  {:>20}  {:>20}  {:>16}",
+        "purge split",
+        "methanol, kmol/h",
+        "H2 lost, kmol/h",
+        "CH4 at inlet",
+        "recycle ratio"
+    );
+    for p in w["points"].as_array().into_iter().flatten() {
+        let split = p["settings"]
+            .as_object()
+            .and_then(|m| m.values().next())
+            .map(num)
+            .unwrap_or_default();
+        if p["status"] != "solved" {
+            let _ = writeln!(
+                t,
+                "  {split:>11}  no steady state: {}",
+                p["reason"].as_str().unwrap_or("")
+            );
+            continue;
+        }
+        let _ = writeln!(
+            t,
+            "  {split:>11}  {:>20}  {:>20}  {:>20}  {:>16}",
+            point_figure(p, "product_made", Some("CH3OH")),
+            point_figure(p, "reactant_lost_in_purge", Some("purge:H2")),
+            point_figure(p, "inert_fraction_reactor_inlet", Some("converter:CH4")),
+            point_figure(p, "recycle_ratio", None),
+        );
+    }
+    let o = &w["optimum"];
+    if o.is_object() {
+        let prices = scenario::purge_prices(1.0);
+        let list = |key: &str| {
+            prices[key]
+                .as_object()
+                .map(|m| {
+                    m.iter()
+                        .map(|(c, v)| format!("{c} {v}"))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                })
+                .unwrap_or_default()
+        };
+        let _ = writeln!(
+            t,
+            "  At invented prices per kmol ({} made; {} lost in the purge; recycle {}), the \
+             margin is highest at a purge split of {}: {} ± {} per hour{}.",
+            list("product_price"),
+            list("loss_value"),
+            prices["recycle_cost"],
+            num(&o["value"]),
+            num(&o["margin"]),
+            num(&o["margin_sigma"]),
+            o["bound"]
+                .as_str()
+                .map(|b| format!(" (on a limit: {b})"))
+                .unwrap_or_default()
+        );
+    }
+}
+
 /// The summary as a process engineer reads it.
 pub fn text(s: &Summary, serving: bool) -> String {
     let mut t = String::new();
@@ -254,6 +352,8 @@ pub fn text(s: &Summary, serving: bool) -> String {
             f["uom"].as_str().unwrap_or("")
         );
     }
+    let _ = writeln!(t);
+    purge_table(&mut t, s);
     let _ = writeln!(t);
     let _ = writeln!(
         t,

@@ -207,3 +207,19 @@ mod bound_tests {
         assert!(worst < 6.0, "|d| up to {worst}");
     }
 }
+
+/// The purge stream, whose split the demo's trade-off moves.
+pub const PURGE: &str = "purge";
+
+/// The demo's invented values for the purge optimum, per kmol in one invented currency:
+/// methanol made, and the hydrogen, carbon monoxide and carbon dioxide lost in the purge; a
+/// recycle cost as the circulator's proxy. The split is searched from a quarter to four times
+/// the reconciled one.
+pub fn purge_prices(base_split: f64) -> serde_json::Value {
+    serde_json::json!({
+        "product_price": {"CH3OH": 12.0},
+        "loss_value": {"H2": 0.9, "CO": 1.6, "CO2": 0.5},
+        "recycle_cost": 0.2,
+        "purge_range": [base_split * 0.25, (base_split * 4.0).min(0.9)],
+    })
+}
