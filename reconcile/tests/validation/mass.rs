@@ -18,7 +18,7 @@ fn synthesis_off_by(r: f64) -> String {
 
 #[test]
 fn reaction_conserving_mass_within_the_tolerance_passes() {
-    // The tolerance is 1e-6 relative to Σ|ν·M| (FORMATS/DOMAIN: "within tolerance").
+    // The tolerance is 1e-6 relative to Σ|ν·M| (docs/model.md, reactions).
     for r in [0.9e-6, -0.9e-6, 0.5e-6] {
         let text = synthesis_off_by(r);
         if let Err(e) = parse_plant(&text) {
