@@ -119,7 +119,7 @@ pub async fn put_model(
         }
     };
     let plant = &access.name;
-    let stored = admit::admit(&state, plant, text, format, effective_from).await?;
+    let stored = admit::admit(&state.store, plant, text, format, effective_from).await?;
     let mut response = (StatusCode::CREATED, Json(summary(plant, &stored))).into_response();
     if let Ok(location) = HeaderValue::from_str(&format!("/api/v1/plants/{plant}/model")) {
         response.headers_mut().insert(header::LOCATION, location);

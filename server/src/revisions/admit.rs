@@ -6,8 +6,7 @@
 use chrono::{DateTime, Utc};
 use reconcile::{ModelError, ModelProblem, ModelSpec, Plant};
 
-use crate::service::Service;
-use crate::store::{ModelRevision, StoreError};
+use crate::store::{ModelRevision, Store, StoreError};
 
 /// The text formats of a model.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -36,7 +35,7 @@ pub enum Refusal {
 /// Check `text` as a model of `plant` and store it as the plant's next revision, in effect
 /// from `effective_from`.
 pub async fn admit(
-    service: &Service,
+    store: &Store,
     plant: &str,
     text: &str,
     format: ModelFormat,
@@ -58,7 +57,6 @@ pub async fn admit(
     if !nul.is_empty() || text.contains('\0') {
         return Err(Refusal::HoldsNul(nul));
     }
-    let store = &service.store;
     let row = match store.plant(plant).await? {
         Some(row) => row,
         None => match store.create_plant(plant).await {
