@@ -42,3 +42,11 @@ to = "outside"
 pub(crate) fn tee_with_feed_meter() -> String {
     tee(&[FlowMeter("F-1", "in", None)])
 }
+
+#[test]
+fn the_shell_has_no_import_circle() {
+    let src = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("src");
+    let graph = testkit::layers::imports(&src);
+    assert!(graph.contains_key("api") && graph["api"].contains("service"));
+    assert_eq!(testkit::layers::circles(&graph), Vec::<Vec<String>>::new());
+}

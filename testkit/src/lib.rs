@@ -16,6 +16,7 @@
 pub mod bench;
 #[cfg(feature = "e2e")]
 pub mod e2e;
+pub mod layers;
 pub mod network;
 pub mod plants;
 pub mod purge_design;
