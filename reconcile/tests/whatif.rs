@@ -868,3 +868,27 @@ fn impossible_values_are_refused_naming_the_setting() {
     let values = Sweep::parse("split:purge=0.1..0.3:3").unwrap().values();
     assert_eq!(values, vec![0.1, 0.2, 0.3]);
 }
+
+/// A base that leaves unobservable what the what-if needs makes it refuse, naming the
+/// quantity: without the flow meters on the feed, the product, the converter inlet and the
+/// recycle, the analysers still fix the feed and the extent by the balances, but nothing fixes
+/// how much circulates, so the single-pass conversion is unknown.
+#[test]
+fn an_unobservable_base_is_refused_naming_the_quantity() {
+    let plant = parse_plant(PURGE_DESIGN).unwrap();
+    let z = steady_state(&plant, &DESIGN.specs()).unwrap();
+    let dropped = ["FI-1", "FI-2", "FI-3", "FI-5"];
+    let kept: Vec<MeterValue> = values(&plant, &z, None)
+        .into_iter()
+        .filter(|v| !dropped.contains(&plant.meters[v.meter].tag.as_str()))
+        .collect();
+    let a = analyse(&plant, kept);
+    assert_eq!(a.report.status, ReportStatus::Unobservable);
+    let err = whatif::what_if(&plant, &a, &set(&[("split:purge", 0.1)])).unwrap_err();
+    assert!(matches!(err, WhatIfError::Unobservable(_)), "{err}");
+    assert!(
+        err.to_string()
+            .contains("single-pass conversion of reaction \"synthesis\" unobservable"),
+        "{err}"
+    );
+}
