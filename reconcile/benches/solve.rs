@@ -17,6 +17,11 @@
 //!   readings: `reconcile_period` (estimate with its restarts, classification, every σ, the
 //!   tests, identification when the global test fails, loop figures, the report).
 //!
+//! - `whatif/point`, `whatif/sweep_50`, `whatif/optimum`: what-if steady states from the
+//!   reconciled Vantle period (the base case above): one point with the purge moved
+//!   (`split:purge` = 0.06), a 50-point sweep of the purge with σ, and the purge's economic
+//!   optimum at invented prices (golden section, about 40 points).
+//!
 //! Run with `cargo bench -p reconcile --bench solve`. `LOOPBAL_BENCH_PROBE=1` instead times each
 //! case once and prints iterations and status, without criterion.
 
@@ -318,7 +323,64 @@ fn probe() {
     }
 }
 
-criterion_group!(benches, vantle, networks);
+fn whatif(c: &mut Criterion) {
+    use reconcile::whatif::{self, Economics, Request, Sweep};
+    let plant = parse_plant(VANTLE).expect("Vantle model is valid");
+    let layout = Layout::new(&plant);
+    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
+    let input = period(noisy_values(
+        &plant,
+        &exact_values(&plant, &layout, &z),
+        NOISE_SEED,
+    ));
+    let analysis = reconcile::analyse_period(&plant, &input);
+    let point = Request {
+        set: vec![("split:purge".into(), 0.06)],
+        ..Request::default()
+    };
+    let sweep = Request {
+        sweep: Some(Sweep::parse("split:purge=0.02..0.12:50").expect("a sweep")),
+        ..Request::default()
+    };
+    let optimum = Request {
+        economics: Some(Economics {
+            product_price: [("CH3OH".to_string(), 10.0)].into(),
+            loss_value: [("H2".to_string(), 1.0), ("CO".to_string(), 2.0)].into(),
+            recycle_cost: 0.05,
+            inlet_limit: None,
+            range: [0.005, 0.3],
+        }),
+        ..Request::default()
+    };
+    for (name, request) in [
+        ("point", &point),
+        ("sweep_50", &sweep),
+        ("optimum", &optimum),
+    ] {
+        let w = whatif::what_if(&plant, &analysis, request).expect("a what-if of the Vantle loop");
+        let solved = w
+            .points
+            .iter()
+            .filter(|p| p.status == whatif::PointStatus::Solved)
+            .count();
+        eprintln!(
+            "whatif/{name}: {solved} of {} points solved, optimum {:?}",
+            w.points.len(),
+            w.optimum
+                .as_ref()
+                .map(|o| (o.value, o.margin, o.margin_sigma))
+        );
+    }
+    let mut group = c.benchmark_group("whatif");
+    for (name, request) in [("point", point), ("sweep_50", sweep), ("optimum", optimum)] {
+        group.bench_function(name, |b| {
+            b.iter(|| whatif::what_if(black_box(&plant), black_box(&analysis), &request))
+        });
+    }
+    group.finish();
+}
+
+criterion_group!(benches, vantle, networks, whatif);
 
 fn main() {
     if std::env::var_os("LOOPBAL_BENCH_PROBE").is_some() {

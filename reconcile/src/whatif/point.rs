@@ -31,8 +31,7 @@ pub struct Point {
     /// The settings of this point, by name.
     pub settings: BTreeMap<String, f64>,
     pub status: PointStatus,
-    /// Why there is no steady state (naming the component that accumulates), when there is none.
-    #[serde(skip_serializing_if = "Option::is_none")]
+    /// Why there is no steady state (naming the component that accumulates); null when solved.
     pub reason: Option<String>,
     pub figures: Vec<Figure>,
     pub streams: Vec<StreamReport>,
