@@ -40,3 +40,14 @@ pub use validate::parse_plant;
 
 /// Version of the engine, recorded with every report.
 pub const ENGINE_VERSION: &str = env!("CARGO_PKG_VERSION");
+
+#[cfg(test)]
+mod layers {
+    #[test]
+    fn the_engine_has_no_import_circle() {
+        let src = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("src");
+        let graph = testkit::layers::imports(&src);
+        assert!(graph.contains_key("whatif") && graph["whatif"].contains("simulate"));
+        assert_eq!(testkit::layers::circles(&graph), Vec::<Vec<String>>::new());
+    }
+}
