@@ -140,7 +140,9 @@ fn the_demo_finds_the_biased_meter_watches_the_drifting_one_and_blames_no_other(
         assert_eq!(a["status"], "solved", "{a}");
         assert!(split(a) < split(b));
         assert!(figure(a, "product_made", "CH3OH") > figure(b, "product_made", "CH3OH"));
-        assert!(figure(a, "recycle_ratio", "purge-split") > figure(b, "recycle_ratio", "purge-split"));
+        assert!(
+            figure(a, "recycle_ratio", "purge-split") > figure(b, "recycle_ratio", "purge-split")
+        );
         assert!(
             figure(a, "inert_fraction_reactor_inlet", "converter:CH4")
                 > figure(b, "inert_fraction_reactor_inlet", "converter:CH4")

@@ -391,11 +391,7 @@ async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
             400,
             "points",
         ),
-        (
-            serde_json::json!({"period": "yesterday"}),
-            400,
-            "period",
-        ),
+        (serde_json::json!({"period": "yesterday"}), 400, "period"),
         (
             serde_json::json!({"period": "2026-06-01T01:00:00Z", "hold": "pressure"}),
             400,

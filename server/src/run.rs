@@ -106,8 +106,7 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
         let _ = writeln!(
             stderr,
             "{file}: period {} was not reconciled: status {} (see its warnings)",
-            r.period_start,
-            r.status
+            r.period_start, r.status
         );
     }
     for start in &crashed {

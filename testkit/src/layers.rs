@@ -117,7 +117,10 @@ mod tests {
         let g = |edges: &[(&str, &str)]| {
             let mut graph: BTreeMap<String, BTreeSet<String>> = BTreeMap::new();
             for (a, b) in edges {
-                graph.entry(a.to_string()).or_default().insert(b.to_string());
+                graph
+                    .entry(a.to_string())
+                    .or_default()
+                    .insert(b.to_string());
                 graph.entry(b.to_string()).or_default();
             }
             graph

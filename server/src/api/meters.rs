@@ -31,7 +31,9 @@ pub async fn list_meters(
     State(state): State<AppState>,
     access: OnPlant<Read>,
 ) -> Result<Json<MeterList>, Problem> {
-    Ok(Json(meters::ranking(&state, &access.plant, Utc::now()).await?))
+    Ok(Json(
+        meters::ranking(&state, &access.plant, Utc::now()).await?,
+    ))
 }
 
 /// One meter's health and its history of measured, reconciled and normalised adjustment.

@@ -219,11 +219,7 @@ fn purge_table(t: &mut String, s: &Summary) {
     let _ = writeln!(
         t,
         "  {:>11}  {:>20}  {:>20}  {:>20}  {:>16}",
-        "purge split",
-        "methanol, kmol/h",
-        "H2 lost, kmol/h",
-        "CH4 at inlet",
-        "recycle ratio"
+        "purge split", "methanol, kmol/h", "H2 lost, kmol/h", "CH4 at inlet", "recycle ratio"
     );
     for p in w["points"].as_array().into_iter().flatten() {
         let split = p["settings"]

@@ -83,7 +83,7 @@ pub fn series(
     if let Some(name) = name {
         if !names.is_empty() && !names.iter().any(|n| n == name) {
             return Err(ResultsError::NoSuchFigure(format!(
-                    "no figure named \"{name}\" in the range; the figures there are: {}",
+                "no figure named \"{name}\" in the range; the figures there are: {}",
                 names.join(", ")
             )));
         }
@@ -102,8 +102,7 @@ pub fn series(
             subjects.dedup();
             return Err(ResultsError::NoSuchFigure(format!(
                 "no figure of subject \"{subject}\"{} in the range; the subjects there are: {}",
-                name.map(|n| format!(" named \"{n}\""))
-                    .unwrap_or_default(),
+                name.map(|n| format!(" named \"{n}\"")).unwrap_or_default(),
                 subjects.join(", ")
             )));
         }
@@ -195,5 +194,6 @@ pub fn to_csv(answer: &FigureSeriesList) -> Result<Vec<u8>, csv::Error> {
         Ok(())
     };
     write(&mut out)?;
-    out.into_inner().map_err(|e| csv::Error::from(e.into_error()))
+    out.into_inner()
+        .map_err(|e| csv::Error::from(e.into_error()))
 }

@@ -94,13 +94,15 @@ mod tests {
     use super::*;
 
     fn t(text: &str) -> DateTime<Utc> {
-        DateTime::parse_from_rfc3339(text).unwrap().with_timezone(&Utc)
+        DateTime::parse_from_rfc3339(text)
+            .unwrap()
+            .with_timezone(&Utc)
     }
 
     #[test]
     fn the_grid_starts_at_the_period_holding_from_and_stops_before_to() {
-        let r = PeriodRange::new(t("2026-03-02T05:30:00Z"), t("2026-03-02T08:00:00Z"), 3600)
-            .unwrap();
+        let r =
+            PeriodRange::new(t("2026-03-02T05:30:00Z"), t("2026-03-02T08:00:00Z"), 3600).unwrap();
         assert_eq!(
             r.starts,
             [
@@ -109,9 +111,13 @@ mod tests {
                 t("2026-03-02T07:00:00Z")
             ]
         );
-        let r = PeriodRange::new(t("2026-03-02T05:00:00Z"), t("2026-03-02T07:00:01Z"), 3600)
-            .unwrap();
-        assert_eq!(r.starts.len(), 3, "a period begun before `to` is in the range");
+        let r =
+            PeriodRange::new(t("2026-03-02T05:00:00Z"), t("2026-03-02T07:00:01Z"), 3600).unwrap();
+        assert_eq!(
+            r.starts.len(),
+            3,
+            "a period begun before `to` is in the range"
+        );
         assert_eq!(r.end_of(r.first()), t("2026-03-02T06:00:00Z"));
     }
 

@@ -1,7 +1,7 @@
 //! Runs, their listings and reports, and the meter records and notes written beside them.
 
-use reconcile::ReportStatus;
 use crate::health::MeterPeriod;
+use reconcile::ReportStatus;
 
 use super::*;
 
