@@ -243,11 +243,8 @@ impl Historian {
             .filter(|p| p["runs"].as_i64().unwrap_or(0) >= 1)
             .count();
         // The last day (at most 24 periods) as the base case of the purge trade-off.
-        let day_from = periods
-            .iter()
-            .rev()
-            .take(24)
-            .last()
+        let day_from = periods[periods.len().saturating_sub(24)..]
+            .first()
             .and_then(|p| p["start"].as_str())
             .unwrap_or_default()
             .to_string();
