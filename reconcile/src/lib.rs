@@ -15,6 +15,7 @@ pub mod equations;
 mod estimate;
 pub mod faults;
 pub mod figures;
+pub mod meter_value;
 pub mod model;
 pub mod period;
 pub(crate) mod period_report;

@@ -1,0 +1,185 @@
+//! What each meter is worth to a figure: the figure's σ as it is, with one meter's σ halved (a
+//! recalibration or a better transmitter), and without that meter (it fails), by rank-one
+//! updates of the reconciled covariance, never by a fresh estimate per meter.
+//!
+//! A meter i with gradient j (its h(z) in its own uom) and σᵢ adds wᵢ j jᵀ to the information
+//! of the estimate, wᵢ = 1/σᵢ². Changing its weight by δ changes the covariance P of the state
+//! by the Sherman–Morrison formula (Sherman & Morrison, Ann. Math. Statist. 21, 1950):
+//!
+//! ```text
+//! P' = P − δ P j jᵀ P / (1 + δ jᵀ P j)
+//! ```
+//!
+//! so the covariance of two linear functions a, b of the state needs only aᵀPb, aᵀPj and
+//! jᵀPb, which the base estimate already gives. Halving σᵢ is δ = 3wᵢ. Losing the meter is
+//! δ = −wᵢ, and 1 + δ jᵀPj = 1 − hᵢ, hᵢ the meter's leverage: a redundant meter (hᵢ < 1) can
+//! be lost and the formula holds; a non-redundant one (hᵢ = 1) determines a direction of the
+//! state no other meter does, so every function that loads on P j becomes unobservable, and
+//! the others keep the variance of the generalised inverse P − P j jᵀ P / (jᵀPj).
+//!
+//! The update is exact for the linearisation at the reconciled state: with noise-free data
+//! the estimate does not move when the weights change, and a test checks every number against
+//! a fresh estimate with the model changed.
+
+use crate::equations::measurement;
+use crate::estimate::Estimate;
+use crate::figures::loop_figures_of;
+use crate::model::Plant;
+use crate::report::Figure;
+use crate::uncertainty::Uncertainty;
+
+/// How far a lost meter's leverage may fall short of 1 and still count as non-redundant
+/// (the classification's redundancy tolerance).
+const NON_REDUNDANT: f64 = crate::classify::REDUNDANCY_TOLERANCE;
+
+/// A function loads on the lost direction d = P j when |aᵀd| exceeds this share of ‖a‖‖d‖:
+/// the classification's own observability tolerance.
+const LOADS: f64 = 1e-7;
+
+/// The estimate's uncertainty with one meter's weight changed.
+pub struct Reweighted<'a> {
+    base: &'a dyn Uncertainty,
+    /// The meter's gradient on the state, in its uom.
+    j: Vec<(usize, f64)>,
+    /// jᵀPj.
+    jpj: f64,
+    change: Change,
+}
+
+enum Change {
+    /// P' = P − c (P j)(P j)ᵀ with c = δ / (1 + δ jᵀPj).
+    RankOne(f64),
+    /// A non-redundant meter lost: the direction d = P j (dense, on the state) is no longer
+    /// determined.
+    Lost(Vec<f64>),
+}
+
+impl<'a> Reweighted<'a> {
+    /// The covariance with the weight of the meter with gradient `j` and σ `sigma` multiplied
+    /// by `factor` (4 for σ halved, 0 for the meter lost); `n` states.
+    pub fn new(
+        base: &'a dyn Uncertainty,
+        n: usize,
+        j: Vec<(usize, f64)>,
+        sigma: f64,
+        factor: f64,
+    ) -> Self {
+        let jpj = base.covariance(&j, &j);
+        let w = 1.0 / (sigma * sigma);
+        let delta = (factor - 1.0) * w;
+        let denom = 1.0 + delta * jpj;
+        let change = if factor == 0.0 && denom <= NON_REDUNDANT {
+            Change::Lost((0..n).map(|i| base.covariance(&[(i, 1.0)], &j)).collect())
+        } else {
+            Change::RankOne(delta / denom)
+        };
+        Reweighted {
+            base,
+            j,
+            jpj,
+            change,
+        }
+    }
+
+    /// The meter's loss leaves some function of the state undetermined.
+    pub fn loses_a_direction(&self) -> bool {
+        matches!(self.change, Change::Lost(_))
+    }
+}
+
+impl Uncertainty for Reweighted<'_> {
+    fn is_observable(&self, a: &[(usize, f64)]) -> bool {
+        if !self.base.is_observable(a) {
+            return false;
+        }
+        match &self.change {
+            Change::RankOne(_) => true,
+            Change::Lost(d) => {
+                let ad: f64 = a.iter().map(|&(i, v)| v * d[i]).sum();
+                let norm_a = a.iter().map(|(_, v)| v * v).sum::<f64>().sqrt();
+                let norm_d = d.iter().map(|v| v * v).sum::<f64>().sqrt();
+                ad.abs() <= LOADS * norm_a * norm_d
+            }
+        }
+    }
+
+    fn covariance(&self, a: &[(usize, f64)], b: &[(usize, f64)]) -> f64 {
+        let apb = self.base.covariance(a, b);
+        let apj = self.base.covariance(a, &self.j);
+        let jpb = self.base.covariance(&self.j, b);
+        match self.change {
+            Change::RankOne(c) => apb - c * apj * jpb,
+            Change::Lost(_) if self.jpj > 0.0 => apb - apj * jpb / self.jpj,
+            Change::Lost(_) => apb,
+        }
+    }
+
+    fn by_parts(&self) -> bool {
+        self.base.by_parts()
+    }
+}
+
+/// One meter's worth to a figure.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MeterWorth {
+    /// Index of the meter in the plant.
+    pub meter: usize,
+    /// The figure's σ with this meter's σ halved.
+    pub sigma_if_halved: Option<f64>,
+    /// The figure's σ without this meter; `None` when its loss leaves the figure unobservable.
+    pub sigma_if_lost: Option<f64>,
+    /// The meter's loss leaves some function of the state undetermined (it is non-redundant).
+    pub loses_a_direction: bool,
+}
+
+/// The figure of `name` and `subject` among the loop figures at the estimate's state under
+/// `unc`.
+fn figure_under(
+    plant: &Plant,
+    est: &Estimate,
+    unc: &dyn Uncertainty,
+    name: &str,
+    subject: &str,
+) -> Option<Figure> {
+    loop_figures_of(plant, &est.layout, &est.solution.z, unc)
+        .into_iter()
+        .find(|f| f.name == name && f.subject == subject)
+}
+
+/// The figure as reconciled, and each measured meter's worth to it: its σ with the meter's σ
+/// halved and without the meter. `None` when the estimate has no such figure.
+pub fn meter_worths(
+    plant: &Plant,
+    est: &Estimate,
+    name: &str,
+    subject: &str,
+) -> Option<(Figure, Vec<MeterWorth>)> {
+    let base = figure_under(plant, est, &est.classification, name, subject)?;
+    let worths = est
+        .measured
+        .iter()
+        .map(|m| {
+            let (_, j) = measurement(plant, &est.layout, &plant.meters[m.meter], &est.solution.z);
+            let sigma_under = |factor: f64| {
+                let unc = Reweighted::new(
+                    &est.classification,
+                    est.layout.n,
+                    j.clone(),
+                    m.sigma,
+                    factor,
+                );
+                let sigma = figure_under(plant, est, &unc, name, subject).and_then(|f| f.sigma);
+                (sigma, unc.loses_a_direction())
+            };
+            let (halved, _) = sigma_under(4.0);
+            let (lost, loses) = sigma_under(0.0);
+            MeterWorth {
+                meter: m.meter,
+                sigma_if_halved: halved,
+                sigma_if_lost: lost,
+                loses_a_direction: loses,
+            }
+        })
+        .collect();
+    Some((base, worths))
+}

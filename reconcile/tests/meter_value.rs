@@ -1,0 +1,154 @@
+//! Each meter's worth to the loop figures by rank-one updates of the reconciled covariance
+//! (reconcile::meter_value), checked number for number against a fresh estimate with the
+//! model changed: the meter's σ halved, or the meter's reading taken away. Noise-free data, so
+//! the reconciled state is the same whatever the weights and the comparison is exact up to
+//! rounding.
+
+use reconcile::equations::Layout;
+use reconcile::meter_value::meter_worths;
+use reconcile::model::Sigma;
+use reconcile::report::Figure;
+use reconcile::{analyse_period, parse_plant, Plant, ReportStatus};
+use testkit::plants::{PURGE_DESIGN, VANTLE};
+use testkit::{exact_values, period, vantle_true_state, VantleConditions};
+
+/// The plant with meter `k`'s σ halved, whatever its rule.
+fn halved(plant: &Plant, k: usize) -> Plant {
+    let mut p = plant.clone();
+    p.meters[k].sigma = match p.meters[k].sigma {
+        Sigma::Absolute(s) => Sigma::Absolute(s / 2.0),
+        Sigma::PercentOfReading(s) => Sigma::PercentOfReading(s / 2.0),
+        Sigma::PercentOfSpan(s) => Sigma::PercentOfSpan(s / 2.0),
+    };
+    p
+}
+
+/// Equal to 1e-7 of σ, with a floor of 1e-10 of the figure's size for figures whose σ is a
+/// rounding error (a balance's closure, zero by construction).
+fn same_sigma(rank_one: Option<f64>, fresh: &Figure, what: &str) {
+    let floor = 1e-10 * fresh.value.map_or(1.0, |v| v.abs().max(1.0));
+    match (rank_one, fresh.value.and(fresh.sigma)) {
+        (Some(a), Some(b)) => assert!(
+            (a - b).abs() <= 1e-7 * b.abs() + floor,
+            "{what}: rank-one update {a}, fresh estimate {b}"
+        ),
+        (None, None) => {}
+        (a, b) => panic!("{what}: rank-one update {a:?}, fresh estimate {b:?}"),
+    }
+}
+
+/// Every loop figure and every meter of `plant` at the noise-free state `values`.
+/// Answers how many (figure, meter) pairs were compared, and in how many the meter's loss
+/// left the figure unobservable.
+fn check_every_figure_and_meter(
+    plant: &Plant,
+    values: Vec<reconcile::period::MeterValue>,
+) -> (usize, usize) {
+    let input = period(values.clone());
+    let base = analyse_period(plant, &input);
+    assert_eq!(
+        base.report.status,
+        ReportStatus::Solved,
+        "{:?}",
+        base.report.warnings
+    );
+    let est = base.estimate.as_ref().expect("an estimate");
+    let (mut compared, mut lost_directions) = (0, 0);
+    for figure in base.report.figures.iter().filter(|f| f.sigma.is_some()) {
+        let (reconciled, worths) = meter_worths(plant, est, &figure.name, &figure.subject)
+            .expect("the figure is among the loop figures");
+        assert_eq!(&reconciled, figure, "the base figure is the report's");
+        for w in &worths {
+            let tag = &plant.meters[w.meter].tag;
+            let what =
+                |change: &str| format!("{} {} with {tag} {change}", figure.name, figure.subject);
+
+            let fresh = analyse_period(&halved(plant, w.meter), &input).report;
+            let f = fresh
+                .figures
+                .iter()
+                .find(|f| f.name == figure.name && f.subject == figure.subject)
+                .expect("the figure");
+            same_sigma(w.sigma_if_halved, f, &what("σ halved"));
+
+            let without: Vec<_> = values
+                .iter()
+                .filter(|v| v.meter != w.meter)
+                .cloned()
+                .collect();
+            let fresh = analyse_period(plant, &period(without)).report;
+            let f = fresh
+                .figures
+                .iter()
+                .find(|f| f.name == figure.name && f.subject == figure.subject)
+                .expect("the figure");
+            same_sigma(w.sigma_if_lost, f, &what("lost"));
+            // More data never widens σ, less never narrows it (to rounding, as above).
+            let sigma = figure.sigma.unwrap();
+            let floor = 1e-10 * figure.value.map_or(1.0, |v| v.abs().max(1.0));
+            if let Some(s) = w.sigma_if_halved {
+                assert!(
+                    s <= sigma * (1.0 + 1e-9) + floor,
+                    "{}: more data, more σ",
+                    what("σ halved")
+                );
+            }
+            if let Some(s) = w.sigma_if_lost {
+                assert!(
+                    s >= sigma * (1.0 - 1e-9) - floor,
+                    "{}: less data, less σ",
+                    what("lost")
+                );
+            }
+            compared += 1;
+            lost_directions += usize::from(w.sigma_if_lost.is_none());
+        }
+    }
+    (compared, lost_directions)
+}
+
+#[test]
+fn every_figure_of_the_vantle_loop_matches_a_fresh_estimate_for_every_meter() {
+    let plant = parse_plant(VANTLE).unwrap();
+    let layout = Layout::new(&plant);
+    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
+    let (compared, unobservable) =
+        check_every_figure_and_meter(&plant, exact_values(&plant, &layout, &z));
+    assert!(compared > 28 * 10, "{compared} comparisons");
+    assert_eq!(
+        unobservable, 0,
+        "every meter of the Vantle loop is redundant"
+    );
+}
+
+#[test]
+fn a_non_redundant_meter_lost_leaves_the_figures_that_need_it_unobservable() {
+    // The purge-design loop with one meter taken away, the first whose absence leaves another
+    // meter non-redundant: losing that one too leaves some figures undetermined, as a fresh
+    // estimate without it finds, while the others keep a σ.
+    let plant = parse_plant(PURGE_DESIGN).unwrap();
+    let layout = Layout::new(&plant);
+    let z = reconcile::simulate::steady_state(&plant, &testkit::purge_design::specs()).unwrap();
+    let all = exact_values(&plant, &layout, &z);
+    let values = (0..plant.meters.len())
+        .map(|k| {
+            all.iter()
+                .filter(|v| v.meter != k)
+                .cloned()
+                .collect::<Vec<_>>()
+        })
+        .find(|values| {
+            let a = analyse_period(&plant, &period(values.clone()));
+            a.report.status == ReportStatus::Solved
+                && a.estimate.as_ref().is_some_and(|est| {
+                    (0..est.measured.len()).any(|i| !est.classification.is_redundant(i))
+                })
+        })
+        .expect("a meter set of the purge-design loop with a non-redundant meter");
+    let (compared, lost_directions) = check_every_figure_and_meter(&plant, values);
+    assert!(compared > 0);
+    assert!(
+        lost_directions > 0,
+        "losing the non-redundant meter leaves some figure unobservable"
+    );
+}
