@@ -24,7 +24,7 @@
 use crate::equations::measurement;
 use crate::estimate::Estimate;
 use crate::figures::loop_figures_of;
-use crate::model::Plant;
+use crate::model::{Plant, UnitKind};
 use crate::report::Figure;
 use crate::uncertainty::Uncertainty;
 
@@ -130,6 +130,47 @@ pub struct MeterWorth {
     pub sigma_if_lost: Option<f64>,
     /// The meter's loss leaves some function of the state undetermined (it is non-redundant).
     pub loses_a_direction: bool,
+    /// What its loss leaves unobservable that is observable now: `flow of stream S`,
+    /// `extent of reaction R`, `split fraction of stream S`.
+    pub unobservable_if_lost: Vec<String>,
+    /// Meters (indices in the plant) that are tested now and could no longer be without it.
+    pub untestable_if_lost: Vec<usize>,
+}
+
+/// The quantities a loss can leave unobservable, named as a report's `unobservable` names
+/// them: each stream's total flow, each extent, each splitter outlet's fraction (the last
+/// outlet's is 1 − Σ of the others), with its gradient on the state.
+fn quantities(plant: &Plant, est: &Estimate) -> Vec<(String, Vec<(usize, f64)>)> {
+    let layout = &est.layout;
+    let mut out: Vec<(String, Vec<(usize, f64)>)> = (0..plant.streams.len())
+        .map(|s| {
+            let grad = layout.stream_flows(plant, s).map(|i| (i, 1.0)).collect();
+            (format!("flow of stream \"{}\"", plant.streams[s].id), grad)
+        })
+        .collect();
+    for (r, reaction) in plant.reactions.iter().enumerate() {
+        out.push((
+            format!("extent of reaction \"{}\"", reaction.id),
+            vec![(layout.extent(r), 1.0)],
+        ));
+    }
+    for unit in plant.units.iter().filter(|u| u.kind == UnitKind::Splitter) {
+        let mut rest = Vec::new();
+        for (k, &o) in unit.outlets.iter().enumerate() {
+            let grad = match layout.split(o) {
+                Some(i) if k + 1 < unit.outlets.len() => {
+                    rest.push((i, -1.0));
+                    vec![(i, 1.0)]
+                }
+                _ => rest.clone(),
+            };
+            out.push((
+                format!("split fraction of stream \"{}\"", plant.streams[o].id),
+                grad,
+            ));
+        }
+    }
+    out
 }
 
 /// The figure of `name` and `subject` among the loop figures at the estimate's state under
@@ -155,6 +196,15 @@ pub fn meter_worths(
     subject: &str,
 ) -> Option<(Figure, Vec<MeterWorth>)> {
     let base = figure_under(plant, est, &est.classification, name, subject)?;
+    let quantities = quantities(plant, est);
+    let gradients: Vec<(Vec<(usize, f64)>, f64)> = est
+        .measured
+        .iter()
+        .map(|m| {
+            let (_, j) = measurement(plant, &est.layout, &plant.meters[m.meter], &est.solution.z);
+            (j, m.sigma)
+        })
+        .collect();
     let worths = est
         .measured
         .iter()
@@ -173,11 +223,34 @@ pub fn meter_worths(
             };
             let (halved, _) = sigma_under(4.0);
             let (lost, loses) = sigma_under(0.0);
+            let without =
+                Reweighted::new(&est.classification, est.layout.n, j.clone(), m.sigma, 0.0);
+            let unobservable_if_lost = quantities
+                .iter()
+                .filter(|(_, a)| est.classification.is_observable(a) && !without.is_observable(a))
+                .map(|(name, _)| name.clone())
+                .collect();
+            // A meter is tested while its adjustment has variance: 1 − wₖ jₖᵀ P jₖ > 0.
+            let untestable_if_lost = est
+                .measured
+                .iter()
+                .zip(&gradients)
+                .enumerate()
+                .filter(|(k, (other, _))| {
+                    other.meter != m.meter && est.classification.is_redundant(*k)
+                })
+                .filter(|(_, (_, (jk, sk)))| {
+                    1.0 - without.covariance(jk, jk) / (sk * sk) <= NON_REDUNDANT
+                })
+                .map(|(_, (other, _))| other.meter)
+                .collect();
             MeterWorth {
                 meter: m.meter,
                 sigma_if_halved: halved,
                 sigma_if_lost: lost,
                 loses_a_direction: loses,
+                unobservable_if_lost,
+                untestable_if_lost,
             }
         })
         .collect();

@@ -145,10 +145,63 @@ fn a_non_redundant_meter_lost_leaves_the_figures_that_need_it_unobservable() {
                 })
         })
         .expect("a meter set of the purge-design loop with a non-redundant meter");
-    let (compared, lost_directions) = check_every_figure_and_meter(&plant, values);
+    let (compared, lost_directions) = check_every_figure_and_meter(&plant, values.clone());
+    // Not vacuous: some meter's loss leaves the figure unobservable, and some leaves another
+    // meter untested (both checked above against the fresh estimates).
+    let a = analyse_period(&plant, &period(values));
+    let est = a.estimate.as_ref().unwrap();
+    let f = &a.report.figures[0];
+    let (_, worths) = meter_worths(&plant, est, &f.name, &f.subject).unwrap();
+    assert!(
+        worths.iter().any(|w| w.sigma_if_lost.is_none()),
+        "{worths:?}"
+    );
+    assert!(
+        worths.iter().any(|w| !w.untestable_if_lost.is_empty()),
+        "{worths:?}"
+    );
     assert!(compared > 0);
     assert!(
         lost_directions > 0,
         "losing the non-redundant meter leaves some figure unobservable"
+    );
+}
+
+#[test]
+fn a_flow_meter_lost_names_the_flows_it_leaves_unobservable() {
+    // Among the purge-design loop's meter sets with one meter taken away, one where losing a
+    // second meter leaves a stream flow, an extent or a split undetermined; the names are the
+    // fresh estimate's.
+    let plant = parse_plant(PURGE_DESIGN).unwrap();
+    let layout = Layout::new(&plant);
+    let z = reconcile::simulate::steady_state(&plant, &testkit::purge_design::specs()).unwrap();
+    let all = exact_values(&plant, &layout, &z);
+    let mut named = 0;
+    for k in 0..plant.meters.len() {
+        let values: Vec<_> = all.iter().filter(|v| v.meter != k).cloned().collect();
+        let a = analyse_period(&plant, &period(values.clone()));
+        let (Some(est), Some(f)) = (a.estimate.as_ref(), a.report.figures.first()) else {
+            continue;
+        };
+        let (_, worths) = meter_worths(&plant, est, &f.name, &f.subject).unwrap();
+        for w in worths.iter().filter(|w| !w.unobservable_if_lost.is_empty()) {
+            let without: Vec<_> = values
+                .iter()
+                .filter(|v| v.meter != w.meter)
+                .cloned()
+                .collect();
+            let fresh = analyse_period(&plant, &period(without)).report;
+            let newly: Vec<&String> = fresh
+                .unobservable
+                .iter()
+                .filter(|q| !a.report.unobservable.contains(q))
+                .collect();
+            assert_eq!(w.unobservable_if_lost.iter().collect::<Vec<_>>(), newly);
+            named += 1;
+        }
+    }
+    assert!(
+        named > 0,
+        "some loss leaves a flow, extent or split unobservable"
     );
 }
