@@ -1,6 +1,6 @@
 //! Builds the PostgreSQL store tests as ignored (with the reason) unless
 //! LOOPBAL_TEST_POSTGRES_URL is set, so that `cargo test` on a machine without PostgreSQL
-//! reports them as not run rather than as passed (server/src/store/tests.rs, DEVELOPERS.md).
+//! reports them as not run rather than as passed (server/src/store/tests/, DEVELOPERS.md).
 
 fn main() {
     println!("cargo::rustc-check-cfg=cfg(loopbal_postgres_tests)");

@@ -4,7 +4,7 @@
 //! fresh feeds, each reaction's single-pass conversion, each separator's component splits and
 //! each splitter's fractions, as reconciled. Settings replace some of them (settings.rs); the
 //! new steady state solves the model's own equations with those specifications by Newton
-//! (simulate.rs, from the base state), and its σ is carried from the base case's covariance by
+//! (simulate/steady.rs, from the base state), and its σ is carried from the base case's covariance by
 //! the delta method through the implicit function theorem (propagate.rs). Sweeps repeat that
 //! along one setting; an economic optimum searches the purge split (optimum.rs). When the loop
 //! has no steady state, diagnose.rs says which component accumulates. The base case is one
