@@ -107,6 +107,24 @@ pub fn analyse(plant: &Plant, start: DateTime<Utc>, readings: Vec<PeriodReading>
     analysis
 }
 
+/// Readings of a file grouped by the period of `plant` they fall in, each flagged when outside
+/// its meter's instrument range (as ingestion flags a stored reading).
+pub fn by_period(
+    plant: &Plant,
+    readings: Vec<Reading>,
+) -> BTreeMap<DateTime<Utc>, Vec<PeriodReading>> {
+    let mut periods: BTreeMap<DateTime<Utc>, Vec<PeriodReading>> = BTreeMap::new();
+    for reading in readings {
+        let start = reconcile::period::period_start(reading.time, plant.period_seconds);
+        let out_of_range = out_of_range(plant, &reading);
+        periods.entry(start).or_default().push(PeriodReading {
+            reading,
+            out_of_range,
+        });
+    }
+    periods
+}
+
 /// Outside the instrument range its meter has in `plant` (a meter without one has no outside).
 pub fn out_of_range(plant: &Plant, reading: &Reading) -> bool {
     plant

@@ -2,7 +2,6 @@
 //! runs every period found as the service does (`period_run`), and prints the reports as one
 //! JSON array.
 
-use std::collections::BTreeMap;
 use std::io::Write;
 use std::path::Path;
 use std::process::ExitCode;
@@ -11,7 +10,7 @@ use anyhow::Context;
 use chrono::{DateTime, Utc};
 use reconcile::{Report, ReportStatus};
 
-use crate::period_run::{self, PeriodReading};
+use crate::period_run;
 use crate::readings::{self, ReadingsError};
 use crate::BadInput;
 
@@ -59,16 +58,7 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
 
     // The service's run of a period, on the periods of the file: the same screens and
     // warnings as the scheduler's, so the same readings give the same report.
-    let mut periods: BTreeMap<DateTime<Utc>, Vec<PeriodReading>> = BTreeMap::new();
-    for reading in parsed.readings {
-        let start = reconcile::period::period_start(reading.time, plant.period_seconds);
-        let out_of_range = period_run::out_of_range(&plant, &reading);
-        periods.entry(start).or_default().push(PeriodReading {
-            reading,
-            out_of_range,
-        });
-    }
-    let periods = periods
+    let periods = period_run::by_period(&plant, parsed.readings)
         .into_iter()
         .filter(|(start, _)| opts.from.is_none_or(|from| *start >= from))
         .filter(|(start, _)| opts.to.is_none_or(|to| *start < to));

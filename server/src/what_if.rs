@@ -15,7 +15,7 @@ use reconcile::whatif::{
 };
 use reconcile::Plant;
 
-use crate::period_run::{self, PeriodReading};
+use crate::period_run;
 use crate::readings;
 use crate::BadInput;
 
@@ -69,15 +69,7 @@ pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
     let parsed =
         readings::parse(&bytes, format, &plant).map_err(|e| crate::run::describe(&file, e))?;
 
-    let mut periods: BTreeMap<DateTime<Utc>, Vec<PeriodReading>> = BTreeMap::new();
-    for reading in parsed.readings {
-        let start = reconcile::period::period_start(reading.time, plant.period_seconds);
-        let out_of_range = period_run::out_of_range(&plant, &reading);
-        periods.entry(start).or_default().push(PeriodReading {
-            reading,
-            out_of_range,
-        });
-    }
+    let mut periods = period_run::by_period(&plant, parsed.readings);
     let result = match opts.range {
         Some((from, to)) => {
             let analyses: Vec<reconcile::Analysis> = periods
