@@ -173,8 +173,40 @@ fn quantities(plant: &Plant, est: &Estimate) -> Vec<(String, Vec<(usize, f64)>)>
     out
 }
 
-/// The figure of `name` and `subject` among the loop figures at the estimate's state under
-/// `unc`.
+/// A figure of the state itself: `molar_flow` of a stream (subject `STREAM`, kmol/h),
+/// `component_flow` (subject `STREAM:COMPONENT`, kmol/h) or `split_fraction` of a splitter
+/// outlet (subject `STREAM`, not the last outlet of its splitter), with its gradient.
+fn state_figure(
+    plant: &Plant,
+    est: &Estimate,
+    name: &str,
+    subject: &str,
+) -> Option<(&'static str, Vec<(usize, f64)>)> {
+    let layout = &est.layout;
+    match name {
+        "molar_flow" => {
+            let s = plant.stream_index(subject)?;
+            Some((
+                "kmol/h",
+                layout.stream_flows(plant, s).map(|i| (i, 1.0)).collect(),
+            ))
+        }
+        "component_flow" => {
+            let (stream, component) = subject.split_once(':')?;
+            let s = plant.stream_index(stream)?;
+            let c = plant.components.iter().position(|c| c.id == component)?;
+            Some(("kmol/h", vec![(layout.flow(plant, s, c)?, 1.0)]))
+        }
+        "split_fraction" => {
+            let s = plant.stream_index(subject)?;
+            Some(("fraction", vec![(layout.split(s)?, 1.0)]))
+        }
+        _ => None,
+    }
+}
+
+/// The figure of `name` and `subject` at the estimate's state under `unc`: a loop figure, or
+/// a figure of the state itself (see [`state_figure`]).
 fn figure_under(
     plant: &Plant,
     est: &Estimate,
@@ -182,6 +214,17 @@ fn figure_under(
     name: &str,
     subject: &str,
 ) -> Option<Figure> {
+    if let Some((uom, grad)) = state_figure(plant, est, name, subject) {
+        let observable = unc.is_observable(&grad);
+        let value: f64 = grad.iter().map(|&(i, a)| a * est.solution.z[i]).sum();
+        return Some(Figure {
+            name: name.to_string(),
+            subject: subject.to_string(),
+            uom: uom.to_string(),
+            value: observable.then_some(value),
+            sigma: observable.then(|| unc.sigma(&grad)),
+        });
+    }
     loop_figures_of(plant, &est.layout, &est.solution.z, unc)
         .into_iter()
         .find(|f| f.name == name && f.subject == subject)

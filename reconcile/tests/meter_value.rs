@@ -205,3 +205,63 @@ fn a_flow_meter_lost_names_the_flows_it_leaves_unobservable() {
         "some loss leaves a flow, extent or split unobservable"
     );
 }
+
+#[test]
+fn a_stream_flow_and_a_split_fraction_as_figures_match_fresh_estimates() {
+    // Figures of the state itself on the purge-design loop: each stream's molar flow and the
+    // purge split, against the σ a fresh estimate reports for them, for every meter.
+    let plant = parse_plant(PURGE_DESIGN).unwrap();
+    let layout = Layout::new(&plant);
+    let z = reconcile::simulate::steady_state(&plant, &testkit::purge_design::specs()).unwrap();
+    let values = exact_values(&plant, &layout, &z);
+    let input = period(values.clone());
+    let base = analyse_period(&plant, &input);
+    let est = base.estimate.as_ref().unwrap();
+    let mut compared = 0;
+    for stream in &plant.streams {
+        let (flow, worths) = meter_worths(&plant, est, "molar_flow", &stream.id).unwrap();
+        let reported = base
+            .report
+            .streams
+            .iter()
+            .find(|s| s.id == stream.id)
+            .unwrap();
+        assert_eq!(flow.sigma, reported.molar_flow_sigma, "{}", stream.id);
+        for w in &worths {
+            let without: Vec<_> = values
+                .iter()
+                .filter(|v| v.meter != w.meter)
+                .cloned()
+                .collect();
+            let fresh = analyse_period(&plant, &period(without)).report;
+            let s = fresh.streams.iter().find(|s| s.id == stream.id).unwrap();
+            let as_figure = Figure {
+                name: "molar_flow".into(),
+                subject: stream.id.clone(),
+                uom: "kmol/h".into(),
+                value: s.molar_flow,
+                sigma: s.molar_flow_sigma,
+            };
+            same_sigma(
+                w.sigma_if_lost,
+                &as_figure,
+                &format!(
+                    "flow of {} without {}",
+                    stream.id, plant.meters[w.meter].tag
+                ),
+            );
+            compared += 1;
+        }
+    }
+    let splits: Vec<_> = base
+        .report
+        .split_fractions
+        .iter()
+        .filter(|s| s.value.is_some())
+        .collect();
+    let (purge, _) = meter_worths(&plant, est, "split_fraction", &splits[0].stream).unwrap();
+    assert_eq!(purge.sigma, splits[0].sigma);
+    assert!(compared >= plant.streams.len() * 8, "{compared}");
+    assert!(meter_worths(&plant, est, "molar_flow", "no-such-stream").is_none());
+    assert!(meter_worths(&plant, est, "component_flow", "purge:Ar").is_some());
+}
