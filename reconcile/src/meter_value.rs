@@ -248,26 +248,16 @@ pub fn meter_worths(
             (j, m.sigma)
         })
         .collect();
+    let under =
+        |unc: &Reweighted| figure_under(plant, est, unc, name, subject).and_then(|f| f.sigma);
     let worths = est
         .measured
         .iter()
-        .map(|m| {
-            let (_, j) = measurement(plant, &est.layout, &plant.meters[m.meter], &est.solution.z);
-            let sigma_under = |factor: f64| {
-                let unc = Reweighted::new(
-                    &est.classification,
-                    est.layout.n,
-                    j.clone(),
-                    m.sigma,
-                    factor,
-                );
-                let sigma = figure_under(plant, est, &unc, name, subject).and_then(|f| f.sigma);
-                (sigma, unc.loses_a_direction())
-            };
-            let (halved, _) = sigma_under(4.0);
-            let (lost, loses) = sigma_under(0.0);
-            let without =
-                Reweighted::new(&est.classification, est.layout.n, j.clone(), m.sigma, 0.0);
+        .zip(&gradients)
+        .map(|(m, (j, sigma))| {
+            let n = est.layout.n;
+            let halved = Reweighted::new(&est.classification, n, j.clone(), *sigma, 4.0);
+            let without = Reweighted::new(&est.classification, n, j.clone(), *sigma, 0.0);
             let unobservable_if_lost = quantities
                 .iter()
                 .filter(|(_, a)| est.classification.is_observable(a) && !without.is_observable(a))
@@ -289,9 +279,9 @@ pub fn meter_worths(
                 .collect();
             MeterWorth {
                 meter: m.meter,
-                sigma_if_halved: halved,
-                sigma_if_lost: lost,
-                loses_a_direction: loses,
+                sigma_if_halved: under(&halved),
+                sigma_if_lost: under(&without),
+                loses_a_direction: without.loses_a_direction(),
                 unobservable_if_lost,
                 untestable_if_lost,
             }

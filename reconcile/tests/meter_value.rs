@@ -7,6 +7,7 @@
 use reconcile::equations::Layout;
 use reconcile::meter_value::meter_worths;
 use reconcile::model::Sigma;
+use reconcile::period::MeterValue;
 use reconcile::report::Figure;
 use reconcile::{analyse_period, parse_plant, Plant, ReportStatus};
 use testkit::plants::{PURGE_DESIGN, VANTLE};
@@ -21,6 +22,20 @@ fn halved(plant: &Plant, k: usize) -> Plant {
         Sigma::PercentOfSpan(s) => Sigma::PercentOfSpan(s / 2.0),
     };
     p
+}
+
+/// The period's meter values but those of meter `k`: the meter lost.
+fn without(values: &[MeterValue], k: usize) -> Vec<MeterValue> {
+    values.iter().filter(|v| v.meter != k).cloned().collect()
+}
+
+/// The figure of `name` and `subject` in a report.
+fn figure_of<'a>(report: &'a reconcile::Report, name: &str, subject: &str) -> &'a Figure {
+    report
+        .figures
+        .iter()
+        .find(|f| f.name == name && f.subject == subject)
+        .unwrap_or_else(|| panic!("{name} {subject} in the report"))
 }
 
 /// Equal to 1e-7 of σ, with a floor of 1e-10 of the figure's size for figures whose σ is a
@@ -40,10 +55,7 @@ fn same_sigma(rank_one: Option<f64>, fresh: &Figure, what: &str) {
 /// Every loop figure and every meter of `plant` at the noise-free state `values`.
 /// Answers how many (figure, meter) pairs were compared, and in how many the meter's loss
 /// left the figure unobservable.
-fn check_every_figure_and_meter(
-    plant: &Plant,
-    values: Vec<reconcile::period::MeterValue>,
-) -> (usize, usize) {
+fn check_every_figure_and_meter(plant: &Plant, values: Vec<MeterValue>) -> (usize, usize) {
     let input = period(values.clone());
     let base = analyse_period(plant, &input);
     assert_eq!(
@@ -64,24 +76,12 @@ fn check_every_figure_and_meter(
                 |change: &str| format!("{} {} with {tag} {change}", figure.name, figure.subject);
 
             let fresh = analyse_period(&halved(plant, w.meter), &input).report;
-            let f = fresh
-                .figures
-                .iter()
-                .find(|f| f.name == figure.name && f.subject == figure.subject)
-                .expect("the figure");
+            let f = figure_of(&fresh, &figure.name, &figure.subject);
             same_sigma(w.sigma_if_halved, f, &what("σ halved"));
 
-            let without: Vec<_> = values
-                .iter()
-                .filter(|v| v.meter != w.meter)
-                .cloned()
-                .collect();
-            let fresh = analyse_period(plant, &period(without)).report;
-            let f = fresh
-                .figures
-                .iter()
-                .find(|f| f.name == figure.name && f.subject == figure.subject)
-                .expect("the figure");
+            let rest = without(&values, w.meter);
+            let fresh = analyse_period(plant, &period(rest)).report;
+            let f = figure_of(&fresh, &figure.name, &figure.subject);
             same_sigma(w.sigma_if_lost, f, &what("lost"));
             // More data never widens σ, less never narrows it (to rounding, as above).
             let sigma = figure.sigma.unwrap();
@@ -131,12 +131,7 @@ fn a_non_redundant_meter_lost_leaves_the_figures_that_need_it_unobservable() {
     let z = reconcile::simulate::steady_state(&plant, &testkit::purge_design::specs()).unwrap();
     let all = exact_values(&plant, &layout, &z);
     let values = (0..plant.meters.len())
-        .map(|k| {
-            all.iter()
-                .filter(|v| v.meter != k)
-                .cloned()
-                .collect::<Vec<_>>()
-        })
+        .map(|k| without(&all, k))
         .find(|values| {
             let a = analyse_period(&plant, &period(values.clone()));
             a.report.status == ReportStatus::Solved
@@ -178,19 +173,15 @@ fn a_flow_meter_lost_names_the_flows_it_leaves_unobservable() {
     let all = exact_values(&plant, &layout, &z);
     let mut named = 0;
     for k in 0..plant.meters.len() {
-        let values: Vec<_> = all.iter().filter(|v| v.meter != k).cloned().collect();
+        let values: Vec<_> = without(&all, k);
         let a = analyse_period(&plant, &period(values.clone()));
         let (Some(est), Some(f)) = (a.estimate.as_ref(), a.report.figures.first()) else {
             continue;
         };
         let (_, worths) = meter_worths(&plant, est, &f.name, &f.subject).unwrap();
         for w in worths.iter().filter(|w| !w.unobservable_if_lost.is_empty()) {
-            let without: Vec<_> = values
-                .iter()
-                .filter(|v| v.meter != w.meter)
-                .cloned()
-                .collect();
-            let fresh = analyse_period(&plant, &period(without)).report;
+            let rest = without(&values, w.meter);
+            let fresh = analyse_period(&plant, &period(rest)).report;
             let newly: Vec<&String> = fresh
                 .unobservable
                 .iter()
@@ -228,12 +219,8 @@ fn a_stream_flow_and_a_split_fraction_as_figures_match_fresh_estimates() {
             .unwrap();
         assert_eq!(flow.sigma, reported.molar_flow_sigma, "{}", stream.id);
         for w in &worths {
-            let without: Vec<_> = values
-                .iter()
-                .filter(|v| v.meter != w.meter)
-                .cloned()
-                .collect();
-            let fresh = analyse_period(&plant, &period(without)).report;
+            let rest = without(&values, w.meter);
+            let fresh = analyse_period(&plant, &period(rest)).report;
             let s = fresh.streams.iter().find(|s| s.id == stream.id).unwrap();
             let as_figure = Figure {
                 name: "molar_flow".into(),

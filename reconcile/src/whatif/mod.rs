@@ -150,12 +150,7 @@ pub fn base_estimate(analysis: &Analysis) -> Result<&Estimate, WhatIfError> {
     let status = analysis.report.status;
     match (&analysis.estimate, status) {
         (Some(est), ReportStatus::Solved | ReportStatus::Unobservable) => Ok(est),
-        _ => Err(WhatIfError::BaseNotSolved(
-            serde_json::to_value(status)
-                .ok()
-                .and_then(|v| v.as_str().map(str::to_string))
-                .unwrap_or_else(|| format!("{status:?}")),
-        )),
+        _ => Err(WhatIfError::BaseNotSolved(status.as_str().to_string())),
     }
 }
 

@@ -9,7 +9,7 @@ use serde::Serialize;
 use utoipa::ToSchema;
 
 use axum::extract::rejection::QueryRejection;
-use reconcile::ModelError;
+use reconcile::{ModelError, ModelProblem};
 
 use crate::ingest::BatchError;
 use crate::results::ResultsError;
@@ -124,6 +124,15 @@ impl IntoResponse for Problem {
             );
         }
         response
+    }
+}
+
+impl From<ModelProblem> for ItemError {
+    fn from(p: ModelProblem) -> ItemError {
+        ItemError {
+            item: p.item,
+            message: p.message,
+        }
     }
 }
 
@@ -249,15 +258,7 @@ impl From<ModelError> for Problem {
                 "the model has {} problem(s); each is listed in errors",
                 problems.len()
             ))
-            .with_errors(
-                problems
-                    .into_iter()
-                    .map(|p| ItemError {
-                        item: p.item,
-                        message: p.message,
-                    })
-                    .collect(),
-            ),
+            .with_errors(problems.into_iter().map(ItemError::from).collect()),
         }
     }
 }
@@ -284,13 +285,7 @@ impl From<Refusal> for Problem {
                     message: "holds U+0000".into(),
                 }]
             } else {
-                places
-                    .into_iter()
-                    .map(|p| ItemError {
-                        item: p.item,
-                        message: p.message,
-                    })
-                    .collect()
+                places.into_iter().map(ItemError::from).collect()
             }),
             Refusal::Store(e) => e.into(),
         }

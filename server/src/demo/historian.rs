@@ -41,18 +41,8 @@ impl Historian {
     }
 
     async fn get(&self, path: &str) -> anyhow::Result<Value> {
-        let r = self
-            .client
-            .get(self.url(path))
-            .bearer_auth(&self.read)
-            .send()
-            .await?;
-        let status = r.status();
-        let body: Value = r.json().await?;
-        if !status.is_success() {
-            bail!("GET {path}: {status}: {body}");
-        }
-        Ok(body)
+        let r = self.client.get(self.url(path)).bearer_auth(&self.read);
+        answer(r, &format!("GET {path}")).await
     }
 
     /// The purge trade-off of the last day: a sweep of the purge split around its reconciled
@@ -71,20 +61,12 @@ impl Historian {
                       "from": base_split * 0.5, "to": base_split * 2.0, "points": 5},
             "economics": scenario::purge_prices(base_split),
         });
-        let path = "/what-if";
         let r = self
             .client
-            .post(self.url(path))
+            .post(self.url("/what-if"))
             .bearer_auth(&self.read)
-            .json(&body)
-            .send()
-            .await?;
-        let status = r.status();
-        let answer: Value = r.json().await?;
-        if !status.is_success() {
-            bail!("POST {path}: {status}: {answer}");
-        }
-        Ok(answer)
+            .json(&body);
+        answer(r, "POST /what-if").await
     }
 
     async fn post_csv(&self, csv: String) -> anyhow::Result<Value> {
@@ -299,6 +281,17 @@ impl Historian {
             },
         })
     }
+}
+
+/// The JSON answer of a request, or a failure naming it with the status and body.
+async fn answer(request: reqwest::RequestBuilder, what: &str) -> anyhow::Result<Value> {
+    let r = request.send().await?;
+    let status = r.status();
+    let body: Value = r.json().await?;
+    if !status.is_success() {
+        bail!("{what}: {status}: {body}");
+    }
+    Ok(body)
 }
 
 fn quality(r: &reconcile::Reading) -> &'static str {

@@ -24,7 +24,9 @@ pub async fn what_if(
     to: Option<DateTime<Utc>>,
     request: Request,
 ) -> Result<WhatIf, ResultsError> {
-    let (model, revision) = service.model_at(plant, start).await?;
+    // The plant's revisions once (each validated once per process), not a lookup per period.
+    let models = service.models(plant).await?;
+    let (model, revision) = models.at(start)?;
     let starts = match to {
         None => vec![start],
         Some(to) => {
@@ -41,7 +43,7 @@ pub async fn what_if(
     };
     let mut periods = Vec::with_capacity(starts.len());
     for &s in &starts {
-        let (_, rev) = service.model_at(plant, s).await?;
+        let (_, rev) = models.at(s)?;
         if rev != revision {
             return Err(ResultsError::Refused(format!(
                 "the base range spans model revisions {revision} and {rev} (from {}); a \
