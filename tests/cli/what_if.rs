@@ -82,7 +82,7 @@ fn what_if_moves_the_purge_from_the_reconciled_base_case() {
         .iter()
         .find(|f| f["name"] == "inert_fraction_reactor_inlet")
         .unwrap();
-    // By hand (reconcile/tests/whatif.rs): y(0.10) = n_I / (4 n_N + n_I) with n_I = 3 / 0.1,
+    // By hand (reconcile/tests/whatif/): y(0.10) = n_I / (4 n_N + n_I) with n_I = 3 / 0.1,
     // n_N = 93 / 0.55: 30 / 706.36 = 4.25 %; the base is noisy, so within a few σ.
     let (value, sigma) = (y["value"].as_f64().unwrap(), y["sigma"].as_f64().unwrap());
     assert!(
