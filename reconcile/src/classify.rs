@@ -356,6 +356,32 @@ impl Classification {
             .sum()
     }
 
+    /// P a as a dense vector on the state, with no part along an unobservable direction: the
+    /// generalised inverse's product on both paths (the sparse path's pinned pivots add such a
+    /// part, which is projected out).
+    pub fn apply(&self, a: &[(usize, f64)]) -> Vec<f64> {
+        let mut x = match &self.sparse {
+            Some(sparse) => sparse.apply(a),
+            None => {
+                let y = nalgebra::DVector::from_vec(self.project(a));
+                (&self.l * y).iter().copied().collect()
+            }
+        };
+        self.remove_unobservable(&mut x);
+        x
+    }
+
+    /// Take the part along the unobservable directions out of a dense vector on the state.
+    pub fn remove_unobservable(&self, x: &mut [f64]) {
+        for k in 0..self.unobservable.ncols() {
+            let u = self.unobservable.column(k);
+            let p: f64 = x.iter().zip(u.iter()).map(|(a, b)| a * b).sum();
+            if p != 0.0 {
+                x.iter_mut().zip(u.iter()).for_each(|(a, b)| *a -= p * b);
+            }
+        }
+    }
+
     /// Standard deviation of a linear function with gradient `a`.
     pub fn sigma(&self, a: &[(usize, f64)]) -> f64 {
         if let Some(sparse) = &self.sparse {

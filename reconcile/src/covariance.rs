@@ -370,6 +370,17 @@ impl SparseCovariance {
         out
     }
 
+    /// P a as a dense vector on the state (one solve).
+    pub fn apply(&self, a: &[(usize, f64)]) -> Vec<f64> {
+        let mut rhs = vec![0.0; self.dinv.len()];
+        for &(i, v) in a {
+            rhs[i] += v;
+        }
+        let mut x = self.solve(&rhs);
+        x.truncate(self.n);
+        x
+    }
+
     /// P_ab from the selected inverse, `None` when the pair is outside the pattern.
     fn entry(&self, a: usize, b: usize) -> Option<f64> {
         let (pa, pb) = (self.iperm[a], self.iperm[b]);

@@ -328,6 +328,9 @@ pub fn identify_at(
     result
 }
 
+/// The power at which reports state a meter's smallest detectable bias.
+pub const REPORTED_POWER: f64 = 0.90;
+
 /// The smallest bias (in the meter's uom) the measurement test detects with probability
 /// `power` at its Šidák-corrected critical value: δ = (z_crit + z_power) σ / sqrt(W_ii), from
 /// E[d_i] = δ sqrt(W_ii) / σ for a bias δ in meter i (the second tail is neglected).

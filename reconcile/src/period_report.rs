@@ -6,7 +6,7 @@ use std::collections::BTreeMap;
 use crate::classify::{classify, Classification, SPARSE_THRESHOLD};
 use crate::equations::{measurement, stream_fraction, stream_total, var_name, Layout};
 use crate::estimate::Estimate;
-use crate::faults::{detectable_bias, identify_at};
+use crate::faults::{detectable_bias, identify_at, REPORTED_POWER};
 use crate::figures::{loop_figures, raw_imbalances};
 use crate::model::{Meter, Plant, UnitKind};
 use crate::period::PeriodInput;
@@ -148,7 +148,7 @@ pub(crate) fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, re
                 entry.normalized_adjustment = Some(d);
                 entry.measurement_test_failed = d.abs() > critical;
                 entry.detectable_bias =
-                    detectable_bias(m.sigma, t.adjustment_variance(k), critical, 0.90);
+                    detectable_bias(m.sigma, t.adjustment_variance(k), critical, REPORTED_POWER);
             } else {
                 // A non-redundant meter keeps its raw value: no adjustment, nothing to test.
                 entry.reconciled = Some(m.value);

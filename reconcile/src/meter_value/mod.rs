@@ -28,96 +28,25 @@ use crate::model::{Plant, UnitKind};
 use crate::report::Figure;
 use crate::uncertainty::Uncertainty;
 
-/// How far a lost meter's leverage may fall short of 1 and still count as non-redundant
-/// (the classification's redundancy tolerance).
-const NON_REDUNDANT: f64 = crate::classify::REDUNDANCY_TOLERANCE;
+mod answer;
+mod augmented;
+mod best;
+mod candidates;
+mod reweighted;
 
-/// A function loads on the lost direction d = P j when |aᵀd| exceeds this share of ‖a‖‖d‖:
-/// the classification's own observability tolerance.
-const LOADS: f64 = 1e-7;
-
-/// The estimate's uncertainty with one meter's weight changed.
-pub struct Reweighted<'a> {
-    base: &'a dyn Uncertainty,
-    /// The meter's gradient on the state, in its uom.
-    j: Vec<(usize, f64)>,
-    /// jᵀPj.
-    jpj: f64,
-    change: Change,
-}
-
-enum Change {
-    /// P' = P − c (P j)(P j)ᵀ with c = δ / (1 + δ jᵀPj).
-    RankOne(f64),
-    /// A non-redundant meter lost: the direction d = P j (dense, on the state) is no longer
-    /// determined.
-    Lost(Vec<f64>),
-}
-
-impl<'a> Reweighted<'a> {
-    /// The covariance with the weight of the meter with gradient `j` and σ `sigma` multiplied
-    /// by `factor` (4 for σ halved, 0 for the meter lost); `n` states.
-    pub fn new(
-        base: &'a dyn Uncertainty,
-        n: usize,
-        j: Vec<(usize, f64)>,
-        sigma: f64,
-        factor: f64,
-    ) -> Self {
-        let jpj = base.covariance(&j, &j);
-        let w = 1.0 / (sigma * sigma);
-        let delta = (factor - 1.0) * w;
-        let denom = 1.0 + delta * jpj;
-        let change = if factor == 0.0 && denom <= NON_REDUNDANT {
-            Change::Lost((0..n).map(|i| base.covariance(&[(i, 1.0)], &j)).collect())
-        } else {
-            Change::RankOne(delta / denom)
-        };
-        Reweighted {
-            base,
-            j,
-            jpj,
-            change,
-        }
-    }
-
-    /// The meter's loss leaves some function of the state undetermined.
-    pub fn loses_a_direction(&self) -> bool {
-        matches!(self.change, Change::Lost(_))
-    }
-}
-
-impl Uncertainty for Reweighted<'_> {
-    fn is_observable(&self, a: &[(usize, f64)]) -> bool {
-        if !self.base.is_observable(a) {
-            return false;
-        }
-        match &self.change {
-            Change::RankOne(_) => true,
-            Change::Lost(d) => {
-                let ad: f64 = a.iter().map(|&(i, v)| v * d[i]).sum();
-                let norm_a = a.iter().map(|(_, v)| v * v).sum::<f64>().sqrt();
-                let norm_d = d.iter().map(|v| v * v).sum::<f64>().sqrt();
-                ad.abs() <= LOADS * norm_a * norm_d
-            }
-        }
-    }
-
-    fn covariance(&self, a: &[(usize, f64)], b: &[(usize, f64)]) -> f64 {
-        let apb = self.base.covariance(a, b);
-        let apj = self.base.covariance(a, &self.j);
-        let jpb = self.base.covariance(&self.j, b);
-        match self.change {
-            Change::RankOne(c) => apb - c * apj * jpb,
-            Change::Lost(_) if self.jpj > 0.0 => apb - apj * jpb / self.jpj,
-            Change::Lost(_) => apb,
-        }
-    }
-
-    fn by_parts(&self) -> bool {
-        self.base.by_parts()
-    }
-}
+pub use answer::{
+    meter_value, AccuracyEntry, BestEntry, BiasChange, CandidateEntry, CandidateName, GoalFigure,
+    MeterEntry, MeterValueReport, Request, RequestError,
+};
+pub use augmented::Augmented;
+pub use best::{
+    best_additions, search_additions, Additions, Search, WeightedFigure, EXHAUSTIVE_LIMIT,
+};
+pub use candidates::{
+    candidate_worths, candidates, Accuracies, Candidate, CandidateWorth, DetectableBias,
+};
+pub use reweighted::Reweighted;
+use reweighted::NON_REDUNDANT;
 
 /// One meter's worth to a figure.
 #[derive(Debug, Clone, PartialEq)]
@@ -172,6 +101,9 @@ fn quantities(plant: &Plant, est: &Estimate) -> Vec<(String, Vec<(usize, f64)>)>
     }
     out
 }
+
+/// The names of the figures of the state itself.
+pub const STATE_FIGURES: [&str; 3] = ["molar_flow", "component_flow", "split_fraction"];
 
 /// A figure of the state itself: `molar_flow` of a stream (subject `STREAM`, kmol/h),
 /// `component_flow` (subject `STREAM:COMPONENT`, kmol/h) or `split_fraction` of a splitter

@@ -1,56 +1,14 @@
-//! Each meter's worth to the loop figures by rank-one updates of the reconciled covariance
-//! (reconcile::meter_value), checked number for number against a fresh estimate with the
-//! model changed: the meter's σ halved, or the meter's reading taken away. Noise-free data, so
-//! the reconciled state is the same whatever the weights and the comparison is exact up to
-//! rounding.
+//! Existing meters: σ halved and lost.
 
 use reconcile::equations::Layout;
 use reconcile::meter_value::meter_worths;
-use reconcile::model::Sigma;
 use reconcile::period::MeterValue;
 use reconcile::report::Figure;
 use reconcile::{analyse_period, parse_plant, Plant, ReportStatus};
 use testkit::plants::{PURGE_DESIGN, VANTLE};
 use testkit::{exact_values, period, vantle_true_state, VantleConditions};
 
-/// The plant with meter `k`'s σ halved, whatever its rule.
-fn halved(plant: &Plant, k: usize) -> Plant {
-    let mut p = plant.clone();
-    p.meters[k].sigma = match p.meters[k].sigma {
-        Sigma::Absolute(s) => Sigma::Absolute(s / 2.0),
-        Sigma::PercentOfReading(s) => Sigma::PercentOfReading(s / 2.0),
-        Sigma::PercentOfSpan(s) => Sigma::PercentOfSpan(s / 2.0),
-    };
-    p
-}
-
-/// The period's meter values but those of meter `k`: the meter lost.
-fn without(values: &[MeterValue], k: usize) -> Vec<MeterValue> {
-    values.iter().filter(|v| v.meter != k).cloned().collect()
-}
-
-/// The figure of `name` and `subject` in a report.
-fn figure_of<'a>(report: &'a reconcile::Report, name: &str, subject: &str) -> &'a Figure {
-    report
-        .figures
-        .iter()
-        .find(|f| f.name == name && f.subject == subject)
-        .unwrap_or_else(|| panic!("{name} {subject} in the report"))
-}
-
-/// Equal to 1e-7 of σ, with a floor of 1e-10 of the figure's size for figures whose σ is a
-/// rounding error (a balance's closure, zero by construction).
-fn same_sigma(rank_one: Option<f64>, fresh: &Figure, what: &str) {
-    let floor = 1e-10 * fresh.value.map_or(1.0, |v| v.abs().max(1.0));
-    match (rank_one, fresh.value.and(fresh.sigma)) {
-        (Some(a), Some(b)) => assert!(
-            (a - b).abs() <= 1e-7 * b.abs() + floor,
-            "{what}: rank-one update {a}, fresh estimate {b}"
-        ),
-        (None, None) => {}
-        (a, b) => panic!("{what}: rank-one update {a:?}, fresh estimate {b:?}"),
-    }
-}
+use crate::{figure_of, halved, same_sigma, without};
 
 /// Every loop figure and every meter of `plant` at the noise-free state `values`.
 /// Answers how many (figure, meter) pairs were compared, and in how many the meter's loss
