@@ -103,6 +103,38 @@ pub enum Command {
         #[arg(long, value_name = "LO..HI", default_value = "0.001..0.5")]
         purge_range: String,
     },
+    /// What each meter is worth to a figure (its σ with the meter's σ halved, and without
+    /// it) and which new meter would help it most, for one period; JSON on stdout
+    /// (docs/meter-value.md).
+    MeterValue {
+        /// The model file (TOML or JSON).
+        #[arg(long, value_name = "M")]
+        model: PathBuf,
+        /// The readings file (CSV or JSON, as for `reconcile`).
+        #[arg(long, value_name = "R")]
+        readings: PathBuf,
+        /// The period containing this RFC 3339 time (default: the last period in R).
+        #[arg(long, value_name = "T", value_parser = parse_time)]
+        period: Option<DateTime<Utc>>,
+        /// The figure, NAME:SUBJECT: a loop figure as a report names it, or molar_flow:STREAM,
+        /// component_flow:STREAM:COMPONENT, split_fraction:STREAM. Repeatable, with an
+        /// optional =WEIGHT, for the set the best additions are chosen for; the meters and
+        /// candidates are valued for the first.
+        #[arg(long = "figure", value_name = "NAME:SUBJECT", required = true)]
+        figure: Vec<String>,
+        /// Choose the best K new meters together (every subset when few enough, else greedy).
+        #[arg(long, value_name = "K")]
+        add_best: Option<usize>,
+        /// A candidate flow meter's σ, percent of reading (default 1).
+        #[arg(long, value_name = "PCT")]
+        flow_sigma_pct: Option<f64>,
+        /// A candidate flow meter's σ in kmol/h, instead of the percentage.
+        #[arg(long, value_name = "KMOL_PER_H")]
+        flow_sigma: Option<f64>,
+        /// A candidate analyser's σ, mol % (default 0.2).
+        #[arg(long, value_name = "MOL_PCT")]
+        analyser_sigma: Option<f64>,
+    },
     /// Run the HTTP service.
     Serve {
         /// Address and port to listen on.

@@ -13,6 +13,7 @@ pub mod cli;
 pub mod demo;
 pub mod health;
 pub mod ingest;
+pub mod meter_value;
 pub mod metrics;
 pub mod model_file;
 pub mod period_run;

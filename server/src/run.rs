@@ -2,6 +2,7 @@
 //! runs every period found as the service does (`period_run`), and prints the reports as one
 //! JSON array.
 
+use std::collections::BTreeMap;
 use std::io::Write;
 use std::path::Path;
 use std::process::ExitCode;
@@ -10,7 +11,7 @@ use anyhow::Context;
 use chrono::{DateTime, Utc};
 use reconcile::{Report, ReportStatus};
 
-use crate::period_run;
+use crate::period_run::{self, PeriodReading};
 use crate::readings::{self, ReadingsError};
 use crate::BadInput;
 
@@ -26,6 +27,46 @@ pub struct Options<'a> {
     pub readings: &'a Path,
     pub from: Option<DateTime<Utc>>,
     pub to: Option<DateTime<Utc>>,
+}
+
+/// The readings of a file grouped by the periods of `plant`.
+pub fn file_periods(
+    plant: &reconcile::Plant,
+    path: &Path,
+) -> anyhow::Result<BTreeMap<DateTime<Utc>, Vec<PeriodReading>>> {
+    let file = path.display();
+    let bytes =
+        std::fs::read(path).map_err(|e| BadInput::new(format!("{file}: cannot read: {e}")))?;
+    let format = readings::detect(path, &bytes);
+    let parsed = readings::parse(&bytes, format, plant).map_err(|e| describe(&file, e))?;
+    Ok(period_run::by_period(plant, parsed.readings))
+}
+
+/// One period of a file's: the one containing `at`, else the last. `purpose` says what it is
+/// for in the refusal (`the base case`).
+pub fn one_period(
+    plant: &reconcile::Plant,
+    path: &Path,
+    at: Option<DateTime<Utc>>,
+    purpose: &str,
+) -> anyhow::Result<(DateTime<Utc>, Vec<PeriodReading>)> {
+    let file = path.display();
+    let mut periods = file_periods(plant, path)?;
+    let picked = match at {
+        Some(t) => {
+            let start = reconcile::period::period_start(t, plant.period_seconds);
+            periods.remove(&start).map(|r| (start, r)).ok_or_else(|| {
+                BadInput::new(format!(
+                    "--period: {file} has no readings in the period starting {}",
+                    start.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
+                ))
+            })?
+        }
+        None => periods
+            .pop_last()
+            .ok_or_else(|| BadInput::new(format!("{file}: no readings, so no {purpose}")))?,
+    };
+    Ok(picked)
 }
 
 pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {

@@ -16,7 +16,6 @@ use reconcile::whatif::{
 use reconcile::Plant;
 
 use crate::period_run;
-use crate::readings;
 use crate::BadInput;
 
 /// How the answer is written.
@@ -62,22 +61,16 @@ fn bad(e: WhatIfError) -> anyhow::Error {
 pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
     let plant = crate::model_file::load(opts.model)?;
     let request = request(&plant, opts)?;
-    let file = opts.readings.display();
-    let bytes = std::fs::read(opts.readings)
-        .map_err(|e| BadInput::new(format!("{file}: cannot read: {e}")))?;
-    let format = readings::detect(opts.readings, &bytes);
-    let parsed =
-        readings::parse(&bytes, format, &plant).map_err(|e| crate::run::describe(&file, e))?;
-
-    let mut periods = period_run::by_period(&plant, parsed.readings);
     let result = match opts.range {
         Some((from, to)) => {
-            let analyses: Vec<reconcile::Analysis> = periods
-                .into_iter()
-                .filter(|(start, _)| from.is_none_or(|f| *start >= f))
-                .filter(|(start, _)| to.is_none_or(|t| *start < t))
-                .map(|(start, readings)| period_run::analyse(&plant, start, readings))
-                .collect();
+            let file = opts.readings.display();
+            let analyses: Vec<reconcile::Analysis> =
+                crate::run::file_periods(&plant, opts.readings)?
+                    .into_iter()
+                    .filter(|(start, _)| from.is_none_or(|f| *start >= f))
+                    .filter(|(start, _)| to.is_none_or(|t| *start < t))
+                    .map(|(start, readings)| period_run::analyse(&plant, start, readings))
+                    .collect();
             if analyses.is_empty() {
                 return Err(BadInput::new(format!(
                     "--period-from/--period-to: {file} has no readings in that range"
@@ -87,21 +80,8 @@ pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
             whatif::what_if_range(&plant, &analyses, &request)
         }
         None => {
-            let (start, readings) = match opts.period {
-                Some(t) => {
-                    let start = reconcile::period::period_start(t, plant.period_seconds);
-                    let readings = periods.remove(&start).ok_or_else(|| {
-                        BadInput::new(format!(
-                            "--period: {file} has no readings in the period starting {}",
-                            start.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
-                        ))
-                    })?;
-                    (start, readings)
-                }
-                None => periods.pop_last().ok_or_else(|| {
-                    BadInput::new(format!("{file}: no readings, so no base case"))
-                })?,
-            };
+            let (start, readings) =
+                crate::run::one_period(&plant, opts.readings, opts.period, "base case")?;
             let analysis = period_run::analyse(&plant, start, readings);
             whatif::what_if(&plant, &analysis, &request)
         }

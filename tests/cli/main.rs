@@ -17,6 +17,7 @@ mod bad_input;
 mod check_model;
 mod faults;
 mod good_input;
+mod meter_value;
 mod what_if;
 
 use testkit::plants::OMBRASK_PATH as OMBRASK;
@@ -246,4 +247,25 @@ fn assert_exit_matches_statuses(out: &Output, reports: &[Value]) {
         let failed = matches!(r["status"].as_str(), Some("not_converged" | "infeasible"));
         assert_eq!(named, failed, "{}", stderr(out));
     }
+}
+
+/// Two hours of the purge-design loop's simulated readings (design case) as files.
+pub fn purge_design_files(dir: &Path) -> (PathBuf, PathBuf) {
+    use reconcile::simulate::{steady_state, ReadingPlan};
+    let plant = reconcile::parse_plant(testkit::plants::PURGE_DESIGN).unwrap();
+    let z = steady_state(&plant, &testkit::purge_design::specs()).unwrap();
+    let plan = ReadingPlan {
+        start: chrono::DateTime::parse_from_rfc3339("2026-06-01T00:00:00Z")
+            .unwrap()
+            .with_timezone(&chrono::Utc),
+        hours: 2,
+        per_hour: 4,
+        seed: 5,
+        faults: Vec::new(),
+    };
+    let csv = testkit::readings_csv(&plant, &z, &plan, &|_, _| false);
+    (
+        write(dir, "purge-design.toml", testkit::plants::PURGE_DESIGN),
+        write(dir, "readings.csv", csv),
+    )
 }

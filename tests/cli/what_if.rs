@@ -1,33 +1,12 @@
 //! `loopbal what-if` on files: the answer, its CSV and text forms, and bad input named.
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use serde_json::Value;
 
 use std::process::Output;
 
-use super::{has_keys, loopbal, s, stderr, write};
-
-/// Two hours of the purge-design loop's simulated readings (design case) as files.
-fn purge_design_files(dir: &Path) -> (PathBuf, PathBuf) {
-    use reconcile::simulate::{steady_state, ReadingPlan};
-    let plant = reconcile::parse_plant(testkit::plants::PURGE_DESIGN).unwrap();
-    let z = steady_state(&plant, &testkit::purge_design::specs()).unwrap();
-    let plan = ReadingPlan {
-        start: chrono::DateTime::parse_from_rfc3339("2026-06-01T00:00:00Z")
-            .unwrap()
-            .with_timezone(&chrono::Utc),
-        hours: 2,
-        per_hour: 4,
-        seed: 5,
-        faults: Vec::new(),
-    };
-    let csv = testkit::readings_csv(&plant, &z, &plan, &|_, _| false);
-    (
-        write(dir, "purge-design.toml", testkit::plants::PURGE_DESIGN),
-        write(dir, "readings.csv", csv),
-    )
-}
+use super::{has_keys, loopbal, purge_design_files, s, stderr};
 
 fn what_if(model: &Path, readings: &Path, extra: &[&str]) -> Output {
     let mut args = vec!["what-if", "--model", s(model), "--readings", s(readings)];

@@ -7,7 +7,7 @@ use serde::{Deserialize, Serialize};
 use crate::estimate::Estimate;
 use crate::figures::loop_figures_of;
 use crate::model::{Plant, Quantity};
-use crate::report::Figure;
+use crate::report::{Figure, CAUTION};
 
 use super::{
     best_additions, candidate_worths, candidates, figure_under, meter_worths, Accuracies,
@@ -134,7 +134,12 @@ pub struct MeterValueReport {
     pub candidates: Vec<CandidateEntry>,
     pub accuracies: AccuracyEntry,
     pub best: Option<BestEntry>,
+    /// The standing caution, and what the σ here rest on.
+    pub caution: String,
 }
+
+/// What a meter's value rests on, said with every answer.
+const VALUE_CAUTION: &str = "Each σ is the reconciled σ with one change alone, linearised at this period's estimate and with the accuracies stated; a candidate's installed accuracy, and a repaired meter's, may differ. Choosing, installing or removing a meter follows the site's procedures.";
 
 const METHOD: &str = "low-rank updates of the reconciled covariance (Sherman–Morrison; Meyer 1973 \
     where a meter determines a new direction); subsets as in Bagajewicz, Design and Upgrade of \
@@ -316,5 +321,6 @@ pub fn meter_value(
             analyser_uom: "%".to_string(),
         },
         best,
+        caution: format!("{CAUTION} {VALUE_CAUTION}"),
     })
 }

@@ -26,6 +26,7 @@ pub mod access;
 pub mod auth;
 mod balances;
 mod figures;
+mod meter_value;
 mod meters;
 mod models;
 mod periods;
@@ -149,6 +150,7 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
         .routes(routes!(figures::get_figures))
         .routes(routes!(balances::get_balances))
         .routes(routes!(what_if::post_what_if))
+        .routes(routes!(meter_value::get_meter_value))
         .split_for_parts();
     let text = serde_json::to_string_pretty(&openapi).unwrap_or_default();
     let _ = state.openapi.set(text);

@@ -219,6 +219,17 @@ impl From<ResultsError> for Problem {
                     e => Problem::bad_request(e.to_string()),
                 }
             }
+            ResultsError::MeterValue(e) => match e {
+                reconcile::meter_value::RequestError::TooMany { .. } => {
+                    Problem::unprocessable(e.to_string())
+                }
+                e => Problem::bad_request(e.to_string()),
+            },
+            ResultsError::NotReconciled(detail) => Problem::new(
+                StatusCode::UNPROCESSABLE_ENTITY,
+                "period-not-reconciled",
+                detail,
+            ),
             e @ (ResultsError::Corrupt { .. } | ResultsError::Task(_)) => {
                 tracing::error!(error = %e, "result failure");
                 Problem::internal()

@@ -1,14 +1,16 @@
 //! Results read back from stored runs and readings and shaped for the people who use them:
 //! the period listing, range balances and their coverage, figure series, the meter ranking
-//! and one meter's history, and the what-if of a stored period. Plain async functions over the [`Service`](crate::service::Service) and
+//! and one meter's history, the what-if of a stored period and what each meter is worth. Plain async functions over the [`Service`](crate::service::Service) and
 //! pure functions over stored report parts; nothing here knows of HTTP (the API turns a
 //! [`ResultsError`] into a problem answer).
 
 pub mod balances;
 pub mod figures;
+pub mod meter_value;
 pub mod meters;
 pub mod periods;
 pub mod range;
+pub mod rerun;
 pub mod stored;
 pub mod what_if;
 
@@ -45,6 +47,12 @@ pub enum ResultsError {
     /// cannot carry it.
     #[error(transparent)]
     WhatIf(reconcile::whatif::WhatIfError),
+    /// A meter-value request the estimate cannot answer (the item at fault named).
+    #[error(transparent)]
+    MeterValue(reconcile::meter_value::RequestError),
+    /// The period's estimate failed, so nothing can be valued on it.
+    #[error("{0}")]
+    NotReconciled(String),
     /// The engine's task ended without an answer (it panicked): a fault of ours.
     #[error("the engine stopped unexpectedly: {0}")]
     Task(String),

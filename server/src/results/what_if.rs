@@ -1,12 +1,12 @@
 //! The what-if of a stored period, or of a range of them: the stored readings reconciled again
-//! exactly as the period run does (the estimate behind a report is not stored, only the
-//! report), then the engine's what-if from that base case (docs/what-if.md).
+//! (rerun.rs), then the engine's what-if from that base case (docs/what-if.md).
 
 use chrono::{DateTime, Utc};
 use reconcile::whatif::{self, Request, WhatIf};
 use reconcile::Analysis;
 
-use super::{rfc3339, PeriodRange, ResultsError};
+use super::rerun::stored_periods;
+use super::ResultsError;
 use crate::period_run;
 use crate::service::Service;
 use crate::store::PlantRow;
@@ -24,48 +24,15 @@ pub async fn what_if(
     to: Option<DateTime<Utc>>,
     request: Request,
 ) -> Result<WhatIf, ResultsError> {
-    // The plant's revisions once (each validated once per process), not a lookup per period.
-    let models = service.models(plant).await?;
-    let (model, revision) = models.at(start)?;
-    let starts = match to {
-        None => vec![start],
-        Some(to) => {
-            let range = PeriodRange::new(start, to, model.period_seconds)?;
-            if range.starts.len() > MAX_BASE_PERIODS {
-                return Err(ResultsError::Refused(format!(
-                    "the base range holds {} periods, more than the {MAX_BASE_PERIODS} one \
-                     what-if combines",
-                    range.starts.len()
-                )));
-            }
-            range.starts
-        }
-    };
-    let mut periods = Vec::with_capacity(starts.len());
-    for &s in &starts {
-        let (_, rev) = models.at(s)?;
-        if rev != revision {
-            return Err(ResultsError::Refused(format!(
-                "the base range spans model revisions {revision} and {rev} (from {}); a \
-                 what-if's base case is of one model: end the range before the change",
-                rfc3339(s)
-            )));
-        }
-        let readings = service
-            .period_readings(plant, s, model.period_seconds)
-            .await?;
-        if !readings.is_empty() {
-            periods.push((s, readings));
-        }
-    }
-    if periods.is_empty() {
-        return Err(ResultsError::NotFound(format!(
-            "plant \"{}\" has no readings in the base period{} starting {}",
-            plant.name,
-            if to.is_some() { "s" } else { "" },
-            rfc3339(start)
-        )));
-    }
+    let (model, periods) = stored_periods(
+        service,
+        plant,
+        start,
+        to,
+        MAX_BASE_PERIODS,
+        "a what-if's base case",
+    )
+    .await?;
     let single = to.is_none();
     // The engine's work, off the async threads.
     tokio::task::spawn_blocking(move || {
