@@ -159,6 +159,30 @@ fn the_demo_finds_the_biased_meter_watches_the_drifting_one_and_blames_no_other(
         "{optimum} within the range searched around {base}"
     );
     assert!(purge["optimum"]["margin_sigma"].as_f64().unwrap() > 0.0);
+
+    // Which meter for the purge fraction: the best repair narrows it, losing that meter widens
+    // it, the best new meter narrows it, and the purge flow meter is among the meters valued.
+    let value = &s["meter_value"];
+    assert_eq!(value["figure"]["name"], "purge_fraction", "{value}");
+    let sigma = value["figure"]["sigma"].as_f64().unwrap();
+    let repair = &value["meters"][0];
+    assert!(
+        repair["sigma_if_halved"].as_f64().unwrap() < sigma,
+        "{repair}"
+    );
+    assert!(
+        repair["sigma_if_lost"].as_f64().is_none_or(|s| s > sigma),
+        "{repair}"
+    );
+    let added = value["candidates"][0]["sigma_if_added"].as_f64().unwrap();
+    assert!(added < sigma, "{}", value["candidates"][0]);
+    let purge_meter = value["meters"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|m| m["tag"] == "TH2-FI-501")
+        .expect("the purge flow meter valued");
+    assert!(purge_meter["sigma_if_halved"].as_f64().unwrap() < sigma);
 }
 
 #[test]
@@ -175,6 +199,9 @@ fn the_text_summary_reads_as_a_report_and_refuses_an_existing_database() {
         "Loop figures of the last hour",
         "The purge trade-off",
         "the margin is highest at a purge split of",
+        "Which meter for the purge fraction",
+        "best repair:",
+        "best new analyser",
         "48 of 48 periods reconciled",
         scenario::BIASED,
         "Tokens of this demo database",

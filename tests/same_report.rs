@@ -417,3 +417,170 @@ async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
         );
     }
 }
+
+/// `loopbal meter-value` on the readings file, JSON.
+fn cli_meter_value(dir: &std::path::Path, model: &str, csv: &str, args: &[&str]) -> Value {
+    let model_path = dir.join("purge-design.toml");
+    std::fs::write(&model_path, model).expect("write the model");
+    let readings_path = dir.join("meter-value-readings.csv");
+    std::fs::write(&readings_path, csv).expect("write the readings");
+    let out = Command::new(BIN)
+        .arg("meter-value")
+        .arg("--model")
+        .arg(&model_path)
+        .arg("--readings")
+        .arg(&readings_path)
+        .args(args)
+        .output()
+        .expect("run loopbal meter-value");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(0), "{stderr}");
+    serde_json::from_slice(&out.stdout).expect("a meter value as JSON")
+}
+
+#[tokio::test]
+async fn the_cli_and_the_service_give_equal_meter_values_on_the_same_readings() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (model, csv) = purge_design_csv(3, &|_, _| false);
+    let db = dir.path().join("loopbal.sqlite");
+    let admin = token(&db, "admin", None);
+    let ingest = token(&db, "ingest", None);
+    let read = token(&db, "read", None);
+    let s = LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]);
+    let c = client();
+    let r = put_model(&c, &s, &admin, PLANT, &model, "application/toml").await;
+    assert_eq!(r.status(), StatusCode::CREATED);
+    let r = c
+        .post(s.url(&format!("/api/v1/plants/{PLANT}/readings")))
+        .bearer_auth(&ingest)
+        .header("content-type", "text/csv")
+        .body(csv.clone())
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(json_ok(r).await["rejected"], 0);
+    let value = |query: &str| {
+        c.get(s.url(&format!("/api/v1/plants/{PLANT}/meter-value?{query}")))
+            .bearer_auth(&read)
+            .send()
+    };
+
+    // One period, two weighted figures, the best two additions.
+    let service = json_ok(
+        value(
+            "period=2026-06-01T01:00:00Z&figure=purge_fraction:purge,molar_flow:recycle=0.5\
+             &add_best=2&analyser_sigma=0.1",
+        )
+        .await
+        .unwrap(),
+    )
+    .await;
+    let cli = cli_meter_value(
+        dir.path(),
+        &model,
+        &csv,
+        &[
+            "--period",
+            "2026-06-01T01:00:00Z",
+            "--figure",
+            "purge_fraction:purge",
+            "--figure",
+            "molar_flow:recycle=0.5",
+            "--add-best",
+            "2",
+            "--analyser-sigma",
+            "0.1",
+        ],
+    );
+    // Not vacuous: meters and candidates valued, the best two named.
+    assert_eq!(service["period"], "2026-06-01T01:00:00Z");
+    assert!(
+        service["figure"]["sigma"].as_f64().unwrap() > 0.0,
+        "{service}"
+    );
+    assert!(service["meters"].as_array().unwrap().len() >= 8);
+    assert!(!service["candidates"].as_array().unwrap().is_empty());
+    assert_eq!(service["best"]["additions"].as_array().unwrap().len(), 2);
+    assert_eq!(cli, service, "the CLI's meter value, then the service's");
+
+    // A range: each period valued, the firsts counted.
+    let range = json_ok(
+        value("from=2026-06-01T00:00:00Z&to=2026-06-01T03:00:00Z&figure=purge_fraction:purge")
+            .await
+            .unwrap(),
+    )
+    .await;
+    let periods = range["periods"].as_array().expect("periods");
+    assert_eq!(periods.len(), 3, "{range}");
+    let firsts: u64 = range["best_repair"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|f| f["periods"].as_u64().unwrap())
+        .sum();
+    assert_eq!(firsts, 3);
+    let one = json_ok(
+        value("period=2026-06-01T01:00:00Z&figure=purge_fraction:purge")
+            .await
+            .unwrap(),
+    )
+    .await;
+    assert_eq!(
+        periods[1], one,
+        "a range's period is that period's own answer"
+    );
+
+    // Bad input is named and refused; a period without readings is not found.
+    for (query, status, names) in [
+        (
+            "period=2026-06-01T01:00:00Z&figure=purge_fractoin:purge",
+            400,
+            "purge_fractoin",
+        ),
+        (
+            "period=2026-06-01T01:00:00Z&figure=purge_fraction:nowhere",
+            400,
+            "nowhere",
+        ),
+        (
+            "period=2026-06-01T01:00:00Z&figure=purge_fraction",
+            400,
+            "NAME:SUBJECT",
+        ),
+        (
+            "period=2026-06-01T01:00:00Z&figure=purge_fraction:purge&flow_sigma_pct=0",
+            400,
+            "flow meter accuracy",
+        ),
+        (
+            "period=2026-06-01T01:00:00Z&figure=purge_fraction:purge&flow_sigma_pct=x",
+            400,
+            "flow_sigma_pct",
+        ),
+        (
+            "period=2026-06-01T01:00:00Z&figure=purge_fraction:purge&add_best=9999",
+            422,
+            "9999",
+        ),
+        (
+            "period=yesterday&figure=purge_fraction:purge",
+            400,
+            "period",
+        ),
+        ("figure=purge_fraction:purge", 400, "period"),
+        ("period=2026-06-01T01:00:00Z", 400, "figure"),
+        (
+            "period=2026-07-01T01:00:00Z&figure=purge_fraction:purge",
+            404,
+            "no readings",
+        ),
+    ] {
+        let r = value(query).await.unwrap();
+        assert_eq!(r.status().as_u16(), status, "{query}");
+        let problem: Value = r.json().await.expect("a problem");
+        assert!(
+            problem["detail"].as_str().unwrap().contains(names),
+            "{query}: {problem}"
+        );
+    }
+}

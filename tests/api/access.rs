@@ -4,7 +4,7 @@
 use super::*;
 
 /// Every secured operation of the API with the role docs/api.md gives it.
-const SECURED: [(&str, &str, &str); 14] = [
+const SECURED: [(&str, &str, &str); 15] = [
     ("put", "/api/v1/plants/{plant}/model", "admin"),
     ("get", "/api/v1/plants/{plant}/model", "read"),
     ("get", "/api/v1/plants/{plant}/model/revisions", "read"),
@@ -20,6 +20,7 @@ const SECURED: [(&str, &str, &str); 14] = [
     ("get", "/api/v1/plants/{plant}/figures", "read"),
     ("get", "/api/v1/plants/{plant}/balances", "read"),
     ("post", "/api/v1/plants/{plant}/what-if", "read"),
+    ("get", "/api/v1/plants/{plant}/meter-value", "read"),
     ("get", "/api/v1/plants/{plant}/meters", "read"),
     ("get", "/api/v1/plants/{plant}/meters/{tag}", "read"),
     (

@@ -69,6 +69,14 @@ impl Historian {
         answer(r, "POST /what-if").await
     }
 
+    /// What each meter is worth to the purge fraction of `period`, and which new meter would
+    /// narrow it most.
+    pub(super) async fn purge_meter_value(&self, period: &str) -> anyhow::Result<Value> {
+        let figure = format!("purge_fraction:{}", scenario::PURGE);
+        self.get(&format!("/meter-value?period={period}&figure={figure}"))
+            .await
+    }
+
     async fn post_csv(&self, csv: String) -> anyhow::Result<Value> {
         let r = self
             .client
@@ -241,6 +249,10 @@ impl Historian {
                 .map_err(|e| e.to_string()),
             None => Err("the last hour has no reconciled purge split".to_string()),
         };
+        let meter_value = self
+            .purge_meter_value(&last)
+            .await
+            .map_err(|e| e.to_string());
         Ok(Summary {
             plant: scenario::PLANT_NAME.to_string(),
             first_period: from,
@@ -259,6 +271,8 @@ impl Historian {
             purge_day_from: day_from,
             purge: purge.as_ref().ok().cloned(),
             purge_problem: purge.err(),
+            meter_value: meter_value.as_ref().ok().cloned(),
+            meter_value_problem: meter_value.err(),
             seconds: began.elapsed().as_secs_f64(),
             base_url: base.to_string(),
             tokens: tokens.clone(),

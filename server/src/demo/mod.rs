@@ -60,6 +60,10 @@ pub struct Summary {
     pub purge: Option<Value>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub purge_problem: Option<String>,
+    /// What each meter is worth to the last hour's purge fraction, or why not.
+    pub meter_value: Option<Value>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub meter_value_problem: Option<String>,
     pub seconds: f64,
     pub base_url: String,
     pub tokens: std::collections::BTreeMap<String, String>,
@@ -276,6 +280,49 @@ fn purge_table(t: &mut String, s: &Summary) {
     }
 }
 
+/// The best repair and the best new analyser and flow meter for the purge fraction.
+fn meter_value_lines(t: &mut String, s: &Summary) {
+    let _ = writeln!(
+        t,
+        "Which meter for the purge fraction ({}), σ as reconciled and after one change:",
+        s.last_period
+    );
+    let Some(v) = &s.meter_value else {
+        let _ = writeln!(
+            t,
+            "  not available: {}",
+            s.meter_value_problem.as_deref().unwrap_or("no answer")
+        );
+        return;
+    };
+    let _ = writeln!(t, "  now:                 σ {}", num(&v["figure"]["sigma"]));
+    if let Some(m) = v["meters"].as_array().and_then(|m| m.first()) {
+        let _ = writeln!(
+            t,
+            "  best repair:         σ {} with {} recalibrated to half its σ (σ {} if it failed)",
+            num(&m["sigma_if_halved"]),
+            m["tag"].as_str().unwrap_or(""),
+            num(&m["sigma_if_lost"])
+        );
+    }
+    let candidates = v["candidates"].as_array().cloned().unwrap_or_default();
+    for (quantity, what) in [("mole_fraction", "analyser"), ("molar_flow", "flow meter")] {
+        if let Some(c) = candidates.iter().find(|c| c["quantity"] == quantity) {
+            let on = match c["component"].as_str() {
+                Some(component) => format!("{component} on {}", c["stream"].as_str().unwrap_or("")),
+                None => c["stream"].as_str().unwrap_or("").to_string(),
+            };
+            let _ = writeln!(
+                t,
+                "  best new {what:<11} σ {} with {on} (σ {} {} assumed)",
+                num(&c["sigma_if_added"]),
+                num(&c["sigma"]),
+                c["uom"].as_str().unwrap_or("")
+            );
+        }
+    }
+}
+
 /// The summary as a process engineer reads it.
 pub fn text(s: &Summary, serving: bool) -> String {
     let mut t = String::new();
@@ -351,6 +398,8 @@ pub fn text(s: &Summary, serving: bool) -> String {
     let _ = writeln!(t);
     purge_table(&mut t, s);
     let _ = writeln!(t);
+    meter_value_lines(&mut t, s);
+    let _ = writeln!(t);
     let _ = writeln!(
         t,
         "What the simulator did: {} reads high by {} from day 2; {} drifts by {} per hour from \
@@ -393,6 +442,12 @@ pub fn text(s: &Summary, serving: bool) -> String {
         "  curl -H 'Authorization: Bearer {read}' -H 'Accept: text/csv' '{plant}/figures?from={}&to={}'",
         s.first_period,
         s.last_period
+    );
+    let _ = writeln!(
+        t,
+        "  curl -H 'Authorization: Bearer {read}' '{plant}/meter-value?period={}&figure=purge_fraction:{}&add_best=2'",
+        s.last_period,
+        scenario::PURGE
     );
     let _ = writeln!(t, "  the API: {}/api/v1/openapi.json", s.base_url);
     let _ = writeln!(t, "Tokens of this demo database:");
