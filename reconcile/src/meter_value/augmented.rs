@@ -36,10 +36,18 @@ pub struct Augmented<'a> {
     base: &'a Classification,
     /// Unobservable directions now, orthonormal columns (n × k).
     unobservable: DMatrix<f64>,
-    /// Dense columns of W.
-    w: Vec<Vec<f64>>,
+    /// The columns of W.
+    w: Vec<Column>,
     /// C, symmetric, as many rows as W has columns.
     c: DMatrix<f64>,
+}
+
+/// A column of W: the first addition's P c kept as c (its products aᵀPc are the base's
+/// covariances, with no solve for P c unless a second addition needs it), or dense.
+#[derive(Clone)]
+enum Column {
+    Implicit(Vec<(usize, f64)>),
+    Dense(Vec<f64>),
 }
 
 fn dot_sparse(a: &[(usize, f64)], x: &[f64]) -> f64 {
@@ -64,7 +72,20 @@ impl<'a> Augmented<'a> {
 
     /// Wᵀa.
     fn wt(&self, a: &[(usize, f64)]) -> DVector<f64> {
-        DVector::from_iterator(self.w.len(), self.w.iter().map(|col| dot_sparse(a, col)))
+        DVector::from_iterator(
+            self.w.len(),
+            self.w.iter().map(|col| match col {
+                Column::Implicit(c) => self.base_covariance(a, c),
+                Column::Dense(x) => dot_sparse(a, x),
+            }),
+        )
+    }
+
+    fn dense(&self, col: &Column) -> Vec<f64> {
+        match col {
+            Column::Implicit(c) => self.base.apply(&self.observable_part(c)),
+            Column::Dense(x) => x.clone(),
+        }
     }
 
     /// The base covariance's generalised-inverse product: a and b with their parts along the
@@ -96,7 +117,8 @@ impl<'a> Augmented<'a> {
         if !self.w.is_empty() {
             let y = &self.c * self.wt(a);
             for (col, coef) in self.w.iter().zip(y.iter()) {
-                x.iter_mut().zip(col).for_each(|(xi, ci)| *xi -= coef * ci);
+                let col = self.dense(col);
+                x.iter_mut().zip(&col).for_each(|(xi, ci)| *xi -= coef * ci);
             }
         }
         x
@@ -114,8 +136,15 @@ impl<'a> Augmented<'a> {
     /// `sigma`. Answers whether it determined a direction that was undetermined.
     pub fn add(&mut self, g: &[(usize, f64)], sigma: f64) -> bool {
         let c: Vec<(usize, f64)> = g.iter().map(|&(i, v)| (i, v / sigma)).collect();
-        let pc = self.apply(&c);
-        let beta = 1.0 + dot_sparse(&c, &pc);
+        let (pc, cpc) = if self.w.is_empty() {
+            let cpc = self.base_covariance(&c, &c);
+            (Column::Implicit(c.clone()), cpc)
+        } else {
+            let pc = self.apply(&c);
+            let cpc = dot_sparse(&c, &pc);
+            (Column::Dense(pc), cpc)
+        };
+        let beta = 1.0 + cpc;
         let y: DVector<f64> = DVector::from_iterator(
             self.unobservable.ncols(),
             (0..self.unobservable.ncols()).map(|k| {
@@ -130,14 +159,14 @@ impl<'a> Augmented<'a> {
             return false;
         }
         let uu = y.norm_squared();
-        let u: Vec<f64> = (&self.unobservable * &y).iter().copied().collect();
+        let u = Column::Dense((&self.unobservable * &y).iter().copied().collect());
         let block = DMatrix::from_row_slice(2, 2, &[0.0, 1.0 / uu, 1.0 / uu, -beta / (uu * uu)]);
         self.push(vec![pc, u], block);
         self.unobservable = without_direction(&self.unobservable, &y);
         true
     }
 
-    fn push(&mut self, columns: Vec<Vec<f64>>, block: DMatrix<f64>) {
+    fn push(&mut self, columns: Vec<Column>, block: DMatrix<f64>) {
         let (q, r) = (self.w.len(), columns.len());
         let mut c = DMatrix::zeros(q + r, q + r);
         c.view_mut((0, 0), (q, q)).copy_from(&self.c);

@@ -15,7 +15,7 @@ use crate::stats::measurement_test_critical;
 use crate::uncertainty::Uncertainty;
 use crate::uom::Uom;
 
-use super::{figure_under, quantities, Augmented, NON_REDUNDANT};
+use super::{figure_under, measured_products, quantities, Augmented, NON_REDUNDANT};
 
 /// A detectable-bias change smaller than this share is not listed (the Šidák correction alone
 /// moves every meter's by a little when one more meter is tested).
@@ -227,13 +227,7 @@ pub fn candidate_worths(
 ) -> Option<Vec<CandidateWorth>> {
     figure_under(plant, est, &est.classification, name, subject)?;
     let quantities = quantities(plant, est);
-    let gradients: Vec<Vec<(usize, f64)>> = (0..est.measured.len())
-        .map(|k| est.reconciled(plant, k).1)
-        .collect();
-    let base_variance: Vec<f64> = gradients
-        .iter()
-        .map(|j| est.classification.covariance(j, j))
-        .collect();
+    let products = measured_products(plant, est);
     let testing = |leverage: Vec<f64>, extra: usize| {
         let mut t = Testing {
             leverage,
@@ -246,25 +240,40 @@ pub fn candidate_worths(
     let leverage_now: Vec<f64> = est
         .measured
         .iter()
-        .zip(&base_variance)
-        .map(|(m, v)| (v / (m.sigma * m.sigma)).min(1.0))
+        .zip(&products)
+        .map(|(m, p)| (p.variance / (m.sigma * m.sigma)).min(1.0))
         .collect();
-    let now = testing(leverage_now, 0);
+    let now = testing(leverage_now.clone(), 0);
     let worths = candidates
         .iter()
         .enumerate()
         .map(|(i, cand)| {
             let mut aug = Augmented::new(&est.classification);
             let new_direction = aug.add(&cand.gradient, cand.sigma);
-            let own = aug.covariance(&cand.gradient, &cand.gradient) / (cand.sigma * cand.sigma);
-            let testable = 1.0 - own > NON_REDUNDANT;
-            let leverage: Vec<f64> = est
-                .measured
+            // A candidate that determines a new direction is its only measure (leverage 1)
+            // and changes no other meter's test; otherwise, with c = g/σ and β = 1 + cᵀPc,
+            // its leverage is cᵀPc/β and meter k's variance falls by (cᵀPjₖ)²/β.
+            let c: Vec<(usize, f64)> = cand
+                .gradient
                 .iter()
-                .zip(&gradients)
-                .zip(&base_variance)
-                .map(|((m, j), v)| ((v - aug.change(j, j)) / (m.sigma * m.sigma)).min(1.0))
+                .map(|&(i, v)| (i, v / cand.sigma))
                 .collect();
+            let (testable, leverage) = if new_direction {
+                (false, leverage_now.clone())
+            } else {
+                let cpc = est.classification.covariance(&c, &c);
+                let beta = 1.0 + cpc;
+                let leverage = est
+                    .measured
+                    .iter()
+                    .zip(&products)
+                    .map(|(m, p)| {
+                        let cpj: f64 = c.iter().map(|&(i, v)| v * p.pj[i]).sum();
+                        ((p.variance - cpj * cpj / beta) / (m.sigma * m.sigma)).min(1.0)
+                    })
+                    .collect();
+                (1.0 - cpc / beta > NON_REDUNDANT, leverage)
+            };
             let after = testing(leverage, usize::from(testable));
             let makes_observable = if new_direction {
                 quantities

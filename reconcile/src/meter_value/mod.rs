@@ -21,7 +21,6 @@
 //! the estimate does not move when the weights change, and a test checks every number against
 //! a fresh estimate with the model changed.
 
-use crate::equations::measurement;
 use crate::estimate::Estimate;
 use crate::figures::loop_figures_of;
 use crate::model::{Plant, UnitKind};
@@ -162,6 +161,31 @@ fn figure_under(
         .find(|f| f.name == name && f.subject == subject)
 }
 
+/// A measured meter's gradient, its variance as reconciled (jᵀPj) and P j, dense: the
+/// products every change of that meter, and every meter's test under a change, need.
+pub(crate) struct MeterProduct {
+    pub gradient: Vec<(usize, f64)>,
+    pub variance: f64,
+    pub pj: Vec<f64>,
+}
+
+/// The products of every measured meter (one product with P each: one solve on the sparse
+/// path).
+pub(crate) fn measured_products(plant: &Plant, est: &Estimate) -> Vec<MeterProduct> {
+    (0..est.measured.len())
+        .map(|k| {
+            let gradient = est.reconciled(plant, k).1;
+            let pj = est.classification.apply(&gradient);
+            let variance = gradient.iter().map(|&(i, v)| v * pj[i]).sum();
+            MeterProduct {
+                gradient,
+                variance,
+                pj,
+            }
+        })
+        .collect()
+}
+
 /// The figure as reconciled, and each measured meter's worth to it: its σ with the meter's σ
 /// halved and without the meter. `None` when the estimate has no such figure.
 pub fn meter_worths(
@@ -172,24 +196,17 @@ pub fn meter_worths(
 ) -> Option<(Figure, Vec<MeterWorth>)> {
     let base = figure_under(plant, est, &est.classification, name, subject)?;
     let quantities = quantities(plant, est);
-    let gradients: Vec<(Vec<(usize, f64)>, f64)> = est
-        .measured
-        .iter()
-        .map(|m| {
-            let (_, j) = measurement(plant, &est.layout, &plant.meters[m.meter], &est.solution.z);
-            (j, m.sigma)
-        })
-        .collect();
+    let meters = measured_products(plant, est);
     let under =
         |unc: &Reweighted| figure_under(plant, est, unc, name, subject).and_then(|f| f.sigma);
     let worths = est
         .measured
         .iter()
-        .zip(&gradients)
-        .map(|(m, (j, sigma))| {
-            let n = est.layout.n;
-            let halved = Reweighted::new(&est.classification, n, j.clone(), *sigma, 4.0);
-            let without = Reweighted::new(&est.classification, n, j.clone(), *sigma, 0.0);
+        .zip(&meters)
+        .map(|(m, product)| {
+            let (j, sigma, pj) = (&product.gradient, m.sigma, &product.pj[..]);
+            let halved = Reweighted::new(&est.classification, j, pj, sigma, 4.0);
+            let without = Reweighted::new(&est.classification, j, pj, sigma, 0.0);
             let unobservable_if_lost = quantities
                 .iter()
                 .filter(|(_, a)| est.classification.is_observable(a) && !without.is_observable(a))
@@ -199,13 +216,15 @@ pub fn meter_worths(
             let untestable_if_lost = est
                 .measured
                 .iter()
-                .zip(&gradients)
+                .zip(&meters)
                 .enumerate()
                 .filter(|(k, (other, _))| {
                     other.meter != m.meter && est.classification.is_redundant(*k)
                 })
-                .filter(|(_, (_, (jk, sk)))| {
-                    1.0 - without.covariance(jk, jk) / (sk * sk) <= NON_REDUNDANT
+                .filter(|(_, (other, p))| {
+                    let jk = &p.gradient;
+                    let after = p.variance - (without.change_of(jk, jk));
+                    1.0 - after / (other.sigma * other.sigma) <= NON_REDUNDANT
                 })
                 .map(|(_, (other, _))| other.meter)
                 .collect();

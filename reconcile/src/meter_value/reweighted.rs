@@ -14,8 +14,8 @@ const LOADS: f64 = 1e-7;
 /// The estimate's uncertainty with one meter's weight changed.
 pub struct Reweighted<'a> {
     base: &'a dyn Uncertainty,
-    /// The meter's gradient on the state, in its uom.
-    j: Vec<(usize, f64)>,
+    /// P j, dense on the state (j the meter's gradient in its uom).
+    pj: &'a [f64],
     /// jᵀPj.
     jpj: f64,
     change: Change,
@@ -24,41 +24,54 @@ pub struct Reweighted<'a> {
 enum Change {
     /// P' = P − c (P j)(P j)ᵀ with c = δ / (1 + δ jᵀPj).
     RankOne(f64),
-    /// A non-redundant meter lost: the direction d = P j (dense, on the state) is no longer
-    /// determined.
-    Lost(Vec<f64>),
+    /// A non-redundant meter lost: the direction d = P j is no longer determined.
+    Lost,
+}
+
+fn dot(a: &[(usize, f64)], x: &[f64]) -> f64 {
+    a.iter().map(|&(i, v)| v * x[i]).sum()
 }
 
 impl<'a> Reweighted<'a> {
-    /// The covariance with the weight of the meter with gradient `j` and σ `sigma` multiplied
-    /// by `factor` (4 for σ halved, 0 for the meter lost); `n` states.
+    /// The covariance with the weight of the meter with gradient `j`, P j = `pj` and σ
+    /// `sigma` multiplied by `factor` (4 for σ halved, 0 for the meter lost).
     pub fn new(
         base: &'a dyn Uncertainty,
-        n: usize,
-        j: Vec<(usize, f64)>,
+        j: &[(usize, f64)],
+        pj: &'a [f64],
         sigma: f64,
         factor: f64,
     ) -> Self {
-        let jpj = base.covariance(&j, &j);
+        let jpj = dot(j, pj);
         let w = 1.0 / (sigma * sigma);
         let delta = (factor - 1.0) * w;
         let denom = 1.0 + delta * jpj;
         let change = if factor == 0.0 && denom <= NON_REDUNDANT {
-            Change::Lost((0..n).map(|i| base.covariance(&[(i, 1.0)], &j)).collect())
+            Change::Lost
         } else {
             Change::RankOne(delta / denom)
         };
         Reweighted {
             base,
-            j,
+            pj,
             jpj,
             change,
         }
     }
 
+    /// aᵀ(P − P′)b: what the change takes off the covariance of two functions.
+    pub fn change_of(&self, a: &[(usize, f64)], b: &[(usize, f64)]) -> f64 {
+        let (apj, jpb) = (dot(a, self.pj), dot(b, self.pj));
+        match self.change {
+            Change::RankOne(c) => c * apj * jpb,
+            Change::Lost if self.jpj > 0.0 => apj * jpb / self.jpj,
+            Change::Lost => 0.0,
+        }
+    }
+
     /// The meter's loss leaves some function of the state undetermined.
     pub fn loses_a_direction(&self) -> bool {
-        matches!(self.change, Change::Lost(_))
+        matches!(self.change, Change::Lost)
     }
 }
 
@@ -69,24 +82,17 @@ impl Uncertainty for Reweighted<'_> {
         }
         match &self.change {
             Change::RankOne(_) => true,
-            Change::Lost(d) => {
-                let ad: f64 = a.iter().map(|&(i, v)| v * d[i]).sum();
+            Change::Lost => {
+                let ad = dot(a, self.pj);
                 let norm_a = a.iter().map(|(_, v)| v * v).sum::<f64>().sqrt();
-                let norm_d = d.iter().map(|v| v * v).sum::<f64>().sqrt();
+                let norm_d = self.pj.iter().map(|v| v * v).sum::<f64>().sqrt();
                 ad.abs() <= LOADS * norm_a * norm_d
             }
         }
     }
 
     fn covariance(&self, a: &[(usize, f64)], b: &[(usize, f64)]) -> f64 {
-        let apb = self.base.covariance(a, b);
-        let apj = self.base.covariance(a, &self.j);
-        let jpb = self.base.covariance(&self.j, b);
-        match self.change {
-            Change::RankOne(c) => apb - c * apj * jpb,
-            Change::Lost(_) if self.jpj > 0.0 => apb - apj * jpb / self.jpj,
-            Change::Lost(_) => apb,
-        }
+        self.base.covariance(a, b) - self.change_of(a, b)
     }
 
     fn by_parts(&self) -> bool {

@@ -214,3 +214,77 @@ fn candidates_on_a_loop_with_untested_meters_name_what_they_make_testable_and_ob
         "some candidate makes a quantity observable"
     );
 }
+
+/// The σ of a stream's flow in a fresh estimate, classified on the dense path (the projection
+/// method) whatever the network's size: the independent reference for the sparse path.
+fn dense_flow_sigma(plant: &Plant, values: Vec<MeterValue>, stream: &str) -> Option<f64> {
+    let a = analyse_period(plant, &period(values));
+    let e = a.estimate.as_ref().unwrap();
+    let c = reconcile::classify::classify_dense(
+        plant,
+        &e.layout,
+        &e.measured,
+        &e.solution.z,
+        &vec![false; e.layout.n],
+    );
+    let s = plant.stream_index(stream).unwrap();
+    let grad: Vec<(usize, f64)> = e.layout.stream_flows(plant, s).map(|i| (i, 1.0)).collect();
+    c.is_observable(&grad).then(|| c.sigma(&grad))
+}
+
+#[test]
+fn on_a_network_large_enough_for_the_sparse_path_meters_and_candidates_match_fresh_estimates() {
+    // A generated network of 100 streams (over 600 states: the sparse factorisation), noise
+    // free; a middle stream's flow as the figure; a dozen meters (σ halved, lost) and a dozen
+    // candidates, by low-rank updates of the sparse covariance, against fresh estimates with
+    // the model changed, classified on the dense path.
+    let net = testkit::network::network(100, 11);
+    let (plant, z) = (&net.plant, &net.z);
+    let values = exact_values(plant, &net.layout, z);
+    let base = analyse_period(plant, &period(values.clone()));
+    let est = base.estimate.as_ref().unwrap();
+    assert!(est.classification.sparse.is_some(), "the sparse path");
+    let stream = plant.streams[plant.streams.len() / 2].id.clone();
+    let reference = |sigma: Option<f64>| reconcile::report::Figure {
+        name: "molar_flow".into(),
+        subject: stream.clone(),
+        uom: "kmol/h".into(),
+        value: Some(1.0),
+        sigma,
+    };
+    let (figure, worths) =
+        reconcile::meter_value::meter_worths(plant, est, "molar_flow", &stream).unwrap();
+    same_sigma(
+        figure.sigma,
+        &reference(dense_flow_sigma(plant, values.clone(), &stream)),
+        "now",
+    );
+    let step = (worths.len() / 12).max(1);
+    let mut compared = 0;
+    for w in worths.iter().step_by(step) {
+        let tag = &plant.meters[w.meter].tag;
+        let halved = dense_flow_sigma(&crate::halved(plant, w.meter), values.clone(), &stream);
+        same_sigma(
+            w.sigma_if_halved,
+            &reference(halved),
+            &format!("{tag} halved"),
+        );
+        let lost = dense_flow_sigma(plant, without(&values, w.meter), &stream);
+        same_sigma(w.sigma_if_lost, &reference(lost), &format!("{tag} lost"));
+        compared += 2;
+    }
+    let cands = candidates(plant, est, &Accuracies::default());
+    let worths = candidate_worths(plant, est, "molar_flow", &stream, &cands).unwrap();
+    let step = (cands.len() / 12).max(1);
+    for w in worths.iter().step_by(step) {
+        let (p, v) = with_candidate(plant, &values, z, &cands[w.candidate]);
+        let added = dense_flow_sigma(&p, v, &stream);
+        same_sigma(
+            w.sigma_if_added,
+            &reference(added),
+            &format!("candidate {}", w.candidate),
+        );
+        compared += 1;
+    }
+    assert!(compared >= 30, "{compared}");
+}
