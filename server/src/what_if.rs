@@ -76,7 +76,7 @@ pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
                 .into_iter()
                 .filter(|(start, _)| from.is_none_or(|f| *start >= f))
                 .filter(|(start, _)| to.is_none_or(|t| *start < t))
-                .map(|(start, readings)| period_run::analyse(&plant, start, readings))
+                .map(|(start, readings)| period_run::analyse(&plant, start, readings, Vec::new()))
                 .collect();
             if analyses.is_empty() {
                 return Err(BadInput::new(format!(
@@ -102,7 +102,7 @@ pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
                     BadInput::new(format!("{file}: no readings, so no base case"))
                 })?,
             };
-            let analysis = period_run::analyse(&plant, start, readings);
+            let analysis = period_run::analyse(&plant, start, readings, Vec::new());
             whatif::what_if(&plant, &analysis, &request)
         }
     };

@@ -71,7 +71,7 @@ pub async fn what_if(
     tokio::task::spawn_blocking(move || {
         let analyses: Vec<Analysis> = periods
             .into_iter()
-            .map(|(s, readings)| period_run::analyse(&model, s, readings))
+            .map(|(s, readings)| period_run::analyse(&model, s, readings, Vec::new()))
             .collect();
         if single {
             whatif::what_if(&model, &analyses[0], &request)

@@ -61,7 +61,7 @@ pub(super) async fn record_period(
         reason,
     };
     let run = tokio::task::spawn_blocking(move || {
-        period_run::run_period(&model, revision, start, readings)
+        period_run::run_period(&model, revision, start, readings, Vec::new())
     })
     .await
     .map_err(|e| engine(e.to_string()))?;
