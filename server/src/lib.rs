@@ -15,6 +15,7 @@ pub mod health;
 pub mod ingest;
 pub mod metrics;
 pub mod model_file;
+pub mod out_of_service;
 pub mod period_run;
 pub mod readings;
 pub mod results;

@@ -7,6 +7,7 @@
 pub mod balances;
 pub mod figures;
 pub mod meters;
+pub mod out_of_service;
 pub mod periods;
 pub mod range;
 pub mod stored;

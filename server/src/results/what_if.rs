@@ -1,12 +1,14 @@
 //! The what-if of a stored period, or of a range of them: the stored readings reconciled again
-//! exactly as the period run does (the estimate behind a report is not stored, only the
-//! report), then the engine's what-if from that base case (docs/what-if.md).
+//! exactly as the period run does, without the meters out of service then (the estimate behind
+//! a report is not stored, only the report), then the engine's what-if from that base case
+//! (docs/what-if.md).
 
 use chrono::{DateTime, Utc};
 use reconcile::whatif::{self, Request, WhatIf};
 use reconcile::Analysis;
 
 use super::{rfc3339, PeriodRange, ResultsError};
+use crate::out_of_service;
 use crate::period_run;
 use crate::service::Service;
 use crate::store::PlantRow;
@@ -41,6 +43,7 @@ pub async fn what_if(
             range.starts
         }
     };
+    let intervals = service.out_of_service(plant).await?;
     let mut periods = Vec::with_capacity(starts.len());
     for &s in &starts {
         let (_, rev) = models.at(s)?;
@@ -55,7 +58,8 @@ pub async fn what_if(
             .period_readings(plant, s, model.period_seconds)
             .await?;
         if !readings.is_empty() {
-            periods.push((s, readings));
+            let left_out = out_of_service::left_out(&model, &intervals, s);
+            periods.push((s, readings, left_out));
         }
     }
     if periods.is_empty() {
@@ -71,7 +75,7 @@ pub async fn what_if(
     tokio::task::spawn_blocking(move || {
         let analyses: Vec<Analysis> = periods
             .into_iter()
-            .map(|(s, readings)| period_run::analyse(&model, s, readings, Vec::new()))
+            .map(|(s, readings, left_out)| period_run::analyse(&model, s, readings, left_out))
             .collect();
         if single {
             whatif::what_if(&model, &analyses[0], &request)
