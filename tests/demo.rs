@@ -41,6 +41,7 @@ fn true_figures() -> Vec<Value> {
         start,
         end: start + chrono::TimeDelta::hours(1),
         values: testkit::one_reading_each(exact),
+        left_out: Vec::new(),
     };
     let report = reconcile::reconcile_period(&plant, &input);
     serde_json::to_value(&report.figures)

@@ -3,7 +3,7 @@
 use crate::estimate::Estimate;
 use crate::model::Plant;
 use crate::period::PeriodInput;
-use crate::period_report::{fill_report, unmeasured_meter};
+use crate::period_report::{fill_report, report_left_out, unmeasured_meter};
 use crate::report::{Report, ReportStatus, CAUTION};
 use crate::restarts::estimate;
 use crate::solve::Measured;
@@ -24,7 +24,12 @@ pub fn reconcile_period(plant: &Plant, input: &PeriodInput) -> Report {
 pub fn analyse_period(plant: &Plant, input: &PeriodInput) -> Analysis {
     let mut warnings = Vec::new();
     let mut measured = Vec::new();
-    for v in &input.values {
+    // A meter left out never reaches the estimate; its entry says why (`report_left_out`).
+    for v in input
+        .values
+        .iter()
+        .filter(|v| input.left_out_reason(v.meter).is_none())
+    {
         let meter = &plant.meters[v.meter];
         if !v.value.is_finite() {
             warnings.push(format!(
@@ -85,6 +90,7 @@ pub fn analyse_period(plant: &Plant, input: &PeriodInput) -> Analysis {
             .iter()
             .map(|m| unmeasured_meter(plant, m))
             .collect();
+        report_left_out(input, &mut report);
         return Analysis {
             report,
             estimate: None,
@@ -92,6 +98,7 @@ pub fn analyse_period(plant: &Plant, input: &PeriodInput) -> Analysis {
     }
     let est = estimate(plant, measured);
     fill_report(plant, input, &est, &mut report);
+    report_left_out(input, &mut report);
     Analysis {
         report,
         estimate: Some(est),

@@ -34,7 +34,7 @@ pub mod whatif;
 pub use analysis::{analyse_period, reconcile_period, Analysis};
 pub use estimate::Estimate;
 pub use model::{ModelError, ModelProblem, ModelSpec, Plant};
-pub use period::{group_readings, PeriodInput, Quality, Reading};
+pub use period::{group_readings, LeftOut, PeriodInput, Quality, Reading};
 pub use report::{Report, ReportStatus};
 pub use restarts::estimate;
 pub use validate::parse_plant;

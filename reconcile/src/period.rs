@@ -48,12 +48,35 @@ pub struct MeterValue {
     pub spread: f64,
 }
 
+/// A meter the caller leaves out of one period's estimate (a technician took it out of
+/// service, say), with the reason the report gives. Its value, if it has one, is still
+/// reported as measured, but the estimate never sees it: it is neither adjusted nor tested.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct LeftOut {
+    /// Index of the meter in the plant.
+    pub meter: usize,
+    /// Why, in a sentence, as the report's `not_used_reason` gives it.
+    pub reason: String,
+}
+
 /// Everything the engine needs for one period.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PeriodInput {
     pub start: DateTime<Utc>,
     pub end: DateTime<Utc>,
     pub values: Vec<MeterValue>,
+    /// Meters not to be used this period, whatever their values.
+    pub left_out: Vec<LeftOut>,
+}
+
+impl PeriodInput {
+    /// Why `meter` is left out this period, if it is.
+    pub fn left_out_reason(&self, meter: usize) -> Option<&str> {
+        self.left_out
+            .iter()
+            .find(|l| l.meter == meter)
+            .map(|l| l.reason.as_str())
+    }
 }
 
 /// Start of the UTC-aligned period of `period_seconds` containing `time`.
@@ -112,6 +135,7 @@ pub fn group_readings(plant: &Plant, readings: &[Reading]) -> Vec<PeriodInput> {
                     .single()
                     .expect("in range"),
                 values,
+                left_out: Vec::new(),
             }
         })
         .collect()

@@ -40,6 +40,26 @@ pub(crate) fn unmeasured_meter(plant: &Plant, m: &Meter) -> MeterReport {
         detectable_bias: None,
         used_uncertain: false,
         readings: 0,
+        used: true,
+        not_used_reason: None,
+    }
+}
+
+/// Mark the meters the input leaves out as not used, with their reason, and report what they
+/// read (their value and readings) though the estimate never saw it. Their entries keep the
+/// reconciled value the estimate gives them, when observable, and no adjustment or test.
+pub(crate) fn report_left_out(input: &PeriodInput, report: &mut Report) {
+    for left in &input.left_out {
+        let Some(entry) = report.meters.get_mut(left.meter) else {
+            continue;
+        };
+        entry.used = false;
+        entry.not_used_reason = Some(left.reason.clone());
+        if let Some(v) = input.values.iter().find(|v| v.meter == left.meter) {
+            entry.measured = Some(v.value);
+            entry.readings = v.readings;
+            entry.used_uncertain = v.used_uncertain;
+        }
     }
 }
 

@@ -108,6 +108,18 @@ pub struct MeterReport {
     pub used_uncertain: bool,
     /// Number of readings averaged.
     pub readings: usize,
+    /// The estimate used the meter's value. False when the caller left the meter out (out of
+    /// service): its measured value and readings are still reported, but it has no adjustment
+    /// and no test. Reports stored before the field existed read back as used.
+    #[serde(default = "used_by_default")]
+    pub used: bool,
+    /// Why the meter was not used; null when it was.
+    #[serde(default)]
+    pub not_used_reason: Option<String>,
+}
+
+fn used_by_default() -> bool {
+    true
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

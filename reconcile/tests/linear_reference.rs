@@ -114,6 +114,7 @@ fn run(y: [f64; 6]) -> Report {
             start: Utc.with_ymd_and_hms(2026, 1, 1, 0, 0, 0).unwrap(),
             end: Utc.with_ymd_and_hms(2026, 1, 1, 1, 0, 0).unwrap(),
             values,
+            left_out: Vec::new(),
         },
     )
 }

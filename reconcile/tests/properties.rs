@@ -249,6 +249,7 @@ fn period(values: Vec<MeterValue>) -> PeriodInput {
         start: Utc.with_ymd_and_hms(2026, 5, 1, 0, 0, 0).unwrap(),
         end: Utc.with_ymd_and_hms(2026, 5, 1, 1, 0, 0).unwrap(),
         values,
+        left_out: Vec::new(),
     }
 }
 

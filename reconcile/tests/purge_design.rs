@@ -151,6 +151,7 @@ fn reconcile_exact(plant: &Plant, z: &[f64]) -> Report {
             start: Utc.with_ymd_and_hms(2026, 4, 1, 0, 0, 0).unwrap(),
             end: Utc.with_ymd_and_hms(2026, 4, 1, 1, 0, 0).unwrap(),
             values,
+            left_out: Vec::new(),
         },
     )
 }
@@ -467,4 +468,77 @@ fn loop_figures_of_the_design_case() {
 #[test]
 fn loop_figures_of_the_large_purge_case() {
     check_figures(&LARGE_PURGE);
+}
+
+/// A meter the input leaves out is reported with what it read but not used: the report is the
+/// report of the same period without its value, but for the meter's own `measured`,
+/// `readings`, `used` and `not_used_reason`; and the purge's figures lose precision.
+#[test]
+fn a_meter_left_out_is_reported_as_read_and_the_estimate_is_made_without_it() {
+    let plant = parse_plant(MODEL).unwrap();
+    let z = simulate(&plant, &DESIGN);
+    let fi4 = plant.meter_index("FI-4").unwrap();
+    let input = |values, left_out| PeriodInput {
+        start: Utc.with_ymd_and_hms(2026, 4, 1, 0, 0, 0).unwrap(),
+        end: Utc.with_ymd_and_hms(2026, 4, 1, 1, 0, 0).unwrap(),
+        values,
+        left_out,
+    };
+    let values = one_reading_each(exact_values(&plant, &z));
+    let reason = "out of service since 2026-04-01T00:00:00Z: transmitter removed".to_string();
+    let with = reconcile_period(&plant, &input(values.clone(), vec![]));
+    let left = reconcile_period(
+        &plant,
+        &input(
+            values.clone(),
+            vec![reconcile::LeftOut {
+                meter: fi4,
+                reason: reason.clone(),
+            }],
+        ),
+    );
+    let mut absent = values.clone();
+    absent.retain(|v| v.meter != fi4);
+    let without = reconcile_period(&plant, &input(absent, vec![]));
+
+    let entry = &left.meters[fi4];
+    assert!(!entry.used && with.meters[fi4].used && without.meters[fi4].used);
+    assert_eq!(entry.not_used_reason.as_deref(), Some(reason.as_str()));
+    assert_eq!(entry.measured, with.meters[fi4].measured);
+    assert_eq!(entry.readings, 1);
+    assert_eq!(
+        (entry.adjustment, entry.normalized_adjustment, entry.sigma),
+        (None, None, None)
+    );
+    assert!(!entry.testable && !entry.redundant && !entry.suspect);
+    assert!(entry.reconciled.is_some(), "the other meters determine it");
+    assert_eq!(left.redundancy + 1, with.redundancy);
+
+    let mut same = left.clone();
+    same.meters[fi4] = without.meters[fi4].clone();
+    assert_eq!(
+        serde_json::to_value(&same).unwrap(),
+        serde_json::to_value(&without).unwrap()
+    );
+    let sigma = |r: &Report| {
+        r.figures
+            .iter()
+            .find(|f| f.name == "purge_fraction")
+            .and_then(|f| f.sigma)
+            .unwrap()
+    };
+    assert!(
+        sigma(&left) > 1.01 * sigma(&with),
+        "{} vs {}",
+        sigma(&left),
+        sigma(&with)
+    );
+
+    // A report stored before `used` existed reads back as used.
+    let mut old = serde_json::to_value(&with.meters[fi4]).unwrap();
+    let fields = old.as_object_mut().unwrap();
+    fields.remove("used");
+    fields.remove("not_used_reason");
+    let read: reconcile::report::MeterReport = serde_json::from_value(old).unwrap();
+    assert!(read.used && read.not_used_reason.is_none());
 }

@@ -75,19 +75,25 @@ pub enum Status {
     OutOfRange,
     Missing,
     Untestable,
+    /// A technician's note took the meter out of service (set by the meter list from the
+    /// notes, never by [`assess`]).
+    OutOfService,
 }
 
 impl Status {
-    /// Order of attention for a technician: suspect first.
+    /// Order of attention for a technician: suspect first. What loopbal found and nobody has
+    /// acted on yet comes before a meter a technician already took out of service, which
+    /// comes before the quieter states.
     pub fn rank(self) -> u8 {
         match self {
             Status::Suspect => 0,
             Status::Frozen => 1,
             Status::OutOfRange => 2,
             Status::Watch => 3,
-            Status::Missing => 4,
-            Status::Untestable => 5,
-            Status::Ok => 6,
+            Status::OutOfService => 4,
+            Status::Missing => 5,
+            Status::Untestable => 6,
+            Status::Ok => 7,
         }
     }
 }

@@ -16,6 +16,7 @@ pub mod ingest;
 pub mod meter_value;
 pub mod metrics;
 pub mod model_file;
+pub mod out_of_service;
 pub mod period_run;
 pub mod readings;
 pub mod results;

@@ -86,7 +86,8 @@ pub fn meter_value(opts: &Options) -> anyhow::Result<ExitCode> {
     )
     .map_err(|e| BadInput::new(format!("meter-value: {e}")))?;
     let (start, readings) = crate::run::one_period(&plant, opts.readings, opts.period, "period")?;
-    let analysis = period_run::analyse(&plant, start, readings);
+    // A file has no technicians' notes: no meter is out of service.
+    let analysis = period_run::analyse(&plant, start, readings, Vec::new());
     let answer: PeriodValue = match of_period(&plant, start, &analysis, &request) {
         Ok(answer) => answer,
         // A period that did not reconcile is a failed run on good input.

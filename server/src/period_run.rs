@@ -11,7 +11,7 @@
 use std::collections::{BTreeMap, HashMap};
 
 use chrono::{DateTime, TimeDelta, Utc};
-use reconcile::{Analysis, PeriodInput, Plant, Quality, Reading, Report};
+use reconcile::{Analysis, LeftOut, PeriodInput, Plant, Quality, Reading, Report};
 use serde::Serialize;
 
 use crate::health::MeterPeriod;
@@ -44,6 +44,15 @@ pub struct RunInputs {
     pub missing: Vec<String>,
     /// Tags whose readings spread beyond the steadiness screen.
     pub unsteady: Vec<String>,
+    /// Meters left out of the estimate this period (out of service), with why.
+    pub left_out: Vec<LeftOutInput>,
+}
+
+/// A meter left out of a period's estimate, by tag.
+#[derive(Debug, Clone, Serialize)]
+pub struct LeftOutInput {
+    pub tag: String,
+    pub reason: String,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -65,7 +74,8 @@ pub struct PeriodRun {
     pub meters: Vec<(String, MeterPeriod)>,
 }
 
-/// Run the period of `plant` (revision number `revision`) starting at `start` on its readings.
+/// Run the period of `plant` (revision number `revision`) starting at `start` on its readings,
+/// without the meters of `left_out` (their readings are reported, never used).
 /// Readings outside the period, or of tags the revision does not have, count in
 /// [`RunInputs::readings`] but are not used.
 pub fn run_period(
@@ -73,6 +83,7 @@ pub fn run_period(
     revision: i64,
     start: DateTime<Utc>,
     readings: Vec<PeriodReading>,
+    left_out: Vec<LeftOut>,
 ) -> PeriodRun {
     let found = readings.len();
     let screens = screens(&readings);
@@ -80,7 +91,7 @@ pub fn run_period(
     // A meter's mean is summed in time order whatever order the readings came in (a file as
     // written, the store by time), so both paths agree to the last bit.
     readings.sort_by(|a, b| a.time.cmp(&b.time).then_with(|| a.tag.cmp(&b.tag)));
-    let input = period_input(plant, &readings, start);
+    let input = period_input(plant, &readings, start, left_out);
     let (unsteady, warnings) = steadiness(plant, &input);
     let analysis = reconcile::analyse_period(plant, &input);
     let correlations = correlations_by_tag(plant, &analysis);
@@ -96,11 +107,16 @@ pub fn run_period(
 }
 
 /// The engine's analysis of the period (report and estimate) as [`run_period`] makes it, with
-/// the same steadiness warnings: the base case of a what-if.
-pub fn analyse(plant: &Plant, start: DateTime<Utc>, readings: Vec<PeriodReading>) -> Analysis {
+/// the same steadiness warnings and without the same meters: the base case of a what-if.
+pub fn analyse(
+    plant: &Plant,
+    start: DateTime<Utc>,
+    readings: Vec<PeriodReading>,
+    left_out: Vec<LeftOut>,
+) -> Analysis {
     let mut readings: Vec<Reading> = readings.into_iter().map(|r| r.reading).collect();
     readings.sort_by(|a, b| a.time.cmp(&b.time).then_with(|| a.tag.cmp(&b.tag)));
-    let input = period_input(plant, &readings, start);
+    let input = period_input(plant, &readings, start, left_out);
     let (_, warnings) = steadiness(plant, &input);
     let mut analysis = reconcile::analyse_period(plant, &input);
     analysis.report.warnings.extend(warnings);
@@ -144,23 +160,37 @@ fn screens(readings: &[PeriodReading]) -> HashMap<String, (i64, i64)> {
     screens
 }
 
-/// The period's input: each meter's mean of its good and uncertain readings.
-fn period_input(plant: &Plant, readings: &[Reading], start: DateTime<Utc>) -> PeriodInput {
-    reconcile::group_readings(plant, readings)
+/// The period's input: each meter's mean of its good and uncertain readings, and the meters
+/// left out.
+fn period_input(
+    plant: &Plant,
+    readings: &[Reading],
+    start: DateTime<Utc>,
+    left_out: Vec<LeftOut>,
+) -> PeriodInput {
+    let mut input = reconcile::group_readings(plant, readings)
         .into_iter()
         .find(|p| p.start == start)
         .unwrap_or_else(|| PeriodInput {
             start,
             end: start + TimeDelta::seconds(plant.period_seconds),
             values: Vec::new(),
-        })
+            left_out: Vec::new(),
+        });
+    input.left_out = left_out;
+    input
 }
 
 /// Tags whose readings within the period spread beyond the screen, with a warning for each.
 fn steadiness(plant: &Plant, input: &PeriodInput) -> (Vec<String>, Vec<String>) {
     let mut unsteady = Vec::new();
     let mut warnings = Vec::new();
-    for v in &input.values {
+    // A meter left out does not move the estimate, so its spread does not make it unsteady.
+    for v in input
+        .values
+        .iter()
+        .filter(|v| input.left_out_reason(v.meter).is_none())
+    {
         let meter = &plant.meters[v.meter];
         let Some(sigma) = meter.sigma_for(v.value) else {
             continue;
@@ -205,12 +235,23 @@ fn run_inputs(
         .filter(|m| !meters.iter().any(|v| v.tag == m.tag))
         .map(|m| m.tag.clone())
         .collect();
+    let left_out = input
+        .left_out
+        .iter()
+        .filter_map(|l| {
+            Some(LeftOutInput {
+                tag: plant.meters.get(l.meter)?.tag.clone(),
+                reason: l.reason.clone(),
+            })
+        })
+        .collect();
     RunInputs {
         revision,
         readings,
         meters,
         missing,
         unsteady,
+        left_out,
     }
 }
 
@@ -302,6 +343,7 @@ mod tests {
             start: start(),
             end: start(),
             values: vec![value(0, 7.9), value(1, 8.1)],
+            left_out: Vec::new(),
         };
         let (unsteady, warnings) = steadiness(&plant, &input);
         assert_eq!(unsteady, ["F-2"]);
@@ -317,6 +359,7 @@ mod tests {
                 readings: 1,
                 ..value(0, 50.0)
             }],
+            left_out: Vec::new(),
         };
         assert!(steadiness(&plant, &input).0.is_empty());
     }
@@ -334,6 +377,7 @@ mod tests {
                 used_uncertain: true,
                 spread: 0.1,
             }],
+            left_out: Vec::new(),
         };
         let inputs = run_inputs(&plant, &input, 4, 3, vec![]);
         assert_eq!(inputs.missing, ["F-1"]);
@@ -371,7 +415,7 @@ mod tests {
             !out_of_range(&plant, &readings[4].reading),
             "F-2 has no range"
         );
-        let run = run_period(&plant, 3, start(), readings.clone());
+        let run = run_period(&plant, 3, start(), readings.clone(), Vec::new());
         assert_eq!(run.inputs.readings, 6);
         assert_eq!(run.inputs.unsteady, ["F-2"]);
         assert!(run.inputs.meters[0].used_uncertain);
@@ -391,7 +435,7 @@ mod tests {
         assert_eq!((f1.bad_readings, f1.out_of_range_readings), (1, 1));
         assert_eq!(run.report.status, reconcile::ReportStatus::Solved);
         readings.reverse();
-        let reversed = run_period(&plant, 3, start(), readings);
+        let reversed = run_period(&plant, 3, start(), readings, Vec::new());
         assert_eq!(
             serde_json::to_value(&reversed.report).unwrap(),
             serde_json::to_value(&run.report).unwrap()

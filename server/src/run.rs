@@ -108,7 +108,8 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
     for (start, readings) in periods {
         // The engine promises not to panic; should it break that promise on some input, the
         // other periods are still reported and the run fails (exit 1) instead of aborting.
-        let run = || period_run::run_period(&plant, FILE_REVISION, start, readings);
+        // Files carry no technicians' notes, so no meter is left out.
+        let run = || period_run::run_period(&plant, FILE_REVISION, start, readings, Vec::new());
         match std::panic::catch_unwind(run) {
             Ok(run) => reports.push(run.report),
             Err(_) => crashed.push(start),

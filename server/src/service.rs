@@ -6,12 +6,13 @@
 use std::sync::Arc;
 
 use chrono::{DateTime, Utc};
-use reconcile::Plant;
+use reconcile::{LeftOut, Plant};
 use tokio::sync::Notify;
 
 use crate::claimant::Claimant;
 use crate::ingest::{self, BatchError, Catalogue, IngestAnswer};
 use crate::metrics::Metrics;
+use crate::out_of_service::{self, Interval};
 use crate::period_run::PeriodReading;
 use crate::readings::Format;
 use crate::revisions::{ModelCache, Models, RevisionError};
@@ -78,6 +79,25 @@ impl Service {
                 out_of_range: s.out_of_range,
             })
             .collect())
+    }
+
+    /// The plant's out-of-service intervals, from its technicians' notes.
+    pub async fn out_of_service(&self, plant: &PlantRow) -> Result<Vec<Interval>, StoreError> {
+        Ok(out_of_service::intervals(
+            &self.store.notes(plant, None).await?,
+        ))
+    }
+
+    /// The meters of `model` out of service at `start` (by the plant's notes), which a run of
+    /// the period leaves out of its estimate.
+    pub async fn left_out(
+        &self,
+        plant: &PlantRow,
+        model: &Plant,
+        start: DateTime<Utc>,
+    ) -> Result<Vec<LeftOut>, StoreError> {
+        let intervals = self.out_of_service(plant).await?;
+        Ok(out_of_service::left_out(model, &intervals, start))
     }
 
     /// The tags and ranges a batch of the plant is checked against; `None` before its first

@@ -69,7 +69,9 @@ pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
                     .into_iter()
                     .filter(|(start, _)| from.is_none_or(|f| *start >= f))
                     .filter(|(start, _)| to.is_none_or(|t| *start < t))
-                    .map(|(start, readings)| period_run::analyse(&plant, start, readings))
+                    .map(|(start, readings)| {
+                        period_run::analyse(&plant, start, readings, Vec::new())
+                    })
                     .collect();
             if analyses.is_empty() {
                 return Err(BadInput::new(format!(
@@ -82,7 +84,7 @@ pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
         None => {
             let (start, readings) =
                 crate::run::one_period(&plant, opts.readings, opts.period, "base case")?;
-            let analysis = period_run::analyse(&plant, start, readings);
+            let analysis = period_run::analyse(&plant, start, readings, Vec::new());
             whatif::what_if(&plant, &analysis, &request)
         }
     };

@@ -57,6 +57,7 @@ pub fn period(values: Vec<MeterValue>) -> PeriodInput {
         start: Utc.with_ymd_and_hms(2026, 3, 2, 5, 0, 0).unwrap(),
         end: Utc.with_ymd_and_hms(2026, 3, 2, 6, 0, 0).unwrap(),
         values,
+        left_out: Vec::new(),
     }
 }
 

@@ -76,6 +76,7 @@ fn analyse(plant: &Plant, values: Vec<MeterValue>) -> Analysis {
             start: Utc.with_ymd_and_hms(2026, 4, 1, 0, 0, 0).unwrap(),
             end: Utc.with_ymd_and_hms(2026, 4, 1, 1, 0, 0).unwrap(),
             values,
+            left_out: Vec::new(),
         },
     )
 }

@@ -60,7 +60,8 @@ pub async fn get_meter(
     ))
 }
 
-/// Record a technician's note on a meter.
+/// Record a technician's note on a meter; out_of_service and back_in_service notes make the
+/// periods already run from their time on run again.
 #[utoipa::path(
     post,
     path = "/api/v1/plants/{plant}/meters/{tag}/notes",
@@ -69,7 +70,7 @@ pub async fn get_meter(
     request_body(content = NewNote, description = "The note", content_type = "application/json"),
     responses(
         (status = 201, description = "Recorded", body = NoteBody),
-        (status = 400, description = "Not JSON of the expected shape, unknown kind, bad time, text over 4000 characters or holding U+0000", body = Problem, content_type = "application/problem+json"),
+        (status = 400, description = "Not JSON of the expected shape, unknown kind, as_found on a kind other than recalibrated or not finite, bad time, text over 4000 characters or holding U+0000, back_in_service for a meter not out of service then, out_of_service overlapping an earlier interval; nothing is stored", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The token's role is not maintain, or it is for another plant", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such plant or meter", body = Problem, content_type = "application/problem+json"),
@@ -88,8 +89,9 @@ pub async fn post_note(
             return super::too_large(state.limits.max_body_bytes);
         }
         Problem::bad_request(format!(
-            "a note is JSON {{\"kind\": \"checked|recalibrated|replaced\", \"text\": \"...\", \
-             \"effective_at\": \"RFC 3339\"}}: {}",
+            "a note is JSON {{\"kind\": \"checked|recalibrated|replaced|out_of_service|\
+             back_in_service\", \"text\": \"...\", \"effective_at\": \"RFC 3339\", \
+             \"as_found\": number (recalibrated only)}}: {}",
             e.body_text()
         ))
     })?;

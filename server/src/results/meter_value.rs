@@ -129,9 +129,9 @@ pub async fn of_stored_period(
 ) -> Result<PeriodValue, ResultsError> {
     let (model, mut periods) =
         stored_periods(service, plant, start, None, 1, "a meter value").await?;
-    let (s, readings) = periods.remove(0);
+    let (s, readings, left_out) = periods.remove(0);
     tokio::task::spawn_blocking(move || {
-        let analysis = period_run::analyse(&model, s, readings);
+        let analysis = period_run::analyse(&model, s, readings, left_out);
         of_period(&model, s, &analysis, &request)
     })
     .await
@@ -151,8 +151,8 @@ pub async fn of_stored_range(
     tokio::task::spawn_blocking(move || {
         let mut values = Vec::new();
         let mut failed = Vec::new();
-        for (s, readings) in periods {
-            let analysis = period_run::analyse(&model, s, readings);
+        for (s, readings, left_out) in periods {
+            let analysis = period_run::analyse(&model, s, readings, left_out);
             match of_period(&model, s, &analysis, &request) {
                 Ok(v) => values.push(v),
                 Err(ResultsError::NotReconciled(_)) => failed.push(rfc3339(s)),

@@ -7,22 +7,35 @@ use reconcile::ModelSpec;
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
 
+use super::out_of_service::{self, Loss, Losses};
 use super::{rfc3339, ResultsError};
-use crate::health::{self, Health, MeterPeriod, CUSUM_K, CUSUM_SUSPECT, CUSUM_WATCH};
+use crate::health::{self, Health, MeterPeriod, Status, CUSUM_K, CUSUM_SUSPECT, CUSUM_WATCH};
+use crate::out_of_service::{covering, Interval};
 use crate::revisions::{in_effect, RevisionError};
 use crate::service::Service;
-use crate::store::{MeterNote, NoteKind, PlantRow};
+use crate::store::{MeterNote, NoteDraft, NoteKind, NoteOutcome, PlantRow};
 
 /// A note as answered.
 #[derive(Debug, Serialize, ToSchema)]
 pub struct NoteBody {
     pub id: i64,
     pub tag: String,
-    /// checked, recalibrated or replaced.
+    /// checked, recalibrated, replaced, out_of_service or back_in_service.
     pub kind: String,
     pub text: String,
     pub effective_at: String,
     pub created_at: String,
+    /// The error the technician measured before recalibrating, in the meter's uom (positive:
+    /// read high); only on a recalibrated note that gave one.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub as_found: Option<f64>,
+    /// loopbal's pooled bias estimate of the meter just before a recalibrated note (as the
+    /// meter list showed it then) and its σ, in the meter's uom, to compare with `as_found`;
+    /// only in a meter's own notes, and absent without a testable period before the note.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub estimated_bias: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub estimated_bias_sigma: Option<f64>,
 }
 
 impl From<&MeterNote> for NoteBody {
@@ -34,6 +47,9 @@ impl From<&MeterNote> for NoteBody {
             text: n.text.clone(),
             effective_at: rfc3339(n.effective_at),
             created_at: rfc3339(n.created_at),
+            as_found: n.as_found,
+            estimated_bias: None,
+            estimated_bias_sigma: None,
         }
     }
 }
@@ -55,6 +71,40 @@ pub struct MeterHealth {
     pub history_since: Option<String>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub last_note: Option<NoteBody>,
+    /// When a technician's note took the meter out of service (RFC 3339); null while it is in
+    /// service.
+    pub out_of_service_since: Option<String>,
+    /// That note's text.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub out_of_service_note: Option<String>,
+    /// While out of service: the loop figures whose σ grows by more than 1 % without the
+    /// meter, or that it leaves undetermined (`sigma_if_lost` null).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub loses: Option<Vec<Loss>>,
+    /// The flows, extents and split fractions the meter set cannot determine without it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub unobservable_if_lost: Option<Vec<String>>,
+    /// The period whose estimate `loses` is judged on: the last before the interval in which
+    /// the meter was in service with a value.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub loses_judged_on: Option<String>,
+}
+
+impl MeterHealth {
+    /// Mark the meter out of service in `interval`, with what the loop loses meanwhile.
+    fn out_of_service(&mut self, interval: &Interval, losses: Losses) {
+        self.health.status = Status::OutOfService;
+        self.health.reason = format!(
+            "{}; its readings are kept and shown but not used; {}",
+            interval.reason(),
+            out_of_service::sentence(&losses)
+        );
+        self.out_of_service_since = Some(rfc3339(interval.since));
+        self.out_of_service_note = Some(interval.text.clone());
+        self.loses = Some(losses.figures);
+        self.unobservable_if_lost = Some(losses.unobservable);
+        self.loses_judged_on = losses.from_period.map(rfc3339);
+    }
 }
 
 #[derive(Debug, Serialize, ToSchema)]
@@ -62,8 +112,8 @@ pub struct MeterList {
     pub plant: String,
     /// The statistic and its thresholds, for the reader.
     pub method: String,
-    /// Worst first: suspect, frozen, out of range, watch, missing, untestable, ok; by
-    /// statistic within a status.
+    /// Worst first: suspect, frozen, out of range, watch, out of service, missing, untestable,
+    /// ok; by statistic within a status.
     pub meters: Vec<MeterHealth>,
 }
 
@@ -127,8 +177,10 @@ fn common_evidence(
 }
 
 /// Every meter of the model in effect at `now`, worst first: suspect, frozen, out of range,
-/// watch, missing, untestable, ok; by statistic within a status. A meter suspect together
-/// with another it cannot be told apart from is named with it (see [`health::attribute`]).
+/// watch, out of service, missing, untestable, ok; by statistic within a status. A meter
+/// suspect together with another it cannot be told apart from is named with it (see
+/// [`health::attribute`]); a meter a note took out of service at `now` is `out_of_service`,
+/// with what the loop loses meanwhile (see [`out_of_service::losses`]).
 pub async fn ranking(
     service: &Service,
     plant: &PlantRow,
@@ -197,9 +249,21 @@ pub async fn ranking(
                     .rev()
                     .find(|n| n.tag == m.tag)
                     .map(NoteBody::from),
+                out_of_service_since: None,
+                out_of_service_note: None,
+                loses: None,
+                unobservable_if_lost: None,
+                loses_judged_on: None,
             }
         })
         .collect();
+    let intervals = crate::out_of_service::intervals(&notes);
+    for meter in meters.iter_mut() {
+        if let Some(interval) = covering(&intervals, &meter.tag, now) {
+            let losses = out_of_service::losses(service, plant, &intervals, interval).await?;
+            meter.out_of_service(interval, losses);
+        }
+    }
     meters.sort_by(|a, b| {
         a.health
             .status
@@ -267,13 +331,21 @@ pub async fn detail(
     };
     let notes = service.store.notes(plant, Some(tag)).await?;
     let since = resets(&notes, tag).unwrap_or(DateTime::<Utc>::MIN_UTC);
+    // The whole record: the history is the part since the last reset, and each recalibrated
+    // note's bias estimate is of the part before it.
     let record = service
         .store
-        .meter_periods(plant, Some(tag), since, DateTime::<Utc>::MAX_UTC)
+        .meter_periods(
+            plant,
+            Some(tag),
+            DateTime::<Utc>::MIN_UTC,
+            DateTime::<Utc>::MAX_UTC,
+        )
         .await?;
     let (mut hi, mut lo) = (0.0f64, 0.0f64);
     let history = record
         .iter()
+        .filter(|(_, p)| p.period_start >= since)
         .map(|(_, p)| {
             if let Some(d) = p.normalized.filter(|d| d.is_finite() && p.redundant) {
                 hi = (hi - d - CUSUM_K).max(0.0);
@@ -309,29 +381,111 @@ pub async fn detail(
         meter,
         method: METHOD.to_string(),
         history,
-        notes: notes.iter().map(NoteBody::from).collect(),
+        notes: note_bodies(&notes, &record),
     })
+}
+
+/// A meter's notes as answered, each recalibrated one with loopbal's own bias estimate just
+/// before it beside the technician's `as_found`.
+fn note_bodies(notes: &[MeterNote], record: &[(String, MeterPeriod)]) -> Vec<NoteBody> {
+    notes
+        .iter()
+        .map(|n| {
+            let mut body = NoteBody::from(n);
+            if n.kind == NoteKind::Recalibrated {
+                let bias = bias_before(notes, record, n.effective_at);
+                body.estimated_bias = bias.map(|b| b.0);
+                body.estimated_bias_sigma = bias.map(|b| b.1);
+            }
+            body
+        })
+        .collect()
+}
+
+/// The pooled bias ± σ the meter list showed for the meter just before `at`: its health over
+/// the periods from the reset before `at` (or the first record) to `at`.
+fn bias_before(
+    notes: &[MeterNote],
+    record: &[(String, MeterPeriod)],
+    at: DateTime<Utc>,
+) -> Option<(f64, f64)> {
+    let from = notes
+        .iter()
+        .filter(|n| n.kind.resets() && n.effective_at < at)
+        .map(|n| n.effective_at)
+        .max();
+    let before: Vec<MeterPeriod> = record
+        .iter()
+        .map(|(_, p)| p)
+        .filter(|p| from.is_none_or(|f| p.period_start >= f) && p.period_start < at)
+        .cloned()
+        .collect();
+    let health = health::assess(&before);
+    Some((health.bias?, health.bias_sigma?))
 }
 
 /// A technician's note.
 #[derive(Debug, Deserialize, ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct NewNote {
-    /// checked, recalibrated or replaced; the last two start a fresh history.
+    /// checked, recalibrated, replaced, out_of_service or back_in_service; recalibrated and
+    /// replaced start a fresh history, out_of_service takes the meter out of the estimate
+    /// until back_in_service.
     pub kind: String,
     /// What was found or done.
     #[serde(default)]
     pub text: String,
     /// When it was done (RFC 3339); now when absent.
     pub effective_at: Option<String>,
+    /// On a recalibrated note only: the error measured before recalibrating, in the meter's
+    /// uom (positive: read high).
+    pub as_found: Option<f64>,
 }
 
 /// Longest note text accepted.
 const MAX_NOTE_CHARS: usize = 4000;
 
+/// The kinds in a sentence: `a, b, c, d, e`.
+fn kinds() -> String {
+    NoteKind::ALL.map(NoteKind::as_str).join(", ")
+}
+
+/// The note's own fields checked: its kind, `as_found` (finite, on a recalibrated note only)
+/// and text.
+fn checked_fields(note: &NewNote) -> Result<NoteKind, ResultsError> {
+    let refused = |s: String| Err(ResultsError::Refused(s));
+    let Some(kind) = NoteKind::parse(note.kind.trim()) else {
+        return refused(format!("kind \"{}\" is not one of {}", note.kind, kinds()));
+    };
+    if let Some(v) = note.as_found {
+        if kind != NoteKind::Recalibrated {
+            return refused(format!(
+                "as_found is the error found before a recalibration; a {} note may not carry \
+                 one",
+                kind.as_str()
+            ));
+        }
+        if !v.is_finite() {
+            return refused(format!("as_found {v} is not a finite number"));
+        }
+    }
+    if note.text.chars().count() > MAX_NOTE_CHARS {
+        return refused(format!("text is longer than {MAX_NOTE_CHARS} characters"));
+    }
+    // No store keeps it: PostgreSQL's text refuses the character.
+    if note.text.contains('\0') {
+        return refused("text holds the character U+0000, which a note may not hold".into());
+    }
+    Ok(kind)
+}
+
 /// Record a technician's note on a meter of any of the plant's revisions; `effective_at`
-/// defaults to `now`. Refused, naming the field, when the kind is unknown, the time is not
-/// RFC 3339, or the text is too long or holds U+0000 (which no store keeps).
+/// defaults to `now`. Refused, naming the field, when the kind is unknown, `as_found` is on
+/// another kind than recalibrated or not finite, the time is not RFC 3339, the text is too
+/// long or holds U+0000, or an out_of_service / back_in_service note does not pair with the
+/// meter's notes (see [`crate::out_of_service::check`]); nothing is then stored. A note that
+/// takes the meter out of service or brings it back marks the periods already run from its
+/// time on to run again, and wakes the scheduler.
 pub async fn add_note(
     service: &Service,
     plant: &PlantRow,
@@ -340,20 +494,7 @@ pub async fn add_note(
     token_id: Option<i64>,
     now: DateTime<Utc>,
 ) -> Result<NoteBody, ResultsError> {
-    let refused = |s: String| Err(ResultsError::Refused(s));
-    let Some(kind) = NoteKind::parse(note.kind.trim()) else {
-        return refused(format!(
-            "kind \"{}\" is not one of checked, recalibrated, replaced",
-            note.kind
-        ));
-    };
-    if note.text.chars().count() > MAX_NOTE_CHARS {
-        return refused(format!("text is longer than {MAX_NOTE_CHARS} characters"));
-    }
-    // No store keeps it: PostgreSQL's text refuses the character.
-    if note.text.contains('\0') {
-        return refused("text holds the character U+0000, which a note may not hold".into());
-    }
+    let kind = checked_fields(note)?;
     let effective_at = match note.effective_at.as_deref() {
         Some(t) => super::range::parse_time("effective_at", t)?,
         None => now,
@@ -368,9 +509,22 @@ pub async fn add_note(
             plant.name
         )));
     }
-    let stored = service
-        .store
-        .add_note(plant, tag, kind, &note.text, effective_at, token_id)
-        .await?;
-    Ok(NoteBody::from(&stored))
+    let draft = NoteDraft {
+        tag,
+        kind,
+        text: &note.text,
+        effective_at,
+        as_found: note.as_found,
+        token_id,
+    };
+    let check = |notes: &[MeterNote]| crate::out_of_service::check(notes, tag, kind, effective_at);
+    match service.store.add_note(plant, &draft, &check).await? {
+        NoteOutcome::Refused(why) => Err(ResultsError::Refused(why)),
+        NoteOutcome::Stored { note, marked } => {
+            if marked > 0 {
+                service.wake.notify_one();
+            }
+            Ok(NoteBody::from(&note))
+        }
+    }
 }

@@ -8,6 +8,7 @@ pub mod balances;
 pub mod figures;
 pub mod meter_value;
 pub mod meters;
+pub mod out_of_service;
 pub mod periods;
 pub mod range;
 pub mod rerun;

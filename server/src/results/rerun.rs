@@ -8,13 +8,20 @@ use chrono::{DateTime, Utc};
 use reconcile::Plant;
 
 use super::{rfc3339, PeriodRange, ResultsError};
+use crate::out_of_service;
 use crate::period_run::PeriodReading;
+use reconcile::LeftOut;
+
+/// A stored period to reconcile again: its start, its readings, the meters out of service.
+pub type StoredPeriod = (DateTime<Utc>, Vec<PeriodReading>, Vec<LeftOut>);
 use crate::service::Service;
 use crate::store::PlantRow;
 
 /// The stored readings of the period containing `start`, or of every period of `start..to`
-/// (at most `limit` of them), all of one model revision, with that model. Periods with no
-/// readings are left out; none at all is `NotFound`. `what` names the answer in refusals.
+/// (at most `limit` of them), all of one model revision, with that model, and the meters out
+/// of service in each period (left out of its estimate, as the period run leaves them).
+/// Periods with no readings are left out; none at all is `NotFound`. `what` names the answer
+/// in refusals.
 pub async fn stored_periods(
     service: &Service,
     plant: &PlantRow,
@@ -22,7 +29,7 @@ pub async fn stored_periods(
     to: Option<DateTime<Utc>>,
     limit: usize,
     what: &str,
-) -> Result<(Arc<Plant>, Vec<(DateTime<Utc>, Vec<PeriodReading>)>), ResultsError> {
+) -> Result<(Arc<Plant>, Vec<StoredPeriod>), ResultsError> {
     // The plant's revisions once (each validated once per process), not a lookup per period.
     let models = service.models(plant).await?;
     let (model, revision) = models.at(start)?;
@@ -39,6 +46,7 @@ pub async fn stored_periods(
             range.starts
         }
     };
+    let intervals = service.out_of_service(plant).await?;
     let mut periods = Vec::with_capacity(starts.len());
     for &s in &starts {
         let (_, rev) = models.at(s)?;
@@ -53,7 +61,8 @@ pub async fn stored_periods(
             .period_readings(plant, s, model.period_seconds)
             .await?;
         if !readings.is_empty() {
-            periods.push((s, readings));
+            let left_out = out_of_service::left_out(&model, &intervals, s);
+            periods.push((s, readings, left_out));
         }
     }
     if periods.is_empty() {

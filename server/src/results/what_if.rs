@@ -1,5 +1,6 @@
 //! The what-if of a stored period, or of a range of them: the stored readings reconciled again
-//! (rerun.rs), then the engine's what-if from that base case (docs/what-if.md).
+//! (rerun.rs: as the period run does, without the meters out of service then), then the
+//! engine's what-if from that base case (docs/what-if.md).
 
 use chrono::{DateTime, Utc};
 use reconcile::whatif::{self, Request, WhatIf};
@@ -38,7 +39,7 @@ pub async fn what_if(
     tokio::task::spawn_blocking(move || {
         let analyses: Vec<Analysis> = periods
             .into_iter()
-            .map(|(s, readings)| period_run::analyse(&model, s, readings))
+            .map(|(s, readings, left_out)| period_run::analyse(&model, s, readings, left_out))
             .collect();
         if single {
             whatif::what_if(&model, &analyses[0], &request)

@@ -1,7 +1,7 @@
-//! One period run against the store: the period's stored readings read, the pure run
-//! (`period_run`) on a blocking thread so requests keep flowing, and the report with its
-//! per-meter records stored in one transaction as the period's new current run (earlier runs
-//! stay as history).
+//! One period run against the store: the period's stored readings read, with the meters out of
+//! service at its start (from the technicians' notes), the pure run (`period_run`) on a
+//! blocking thread so requests keep flowing, and the report with its per-meter records stored
+//! in one transaction as the period's new current run (earlier runs stay as history).
 
 use std::sync::Arc;
 use std::time::Instant;
@@ -55,13 +55,14 @@ pub(super) async fn record_period(
     let readings = service
         .period_readings(plant, start, model.period_seconds)
         .await?;
+    let left_out = service.left_out(plant, &model, start).await?;
     let engine = |reason: String| RunError::Engine {
         plant: plant.name.clone(),
         period: start,
         reason,
     };
     let run = tokio::task::spawn_blocking(move || {
-        period_run::run_period(&model, revision, start, readings)
+        period_run::run_period(&model, revision, start, readings, left_out)
     })
     .await
     .map_err(|e| engine(e.to_string()))?;

@@ -53,11 +53,12 @@ mod tests;
 mod tokens;
 mod values;
 
+pub use meters::NoteCheck;
 pub use pg::PgStore;
 pub use readings::{outside, OutOfRange};
 pub use rows::{
-    Claim, Grant, IngestCounts, MeterNote, MeterRow, ModelRevision, NewRun, NewToken, NoteKind,
-    PlantRow, Role, RunRow, RunSummary, Settled, StoredReading,
+    Claim, Grant, IngestCounts, MeterNote, MeterRow, ModelRevision, NewRun, NewToken, NoteDraft,
+    NoteKind, NoteOutcome, PlantRow, Role, RunRow, RunSummary, Settled, StoredReading,
 };
 pub use sqlite::SqliteStore;
 

@@ -105,6 +105,29 @@ pub struct MeterNote {
     pub text: String,
     pub effective_at: DateTime<Utc>,
     pub created_at: DateTime<Utc>,
+    /// The error the technician measured before recalibrating, in the meter's uom (positive:
+    /// read high); only on a `recalibrated` note.
+    pub as_found: Option<f64>,
+}
+
+/// A note to record.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NoteDraft<'a> {
+    pub tag: &'a str,
+    pub kind: NoteKind,
+    pub text: &'a str,
+    pub effective_at: DateTime<Utc>,
+    pub as_found: Option<f64>,
+    pub token_id: Option<i64>,
+}
+
+/// What became of a note offered to [`Store::add_note`](super::Store::add_note).
+#[derive(Debug, Clone, PartialEq)]
+pub enum NoteOutcome {
+    /// Recorded, and this many periods already run marked to run again.
+    Stored { note: MeterNote, marked: u64 },
+    /// The check refused it against the tag's notes (the sentence says why); nothing stored.
+    Refused(String),
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -112,24 +135,32 @@ pub enum NoteKind {
     Checked,
     Recalibrated,
     Replaced,
+    OutOfService,
+    BackInService,
 }
 
 impl NoteKind {
+    /// Every kind, in the order the API lists them.
+    pub const ALL: [NoteKind; 5] = [
+        NoteKind::Checked,
+        NoteKind::Recalibrated,
+        NoteKind::Replaced,
+        NoteKind::OutOfService,
+        NoteKind::BackInService,
+    ];
+
     pub fn as_str(self) -> &'static str {
         match self {
             NoteKind::Checked => "checked",
             NoteKind::Recalibrated => "recalibrated",
             NoteKind::Replaced => "replaced",
+            NoteKind::OutOfService => "out_of_service",
+            NoteKind::BackInService => "back_in_service",
         }
     }
 
     pub fn parse(text: &str) -> Option<NoteKind> {
-        match text {
-            "checked" => Some(NoteKind::Checked),
-            "recalibrated" => Some(NoteKind::Recalibrated),
-            "replaced" => Some(NoteKind::Replaced),
-            _ => None,
-        }
+        NoteKind::ALL.into_iter().find(|k| k.as_str() == text)
     }
 
     /// Does this note start a fresh history?
@@ -390,7 +421,7 @@ pub(super) fn meter_period<R: StoreRow>(r: &R) -> Result<(String, MeterPeriod)> 
     ))
 }
 
-/// `id, tag, kind, text, effective_at, created_at` of `meter_notes`.
+/// `id, tag, kind, text, effective_at, created_at, as_found` of `meter_notes`.
 pub(super) fn note<R: StoreRow>(r: &R) -> Result<MeterNote> {
     Ok(MeterNote {
         id: r.read("id")?,
@@ -399,5 +430,6 @@ pub(super) fn note<R: StoreRow>(r: &R) -> Result<MeterNote> {
         text: r.read("text")?,
         effective_at: r.instant("effective_at")?,
         created_at: r.instant("created_at")?,
+        as_found: r.read("as_found")?,
     })
 }

@@ -133,11 +133,20 @@ macro_rules! on_both_backends {
 
 // One module per group of tables (after the macro, which they use).
 mod claims;
+mod notes;
 mod plants;
 mod readings;
 mod runs;
 mod tokens;
 mod values;
+
+/// The note of an outcome that stored it (asserted).
+fn stored(outcome: NoteOutcome) -> MeterNote {
+    match outcome {
+        NoteOutcome::Stored { note, .. } => note,
+        NoteOutcome::Refused(why) => panic!("note refused: {why}"),
+    }
+}
 
 /// Run `sql` (with `id` bound as its first parameter, when given) on the store's own pool,
 /// for what the store's methods never do. `$1` is a parameter in both dialects.
@@ -170,7 +179,8 @@ fn the_two_schemas_have_the_same_migrations() {
         [
             (1, "init".to_string()),
             (2, "meter health".to_string()),
-            (3, "period claims".to_string())
+            (3, "period claims".to_string()),
+            (4, "out of service notes".to_string())
         ]
     );
 }

@@ -204,28 +204,40 @@ async fn listings_reports_meter_records_and_notes(db: Scratch) {
         .create_token(Role::Maintain, Some("west"))
         .await
         .unwrap();
-    let late = store
-        .add_note(
-            &plant,
-            "FT-1",
-            NoteKind::Replaced,
-            "new transmitter",
-            t(six),
-            Some(token.id),
-        )
-        .await
-        .unwrap();
-    let early = store
-        .add_note(
-            &plant,
-            "FT-2",
-            NoteKind::Checked,
-            "zero checked",
-            t(five),
-            None,
-        )
-        .await
-        .unwrap();
+    let late = stored(
+        store
+            .add_note(
+                &plant,
+                &NoteDraft {
+                    tag: "FT-1",
+                    kind: NoteKind::Replaced,
+                    text: "new transmitter",
+                    effective_at: t(six),
+                    as_found: None,
+                    token_id: Some(token.id),
+                },
+                &|_| Ok(None),
+            )
+            .await
+            .unwrap(),
+    );
+    let early = stored(
+        store
+            .add_note(
+                &plant,
+                &NoteDraft {
+                    tag: "FT-2",
+                    kind: NoteKind::Checked,
+                    text: "zero checked",
+                    effective_at: t(five),
+                    as_found: None,
+                    token_id: None,
+                },
+                &|_| Ok(None),
+            )
+            .await
+            .unwrap(),
+    );
     assert_eq!(
         store.notes(&plant, None).await.unwrap(),
         [early, late.clone()]

@@ -120,6 +120,7 @@ async fn rows_written_alike_decode_alike(db: Scratch) {
             text: "zero set".into(),
             effective_at: t("1970-01-01T00:00:00Z"),
             created_at: t("1970-01-01T00:00:00.001Z"),
+            as_found: None,
         }]
     );
 }
