@@ -255,31 +255,40 @@ async fn the_cli_and_the_service_give_equal_reports_on_the_same_readings() {
     }
 }
 
-/// `loopbal what-if` on the readings file, JSON.
-fn cli_what_if(dir: &std::path::Path, model: &str, csv: &str, args: &[&str]) -> Value {
+/// `loopbal COMMAND` (`what-if`, `meter-value`) on the model and readings written as files,
+/// its JSON answer.
+fn cli_json(dir: &std::path::Path, command: &str, model: &str, csv: &str, args: &[&str]) -> Value {
     let model_path = dir.join("purge-design.toml");
     std::fs::write(&model_path, model).expect("write the model");
-    let readings_path = dir.join("what-if-readings.csv");
+    let readings_path = dir.join(format!("{command}-readings.csv"));
     std::fs::write(&readings_path, csv).expect("write the readings");
     let out = Command::new(BIN)
-        .arg("what-if")
+        .arg(command)
         .arg("--model")
         .arg(&model_path)
         .arg("--readings")
         .arg(&readings_path)
         .args(args)
         .output()
-        .expect("run loopbal what-if");
+        .unwrap_or_else(|e| panic!("run loopbal {command}: {e}"));
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert_eq!(out.status.code(), Some(0), "{stderr}");
-    serde_json::from_slice(&out.stdout).expect("a what-if as JSON")
+    serde_json::from_slice(&out.stdout).expect("a JSON answer")
 }
 
-#[tokio::test]
-async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
-    let dir = tempfile::tempdir().expect("temp dir");
+/// Three hours of the purge-design loop's readings, as a model and CSV, stored in a running
+/// service: the service, a client and a read token.
+async fn purge_design_served(
+    dir: &std::path::Path,
+) -> (
+    String,
+    String,
+    testkit::e2e::Server,
+    reqwest::Client,
+    String,
+) {
     let (model, csv) = purge_design_csv(3, &|_, _| false);
-    let db = dir.path().join("loopbal.sqlite");
+    let db = dir.join("loopbal.sqlite");
     let admin = token(&db, "admin", None);
     let ingest = token(&db, "ingest", None);
     let read = token(&db, "read", None);
@@ -296,6 +305,13 @@ async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
         .await
         .unwrap();
     assert_eq!(json_ok(r).await["rejected"], 0);
+    (model, csv, s, c, read)
+}
+
+#[tokio::test]
+async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (model, csv, s, c, read) = purge_design_served(dir.path()).await;
     let what_if = |body: Value| {
         c.post(s.url(&format!("/api/v1/plants/{PLANT}/what-if")))
             .bearer_auth(&read)
@@ -315,8 +331,9 @@ async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
         .unwrap(),
     )
     .await;
-    let cli = cli_what_if(
+    let cli = cli_json(
         dir.path(),
+        "what-if",
         &model,
         &csv,
         &[
@@ -357,8 +374,9 @@ async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
         .unwrap(),
     )
     .await;
-    let cli = cli_what_if(
+    let cli = cli_json(
         dir.path(),
+        "what-if",
         &model,
         &csv,
         &[
@@ -418,47 +436,10 @@ async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
     }
 }
 
-/// `loopbal meter-value` on the readings file, JSON.
-fn cli_meter_value(dir: &std::path::Path, model: &str, csv: &str, args: &[&str]) -> Value {
-    let model_path = dir.join("purge-design.toml");
-    std::fs::write(&model_path, model).expect("write the model");
-    let readings_path = dir.join("meter-value-readings.csv");
-    std::fs::write(&readings_path, csv).expect("write the readings");
-    let out = Command::new(BIN)
-        .arg("meter-value")
-        .arg("--model")
-        .arg(&model_path)
-        .arg("--readings")
-        .arg(&readings_path)
-        .args(args)
-        .output()
-        .expect("run loopbal meter-value");
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    assert_eq!(out.status.code(), Some(0), "{stderr}");
-    serde_json::from_slice(&out.stdout).expect("a meter value as JSON")
-}
-
 #[tokio::test]
 async fn the_cli_and_the_service_give_equal_meter_values_on_the_same_readings() {
     let dir = tempfile::tempdir().expect("temp dir");
-    let (model, csv) = purge_design_csv(3, &|_, _| false);
-    let db = dir.path().join("loopbal.sqlite");
-    let admin = token(&db, "admin", None);
-    let ingest = token(&db, "ingest", None);
-    let read = token(&db, "read", None);
-    let s = LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]);
-    let c = client();
-    let r = put_model(&c, &s, &admin, PLANT, &model, "application/toml").await;
-    assert_eq!(r.status(), StatusCode::CREATED);
-    let r = c
-        .post(s.url(&format!("/api/v1/plants/{PLANT}/readings")))
-        .bearer_auth(&ingest)
-        .header("content-type", "text/csv")
-        .body(csv.clone())
-        .send()
-        .await
-        .unwrap();
-    assert_eq!(json_ok(r).await["rejected"], 0);
+    let (model, csv, s, c, read) = purge_design_served(dir.path()).await;
     let value = |query: &str| {
         c.get(s.url(&format!("/api/v1/plants/{PLANT}/meter-value?{query}")))
             .bearer_auth(&read)
@@ -475,8 +456,9 @@ async fn the_cli_and_the_service_give_equal_meter_values_on_the_same_readings() 
         .unwrap(),
     )
     .await;
-    let cli = cli_meter_value(
+    let cli = cli_json(
         dir.path(),
+        "meter-value",
         &model,
         &csv,
         &[

@@ -2,15 +2,13 @@
 //! subset tried is at least as good as the greedy choice; and the chosen set's σ, by chained
 //! low-rank updates, is the σ of a fresh estimate with all of them in the model.
 
-use reconcile::equations::Layout;
+use reconcile::analyse_period;
 use reconcile::meter_value::{
     best_additions, candidate_worths, candidates, meter_worths, search_additions, Accuracies,
     Additions, Search, WeightedFigure,
 };
 use reconcile::report::Figure;
-use reconcile::{analyse_period, parse_plant};
-use testkit::plants::VANTLE;
-use testkit::{exact_values, period, vantle_true_state, VantleConditions};
+use testkit::period;
 
 use crate::{figure_of, same_sigma, with_candidate};
 
@@ -28,10 +26,7 @@ fn measure(goal: &[(WeightedFigure, Figure)], a: &Additions) -> (usize, f64) {
 
 #[test]
 fn the_best_additions_are_the_tables_best_and_no_worse_than_greedy_and_exact() {
-    let plant = parse_plant(VANTLE).unwrap();
-    let layout = Layout::new(&plant);
-    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
-    let values = exact_values(&plant, &layout, &z);
+    let (plant, z, values) = crate::vantle_exact();
     let base = analyse_period(&plant, &period(values.clone()));
     let est = base.estimate.as_ref().unwrap();
     let cands = candidates(&plant, est, &Accuracies::default());

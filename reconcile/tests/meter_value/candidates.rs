@@ -7,8 +7,8 @@ use reconcile::meter_value::{candidate_worths, candidates, Accuracies, Candidate
 use reconcile::model::Quantity;
 use reconcile::period::MeterValue;
 use reconcile::{analyse_period, parse_plant, Plant, Report};
-use testkit::plants::{PURGE_DESIGN, VANTLE};
-use testkit::{exact_values, period, vantle_true_state, VantleConditions};
+use testkit::plants::PURGE_DESIGN;
+use testkit::{exact_values, period};
 
 use crate::{figure_of, same_sigma, with_candidate, without};
 
@@ -131,10 +131,7 @@ fn check_every_candidate(
 
 #[test]
 fn every_candidate_on_the_vantle_loop_matches_a_fresh_estimate() {
-    let plant = parse_plant(VANTLE).unwrap();
-    let layout = Layout::new(&plant);
-    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
-    let values = exact_values(&plant, &layout, &z);
+    let (plant, z, values) = crate::vantle_exact();
     let a = analyse_period(&plant, &period(values.clone()));
     let cands = candidates(&plant, a.estimate.as_ref().unwrap(), &Accuracies::default());
     // Both kinds are offered.

@@ -47,23 +47,13 @@ uom = "kmol/h"
 sigma = 2.0
 "#;
 
-const METER_A: &str = r#"
-[[meter]]
-tag = "FI-A"
-stream = "a"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 1.5
-"#;
-
-const METER_B: &str = r#"
-[[meter]]
-tag = "FI-B"
-stream = "b"
-quantity = "molar_flow"
-uom = "kmol/h"
-sigma = 0.8
-"#;
+/// A molar flow meter in the model's TOML.
+fn flow_meter(tag: &str, stream: &str, sigma: f64) -> String {
+    format!(
+        "[[meter]]\ntag = \"{tag}\"\nstream = \"{stream}\"\nquantity = \"molar_flow\"\n\
+         uom = \"kmol/h\"\nsigma = {sigma}\n"
+    )
+}
 
 const FLOWS: [f64; 3] = [100.0, 60.0, 40.0];
 const SIGMA_F: f64 = 2.0;
@@ -80,10 +70,11 @@ const ABSOLUTE: Accuracies = Accuracies {
 /// The node with a meter on f, and on a and b as asked.
 fn plant(with_a: bool, with_b: bool) -> Plant {
     let mut model = SPLIT.to_string();
-    for (with, meter) in [(with_a, METER_A), (with_b, METER_B)] {
-        if with {
-            model.push_str(meter);
-        }
+    if with_a {
+        model.push_str(&flow_meter("FI-A", "a", SIGMA_A));
+    }
+    if with_b {
+        model.push_str(&flow_meter("FI-B", "b", SIGMA_B));
     }
     parse_plant(&model).unwrap()
 }

@@ -4,15 +4,13 @@
 //! test must flag it in the stated share (90 %), without it in the smaller share the old
 //! detectable bias predicts; both within four binomial standard deviations.
 
-use reconcile::equations::Layout;
 use reconcile::faults::REPORTED_POWER;
 use reconcile::meter_value::{candidate_worths, candidates, Accuracies};
 use reconcile::model::Sigma;
 use reconcile::stats::normal_quantile;
-use reconcile::{analyse_period, parse_plant, Plant};
+use reconcile::{analyse_period, Plant};
 use statrs::distribution::{ContinuousCDF, Normal};
-use testkit::plants::VANTLE;
-use testkit::{exact_values, noisy_values, period, vantle_true_state, VantleConditions};
+use testkit::{noisy_values, period};
 
 use crate::with_candidate;
 
@@ -56,10 +54,7 @@ fn flagged(
 
 #[test]
 fn the_new_smallest_detectable_bias_is_detected_at_the_stated_power() {
-    let plant = parse_plant(VANTLE).unwrap();
-    let layout = Layout::new(&plant);
-    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
-    let values = exact_values(&plant, &layout, &z);
+    let (plant, z, values) = crate::vantle_exact();
     let base = analyse_period(&plant, &period(values.clone()));
     let est = base.estimate.as_ref().unwrap();
     let cands = candidates(&plant, est, &Accuracies::default());

@@ -91,3 +91,13 @@ pub fn with_candidate(
     });
     (p, values)
 }
+
+/// The Vantle Cross loop at its true state: the plant, the state and every meter's exact
+/// reading.
+pub fn vantle_exact() -> (Plant, Vec<f64>, Vec<MeterValue>) {
+    let plant = reconcile::parse_plant(testkit::plants::VANTLE).unwrap();
+    let layout = Layout::new(&plant);
+    let z = testkit::vantle_true_state(&plant, &layout, &testkit::VantleConditions::default());
+    let values = testkit::exact_values(&plant, &layout, &z);
+    (plant, z, values)
+}
