@@ -13,6 +13,7 @@ mod access;
 mod lifecycle;
 mod models;
 mod notes;
+mod openapi;
 mod periods;
 mod problems;
 mod readings;

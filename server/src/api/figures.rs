@@ -17,10 +17,13 @@ use crate::results::figures::{self, FigureSeriesList};
 use crate::results::stored::{self, Part};
 
 #[derive(Debug, Deserialize, IntoParams)]
+#[into_params(parameter_in = Query)]
 pub struct FiguresQuery {
     /// Start of the range, RFC 3339 (the period containing it is the first).
+    #[param(format = DateTime)]
     from: String,
     /// End of the range, RFC 3339, exclusive.
+    #[param(format = DateTime)]
     to: String,
     /// Only the figures of this name (e.g. `purge_fraction`).
     name: Option<String>,

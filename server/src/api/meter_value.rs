@@ -20,10 +20,13 @@ use crate::results::range::parse_time;
 #[into_params(parameter_in = Query)]
 pub struct MeterValueQuery {
     /// The period containing this time, RFC 3339 (or give `from` and `to`).
+    #[param(format = DateTime)]
     period: Option<String>,
     /// Start of a range, RFC 3339: each of its periods is valued (at most 168).
+    #[param(format = DateTime)]
     from: Option<String>,
     /// End of the range, RFC 3339, exclusive.
+    #[param(format = DateTime)]
     to: Option<String>,
     /// `NAME:SUBJECT`: a loop figure as a report names it, or `molar_flow:STREAM`,
     /// `component_flow:STREAM:COMPONENT`, `split_fraction:STREAM`. Several, comma-separated,

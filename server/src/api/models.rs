@@ -21,9 +21,11 @@ use crate::revisions::admit::{self, ModelFormat};
 use crate::store::ModelRevision;
 
 #[derive(Debug, Deserialize, IntoParams)]
+#[into_params(parameter_in = Query)]
 pub struct PutModelQuery {
     /// When the revision takes effect (RFC 3339); now when absent. Periods starting at or
     /// after it are reconciled with it.
+    #[param(format = DateTime)]
     effective_from: Option<String>,
 }
 

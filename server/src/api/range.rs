@@ -10,10 +10,13 @@ use crate::results::PeriodRange;
 use crate::store::PlantRow;
 
 #[derive(Debug, Deserialize, IntoParams)]
+#[into_params(parameter_in = Query)]
 pub struct RangeQuery {
     /// Start of the range, RFC 3339 (the period containing it is the first).
+    #[param(format = DateTime)]
     pub from: String,
     /// End of the range, RFC 3339, exclusive.
+    #[param(format = DateTime)]
     pub to: String,
 }
 

@@ -80,10 +80,13 @@ pub async fn post_readings(
 const MAX_READINGS_PER_QUERY: usize = 200_000;
 
 #[derive(Debug, Deserialize, IntoParams)]
+#[into_params(parameter_in = Query)]
 pub struct ReadingsQuery {
     /// Start of the range, RFC 3339, inclusive.
+    #[param(format = DateTime)]
     from: String,
     /// End of the range, RFC 3339, exclusive.
+    #[param(format = DateTime)]
     to: String,
     /// Only this tag.
     tag: Option<String>,
