@@ -99,3 +99,57 @@ async fn bad_requests_get_problem_details_and_change_nothing() {
     let health = c.get(s.url("/healthz")).send().await.unwrap();
     assert_eq!(health.status(), StatusCode::OK);
 }
+
+/// A JSON body sent as something else is 415 on every JSON route, as on readings; two
+/// Authorization headers are refused, whichever comes first; nothing is stored.
+#[tokio::test]
+async fn a_json_body_without_its_content_type_is_415_and_two_tokens_are_refused() {
+    let (_dir, s, t) = fresh(&[]);
+    let c = client();
+    create_ombrask(&c, &s, &t.admin).await;
+    let notes = s.url(&format!("/api/v1/plants/{PLANT}/meters/OB2-FI-401/notes"));
+    let what_if = s.url(&format!("/api/v1/plants/{PLANT}/what-if"));
+    for (url, token, body) in [
+        (
+            &notes,
+            &t.maintain,
+            r#"{"kind": "checked", "text": "zero checked"}"#,
+        ),
+        (&what_if, &t.read, r#"{"period": "2026-03-02T05:00:00Z"}"#),
+    ] {
+        for ctype in [Some("text/plain"), None] {
+            let mut r = c.post(url.as_str()).bearer_auth(token).body(body);
+            if let Some(ct) = ctype {
+                r = r.header("content-type", ct);
+            }
+            let answer = problem(r.send().await.unwrap(), StatusCode::UNSUPPORTED_MEDIA_TYPE).await;
+            assert!(
+                answer["detail"]
+                    .as_str()
+                    .unwrap()
+                    .contains("application/json"),
+                "{url} {ctype:?}: {answer}"
+            );
+        }
+    }
+    let meter = get_ok(&c, &s, &t.read, "/meters/OB2-FI-401").await;
+    assert!(
+        meter["notes"].as_array().is_none_or(|n| n.is_empty()),
+        "{meter}"
+    );
+
+    for (first, second) in [(&t.read, &t.admin), (&t.admin, &t.read)] {
+        let r = c
+            .get(s.url(&format!("/api/v1/plants/{PLANT}/model")))
+            .header("authorization", format!("Bearer {first}"))
+            .header("authorization", format!("Bearer {second}"))
+            .send()
+            .await
+            .unwrap();
+        let answer = problem(r, StatusCode::BAD_REQUEST).await;
+        assert!(answer["detail"]
+            .as_str()
+            .unwrap()
+            .contains("more than one Authorization"));
+    }
+}

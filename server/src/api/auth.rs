@@ -41,7 +41,14 @@ impl FromRequestParts<AppState> for Caller {
     type Rejection = Problem;
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, Problem> {
-        let Some(value) = parts.headers.get(AUTHORIZATION) else {
+        let mut presented = parts.headers.get_all(AUTHORIZATION).iter();
+        let (value, another) = (presented.next(), presented.next());
+        if another.is_some() {
+            return Err(Problem::bad_request(
+                "the request has more than one Authorization header; send exactly one",
+            ));
+        }
+        let Some(value) = value else {
             return Err(Problem::unauthorized(
                 "this needs an API token: send the header \"Authorization: Bearer TOKEN\" \
                  (make one with `loopbal token create --role ROLE`)",

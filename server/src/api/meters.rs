@@ -75,6 +75,7 @@ pub async fn get_meter(
         (status = 403, description = "The token's role is not maintain, or it is for another plant", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such plant or meter", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body over the size limit", body = Problem, content_type = "application/problem+json"),
+        (status = 415, description = "Not sent as application/json", body = Problem, content_type = "application/problem+json"),
     ),
     security(("token" = []))
 )]
@@ -84,17 +85,13 @@ pub async fn post_note(
     Path((_, tag)): Path<(String, String)>,
     body: Result<Json<NewNote>, JsonRejection>,
 ) -> Result<(StatusCode, Json<NoteBody>), Problem> {
-    let Json(note) = body.map_err(|e| {
-        if e.status() == StatusCode::PAYLOAD_TOO_LARGE {
-            return super::too_large(state.limits.max_body_bytes);
-        }
-        Problem::bad_request(format!(
-            "a note is JSON {{\"kind\": \"checked|recalibrated|replaced|out_of_service|\
-             back_in_service\", \"text\": \"...\", \"effective_at\": \"RFC 3339\", \
-             \"as_found\": number (recalibrated only)}}: {}",
-            e.body_text()
-        ))
-    })?;
+    let note = super::json_body(
+        body,
+        &state.limits,
+        "a note is JSON {\"kind\": \"checked|recalibrated|replaced|out_of_service|\
+         back_in_service\", \"text\": \"...\", \"effective_at\": \"RFC 3339\", \
+         \"as_found\": number (recalibrated only)}",
+    )?;
     let token = Some(access.caller.0.token_id);
     let stored = meters::add_note(&state, &access.plant, &tag, &note, token, Utc::now()).await?;
     Ok((StatusCode::CREATED, Json(stored)))

@@ -362,6 +362,22 @@ pub(crate) fn too_large(limit: usize) -> Problem {
     )
 }
 
+/// A JSON body, or the problem of a body that is not one: 413 over the size limit, 415 without
+/// a JSON content type, else 400 with `shape` (what the body should be) and what was wrong.
+pub(crate) fn json_body<T>(
+    body: Result<axum::Json<T>, axum::extract::rejection::JsonRejection>,
+    limits: &Limits,
+    shape: &str,
+) -> Result<T, Problem> {
+    body.map(|axum::Json(t)| t).map_err(|e| match e.status() {
+        StatusCode::PAYLOAD_TOO_LARGE => too_large(limits.max_body_bytes),
+        StatusCode::UNSUPPORTED_MEDIA_TYPE => Problem::unsupported_media(format!(
+            "{shape}; send it with \"Content-Type: application/json\""
+        )),
+        _ => Problem::bad_request(format!("{shape}: {}", e.body_text())),
+    })
+}
+
 /// Plant names are path segments and file-system-safe: 1 to 64 of letters, digits, `.`, `_`
 /// and `-`, not starting with a dot.
 pub fn check_plant_name(name: &str) -> Result<(), Problem> {

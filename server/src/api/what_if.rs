@@ -5,7 +5,6 @@ use std::collections::BTreeMap;
 
 use axum::extract::rejection::JsonRejection;
 use axum::extract::State;
-use axum::http::StatusCode;
 use axum::Json;
 use reconcile::whatif::{Economics, InletLimit, ReactionHold, Request, Sweep, WhatIf};
 use serde::Deserialize;
@@ -131,6 +130,7 @@ impl WhatIfBody {
         (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such plant, or no readings in the base period", body = Problem, content_type = "application/problem+json"),
         (status = 409, description = "The plant has no model", body = Problem, content_type = "application/problem+json"),
+        (status = 415, description = "Not sent as application/json", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "The base case was not reconciled, leaves unobservable what the what-if needs, or cannot reach a target", body = Problem, content_type = "application/problem+json"),
     ),
     security(("token" = []))
@@ -140,16 +140,12 @@ pub async fn post_what_if(
     access: OnPlant<Read>,
     body: Result<Json<WhatIfBody>, JsonRejection>,
 ) -> Result<Json<WhatIf>, Problem> {
-    let Json(body) = body.map_err(|e| {
-        if e.status() == StatusCode::PAYLOAD_TOO_LARGE {
-            return super::too_large(state.limits.max_body_bytes);
-        }
-        Problem::bad_request(format!(
-            "a what-if is JSON {{\"period\": \"RFC 3339\", \"set\": {{NAME: VALUE}}, \
-             \"sweep\": {{\"name\", \"from\", \"to\", \"points\"}}}}: {}",
-            e.body_text()
-        ))
-    })?;
+    let body = super::json_body(
+        body,
+        &state.limits,
+        "a what-if is JSON {\"period\": \"RFC 3339\", \"set\": {NAME: VALUE}, \
+         \"sweep\": {\"name\", \"from\", \"to\", \"points\"}}",
+    )?;
     let start = parse_time("period", &body.period)?;
     let to = body
         .period_to
