@@ -245,7 +245,5 @@ pub enum RoleArg {
 }
 
 fn parse_time(text: &str) -> Result<DateTime<Utc>, String> {
-    DateTime::parse_from_rfc3339(text)
-        .map(|t| t.with_timezone(&Utc))
-        .map_err(|e| format!("not an RFC 3339 time such as 2026-03-02T05:00:00Z ({e})"))
+    crate::readings::instant(text)
 }

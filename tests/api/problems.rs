@@ -153,3 +153,72 @@ async fn a_json_body_without_its_content_type_is_415_and_two_tokens_are_refused(
             .contains("more than one Authorization"));
     }
 }
+
+/// Instants outside the supported years (0000 to 9998 in UTC) are refused at the door, each
+/// naming the parameter, so the service never writes an end of period past year 9999; nothing
+/// is stored.
+#[tokio::test]
+async fn instants_past_the_supported_years_are_refused_naming_the_parameter() {
+    let (_dir, s, t) = fresh(&[]);
+    let c = client();
+    create_ombrask(&c, &s, &t.admin).await;
+    let late = "9999-11-30T23:00:00Z";
+    let plant = format!("/api/v1/plants/{PLANT}");
+    for (path, name) in [
+        (
+            format!("{plant}/periods?from={late}&to=9999-12-31T00:00:00Z"),
+            "from",
+        ),
+        (
+            format!("{plant}/figures?from=2026-01-01T00:00:00Z&to={late}"),
+            "to",
+        ),
+        (
+            format!("{plant}/readings?from={late}&to=9999-12-31T00:00:00Z"),
+            "from",
+        ),
+        (format!("{plant}/periods/{late}"), "start"),
+    ] {
+        let r = c
+            .get(s.url(&path))
+            .bearer_auth(&t.read)
+            .send()
+            .await
+            .unwrap();
+        let answer = problem(r, StatusCode::BAD_REQUEST).await;
+        let detail = answer["detail"].as_str().unwrap();
+        assert!(
+            detail.contains(name) && detail.contains("9998"),
+            "{path}: {detail}"
+        );
+    }
+    let r = c
+        .post(s.url(&format!("{plant}/meters/OB2-FI-401/notes")))
+        .bearer_auth(&t.maintain)
+        .json(&json!({"kind": "checked", "text": "late", "effective_at": late}))
+        .send()
+        .await
+        .unwrap();
+    let answer = problem(r, StatusCode::BAD_REQUEST).await;
+    assert!(
+        answer["detail"].as_str().unwrap().contains("effective_at"),
+        "{answer}"
+    );
+    let r = c
+        .post(s.url(&format!("{plant}/what-if")))
+        .bearer_auth(&t.read)
+        .json(&json!({"period": late}))
+        .send()
+        .await
+        .unwrap();
+    let answer = problem(r, StatusCode::BAD_REQUEST).await;
+    assert!(
+        answer["detail"].as_str().unwrap().contains("period"),
+        "{answer}"
+    );
+    let meter = get_ok(&c, &s, &t.read, "/meters/OB2-FI-401").await;
+    assert!(
+        meter["notes"].as_array().is_none_or(|n| n.is_empty()),
+        "{meter}"
+    );
+}

@@ -78,7 +78,7 @@ fn bad_readings_exit_2_naming_the_line() {
     expect_bad(
         "year.csv",
         format!("{HEAD}WR-F2,9999-12-31T23:00:00-05:00,1,good\n"),
-        &["line 3: time \"9999-12-31T23:00:00-05:00\" is not RFC 3339 (outside the years"],
+        &["line 3: time \"9999-12-31T23:00:00-05:00\" is not RFC 3339 (outside the supported instants, the years"],
     );
     expect_bad(
         "no-header.csv",

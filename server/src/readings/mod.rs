@@ -12,6 +12,34 @@ use reconcile::{Plant, Quality, Reading};
 mod csv;
 mod json;
 
+/// The instants the service takes and writes: the years 0000 to 9998 in UTC and the instant
+/// that ends them (9999-01-01T00:00:00Z, an exclusive end), so that every instant it writes, a
+/// period's end included, has the four-digit year RFC 3339 requires.
+pub const SUPPORTED_YEARS: std::ops::RangeInclusive<i32> = 0..=9998;
+
+/// Is `t` among the supported instants?
+pub fn supported(t: DateTime<Utc>) -> bool {
+    let end = Utc.with_ymd_and_hms(SUPPORTED_YEARS.end() + 1, 1, 1, 0, 0, 0);
+    SUPPORTED_YEARS.contains(&t.year()) || end.single() == Some(t)
+}
+
+/// An RFC 3339 time among the supported instants, or why not.
+pub fn instant(text: &str) -> Result<DateTime<Utc>, String> {
+    let t = DateTime::parse_from_rfc3339(text.trim())
+        .map(|t| t.with_timezone(&Utc))
+        .map_err(|e| format!("not an RFC 3339 time such as 2026-03-02T05:00:00Z ({e})"))?;
+    if !supported(t) {
+        return Err(format!(
+            "outside the supported instants, the years {:04} to {:04} in UTC (to \
+             {:04}-01-01T00:00:00Z as an end)",
+            SUPPORTED_YEARS.start(),
+            SUPPORTED_YEARS.end(),
+            SUPPORTED_YEARS.end() + 1
+        ));
+    }
+    Ok(t)
+}
+
 /// Where a reading sits in its file: the physical CSV line (the header is line 1), or the
 /// index in the JSON `readings` array.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -231,10 +259,10 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
         match DateTime::parse_from_rfc3339(time_text) {
             // Reports print times as RFC 3339, which has four-digit years: an offset that
             // carries a time past 9999 in UTC could not be reported.
-            Ok(t) if !(0..=9998).contains(&t.with_timezone(&Utc).year()) => {
+            Ok(t) if !supported(t.with_timezone(&Utc)) => {
                 problems.push(Problem::BadTime {
                     text: time_text.to_string(),
-                    reason: "outside the years 0000 to 9998 in UTC".into(),
+                    reason: "outside the supported instants, the years 0000 to 9998 in UTC".into(),
                 });
                 None
             }
@@ -285,6 +313,27 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn the_supported_instants_end_where_rfc_3339_years_would_need_five_digits() {
+        assert!(super::instant("0000-01-01T00:00:00Z").is_ok());
+        assert!(super::instant("9998-12-31T23:59:59Z").is_ok());
+        assert!(
+            super::instant("9999-01-01T00:00:00Z").is_ok(),
+            "the end of the range"
+        );
+        assert!(super::instant("9999-01-01T00:00:01Z").is_err());
+        assert!(super::instant("9999-12-31T23:00:00Z")
+            .unwrap_err()
+            .contains("0000 to 9998"));
+        assert!(
+            super::instant("9998-12-31T23:30:00-02:00").is_err(),
+            "year 9999 in UTC"
+        );
+        assert!(super::instant("yesterday")
+            .unwrap_err()
+            .contains("RFC 3339"));
+    }
+
     use super::*;
 
     use crate::test_plants::{tee, FlowMeter};

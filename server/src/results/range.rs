@@ -15,15 +15,10 @@ pub fn rfc3339(t: DateTime<Utc>) -> String {
     t.to_rfc3339_opts(SecondsFormat::Secs, true)
 }
 
-/// An RFC 3339 time given as `name`, or a refusal naming it.
+/// An RFC 3339 time given as `name`, among the supported instants, or a refusal naming it.
 pub fn parse_time(name: &str, text: &str) -> Result<DateTime<Utc>, ResultsError> {
-    DateTime::parse_from_rfc3339(text.trim())
-        .map(|t| t.with_timezone(&Utc))
-        .map_err(|e| {
-            ResultsError::Refused(format!(
-                "{name} \"{text}\" is not an RFC 3339 time such as 2026-03-02T05:00:00Z ({e})"
-            ))
-        })
+    crate::readings::instant(text)
+        .map_err(|e| ResultsError::Refused(format!("{name} \"{text}\" is {e}")))
 }
 
 /// The periods of a range.
