@@ -1,12 +1,14 @@
 //! Readings and periods (docs/readings.md): a reading belongs to the UTC-aligned period that contains
-//! it; a meter's value for a period is the mean of its good and uncertain readings; bad
-//! readings are kept by the caller but not used.
+//! it; a meter's value for a period is the mean of its good and uncertain readings that pass
+//! the plausibility screen ([`crate::plausible`]); bad readings are kept by the caller but not
+//! used.
 
 use chrono::{DateTime, TimeZone, Utc};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
-use crate::model::Plant;
+use crate::model::{Meter, Plant};
+use crate::plausible::{self, Implausible, Screened};
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
 #[serde(rename_all = "snake_case")]
@@ -87,8 +89,18 @@ pub fn period_start(time: DateTime<Utc>, period_seconds: i64) -> DateTime<Utc> {
 }
 
 /// Group readings into the plant's periods, one input per period that has any reading (of any
-/// quality), in time order. Readings of tags the plant does not know are ignored.
+/// quality), in time order. Readings of tags the plant does not know are ignored; readings the
+/// plausibility screen refuses are left out of their meter's mean ([`prepare`] says which).
 pub fn group_readings(plant: &Plant, readings: &[Reading]) -> Vec<PeriodInput> {
+    prepare(plant, readings)
+        .into_iter()
+        .map(|(input, _)| input)
+        .collect()
+}
+
+/// [`group_readings`], with each period's readings that the plausibility screen left out, per
+/// meter.
+pub fn prepare(plant: &Plant, readings: &[Reading]) -> Vec<(PeriodInput, Vec<Screened>)> {
     let mut by_period: BTreeMap<i64, BTreeMap<usize, Vec<&Reading>>> = BTreeMap::new();
     for r in readings {
         let Some(meter) = plant.meter_index(&r.tag) else {
@@ -105,30 +117,24 @@ pub fn group_readings(plant: &Plant, readings: &[Reading]) -> Vec<PeriodInput> {
     by_period
         .into_iter()
         .map(|(start, meters)| {
+            let mut screened = Vec::new();
             let values = meters
                 .into_iter()
                 .filter_map(|(meter, rs)| {
-                    let used: Vec<&&Reading> =
-                        rs.iter().filter(|r| r.quality != Quality::Bad).collect();
-                    if used.is_empty() {
-                        return None;
-                    }
-                    let sum: f64 = used.iter().map(|r| r.value).sum();
-                    let (lo, hi) = used
-                        .iter()
-                        .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), r| {
-                            (lo.min(r.value), hi.max(r.value))
+                    let (used, refused) = usable(&plant.meters[meter], &rs);
+                    if let Some((first, why)) = refused.first().copied() {
+                        screened.push(Screened {
+                            meter,
+                            readings: refused.len(),
+                            first,
+                            why,
+                            all: used.is_empty(),
                         });
-                    Some(MeterValue {
-                        meter,
-                        value: sum / used.len() as f64,
-                        readings: used.len(),
-                        used_uncertain: used.iter().any(|r| r.quality == Quality::Uncertain),
-                        spread: hi - lo,
-                    })
+                    }
+                    mean(meter, &used)
                 })
                 .collect();
-            PeriodInput {
+            let input = PeriodInput {
                 start: Utc.timestamp_opt(start, 0).single().expect("in range"),
                 end: Utc
                     .timestamp_opt(start + plant.period_seconds, 0)
@@ -136,9 +142,47 @@ pub fn group_readings(plant: &Plant, readings: &[Reading]) -> Vec<PeriodInput> {
                     .expect("in range"),
                 values,
                 left_out: Vec::new(),
-            }
+            };
+            (input, screened)
         })
         .collect()
+}
+
+/// A meter's good and uncertain readings of one period, split into those its mean uses and
+/// those the plausibility screen refuses (value and why).
+fn usable<'a>(
+    meter: &Meter,
+    readings: &[&'a Reading],
+) -> (Vec<&'a Reading>, Vec<(f64, Implausible)>) {
+    let mut used = Vec::new();
+    let mut refused = Vec::new();
+    for r in readings.iter().filter(|r| r.quality != Quality::Bad) {
+        match plausible::screen(meter, r.value) {
+            None => used.push(*r),
+            Some(why) => refused.push((r.value, why)),
+        }
+    }
+    (used, refused)
+}
+
+/// The meter's value of the period: the mean of its usable readings, if it has any.
+fn mean(meter: usize, used: &[&Reading]) -> Option<MeterValue> {
+    if used.is_empty() {
+        return None;
+    }
+    let sum: f64 = used.iter().map(|r| r.value).sum();
+    let (lo, hi) = used
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), r| {
+            (lo.min(r.value), hi.max(r.value))
+        });
+    Some(MeterValue {
+        meter,
+        value: sum / used.len() as f64,
+        readings: used.len(),
+        used_uncertain: used.iter().any(|r| r.quality == Quality::Uncertain),
+        spread: hi - lo,
+    })
 }
 
 #[cfg(test)]

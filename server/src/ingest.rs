@@ -12,6 +12,8 @@ use reconcile::{Quality, Reading};
 use serde::Serialize;
 use utoipa::ToSchema;
 
+use reconcile::plausible::Kind;
+
 use crate::readings::{self, BadReading, Format, Place, Problem, ReadingsError};
 use crate::revisions::in_effect;
 use crate::store::{PlantRow, Store, StoreError};
@@ -19,8 +21,9 @@ use crate::store::{PlantRow, Store, StoreError};
 /// At most this many rejected lines are listed one by one; the count covers them all.
 pub const MAX_LISTED_REJECTIONS: usize = 10_000;
 
-/// Instrument ranges by tag, of one revision's meters.
-type Ranges = HashMap<String, [f64; 2]>;
+/// What the screens need of each meter of one revision (unit, quantity, instrument range), by
+/// tag.
+type Kinds = HashMap<String, Kind>;
 
 /// The meters a batch may name: every tag of every model revision of the plant (a reading
 /// outlives the revision it was taken under). A reading's instrument range is that of the
@@ -28,8 +31,8 @@ type Ranges = HashMap<String, [f64; 2]>;
 #[derive(Debug, Clone)]
 pub struct Catalogue {
     known: HashSet<String>,
-    /// (effective_from, revision, ranges of the revision's meters), in the order of [`in_effect`].
-    revisions: Vec<(DateTime<Utc>, i64, Ranges)>,
+    /// (effective_from, revision, kinds of the revision's meters), in the order of [`in_effect`].
+    revisions: Vec<(DateTime<Utc>, i64, Kinds)>,
     period_seconds: i64,
 }
 
@@ -59,13 +62,13 @@ impl Catalogue {
         let revisions = revisions
             .iter()
             .map(|r| {
-                let ranges = r
+                let kinds = r
                     .spec
                     .meters
                     .iter()
-                    .filter_map(|m| m.range.map(|range| (m.tag.clone(), range)))
+                    .filter_map(|m| Some((m.tag.clone(), Kind::of_spec(m)?)))
                     .collect();
-                (r.effective_from, r.revision, ranges)
+                (r.effective_from, r.revision, kinds)
             })
             .collect();
         Ok(Some(Catalogue {
@@ -79,13 +82,26 @@ impl Catalogue {
         self.known.contains(tag)
     }
 
-    /// Outside the range its meter has in the revision in effect at the reading's time.
-    pub fn out_of_range(&self, r: &Reading) -> bool {
+    /// The kind of the reading's meter in the revision in effect at the reading's time.
+    fn kind(&self, r: &Reading) -> Option<&Kind> {
         let keys: Vec<(DateTime<Utc>, i64)> =
             self.revisions.iter().map(|(t, n, _)| (*t, *n)).collect();
-        in_effect(&keys, r.time)
-            .and_then(|i| self.revisions[i].2.get(&r.tag))
-            .is_some_and(|[lo, hi]| !(*lo..=*hi).contains(&r.value))
+        in_effect(&keys, r.time).and_then(|i| self.revisions[i].2.get(&r.tag))
+    }
+
+    /// Outside the range its meter has in the revision in effect at the reading's time, or a
+    /// value no meter of its kind could give (the plausibility screen): the stored flag.
+    pub fn out_of_range(&self, r: &Reading) -> bool {
+        self.kind(r).is_some_and(|k| {
+            k.range
+                .is_some_and(|[lo, hi]| !(lo..=hi).contains(&r.value))
+                || k.screen(r.value).is_some()
+        })
+    }
+
+    /// A value no meter of its kind could give: stored and flagged, never averaged.
+    pub fn implausible(&self, r: &Reading) -> bool {
+        self.kind(r).is_some_and(|k| k.screen(r.value).is_some())
     }
 }
 
@@ -113,8 +129,13 @@ pub struct IngestAnswer {
     pub unchanged: usize,
     /// Lines refused; each is listed in `rejections` (up to 10,000).
     pub rejected: usize,
-    /// Stored readings outside their meter's instrument range: kept and flagged.
+    /// Stored readings outside their meter's instrument range: kept and flagged (the
+    /// implausible ones among them).
     pub out_of_range: usize,
+    /// Stored readings no meter of their kind could give (a flow past any plant's throughput,
+    /// a composition far outside 0 to 1, ten spans outside the instrument range): kept and
+    /// flagged, left out of every period's mean.
+    pub implausible: usize,
     /// Stored readings with quality `bad`: kept, not used in any balance.
     pub bad_quality: usize,
     pub rejections: Vec<Rejection>,
@@ -221,6 +242,11 @@ pub async fn store_batch(
         unchanged: counts.unchanged,
         rejected: checked.bad.len(),
         out_of_range: out_of_range.iter().filter(|&&f| f).count(),
+        implausible: checked
+            .good
+            .iter()
+            .filter(|r| catalogue.implausible(r))
+            .count(),
         bad_quality: checked
             .good
             .iter()

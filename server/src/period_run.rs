@@ -11,6 +11,7 @@
 use std::collections::{BTreeMap, HashMap};
 
 use chrono::{DateTime, TimeDelta, Utc};
+use reconcile::plausible::Screened;
 use reconcile::{Analysis, LeftOut, PeriodInput, Plant, Quality, Reading, Report};
 use serde::Serialize;
 
@@ -46,6 +47,19 @@ pub struct RunInputs {
     pub unsteady: Vec<String>,
     /// Meters left out of the estimate this period (out of service), with why.
     pub left_out: Vec<LeftOutInput>,
+    /// Meters with readings the plausibility screen left out of their mean.
+    pub implausible: Vec<ImplausibleInput>,
+}
+
+/// A meter's readings of one period that no meter of its kind could give, left out of its
+/// mean (they stay stored).
+#[derive(Debug, Clone, Serialize)]
+pub struct ImplausibleInput {
+    pub tag: String,
+    pub readings: usize,
+    /// The first of them, in the meter's uom.
+    pub first: f64,
+    pub reason: String,
 }
 
 /// A meter left out of a period's estimate, by tag.
@@ -86,18 +100,30 @@ pub fn run_period(
     left_out: Vec<LeftOut>,
 ) -> PeriodRun {
     let found = readings.len();
-    let screens = screens(&readings);
+    let screens = screens(plant, &readings);
     let mut readings: Vec<Reading> = readings.into_iter().map(|r| r.reading).collect();
     // A meter's mean is summed in time order whatever order the readings came in (a file as
     // written, the store by time), so both paths agree to the last bit.
     readings.sort_by(|a, b| a.time.cmp(&b.time).then_with(|| a.tag.cmp(&b.tag)));
-    let input = period_input(plant, &readings, start, left_out);
+    let (input, screened) = period_input(plant, &readings, start, left_out);
     let (unsteady, warnings) = steadiness(plant, &input);
     let analysis = reconcile::analyse_period(plant, &input);
     let correlations = correlations_by_tag(plant, &analysis);
     let mut report = analysis.report;
+    report
+        .warnings
+        .extend(implausible_warnings(plant, &screened));
     report.warnings.extend(warnings);
-    let inputs = run_inputs(plant, &input, revision, found, unsteady);
+    let mut inputs = run_inputs(plant, &input, revision, found, unsteady);
+    inputs.implausible = screened
+        .iter()
+        .map(|s| ImplausibleInput {
+            tag: plant.meters[s.meter].tag.clone(),
+            readings: s.readings,
+            first: s.first,
+            reason: s.why.to_string(),
+        })
+        .collect();
     let meters = meter_rows(&report, start, &screens, correlations);
     PeriodRun {
         report,
@@ -116,10 +142,14 @@ pub fn analyse(
 ) -> Analysis {
     let mut readings: Vec<Reading> = readings.into_iter().map(|r| r.reading).collect();
     readings.sort_by(|a, b| a.time.cmp(&b.time).then_with(|| a.tag.cmp(&b.tag)));
-    let input = period_input(plant, &readings, start, left_out);
+    let (input, screened) = period_input(plant, &readings, start, left_out);
     let (_, warnings) = steadiness(plant, &input);
     let mut analysis = reconcile::analyse_period(plant, &input);
-    analysis.report.warnings.extend(warnings);
+    let report = &mut analysis.report;
+    report
+        .warnings
+        .extend(implausible_warnings(plant, &screened));
+    report.warnings.extend(warnings);
     analysis
 }
 
@@ -141,44 +171,64 @@ pub fn by_period(
     periods
 }
 
-/// Outside the instrument range its meter has in `plant` (a meter without one has no outside).
+/// Outside the instrument range its meter has in `plant` (a meter without one has no outside),
+/// or a value no meter of its kind could give: the flag ingestion stores.
 pub fn out_of_range(plant: &Plant, reading: &Reading) -> bool {
-    plant
-        .meter_index(&reading.tag)
-        .and_then(|i| plant.meters[i].range)
-        .is_some_and(|[lo, hi]| !(lo..=hi).contains(&reading.value))
+    plant.meter_index(&reading.tag).is_some_and(|i| {
+        let meter = &plant.meters[i];
+        meter
+            .range
+            .is_some_and(|[lo, hi]| !(lo..=hi).contains(&reading.value))
+            || reconcile::plausible::screen(meter, reading.value).is_some()
+    })
 }
 
-/// Per tag: (bad readings, readings outside the instrument range), for the health screens.
-fn screens(readings: &[PeriodReading]) -> HashMap<String, (i64, i64)> {
+/// Per tag: (bad readings, readings outside the instrument range or implausible for their
+/// meter), for the health screens.
+fn screens(plant: &Plant, readings: &[PeriodReading]) -> HashMap<String, (i64, i64)> {
     let mut screens: HashMap<String, (i64, i64)> = HashMap::new();
     for r in readings {
+        let implausible = plant
+            .meter_index(&r.reading.tag)
+            .and_then(|i| reconcile::plausible::screen(&plant.meters[i], r.reading.value))
+            .is_some();
         let e = screens.entry(r.reading.tag.clone()).or_default();
         e.0 += i64::from(r.reading.quality == Quality::Bad);
-        e.1 += i64::from(r.out_of_range);
+        e.1 += i64::from(r.out_of_range || implausible);
     }
     screens
 }
 
-/// The period's input: each meter's mean of its good and uncertain readings, and the meters
-/// left out.
+/// The period's input: each meter's mean of its good and uncertain readings that pass the
+/// plausibility screen, and the meters left out; with the readings the screen refused.
 fn period_input(
     plant: &Plant,
     readings: &[Reading],
     start: DateTime<Utc>,
     left_out: Vec<LeftOut>,
-) -> PeriodInput {
-    let mut input = reconcile::group_readings(plant, readings)
+) -> (PeriodInput, Vec<Screened>) {
+    let (mut input, screened) = reconcile::prepare(plant, readings)
         .into_iter()
-        .find(|p| p.start == start)
-        .unwrap_or_else(|| PeriodInput {
-            start,
-            end: start + TimeDelta::seconds(plant.period_seconds),
-            values: Vec::new(),
-            left_out: Vec::new(),
+        .find(|(p, _)| p.start == start)
+        .unwrap_or_else(|| {
+            let empty = PeriodInput {
+                start,
+                end: start + TimeDelta::seconds(plant.period_seconds),
+                values: Vec::new(),
+                left_out: Vec::new(),
+            };
+            (empty, Vec::new())
         });
     input.left_out = left_out;
-    input
+    (input, screened)
+}
+
+/// One warning per meter with readings the plausibility screen refused.
+fn implausible_warnings<'a>(
+    plant: &'a Plant,
+    screened: &'a [Screened],
+) -> impl Iterator<Item = String> + 'a {
+    screened.iter().map(|s| s.warning(&plant.meters[s.meter]))
 }
 
 /// Tags whose readings within the period spread beyond the screen, with a warning for each.
@@ -252,6 +302,7 @@ fn run_inputs(
         missing,
         unsteady,
         left_out,
+        implausible: Vec::new(),
     }
 }
 
@@ -440,5 +491,59 @@ mod tests {
             serde_json::to_value(&reversed.report).unwrap(),
             serde_json::to_value(&run.report).unwrap()
         );
+    }
+
+    #[test]
+    fn one_meters_absurd_readings_cost_no_other_meter_its_period() {
+        let plant = plant();
+        // F-1's two absurd readings would overflow its mean (2 × 1.7e308 is past the largest
+        // double); F-2's single one would be a finite but absurd mean.
+        let readings = vec![
+            reading("F-1", 0, 100.0, Quality::Good),
+            reading("F-1", 20, 1.7e308, Quality::Good),
+            reading("F-1", 40, 1.7e308, Quality::Uncertain),
+            reading("F-2", 0, 100.6, Quality::Good),
+        ];
+        let run = run_period(&plant, 1, start(), readings.clone(), Vec::new());
+        assert_eq!(run.report.status, reconcile::ReportStatus::Solved);
+        let f1 = run.inputs.meters.iter().find(|m| m.tag == "F-1").unwrap();
+        assert_eq!(
+            (f1.value, f1.readings),
+            (100.0, 1),
+            "the mean of the others"
+        );
+        assert_eq!(run.inputs.implausible.len(), 1);
+        assert_eq!(run.inputs.implausible[0].tag, "F-1");
+        assert_eq!(run.inputs.implausible[0].readings, 2);
+        assert!(
+            run.report.warnings.iter().any(|w| w.starts_with(
+                "implausible: meter \"F-1\": 2 reading(s) left out of the period's mean"
+            )),
+            "{:?}",
+            run.report.warnings
+        );
+        let measured: Vec<_> = run
+            .report
+            .meters
+            .iter()
+            .filter_map(|m| m.measured)
+            .collect();
+        assert_eq!(measured, [100.0, 100.6]);
+        let health = &run.meters.iter().find(|(t, _)| t == "F-1").unwrap().1;
+        assert_eq!(
+            health.out_of_range_readings, 2,
+            "flagged for the technicians"
+        );
+
+        // A meter with only absurd readings has no value; the other is still reconciled.
+        let readings = vec![
+            reading("F-1", 0, 1e300, Quality::Good),
+            reading("F-2", 0, 100.6, Quality::Good),
+        ];
+        let run = run_period(&plant, 1, start(), readings, Vec::new());
+        assert_eq!(run.inputs.missing, ["F-1"]);
+        assert!(run.report.warnings[0].contains("the meter has no value this period"));
+        let f2 = run.report.meters.iter().find(|m| m.tag == "F-2").unwrap();
+        assert!((f2.reconciled.unwrap() - 100.6).abs() < 1e-9, "{f2:?}");
     }
 }

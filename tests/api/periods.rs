@@ -139,3 +139,59 @@ async fn closed_periods_are_reconciled_and_run_again_when_a_reading_changes() {
         .unwrap_or(0);
     assert!(solved >= 6, "{metrics}");
 }
+
+#[tokio::test]
+async fn an_absurd_reading_is_kept_flagged_and_costs_no_other_meter_its_period() {
+    let (_dir, s, t) = fresh(&["--run-grace", "0", "--run-tick", "1"]);
+    let c = client();
+    let plant = "purge-design";
+    let (model, csv) = purge_design_csv(2, &|_, _| false);
+    let r = put_model(&c, &s, &t.admin, plant, &model, "application/toml").await;
+    assert_eq!(r.status(), StatusCode::CREATED);
+    // A reading near the largest double, as a historian's transmission fault might send.
+    let csv = format!("{csv}FI-4,2026-06-01T00:30:00Z,1.7e308,good\n");
+    let answer = json_ok(post_readings(&c, &s, &t.ingest, plant, &csv, "text/csv").await).await;
+    assert_eq!(answer["rejected"], 0, "stored as sent: {answer}");
+    assert_eq!(
+        (
+            answer["implausible"].as_i64(),
+            answer["out_of_range"].as_i64()
+        ),
+        (Some(1), Some(1)),
+        "{answer}"
+    );
+    let (from, to) = ("2026-06-01T00:00:00Z", "2026-06-01T02:00:00Z");
+    let periods = wait_for_periods(&c, &s, &t.read, plant, from, to, |p| {
+        p.iter().all(|x| x["runs"] == 1 && x["rerun_due"] == false)
+    })
+    .await;
+    assert_eq!(periods[0]["status"], "solved", "{}", periods[0]);
+    let url = s.url(&format!("/api/v1/plants/{plant}/periods/{from}"));
+    let hour0 = json_ok(c.get(url).bearer_auth(&t.read).send().await.unwrap()).await;
+    let implausible = &hour0["inputs"]["implausible"];
+    assert_eq!(implausible[0]["tag"], "FI-4", "{implausible}");
+    assert_eq!(implausible[0]["readings"], 1);
+    let fi4 = hour0["report"]["meters"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|m| m["tag"] == "FI-4")
+        .unwrap();
+    assert!(fi4["measured"].as_f64().unwrap() < 1e4, "{fi4}");
+    assert!(hour0["report"]["warnings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|w| w
+            .as_str()
+            .unwrap()
+            .starts_with("implausible: meter \"FI-4\"")));
+    // The reading itself is kept as stored.
+    let url = s.url(&format!(
+        "/api/v1/plants/{plant}/readings?from={from}&to={to}&tag=FI-4"
+    ));
+    let stored = json_ok(c.get(url).bearer_auth(&t.read).send().await.unwrap()).await;
+    assert_eq!(stored["readings"][2]["value"], 1.7e308, "{stored}");
+    assert_eq!(stored["readings"][2]["out_of_range"], true, "flagged");
+    assert_eq!(stored["readings"][1]["out_of_range"], false);
+}

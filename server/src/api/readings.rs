@@ -101,7 +101,8 @@ pub struct StoredReadingBody {
     pub value: f64,
     /// good, uncertain or bad.
     pub quality: String,
-    /// Outside the meter's instrument range when it was stored.
+    /// Outside the meter's instrument range when it was stored, or a value no meter of its
+    /// kind could give (docs/readings.md, the plausibility screen).
     pub out_of_range: bool,
     /// When the service stored this value (RFC 3339, UTC).
     pub received_at: String,

@@ -98,7 +98,8 @@ const REQUEST_TIMEOUT_S: u64 = 8;
 /// Hostile model revisions take effect here: after everything the snapshot reads.
 const FUTURE: &str = "2999-01-01T00:00:00Z";
 const ALL_FROM: &str = "0000-01-01T00:00:00Z";
-const ALL_TO: &str = "9999-12-31T23:59:59Z";
+/// The end of the supported instants (docs/api.md, "Errors").
+const ALL_TO: &str = "9999-01-01T00:00:00Z";
 const SEED_VAR: &str = "LOOPBAL_HOSTILE_SEED";
 const DEFAULT_SEED: u64 = 20_260_302;
 /// Wall time one family may take before it stops drawing cases.

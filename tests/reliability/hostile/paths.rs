@@ -70,7 +70,12 @@ pub(crate) fn decoded_time(
     if text.contains('%') {
         return None;
     }
-    chrono::DateTime::parse_from_rfc3339(text.trim()).ok()
+    let t = chrono::DateTime::parse_from_rfc3339(text.trim()).ok()?;
+    // The supported instants (docs/api.md, "Errors"): the years 0000 to 9998 in UTC, and
+    // 9999-01-01T00:00:00Z as an end.
+    let utc = t.with_timezone(&chrono::Utc);
+    let year = chrono::Datelike::year(&utc);
+    ((0..=9998).contains(&year) || utc.to_rfc3339() == "9999-01-01T00:00:00+00:00").then_some(t)
 }
 
 /// Whether a path segment percent-decodes to UTF-8 (else the router's extractor refuses it).
