@@ -13,6 +13,7 @@ use crate::uom::Uom;
 pub const OUTSIDE: &str = "outside";
 
 /// A model file as written, before validation.
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct ModelSpec {
@@ -43,6 +44,7 @@ fn default_alpha() -> f64 {
     0.05
 }
 
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct ComponentSpec {
@@ -53,6 +55,7 @@ pub struct ComponentSpec {
     pub inert: bool,
 }
 
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq, Eq, Hash)]
 #[serde(rename_all = "snake_case")]
 pub enum UnitKind {
@@ -76,6 +79,7 @@ impl fmt::Display for UnitKind {
     }
 }
 
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct UnitSpec {
@@ -83,6 +87,7 @@ pub struct UnitSpec {
     pub kind: UnitKind,
 }
 
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct ReactionSpec {
@@ -98,6 +103,7 @@ pub struct ReactionSpec {
     pub irreversible: bool,
 }
 
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct StreamSpec {
@@ -109,6 +115,7 @@ pub struct StreamSpec {
     pub components: Option<Vec<String>>,
 }
 
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct MeterSpec {

@@ -13,6 +13,7 @@ pub const MOLAR_VOLUME_NORMAL: f64 = 22.413_969_54;
 pub const MOLAR_VOLUME_STANDARD: f64 = MOLAR_VOLUME_NORMAL * 288.15 / 273.15;
 
 /// What a meter measures; [`Uom::allowed_for`] gives the units each one accepts.
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq, Eq, Hash)]
 #[serde(rename_all = "snake_case")]
 pub enum Quantity {

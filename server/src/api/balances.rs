@@ -21,7 +21,7 @@ use crate::results::stored::{self, Part};
     get,
     path = "/api/v1/plants/{plant}/balances",
     tag = "results",
-    params(("plant" = String, Path, description = "Plant name"), RangeQuery),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), RangeQuery),
     responses(
         (status = 200, description = "Each period's stream flows, the coverage of the range and the totals over it", body = Balances),
         (status = 400, description = "A time is not RFC 3339, or from is not before to", body = Problem, content_type = "application/problem+json"),

@@ -78,7 +78,7 @@ fn wants_csv(format: Option<&str>, headers: &HeaderMap) -> Result<bool, Problem>
     get,
     path = "/api/v1/plants/{plant}/figures",
     tag = "results",
-    params(("plant" = String, Path, description = "Plant name"), FiguresQuery),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), FiguresQuery),
     responses(
         (status = 200, description = "One series per figure, one point per period (null where not computable). As CSV (`Accept: text/csv` or `format=csv`): header period_start,name,subject,uom,value,sigma, one row per point, empty cells for null", content(
             (FigureSeriesList = "application/json"),

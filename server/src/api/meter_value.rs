@@ -50,7 +50,7 @@ pub struct MeterValueQuery {
     get,
     path = "/api/v1/plants/{plant}/meter-value",
     tag = "results",
-    params(("plant" = String, Path, description = "Plant name"), MeterValueQuery),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), MeterValueQuery),
     responses(
         (status = 200, description = "For a period: the figure, the meters (best repair first), the candidates (best buy first), the accuracies and, with add_best, the best set; for a range: the same per period with the repairs and additions that came first. See docs/meter-value.md", body = Object),
         (status = 400, description = "A time not RFC 3339, neither period nor from and to, an unknown figure or subject (the detail lists those there are), or an accuracy or weight that is not positive", body = Problem, content_type = "application/problem+json"),

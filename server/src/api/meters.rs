@@ -17,7 +17,7 @@ use crate::results::meters::{self, MeterDetail, MeterList, NewNote, NoteBody};
     get,
     path = "/api/v1/plants/{plant}/meters",
     tag = "meters",
-    params(("plant" = String, Path, description = "Plant name")),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")),
     responses(
         (status = 200, description = "Every meter of the current model, ranked by evidence", body = MeterList),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
@@ -41,7 +41,7 @@ pub async fn list_meters(
     get,
     path = "/api/v1/plants/{plant}/meters/{tag}",
     tag = "meters",
-    params(("plant" = String, Path, description = "Plant name"), ("tag" = String, Path, description = "Meter tag")),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), ("tag" = String, Path, description = "Meter tag")),
     responses(
         (status = 200, description = "The meter's health, history and notes", body = MeterDetail),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
@@ -66,7 +66,7 @@ pub async fn get_meter(
     post,
     path = "/api/v1/plants/{plant}/meters/{tag}/notes",
     tag = "meters",
-    params(("plant" = String, Path, description = "Plant name"), ("tag" = String, Path, description = "Meter tag")),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), ("tag" = String, Path, description = "Meter tag")),
     request_body(content = NewNote, description = "The note", content_type = "application/json"),
     responses(
         (status = 201, description = "Recorded", body = NoteBody),

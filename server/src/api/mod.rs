@@ -132,6 +132,132 @@ impl Modify for BearerScheme {
     }
 }
 
+/// Links from an answer to the requests it leads to, so a client (or a stateful tester) can
+/// follow one answer to the next request: a stored model to its revisions, a meter list to
+/// one meter and its notes, a period listing to one period and its re-run.
+struct NextRequests;
+
+/// (path, method, status, link name, operation id, parameters as runtime expressions).
+type LinkSpec = (
+    &'static str,
+    &'static str,
+    &'static str,
+    &'static str,
+    &'static str,
+    &'static [(&'static str, &'static str)],
+);
+
+impl NextRequests {
+    /// (path, method, status, link name, operation id, parameters as runtime expressions).
+    const LINKS: &'static [LinkSpec] = &[
+        (
+            "/api/v1/plants/{plant}/model",
+            "put",
+            "201",
+            "the_model",
+            "get_model",
+            &[("plant", "$request.path.plant")],
+        ),
+        (
+            "/api/v1/plants/{plant}/model",
+            "put",
+            "201",
+            "its_revisions",
+            "list_revisions",
+            &[("plant", "$request.path.plant")],
+        ),
+        (
+            "/api/v1/plants/{plant}/model",
+            "get",
+            "200",
+            "its_revisions",
+            "list_revisions",
+            &[("plant", "$request.path.plant")],
+        ),
+        (
+            "/api/v1/plants/{plant}/meters",
+            "get",
+            "200",
+            "first_meter",
+            "get_meter",
+            &[
+                ("plant", "$request.path.plant"),
+                ("tag", "$response.body#/meters/0/tag"),
+            ],
+        ),
+        (
+            "/api/v1/plants/{plant}/meters",
+            "get",
+            "200",
+            "note_on_first_meter",
+            "post_note",
+            &[
+                ("plant", "$request.path.plant"),
+                ("tag", "$response.body#/meters/0/tag"),
+            ],
+        ),
+        (
+            "/api/v1/plants/{plant}/periods",
+            "get",
+            "200",
+            "first_period",
+            "get_period",
+            &[
+                ("plant", "$request.path.plant"),
+                ("start", "$response.body#/periods/0/start"),
+            ],
+        ),
+        (
+            "/api/v1/plants/{plant}/periods",
+            "get",
+            "200",
+            "rerun_first_period",
+            "rerun_period",
+            &[
+                ("plant", "$request.path.plant"),
+                ("start", "$response.body#/periods/0/start"),
+            ],
+        ),
+        (
+            "/api/v1/plants/{plant}/meters/{tag}",
+            "get",
+            "200",
+            "note_on_it",
+            "post_note",
+            &[
+                ("plant", "$request.path.plant"),
+                ("tag", "$request.path.tag"),
+            ],
+        ),
+    ];
+}
+
+impl NextRequests {
+    /// Add the links to the served document. (Written into the JSON: utoipa 5.5 serialises a
+    /// link's `operationId` as `operation_id`, which OpenAPI does not know.)
+    fn add_to(doc: &mut serde_json::Value) {
+        for (path, method, status, name, operation, parameters) in Self::LINKS {
+            let Some(response) = doc
+                .pointer_mut(&format!(
+                    "/paths/{}/{method}/responses/{status}",
+                    path.replace('~', "~0").replace('/', "~1")
+                ))
+                .and_then(|r| r.as_object_mut())
+            else {
+                continue;
+            };
+            let parameters: serde_json::Map<String, serde_json::Value> = parameters
+                .iter()
+                .map(|(k, v)| ((*k).to_string(), serde_json::Value::from(*v)))
+                .collect();
+            let links = response
+                .entry("links")
+                .or_insert_with(|| serde_json::json!({}));
+            links[*name] = serde_json::json!({"operationId": operation, "parameters": parameters});
+        }
+    }
+}
+
 /// The router and the OpenAPI document of every route it serves.
 pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
     let (routes, openapi) = OpenApiRouter::with_openapi(ApiDoc::openapi())
@@ -152,7 +278,9 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
         .routes(routes!(what_if::post_what_if))
         .routes(routes!(meter_value::get_meter_value))
         .split_for_parts();
-    let text = serde_json::to_string_pretty(&openapi).unwrap_or_default();
+    let mut doc = serde_json::to_value(&openapi).unwrap_or_default();
+    NextRequests::add_to(&mut doc);
+    let text = serde_json::to_string_pretty(&doc).unwrap_or_default();
     let _ = state.openapi.set(text);
     let limits = state.limits;
     let router = routes

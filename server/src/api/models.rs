@@ -76,8 +76,8 @@ fn summary(plant: &str, rev: &ModelRevision) -> RevisionSummary {
     put,
     path = "/api/v1/plants/{plant}/model",
     tag = "models",
-    params(("plant" = String, Path, description = "Plant name: letters, digits, '.', '_' or '-'"), PutModelQuery),
-    request_body(description = "The model file", content((String = "application/toml"), (Object = "application/json"))),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), PutModelQuery),
+    request_body(description = "The model file: TOML, or the same as JSON", content((String = "application/toml"), (reconcile::ModelSpec = "application/json"))),
     responses(
         (status = 201, description = "Stored as a new revision", body = RevisionSummary),
         (status = 400, description = "Malformed request (plant name, time, not UTF-8)", body = Problem, content_type = "application/problem+json"),
@@ -134,7 +134,7 @@ pub async fn put_model(
     get,
     path = "/api/v1/plants/{plant}/model",
     tag = "models",
-    params(("plant" = String, Path, description = "Plant name")),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")),
     responses(
         (status = 200, description = "The revision in effect now, with its model", body = RevisionBody),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
@@ -170,7 +170,7 @@ pub async fn get_model(
     get,
     path = "/api/v1/plants/{plant}/model/revisions",
     tag = "models",
-    params(("plant" = String, Path, description = "Plant name")),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")),
     responses(
         (status = 200, description = "The revisions, oldest first", body = [RevisionSummary]),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),

@@ -17,7 +17,7 @@ use crate::schedule;
     get,
     path = "/api/v1/plants/{plant}/periods",
     tag = "periods",
-    params(("plant" = String, Path, description = "Plant name"), RangeQuery),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), RangeQuery),
     responses(
         (status = 200, description = "Each period of the range, oldest first", body = PeriodList),
         (status = 400, description = "A time is not RFC 3339, or from is not before to", body = Problem, content_type = "application/problem+json"),
@@ -47,8 +47,8 @@ pub async fn list_periods(
     path = "/api/v1/plants/{plant}/periods/{start}",
     tag = "periods",
     params(
-        ("plant" = String, Path, description = "Plant name"),
-        ("start" = String, Path, description = "The period's start, RFC 3339 (e.g. 2026-03-02T05:00:00Z)"),
+        ("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"),
+        ("start" = String, Path, description = "The period's start, RFC 3339 (e.g. 2026-03-02T05:00:00Z)", format = DateTime),
     ),
     responses(
         (status = 200, description = "The current run with its report", body = PeriodRun),
@@ -74,8 +74,8 @@ pub async fn get_period(
     path = "/api/v1/plants/{plant}/periods/{start}/reconcile",
     tag = "periods",
     params(
-        ("plant" = String, Path, description = "Plant name"),
-        ("start" = String, Path, description = "The period's start, RFC 3339"),
+        ("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"),
+        ("start" = String, Path, description = "The period's start, RFC 3339", format = DateTime),
     ),
     responses(
         (status = 200, description = "The new current run with its report", body = PeriodRun),

@@ -17,6 +17,41 @@ use crate::ingest::IngestAnswer;
 use crate::readings::Format;
 use crate::results::range::parse_time;
 
+/// A batch of readings as JSON: the shape the document describes. The service reads the body
+/// line by line rather than through this type, so that a bad reading is refused on its own
+/// and named, and the good ones are stored.
+#[derive(Debug, Deserialize, ToSchema)]
+#[allow(dead_code)]
+pub struct ReadingsUpload {
+    pub readings: Vec<ReadingUpload>,
+}
+
+/// One reading of a JSON batch.
+#[derive(Debug, Deserialize, ToSchema)]
+#[allow(dead_code)]
+pub struct ReadingUpload {
+    /// The tag of a meter of the plant's model (of any revision).
+    pub tag: String,
+    /// RFC 3339 with an offset, years 0000 to 9998 in UTC.
+    #[schema(format = DateTime)]
+    pub time: String,
+    /// In the meter's own unit; finite.
+    pub value: f64,
+    /// Absent means good.
+    #[schema(nullable = false)]
+    pub quality: Option<QualityWord>,
+}
+
+/// How far the historian trusts a reading: bad readings are stored, never used.
+#[derive(Debug, Deserialize, ToSchema)]
+#[serde(rename_all = "snake_case")]
+#[allow(dead_code)]
+pub enum QualityWord {
+    Good,
+    Uncertain,
+    Bad,
+}
+
 /// Post a batch of readings.
 ///
 /// CSV (`text/csv`, header `tag,time,value[,quality]`) or JSON (`application/json`,
@@ -30,8 +65,8 @@ use crate::results::range::parse_time;
     post,
     path = "/api/v1/plants/{plant}/readings",
     tag = "readings",
-    params(("plant" = String, Path, description = "Plant name")),
-    request_body(description = "The batch", content((String = "text/csv"), (Object = "application/json"))),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")),
+    request_body(description = "The batch: CSV with a header naming tag, time, value and optionally quality, or JSON", content((String = "text/csv"), (ReadingsUpload = "application/json"))),
     responses(
         (status = 200, description = "The batch was read; counts and a reason per refused line", body = IngestAnswer),
         (status = 400, description = "The body has no readable structure (no CSV header, not JSON); nothing stored", body = Problem, content_type = "application/problem+json"),
@@ -126,7 +161,7 @@ fn rfc3339(t: DateTime<Utc>) -> String {
     get,
     path = "/api/v1/plants/{plant}/readings",
     tag = "readings",
-    params(("plant" = String, Path, description = "Plant name"), ReadingsQuery),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), ReadingsQuery),
     responses(
         (status = 200, description = "The readings of the range", body = ReadingsBody),
         (status = 400, description = "A time is not RFC 3339, or from is not before to", body = Problem, content_type = "application/problem+json"),

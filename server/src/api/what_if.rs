@@ -121,7 +121,7 @@ impl WhatIfBody {
     post,
     path = "/api/v1/plants/{plant}/what-if",
     tag = "results",
-    params(("plant" = String, Path, description = "Plant name")),
+    params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")),
     request_body(content = WhatIfBody, description = "The base period and the change", content_type = "application/json"),
     responses(
         (status = 200, description = "The base case, what was held, one point per setting (or sweep value), the optimum when values were given; see docs/what-if.md", body = Object),
