@@ -21,7 +21,8 @@ pub fn parse_time(name: &str, text: &str) -> Result<DateTime<Utc>, ResultsError>
         .map(|t| t.with_timezone(&Utc))
         .map_err(|e| {
             ResultsError::Refused(format!(
-                "{name} \"{text}\" is not an RFC 3339 time such as 2026-03-02T05:00:00Z ({e})"
+                "{name} {} is not an RFC 3339 time such as 2026-03-02T05:00:00Z ({e})",
+                reconcile::text::quote(text)
             ))
         })
 }
