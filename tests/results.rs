@@ -70,16 +70,40 @@ struct Setup {
 /// A fresh service that runs closed periods at once, with the purge-design model and its
 /// simulated hours posted (but the readings `skip` leaves out) and every one of them run.
 async fn run_hours(skip: &dyn Fn(&str, usize) -> bool) -> Setup {
+    run_hours_of(skip, None).await
+}
+
+/// As `run_hours`; with `stored`, that model (of the purge-design tags) is put in the store
+/// directly as the plant's first revision, as a revision admitted under earlier rules would
+/// be, instead of the purge-design model PUT through the API.
+async fn run_hours_of(skip: &dyn Fn(&str, usize) -> bool, stored: Option<&str>) -> Setup {
     let dir = tempfile::tempdir().expect("temp dir");
     let db = dir.path().join("loopbal.sqlite");
     let admin = token(&db, "admin", None);
     let ingest = token(&db, "ingest", None);
     let read = token(&db, "read", None);
+    if let Some(text) = stored {
+        let store = loopbal_server::store::Store::open(&support::database_arg(&db))
+            .await
+            .expect("the test database");
+        let row = store.create_plant(PLANT).await.expect("the plant");
+        let spec = reconcile::ModelSpec::from_toml(text).expect("the model parses");
+        let from = chrono::DateTime::parse_from_rfc3339("2026-01-01T00:00:00Z")
+            .unwrap()
+            .with_timezone(&chrono::Utc);
+        store
+            .put_model_revision(&row, &spec, text, from)
+            .await
+            .expect("the revision stored");
+        store.close().await;
+    }
     let s = support::LOOPBAL.serve(&db, &["--run-grace", "0", "--run-tick", "1"]);
     let c = client();
     let (model, csv, truth) = purge_design(skip);
-    let r = put_model(&c, &s, &admin, PLANT, &model, "application/toml").await;
-    assert_eq!(r.status(), StatusCode::CREATED);
+    if stored.is_none() {
+        let r = put_model(&c, &s, &admin, PLANT, &model, "application/toml").await;
+        assert_eq!(r.status(), StatusCode::CREATED);
+    }
     let r = post_readings(&c, &s, &ingest, PLANT, &csv, "text/csv").await;
     let answer = json_ok(r).await;
     assert_eq!(answer["rejected"], 0, "{answer}");
@@ -552,4 +576,69 @@ async fn a_stream_unobservable_in_one_hour_has_a_gap_and_no_total() {
         points[2]
     );
     assert!(points[1]["value"].is_number(), "{}", points[1]);
+}
+
+/// A revision stored before names were held to the safe set may name a stream, a unit, a
+/// reaction or a component so that a spreadsheet would run it (`=1+2`, `@conv`, `-synthesis`,
+/// `+Ar`). Such a model is refused today; the stored one still runs, and the figures CSV writes
+/// every such name as text, the numbers (negative ones too) as numbers.
+#[tokio::test]
+async fn the_figures_csv_never_hands_a_spreadsheet_a_formula() {
+    let hostile = testkit::plants::PURGE_DESIGN
+        .replace("\"purge\"", "\"=1+2\"")
+        .replace("\"conv\"", "\"@conv\"")
+        .replace("\"synthesis\"", "\"-synthesis\"")
+        .replace("\"Ar\"", "\"+Ar\"");
+    let spec = reconcile::ModelSpec::from_toml(&hostile).unwrap();
+    assert!(
+        reconcile::Plant::new(spec).is_err(),
+        "refused when admitted today"
+    );
+    let t = run_hours_of(&|_, _| false, Some(&hostile)).await;
+
+    let json = t.json("figures", &[("from", START), ("to", END)]).await;
+    let r = t
+        .get(
+            "figures",
+            &[("from", START), ("to", END), ("format", "csv")],
+        )
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(r.status(), StatusCode::OK);
+    let text = r.text().await.unwrap();
+    let mut reader = csv::Reader::from_reader(text.as_bytes());
+    let rows: Vec<csv::StringRecord> = reader.records().map(|r| r.expect("a CSV row")).collect();
+    let mut points = Vec::new();
+    for s in json["series"].as_array().unwrap() {
+        for p in s["points"].as_array().unwrap() {
+            points.push((s, p));
+        }
+    }
+    assert_eq!(rows.len(), points.len());
+    let mut neutralised = std::collections::BTreeSet::new();
+    for (row, (s, p)) in rows.iter().zip(&points) {
+        let subject = s["subject"].as_str().unwrap();
+        if subject.starts_with(['=', '+', '-', '@']) {
+            assert_eq!(&row[2], format!("'{subject}"), "{row:?}");
+            neutralised.insert(subject.to_string());
+        } else {
+            assert_eq!(&row[2], subject, "{row:?}");
+        }
+        // Numbers stay numbers, never prefixed.
+        assert_eq!(row[4].parse::<f64>().ok(), p["value"].as_f64(), "{row:?}");
+    }
+    for subject in ["=1+2", "@conv:+Ar", "-synthesis"] {
+        assert!(neutralised.contains(subject), "{neutralised:?}");
+    }
+    // No cell of the document begins like a formula.
+    for row in &rows {
+        for (k, cell) in row.iter().enumerate() {
+            let numeric = k >= 4 && (cell.is_empty() || cell.parse::<f64>().is_ok());
+            assert!(
+                numeric || !cell.starts_with(['=', '+', '-', '@', '\t', '\r']),
+                "{row:?}"
+            );
+        }
+    }
 }

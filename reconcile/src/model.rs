@@ -160,13 +160,29 @@ pub enum ModelError {
     Invalid(Vec<ModelProblem>),
 }
 
+/// Most problems a message lists one by one; the count covers them all.
+pub const MAX_LISTED_PROBLEMS: usize = 50;
+
 fn list(problems: &[ModelProblem]) -> String {
-    problems
+    let mut lines: Vec<String> = problems
         .iter()
+        .take(MAX_LISTED_PROBLEMS)
         .map(|p| format!("  - {p}"))
-        .collect::<Vec<_>>()
-        .join("\n")
+        .collect();
+    if problems.len() > MAX_LISTED_PROBLEMS {
+        lines.push(format!(
+            "  - and {} more problem(s)",
+            problems.len() - MAX_LISTED_PROBLEMS
+        ));
+    }
+    lines.join("\n")
 }
+
+/// Longest line of a parser's message kept (a TOML message quotes the source line at fault,
+/// which may be megabytes long).
+const SYNTAX_LINE_CHARS: usize = 300;
+/// Most lines of a parser's message kept.
+const SYNTAX_LINES: usize = 12;
 
 impl ModelError {
     pub fn problems(&self) -> Vec<ModelProblem> {
@@ -184,14 +200,26 @@ impl ModelSpec {
     pub fn from_toml(text: &str) -> Result<Self, ModelError> {
         toml::from_str(text).map_err(|e| ModelError::Syntax {
             format: "TOML",
-            message: e.to_string(),
+            message: crate::text::clip_lines(&e.to_string(), SYNTAX_LINE_CHARS, SYNTAX_LINES),
         })
     }
 
     pub fn from_json(text: &str) -> Result<Self, ModelError> {
-        serde_json::from_str(text).map_err(|e| ModelError::Syntax {
-            format: "JSON",
-            message: e.to_string(),
+        serde_json::from_str(text).map_err(|e| {
+            // serde_json ends its message with the position, after any text it quotes (an
+            // unknown key, a string of the wrong type): the text is cut, the position kept.
+            let message = e.to_string();
+            let position = format!(" at line {} column {}", e.line(), e.column());
+            let message = match message.strip_suffix(&position) {
+                Some(what) if e.line() > 0 => {
+                    format!("{}{position}", crate::text::clip(what, SYNTAX_LINE_CHARS))
+                }
+                _ => crate::text::clip(&message, SYNTAX_LINE_CHARS),
+            };
+            ModelError::Syntax {
+                format: "JSON",
+                message,
+            }
         })
     }
 }

@@ -14,12 +14,18 @@ use utoipa::ToSchema;
 
 use reconcile::plausible::Kind;
 
-use crate::readings::{self, BadReading, Format, Place, Problem, ReadingsError};
+use crate::readings::{self, BadList, BadReading, Format, Place, Problem, ReadingsError};
 use crate::revisions::in_effect;
 use crate::store::{PlantRow, Store, StoreError};
 
 /// At most this many rejected lines are listed one by one; the count covers them all.
-pub const MAX_LISTED_REJECTIONS: usize = 10_000;
+pub const MAX_LISTED_REJECTIONS: usize = 1_000;
+
+/// Bytes of JSON the listed rejections may take: the first lines refused are listed while they
+/// fit, so the whole answer stays well under 64 KiB however long the reasons. One rejection
+/// takes at most about 4 KiB (four reasons, each quoting at most 200 characters), so at least
+/// the first ten are always listed.
+pub const LISTED_REJECTIONS_BYTES: usize = 48 * 1024;
 
 /// What the screens need of each meter of one revision (unit, quantity, instrument range), by
 /// tag.
@@ -127,7 +133,8 @@ pub struct IngestAnswer {
     pub replaced: usize,
     /// Identical resends: already stored exactly so, nothing changed.
     pub unchanged: usize,
-    /// Lines refused; each is listed in `rejections` (up to 10,000).
+    /// Lines refused, all counted; the first are listed in `rejections` (up to 1,000, as many
+    /// as fit in 48 KiB).
     pub rejected: usize,
     /// Stored readings outside their meter's instrument range: kept and flagged (the
     /// implausible ones among them).
@@ -138,6 +145,7 @@ pub struct IngestAnswer {
     pub implausible: usize,
     /// Stored readings with quality `bad`: kept, not used in any balance.
     pub bad_quality: usize,
+    /// The first refused lines, in body order, each with every reason.
     pub rejections: Vec<Rejection>,
 }
 
@@ -159,12 +167,17 @@ pub fn check_batch(
     format: Format,
     catalogue: &Catalogue,
 ) -> Result<Checked, BatchError> {
-    let sorted =
-        readings::sort(body, format, &|tag| catalogue.knows(tag)).map_err(|e| match e {
-            ReadingsError::File(msg) => BatchError::Unreadable(msg),
-            ReadingsError::Bad(_) => BatchError::Unreadable("unreadable batch".into()),
-        })?;
-    let mut bad = sorted.bad;
+    let sorted = readings::sort(
+        body,
+        format,
+        &|tag| catalogue.knows(tag),
+        MAX_LISTED_REJECTIONS,
+    )
+    .map_err(|e| match e {
+        ReadingsError::File(msg) => BatchError::Unreadable(msg),
+        ReadingsError::Bad(_) => BatchError::Unreadable("unreadable batch".into()),
+    })?;
+    let mut repeats = BadList::new(MAX_LISTED_REJECTIONS);
     let mut good = Vec::with_capacity(sorted.good.len());
     // A second line for one (tag, instant) in one batch is refused, not silently preferred:
     // which of two conflicting values is right is the historian's call. A later batch that
@@ -172,7 +185,7 @@ pub fn check_batch(
     let mut first: HashMap<(String, DateTime<Utc>), Place> = HashMap::new();
     for (place, reading) in sorted.good {
         match first.get(&(reading.tag.clone(), reading.time)) {
-            Some(&earlier) => bad.push(BadReading {
+            Some(&earlier) => repeats.push(BadReading {
                 place,
                 problems: vec![Problem::Repeated { earlier }],
             }),
@@ -182,18 +195,18 @@ pub fn check_batch(
             }
         }
     }
-    bad.sort_by_key(|b| match b.place {
-        Place::Line(n) => n,
-        Place::Index(i) => i as u64,
-    });
-    Ok(Checked { good, bad })
+    Ok(Checked {
+        good,
+        bad: sorted.bad.merge(repeats),
+    })
 }
 
-/// A checked batch: the readings to store and the refused lines.
+/// A checked batch: the readings to store and the refused lines (the first listed, all
+/// counted).
 #[derive(Debug)]
 pub struct Checked {
     pub good: Vec<Reading>,
-    pub bad: Vec<BadReading>,
+    pub bad: BadList,
 }
 
 /// Store the good readings of a checked batch in one transaction and account for every line.
@@ -220,27 +233,11 @@ pub async fn store_batch(
             )
             .await?
     };
-    let rejections = checked
-        .bad
-        .iter()
-        .take(MAX_LISTED_REJECTIONS)
-        .map(|b| {
-            let (line, index) = match b.place {
-                Place::Line(n) => (Some(n), None),
-                Place::Index(i) => (None, Some(i)),
-            };
-            Rejection {
-                line,
-                index,
-                reasons: b.problems.iter().map(|p| p.to_string()).collect(),
-            }
-        })
-        .collect();
     Ok(IngestAnswer {
         accepted: counts.accepted,
         replaced: counts.replaced,
         unchanged: counts.unchanged,
-        rejected: checked.bad.len(),
+        rejected: checked.bad.total,
         out_of_range: out_of_range.iter().filter(|&&f| f).count(),
         implausible: checked
             .good
@@ -252,8 +249,34 @@ pub async fn store_batch(
             .iter()
             .filter(|r| r.quality == Quality::Bad)
             .count(),
-        rejections,
+        rejections: rejections(&checked.bad.listed),
     })
+}
+
+/// The first refused lines as the answer lists them: in order, while they fit in
+/// [`LISTED_REJECTIONS_BYTES`] of JSON (the first always does).
+fn rejections(bad: &[BadReading]) -> Vec<Rejection> {
+    let mut listed = Vec::new();
+    let mut bytes = 0;
+    for b in bad.iter().take(MAX_LISTED_REJECTIONS) {
+        let (line, index) = match b.place {
+            Place::Line(n) => (Some(n), None),
+            Place::Index(i) => (None, Some(i)),
+        };
+        let r = Rejection {
+            line,
+            index,
+            reasons: b.problems.iter().map(|p| p.to_string()).collect(),
+        };
+        // The separating comma included.
+        let size = serde_json::to_vec(&r).map_or(usize::MAX, |v| v.len() + 1);
+        if !listed.is_empty() && bytes + size > LISTED_REJECTIONS_BYTES {
+            break;
+        }
+        bytes += size;
+        listed.push(r);
+    }
+    listed
 }
 
 #[cfg(test)]
@@ -274,10 +297,83 @@ mod tests {
         assert_eq!(checked.good.len(), 1);
         assert_eq!(checked.good[0].value, 1.0, "the first is kept");
         assert_eq!(
-            checked.bad[0].problems,
+            checked.bad.listed[0].problems,
             [Problem::Repeated {
                 earlier: Place::Line(2)
             }]
         );
+    }
+
+    fn catalogue(tags: &[&str]) -> Catalogue {
+        Catalogue {
+            known: tags.iter().map(|t| t.to_string()).collect(),
+            revisions: Vec::new(),
+            period_seconds: 3600,
+        }
+    }
+
+    #[test]
+    fn a_batch_bad_throughout_lists_its_first_lines_in_order_and_counts_them_all() {
+        // Bad lines and repeats interleaved: the listing is by line, whichever the reason.
+        let mut body = String::from("tag,time,value\n");
+        for k in 0..3_000 {
+            if k % 2 == 0 {
+                body += &format!("F-1,2026-03-02T05:00:00Z,{k}\n");
+            } else {
+                body += &format!("F-1,2026-03-02T05:00:00Z,{}\n", "x".repeat(500));
+            }
+        }
+        let checked = check_batch(body.as_bytes(), Format::Csv, &catalogue(&["F-1"])).unwrap();
+        assert_eq!(checked.good.len(), 1);
+        assert_eq!(checked.bad.total, 2_999);
+        assert_eq!(checked.bad.listed.len(), MAX_LISTED_REJECTIONS);
+        let lines: Vec<u64> = checked
+            .bad
+            .listed
+            .iter()
+            .map(|b| match b.place {
+                Place::Line(n) => n,
+                Place::Index(_) => unreachable!("a CSV body"),
+            })
+            .collect();
+        let expected: Vec<u64> = (3..3 + MAX_LISTED_REJECTIONS as u64).collect();
+        assert_eq!(lines, expected);
+        assert!(matches!(
+            checked.bad.listed[0].problems[..],
+            [Problem::NotANumber(_)]
+        ));
+        assert!(matches!(
+            checked.bad.listed[1].problems[..],
+            [Problem::Repeated { .. }]
+        ));
+
+        let listed = rejections(&checked.bad.listed);
+        let size = serde_json::to_vec(&listed).unwrap().len();
+        assert!(size <= LISTED_REJECTIONS_BYTES, "{size}");
+        assert!(listed.len() > 10, "{}", listed.len());
+        assert!(
+            listed[0].reasons[0].ends_with("…\" (500 characters) is not a number"),
+            "{:?}",
+            listed[0].reasons
+        );
+    }
+
+    #[test]
+    fn the_longest_reasons_still_list_the_first_lines_within_the_budget() {
+        // Every field of every line too long and wrong: four reasons each, each cut.
+        let long = "\u{202e}".repeat(10_000);
+        let mut body = String::from("tag,time,value,quality\n");
+        for _ in 0..50 {
+            body += &format!("{long},{long},{long},{long}\n");
+        }
+        let checked = check_batch(body.as_bytes(), Format::Csv, &catalogue(&["F-1"])).unwrap();
+        assert_eq!(checked.bad.total, 50);
+        let listed = rejections(&checked.bad.listed);
+        assert!(listed.len() >= 10, "{}", listed.len());
+        assert_eq!(listed[0].line, Some(2));
+        assert_eq!(listed[0].reasons.len(), 4);
+        let size = serde_json::to_vec(&listed).unwrap().len();
+        assert!(size <= LISTED_REJECTIONS_BYTES, "{size}");
+        assert!(!listed[0].reasons[0].contains('\u{202e}'));
     }
 }

@@ -10,6 +10,7 @@ use std::fmt;
 pub mod api;
 pub mod claimant;
 pub mod cli;
+pub mod csv_out;
 pub mod demo;
 pub mod health;
 pub mod ingest;
@@ -36,13 +37,31 @@ pub mod what_if;
 #[derive(Debug)]
 pub struct BadInput(Vec<String>);
 
+/// Longest line of a [`BadInput`] message, in characters.
+const MAX_LINE_CHARS: usize = 1_000;
+/// Most lines of a [`BadInput`] message.
+const MAX_LINES: usize = 120;
+
 impl BadInput {
     pub fn new(line: String) -> BadInput {
-        BadInput(vec![line])
+        BadInput::lines(vec![line])
     }
 
+    /// The last guard on what reaches a terminal: each line escaped and cut as
+    /// reconcile::text::clip does, and a message of many lines cut to its first ones and its
+    /// last (the count), so no input makes the message long.
     pub fn lines(lines: Vec<String>) -> BadInput {
-        BadInput(lines)
+        let clip = |l: &String| reconcile::text::clip(l, MAX_LINE_CHARS);
+        if lines.len() <= MAX_LINES {
+            return BadInput(lines.iter().map(clip).collect());
+        }
+        let mut kept: Vec<String> = lines[..MAX_LINES - 2].iter().map(clip).collect();
+        kept.push(format!(
+            "… and {} more line(s)",
+            lines.len() - MAX_LINES + 1
+        ));
+        kept.extend(lines.last().map(clip));
+        BadInput(kept)
     }
 }
 

@@ -3,6 +3,7 @@
 
 use std::path::Path;
 
+use reconcile::model::MAX_LISTED_PROBLEMS;
 use reconcile::{ModelError, ModelSpec, Plant};
 
 use crate::BadInput;
@@ -57,10 +58,18 @@ fn describe(path: &Path, error: &ModelError) -> BadInput {
             lines
         }
         ModelError::Invalid(problems) => {
+            // A model wrong throughout says so in a few lines: the first problems, the count.
             let mut lines: Vec<String> = problems
                 .iter()
+                .take(MAX_LISTED_PROBLEMS)
                 .map(|p| format!("{file}: {}: {}", p.item, p.message))
                 .collect();
+            if problems.len() > MAX_LISTED_PROBLEMS {
+                lines.push(format!(
+                    "{file}: {} more problem(s) not listed",
+                    problems.len() - MAX_LISTED_PROBLEMS
+                ));
+            }
             lines.push(format!(
                 "{file}: the model has {} problem(s)",
                 problems.len()

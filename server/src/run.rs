@@ -19,7 +19,7 @@ use crate::BadInput;
 /// first model.
 const FILE_REVISION: i64 = 1;
 
-/// Longest listing of bad readings; a file that is wrong throughout says so in a few lines.
+/// Longest listing of replaced readings; a file that repeats itself says so in a few lines.
 const MAX_LISTED: usize = 50;
 
 pub struct Options<'a> {
@@ -158,21 +158,20 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
 pub(crate) fn describe(file: &dyn std::fmt::Display, error: ReadingsError) -> BadInput {
     match error {
         ReadingsError::File(message) => BadInput::new(format!("{file}: {message}")),
+        // A file wrong throughout says so in a few lines: the first bad readings (the list
+        // holds at most readings::MAX_LISTED_BAD), then the count.
         ReadingsError::Bad(bad) => {
-            let mut lines: Vec<String> = bad
-                .iter()
-                .take(MAX_LISTED)
-                .map(|b| format!("{file}: {b}"))
-                .collect();
-            if bad.len() > MAX_LISTED {
+            let mut lines: Vec<String> =
+                bad.listed.iter().map(|b| format!("{file}: {b}")).collect();
+            if bad.total > bad.listed.len() {
                 lines.push(format!(
                     "{file}: {} more bad reading(s) not listed",
-                    bad.len() - MAX_LISTED
+                    bad.total - bad.listed.len()
                 ));
             }
             lines.push(format!(
                 "{file}: {} bad reading(s); nothing was reconciled",
-                bad.len()
+                bad.total
             ));
             BadInput::lines(lines)
         }

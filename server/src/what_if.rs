@@ -100,7 +100,7 @@ pub fn what_if(opts: &Options) -> anyhow::Result<ExitCode> {
     let mut stdout = std::io::stdout().lock();
     let text = match opts.format {
         Format::Json => serde_json::to_string_pretty(&answer)? + "\n",
-        Format::Csv => csv(&answer),
+        Format::Csv => csv(&answer)?,
         Format::Text => text(&answer),
     };
     stdout
@@ -204,21 +204,17 @@ fn economics(opts: &Options) -> anyhow::Result<Option<Economics>> {
     }))
 }
 
-fn number(v: Option<f64>) -> String {
-    v.map_or(String::new(), |v| format!("{v}"))
-}
-
-/// One line per point and figure, then per point and stream flow.
-fn csv(answer: &WhatIf) -> String {
-    let mut out = String::from("point,settings,status,kind,name,subject,uom,value,sigma\n");
-    let quote = |s: &str| {
-        if s.contains([',', '"', '\n']) {
-            format!("\"{}\"", s.replace('"', "\"\""))
-        } else {
-            s.to_string()
-        }
-    };
+/// One line per point and figure, then per point and stream flow; written as every CSV of
+/// loopbal is (crate::csv_out: text cells that begin like a formula neutralised, numbers as
+/// they are).
+fn csv(answer: &WhatIf) -> anyhow::Result<String> {
+    use crate::csv_out::{Cell, Table};
+    use Cell::{Number, Text};
+    let mut t = Table::new(&[
+        "point", "settings", "status", "kind", "name", "subject", "uom", "value", "sigma",
+    ])?;
     for (k, p) in answer.points.iter().enumerate() {
+        let k = k.to_string();
         let settings = p
             .settings
             .iter()
@@ -230,40 +226,59 @@ fn csv(answer: &WhatIf) -> String {
             PointStatus::NoSteadyState => "no_steady_state",
         };
         if let Some(reason) = &p.reason {
-            out += &format!(
-                "{k},{},{status},reason,,,,{},\n",
-                quote(&settings),
-                quote(reason)
-            );
+            t.row(&[
+                Text(&k),
+                Text(&settings),
+                Text(status),
+                Text("reason"),
+                Text(""),
+                Text(""),
+                Text(""),
+                Text(reason),
+                Text(""),
+            ])?;
         }
         for f in &p.figures {
-            out += &format!(
-                "{k},{},{status},figure,{},{},{},{},{}\n",
-                quote(&settings),
-                quote(&f.name),
-                quote(&f.subject),
-                quote(&f.uom),
-                number(f.value),
-                number(f.sigma)
-            );
+            t.row(&[
+                Text(&k),
+                Text(&settings),
+                Text(status),
+                Text("figure"),
+                Text(&f.name),
+                Text(&f.subject),
+                Text(&f.uom),
+                Number(f.value),
+                Number(f.sigma),
+            ])?;
         }
         for s in &p.streams {
-            out += &format!(
-                "{k},{},{status},stream,molar_flow,{},kmol/h,{},{}\n",
-                quote(&settings),
-                quote(&s.id),
-                number(s.molar_flow),
-                number(s.molar_flow_sigma)
-            );
+            t.row(&[
+                Text(&k),
+                Text(&settings),
+                Text(status),
+                Text("stream"),
+                Text("molar_flow"),
+                Text(&s.id),
+                Text("kmol/h"),
+                Number(s.molar_flow),
+                Number(s.molar_flow_sigma),
+            ])?;
         }
     }
     if let Some(o) = &answer.optimum {
-        out += &format!(
-            "optimum,{}={},solved,optimum,margin,,per h,{},{}\n",
-            o.setting, o.value, o.margin, o.margin_sigma
-        );
+        t.row(&[
+            Text("optimum"),
+            Text(&format!("{}={}", o.setting, o.value)),
+            Text("solved"),
+            Text("optimum"),
+            Text("margin"),
+            Text(""),
+            Text("per h"),
+            Number(Some(o.margin)),
+            Number(Some(o.margin_sigma)),
+        ])?;
     }
-    out
+    Ok(String::from_utf8(t.finish()?)?)
 }
 
 /// A short table for people: the purge-decision figures of each point with ± σ.

@@ -191,3 +191,89 @@ async fn a_new_revision_leaves_stored_readings_alone() {
         ]
     );
 }
+
+/// Ids a spreadsheet, a terminal or a reader could be fooled by: each meter of the model
+/// renamed to one, as TOML writes it, and the name the problem gives it.
+const UNSAFE_TAGS: [(&str, &str, &str); 9] = [
+    ("OB2-FI-101", "\"=1+2\"", "=1+2"),
+    ("OB2-AI-102", "\"@SUM(A1)\"", "@SUM(A1)"),
+    ("OB2-AI-103", "\"OB2-AI\u{202e}103\"", "OB2-AI\u{202e}103"),
+    ("OB2-AI-104", "\"OB2-AI\u{200b}104\"", "OB2-AI\u{200b}104"),
+    ("OB2-FI-201", "\"OB2-FI\\n201\"", "OB2-FI\n201"),
+    ("OB2-AI-202", "\"OB2-AI\\t202\"", "OB2-AI\t202"),
+    ("OB2-FI-301", "\"+x\"", "+x"),
+    ("OB2-FI-401", "\"-x\"", "-x"),
+    (
+        "OB2-AI-402",
+        "\"AAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAA\"",
+        "AAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAAA",
+    ),
+];
+
+#[tokio::test]
+async fn a_model_with_unsafe_names_is_refused_naming_each_and_nothing_is_stored() {
+    let (_dir, s, t) = fresh(&[]);
+    let c = client();
+    let mut model = ombrask_model();
+    for (tag, written, _) in UNSAFE_TAGS {
+        model = model.replace(&format!("\"{tag}\""), written);
+    }
+    model = model.replace("\"OB2-AI-403\"", "\"\"");
+    let r = put_model(&c, &s, &t.admin, PLANT, &model, "application/toml").await;
+    let body = problem(r, StatusCode::UNPROCESSABLE_ENTITY).await;
+    let errors: Vec<(String, String)> = body["errors"]
+        .as_array()
+        .expect("errors listed")
+        .iter()
+        .map(|e| {
+            (
+                e["item"].as_str().unwrap().to_string(),
+                e["message"].as_str().unwrap().to_string(),
+            )
+        })
+        .collect();
+    assert_eq!(errors.len(), UNSAFE_TAGS.len() + 1, "{errors:#?}");
+    for (_, _, name) in UNSAFE_TAGS {
+        let item = format!("meter {}", reconcile::text::quote(name));
+        assert!(
+            errors
+                .iter()
+                .any(|(i, m)| *i == item && m.starts_with("id ")),
+            "no problem names {item}: {errors:#?}"
+        );
+    }
+    assert!(errors
+        .iter()
+        .any(|(i, m)| i == "meter #10" && m == "has an empty id"));
+    // Escaped as the item names them: no answer carries the characters themselves.
+    let text = body.to_string();
+    for hidden in ['\u{202e}', '\u{200b}'] {
+        assert!(!text.contains(hidden), "{text}");
+    }
+    assert!(errors.iter().any(|(i, _)| i == "meter \"OB2-FI\\n201\""));
+    assert!(errors
+        .iter()
+        .any(|(i, m)| i == "meter \"=1+2\"" && m.contains("formula")));
+
+    let r = c
+        .get(s.url(&format!("/api/v1/plants/{PLANT}/model/revisions")))
+        .bearer_auth(&t.read)
+        .send()
+        .await
+        .unwrap();
+    problem(r, StatusCode::NOT_FOUND).await;
+
+    // Readings naming such tags are refused line by line as unknown, quoted safely.
+    create_ombrask(&c, &s, &t.admin).await;
+    let batch = "tag,time,value\n=1+2,2026-03-02T05:00:00Z,1\n\"OB2-FI-101\u{202e}\",2026-03-02T05:00:00Z,1\nOB2-FI-101,2026-03-02T05:00:00Z,20500\n";
+    let answer = post_ok(&c, &s, &t.ingest, batch, "text/csv").await;
+    assert_eq!(counts(&answer), [1, 0, 0, 2], "{answer}");
+    assert_eq!(
+        answer["rejections"][0]["reasons"][0],
+        "unknown tag \"=1+2\" (no meter of the model has it)"
+    );
+    assert_eq!(
+        answer["rejections"][1]["reasons"][0],
+        "unknown tag \"OB2-FI-101\\u{202e}\" (no meter of the model has it)"
+    );
+}

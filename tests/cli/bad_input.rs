@@ -235,3 +235,67 @@ fn usage_errors_exit_2() {
     assert_eq!(out.status.code(), Some(2));
     assert!(stderr(&out).contains("RFC 3339"), "{}", stderr(&out));
 }
+
+/// A message on standard error that stays short whatever the input: at most this many bytes.
+const SHORT: usize = 16 * 1024;
+
+#[test]
+fn a_header_of_megabytes_is_refused_in_a_few_lines() {
+    let mut header = String::from("tag,time,value");
+    let mut k = 0;
+    while header.len() < 8 * 1024 * 1024 {
+        header += &format!(",col-{k}");
+        k += 1;
+    }
+    let content = format!("{header}\nWR-F1,2026-03-02T05:10:00Z,1\n");
+    expect_bad(
+        "wide.csv",
+        &content,
+        &[
+            "line 1: bad header: unknown column \"col-0\" (expected tag, time, value, quality); \
+             unknown column \"col-1\"",
+        ],
+    );
+    let dir = tempfile::tempdir().expect("tempdir");
+    let model = write(dir.path(), "wren.toml", WREN);
+    let readings = write(dir.path(), "wide.csv", &content);
+    let err = stderr(&reconcile(&model, &readings));
+    assert!(err.len() < SHORT, "{} bytes", err.len());
+    assert!(
+        err.contains(&format!("and {} more unknown column(s)", k - 5)),
+        "{err}"
+    );
+}
+
+#[test]
+fn a_file_bad_throughout_with_long_fields_is_refused_in_a_few_lines() {
+    let long = format!("{}\u{202e}", "x".repeat(2_000));
+    let mut content = String::from("tag,time,value,quality\n");
+    for k in 0..200_000 {
+        if k < 100 {
+            content += &format!("WR-{long},{long},{long},{long}\n");
+        } else {
+            content += &format!("WR-{k},noon,one,meh\n");
+        }
+    }
+    expect_bad(
+        "throughout.csv",
+        &content,
+        &[
+            "line 2: unknown tag \"WR-xxx",
+            "199950 more bad reading(s) not listed",
+            "200000 bad reading(s); nothing was reconciled",
+        ],
+    );
+    let dir = tempfile::tempdir().expect("tempdir");
+    let model = write(dir.path(), "wren.toml", WREN);
+    let readings = write(dir.path(), "throughout.csv", &content);
+    let err = stderr(&reconcile(&model, &readings));
+    assert!(err.len() < 64 * 1024, "{} bytes", err.len());
+    assert!(err.contains("…\" (2004 characters)"), "{err}");
+    assert!(
+        !err.contains('\u{202e}'),
+        "the override reaches the terminal escaped"
+    );
+    assert_eq!(err.lines().count(), 52, "{err}");
+}

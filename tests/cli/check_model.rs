@@ -159,3 +159,31 @@ fn check_model_missing_or_binary_file_exits_2_naming_it() {
         stderr(&out)
     );
 }
+
+#[test]
+fn a_model_wrong_throughout_is_reported_in_a_few_lines_with_its_names_escaped() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let mut text = WREN.to_string();
+    for k in 0..10_000 {
+        text += &format!(
+            "[[meter]]\ntag = \"=WR{k}\\u202E\\n\"\nstream = \"east\"\nquantity = \"molar_flow\"\n\
+             uom = \"kmol/h\"\nsigma = 1.0\n"
+        );
+    }
+    let model = write(dir.path(), "hostile.toml", &text);
+    let out = loopbal(&["check-model", s(&model)]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = stderr(&out);
+    assert!(err.len() < 16 * 1024, "{} bytes", err.len());
+    let file = model.display();
+    for expected in [
+        format!("{file}: meter \"=WR0\\u{{202e}}\\n\": id begins with '='"),
+        format!("{file}: 9950 more problem(s) not listed"),
+        format!("{file}: the model has 10000 problem(s)"),
+    ] {
+        assert!(err.contains(&expected), "stderr lacks {expected:?}:\n{err}");
+    }
+    assert!(!err.contains('\u{202e}'), "{err}");
+    // One line per listed problem, the rest counted: newlines in ids are escaped.
+    assert_eq!(err.lines().count(), 52, "{err}");
+}

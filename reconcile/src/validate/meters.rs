@@ -5,6 +5,7 @@ use std::collections::HashMap;
 
 use super::problems::Problems;
 use crate::model::{Meter, ModelSpec, Sigma, Stream};
+use crate::text::quote;
 use crate::uom::{Quantity, Uom};
 
 pub(super) fn validate_meters(
@@ -16,10 +17,10 @@ pub(super) fn validate_meters(
 ) -> Vec<Meter> {
     let mut meters = Vec::with_capacity(spec.meters.len());
     for m in &spec.meters {
-        let item = format!("meter \"{}\"", m.tag);
+        let item = format!("meter {}", quote(&m.tag));
         let stream = stream_ix.get(&m.stream).copied();
         if stream.is_none() {
-            p.add(&item, format!("is on unknown stream \"{}\"", m.stream));
+            p.add(&item, format!("is on unknown stream {}", quote(&m.stream)));
         }
         let carried = |ci: usize| stream.is_none_or(|s| streams[s].components.contains(&ci));
         let uom = Uom::parse(&m.uom);
@@ -27,8 +28,8 @@ pub(super) fn validate_meters(
             None => p.add(
                 &item,
                 format!(
-                    "uom \"{}\" is not one of {} for {}",
-                    m.uom,
+                    "uom {} is not one of {} for {}",
+                    quote(&m.uom),
                     Uom::allowed_for(m.quantity).join(", "),
                     m.quantity.as_str()
                 ),
@@ -36,8 +37,8 @@ pub(super) fn validate_meters(
             Some(u) if !u.fits(m.quantity) => p.add(
                 &item,
                 format!(
-                    "uom \"{}\" does not fit {}; use one of {}",
-                    m.uom,
+                    "uom {} does not fit {}; use one of {}",
+                    quote(&m.uom),
                     m.quantity.as_str(),
                     Uom::allowed_for(m.quantity).join(", ")
                 ),
@@ -56,7 +57,8 @@ pub(super) fn validate_meters(
                 p.add(
                     &item,
                     format!(
-                        "names component \"{c}\" but measures {}, a whole-stream quantity",
+                        "names component {} but measures {}, a whole-stream quantity",
+                        quote(c),
                         m.quantity.as_str()
                     ),
                 );
@@ -65,15 +67,16 @@ pub(super) fn validate_meters(
             (None, false) => None,
             (Some(c), true) => match comp_ix.get(c) {
                 None => {
-                    p.add(&item, format!("names unknown component \"{c}\""));
+                    p.add(&item, format!("names unknown component {}", quote(c)));
                     None
                 }
                 Some(&ci) if !carried(ci) => {
                     p.add(
                         &item,
                         format!(
-                            "measures component \"{c}\", which stream \"{}\" does not carry",
-                            m.stream
+                            "measures component {}, which stream {} does not carry",
+                            quote(c),
+                            quote(&m.stream)
                         ),
                     );
                     None
@@ -107,11 +110,12 @@ pub(super) fn validate_meters(
                     Some(_) => p.add(
                         &item,
                         format!(
-                            "basis component \"{c}\" is not carried by stream \"{}\"",
-                            m.stream
+                            "basis component {} is not carried by stream {}",
+                            quote(c),
+                            quote(&m.stream)
                         ),
                     ),
-                    None => p.add(&item, format!("basis names unknown component \"{c}\"")),
+                    None => p.add(&item, format!("basis names unknown component {}", quote(c))),
                 }
             }
             if let Some(ci) = component {

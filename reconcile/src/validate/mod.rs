@@ -11,6 +11,8 @@ use crate::model::{
     parse_period, Component, ModelError, ModelSpec, Plant, Reaction, Stream, Unit, UnitKind,
     OUTSIDE,
 };
+use crate::names;
+use crate::text::quote;
 
 /// Parse and validate in one step: TOML unless the text looks like a JSON object.
 pub fn parse_plant(text: &str) -> Result<Plant, ModelError> {
@@ -23,28 +25,46 @@ pub fn parse_plant(text: &str) -> Result<Plant, ModelError> {
 }
 
 impl Plant {
-    /// Validate a model; every problem found is returned, each naming its item.
+    /// Validate a model; every problem found is returned, each naming its item. Its name and
+    /// every id must be safe names ([`names`]).
     pub fn new(spec: ModelSpec) -> Result<Plant, ModelError> {
-        validate(spec)
+        validate(spec, Names::Checked)
     }
+
+    /// Validate a model that was admitted before: every rule but the one on names. A model
+    /// stored before that rule keeps working as it did; wherever its names are written they
+    /// are quoted or neutralised, as any text is.
+    pub fn revalidate(spec: ModelSpec) -> Result<Plant, ModelError> {
+        validate(spec, Names::AsAdmitted)
+    }
+}
+
+/// Whether the names of a model are held to [`names`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Names {
+    Checked,
+    AsAdmitted,
 }
 
 /// Relative tolerance on Σ ν_c M_c for a reaction to count as conserving mass.
 pub const MASS_BALANCE_TOLERANCE: f64 = 1e-6;
 
-fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
+fn validate(spec: ModelSpec, rule: Names) -> Result<Plant, ModelError> {
     let mut p = Problems(Vec::new());
+    let checked = rule == Names::Checked;
 
     if spec.name.trim().is_empty() {
         p.add("model", "has an empty name");
+    } else if let Some(why) = checked.then(|| names::fault(&spec.name)).flatten() {
+        p.add("model", format!("name {} {why}", quote(&spec.name)));
     }
     let period_seconds = parse_period(&spec.period).unwrap_or_else(|| {
         p.add(
             "model",
             format!(
-                "period \"{}\" is not a length such as 15m, 1h or 1d that divides a day \
+                "period {} is not a length such as 15m, 1h or 1d that divides a day \
                  (or whole days, at most 366d)",
-                spec.period
+                quote(&spec.period)
             ),
         );
         3600
@@ -59,22 +79,31 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
     let comp_ix = index_ids(
         "component",
         spec.components.iter().map(|c| c.id.as_str()),
+        checked,
         &mut p.0,
     );
-    let unit_ix = index_ids("unit", spec.units.iter().map(|u| u.id.as_str()), &mut p.0);
+    let unit_ix = index_ids(
+        "unit",
+        spec.units.iter().map(|u| u.id.as_str()),
+        checked,
+        &mut p.0,
+    );
     let stream_ix = index_ids(
         "stream",
         spec.streams.iter().map(|s| s.id.as_str()),
+        checked,
         &mut p.0,
     );
     let _ = index_ids(
         "reaction",
         spec.reactions.iter().map(|r| r.id.as_str()),
+        checked,
         &mut p.0,
     );
     let _ = index_ids(
         "meter",
         spec.meters.iter().map(|m| m.tag.as_str()),
+        checked,
         &mut p.0,
     );
 
@@ -91,7 +120,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         .map(|c| {
             if !(c.molar_mass.is_finite() && c.molar_mass > 0.0) {
                 p.add(
-                    format!("component \"{}\"", c.id),
+                    format!("component {}", quote(&c.id)),
                     format!(
                         "molar_mass {} must be a positive number (g/mol)",
                         c.molar_mass
@@ -128,7 +157,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
 
     let mut streams = Vec::with_capacity(spec.streams.len());
     for (si, s) in spec.streams.iter().enumerate() {
-        let item = format!("stream \"{}\"", s.id);
+        let item = format!("stream {}", quote(&s.id));
         let mut end = |name: &str, which: &str| -> Option<usize> {
             if name == OUTSIDE {
                 return None;
@@ -138,7 +167,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                 None => {
                     p.add(
                         &item,
-                        format!("{which} unit \"{name}\" is not a unit of the model"),
+                        format!("{which} unit {} is not a unit of the model", quote(name)),
                     );
                     None
                 }
@@ -155,7 +184,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
         if from.is_some() && from == to {
             p.add(
                 &item,
-                format!("leaves and enters the same unit \"{}\"", s.from),
+                format!("leaves and enters the same unit {}", quote(&s.from)),
             );
         }
         let comps = match &s.components {
@@ -165,13 +194,18 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                     p.add(&item, "lists no components");
                 }
                 let mut v: Vec<usize> = Vec::new();
+                // A set beside the list: a list may be as long as the model has components.
+                let mut listed = vec![false; components.len()];
                 for c in list {
                     match comp_ix.get(c) {
-                        Some(&ci) if v.contains(&ci) => {
-                            p.add(&item, format!("lists component \"{c}\" twice"))
+                        Some(&ci) if listed[ci] => {
+                            p.add(&item, format!("lists component {} twice", quote(c)))
                         }
-                        Some(&ci) => v.push(ci),
-                        None => p.add(&item, format!("lists unknown component \"{c}\"")),
+                        Some(&ci) => {
+                            listed[ci] = true;
+                            v.push(ci)
+                        }
+                        None => p.add(&item, format!("lists unknown component {}", quote(c))),
                     }
                 }
                 v.sort_unstable();
@@ -194,7 +228,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
 
     let mut reactions = Vec::with_capacity(spec.reactions.len());
     for (ri, r) in spec.reactions.iter().enumerate() {
-        let item = format!("reaction \"{}\"", r.id);
+        let item = format!("reaction {}", quote(&r.id));
         let unit = match unit_ix.get(&r.unit) {
             Some(&u) => {
                 match units[u].kind {
@@ -203,8 +237,9 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                         p.add(
                             &item,
                             format!(
-                                "is attached to unit \"{}\", a {}, not a reactor",
-                                r.unit, units[u].kind
+                                "is attached to unit {}, a {}, not a reactor",
+                                quote(&r.unit),
+                                units[u].kind
                             ),
                         );
                     }
@@ -213,7 +248,10 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                 u
             }
             None => {
-                p.add(&item, format!("is attached to unknown unit \"{}\"", r.unit));
+                p.add(
+                    &item,
+                    format!("is attached to unknown unit {}", quote(&r.unit)),
+                );
                 usize::MAX
             }
         };
@@ -227,7 +265,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
             if !nu.is_finite() {
                 p.add(
                     &item,
-                    format!("coefficient of \"{c}\" is {nu}, not a finite number"),
+                    format!("coefficient of {} is {nu}, not a finite number", quote(c)),
                 );
                 mass_known = false;
                 continue;
@@ -235,7 +273,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
             if nu == 0.0 {
                 p.add(
                     &item,
-                    format!("coefficient of \"{c}\" is zero; leave it out"),
+                    format!("coefficient of {} is zero; leave it out", quote(c)),
                 );
                 continue;
             }
@@ -247,7 +285,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                     scale += (nu * m).abs();
                 }
                 None => {
-                    p.add(&item, format!("names unknown component \"{c}\""));
+                    p.add(&item, format!("names unknown component {}", quote(c)));
                     mass_known = false;
                 }
             }
@@ -271,14 +309,17 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
             Some(_) => {
                 p.add(
                     &item,
-                    format!("key \"{k}\" is not a reactant (negative coefficient) of it"),
+                    format!(
+                        "key {} is not a reactant (negative coefficient) of it",
+                        quote(k)
+                    ),
                 );
                 None
             }
             None => {
                 p.add(
                     &item,
-                    format!("key \"{k}\" is not a component of the model"),
+                    format!("key {} is not a component of the model", quote(k)),
                 );
                 None
             }
@@ -293,7 +334,7 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
     }
 
     for u in &units {
-        let item = format!("unit \"{}\"", u.id);
+        let item = format!("unit {}", quote(&u.id));
         if u.inlets.is_empty() {
             p.add(&item, "has no inlet stream");
         }
@@ -321,10 +362,11 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                     for &o in &u.outlets {
                         if streams[o].components != streams[inlet].components {
                             p.add(
-                                format!("stream \"{}\"", streams[o].id),
+                                format!("stream {}", quote(&streams[o].id)),
                                 format!(
-                                    "leaves splitter \"{}\" but does not carry the same components as its inlet \"{}\"",
-                                    u.id, streams[inlet].id
+                                    "leaves splitter {} but does not carry the same components as its inlet {}",
+                                    quote(&u.id),
+                                    quote(&streams[inlet].id)
                                 ),
                             );
                         }
@@ -349,10 +391,11 @@ fn validate(spec: ModelSpec) -> Result<Plant, ModelError> {
                     .any(|&s| streams[s].components.contains(&c));
                 if !carried {
                     p.add(
-                        format!("reaction \"{}\"", reactions[ri].id),
+                        format!("reaction {}", quote(&reactions[ri].id)),
                         format!(
-                            "involves \"{}\" but no stream of unit \"{}\" carries it",
-                            components[c].id, u.id
+                            "involves {} but no stream of unit {} carries it",
+                            quote(&components[c].id),
+                            quote(&u.id)
                         ),
                     );
                 }

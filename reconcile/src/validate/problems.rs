@@ -4,6 +4,8 @@
 use std::collections::{HashMap, HashSet};
 
 use crate::model::ModelProblem;
+use crate::names;
+use crate::text::quote;
 
 /// The problems found so far, each naming its item.
 pub(super) struct Problems(pub(super) Vec<ModelProblem>);
@@ -17,10 +19,13 @@ impl Problems {
     }
 }
 
-/// Index of ids, each empty or repeated id a problem.
+/// Index of ids, each empty or repeated id a problem, and with `checked` each id that is not
+/// a safe name ([`names`]). An unsafe id is still indexed, so that what refers to it is not
+/// also reported as unknown: one problem per id at fault.
 pub(super) fn index_ids<'a>(
     kind: &str,
     ids: impl Iterator<Item = &'a str>,
+    checked: bool,
     problems: &mut Vec<ModelProblem>,
 ) -> HashMap<String, usize> {
     let mut map = HashMap::new();
@@ -33,12 +38,18 @@ pub(super) fn index_ids<'a>(
             });
             continue;
         }
-        if !seen.insert(id.to_string()) {
+        if !seen.insert(id) {
             problems.push(ModelProblem {
-                item: format!("{kind} \"{id}\""),
+                item: format!("{kind} {}", quote(id)),
                 message: "is defined more than once".into(),
             });
             continue;
+        }
+        if let Some(why) = checked.then(|| names::fault(id)).flatten() {
+            problems.push(ModelProblem {
+                item: format!("{kind} {}", quote(id)),
+                message: format!("id {why}"),
+            });
         }
         map.insert(id.to_string(), i);
     }

@@ -2,13 +2,14 @@
 //! each naming the item at fault; TOML and JSON give the same plant; parsing never panics.
 //! This file holds the base model and the helpers; the tests are by kind of problem:
 //! `valid`, `unknown_ids`, `topology`, `mass`, `meters`, `not_finite`, `fields`,
-//! `all_at_once`, `formats`, `never_panics`.
+//! `all_at_once`, `formats`, `never_panics`, `names`.
 
 mod all_at_once;
 mod fields;
 mod formats;
 mod mass;
 mod meters;
+mod names;
 mod never_panics;
 mod not_finite;
 mod topology;

@@ -2,6 +2,10 @@
 //! `type`, a short `title`, the HTTP `status` and a human sentence in `detail`. Where one
 //! request has several things wrong (a model, a batch of readings), `errors` lists each with
 //! the item it names.
+//!
+//! Whatever the input, an answer is small: every problem answer passes [`Problem::bounded`],
+//! which cuts the detail and each listed error to a few hundred characters (escaped, with the
+//! original length said) and lists only the first errors, counting the rest.
 
 use axum::http::{header, HeaderValue, StatusCode};
 use axum::response::{IntoResponse, Response};
@@ -9,6 +13,7 @@ use serde::Serialize;
 use utoipa::ToSchema;
 
 use axum::extract::rejection::QueryRejection;
+use reconcile::text::{clip, clip_lines, quote};
 use reconcile::{ModelError, ModelProblem};
 
 use crate::ingest::BatchError;
@@ -19,6 +24,19 @@ use crate::schedule::RunError;
 use crate::store::StoreError;
 
 pub const CONTENT_TYPE: &str = "application/problem+json";
+
+/// Most characters of `detail`.
+const DETAIL_CHARS: usize = 2_000;
+/// Most characters of an error's `item`.
+const ITEM_CHARS: usize = 300;
+/// Most characters of each line of an error's `message`, and most lines.
+const MESSAGE_LINE_CHARS: usize = 300;
+const MESSAGE_LINES: usize = 12;
+/// Most errors listed one by one.
+pub const MAX_LISTED_ERRORS: usize = 100;
+/// Bytes of JSON the listed errors may take. With the detail's at most 8 KB (2,000 characters
+/// of up to 4 bytes) and the rest, every problem answer stays under 64 KiB.
+const ERRORS_BYTES: usize = 40 * 1024;
 
 /// An RFC 9457 problem details object.
 #[derive(Debug, Clone, Serialize, ToSchema)]
@@ -32,9 +50,13 @@ pub struct Problem {
     pub status: u16,
     /// What went wrong on this request, as a sentence.
     pub detail: String,
-    /// Each problem of the item sent, when there are several (model problems, for example).
+    /// Each problem of the item sent, when there are several (model problems, for example):
+    /// the first 100 at most, as many as fit in 40 KiB.
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub errors: Vec<ItemError>,
+    /// How many problems `errors` leaves out (absent when it lists them all).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub errors_omitted: Option<usize>,
     /// Sent with 401: how to authenticate.
     #[serde(skip)]
     pub challenge: bool,
@@ -56,6 +78,7 @@ impl Problem {
             status: status.as_u16(),
             detail: detail.into(),
             errors: Vec::new(),
+            errors_omitted: None,
             challenge: false,
         }
     }
@@ -108,16 +131,53 @@ impl Problem {
     pub fn unavailable(detail: impl Into<String>) -> Problem {
         Problem::new(StatusCode::SERVICE_UNAVAILABLE, "unavailable", detail)
     }
+
+    /// The answer as sent, whatever the size of what it quotes: the detail and each error
+    /// escaped and cut (reconcile::text::clip), the first errors listed while they fit in
+    /// [`ERRORS_BYTES`] (the first always), the others counted in `errors_omitted` and said
+    /// in the detail.
+    pub fn bounded(mut self) -> Problem {
+        self.detail = clip(&self.detail, DETAIL_CHARS);
+        let total = self.errors.len() + self.errors_omitted.unwrap_or(0);
+        let mut listed = Vec::new();
+        let mut bytes = 0;
+        for e in std::mem::take(&mut self.errors)
+            .into_iter()
+            .take(MAX_LISTED_ERRORS)
+        {
+            let e = ItemError {
+                item: clip(&e.item, ITEM_CHARS),
+                message: clip_lines(&e.message, MESSAGE_LINE_CHARS, MESSAGE_LINES),
+            };
+            // The separating comma included.
+            let size = serde_json::to_vec(&e).map_or(usize::MAX, |v| v.len() + 1);
+            if !listed.is_empty() && bytes + size > ERRORS_BYTES {
+                break;
+            }
+            bytes += size;
+            listed.push(e);
+        }
+        if listed.len() < total {
+            self.detail += &format!(
+                " (errors lists the first {} of {total}; errors_omitted counts the others)",
+                listed.len()
+            );
+            self.errors_omitted = Some(total - listed.len());
+        }
+        self.errors = listed;
+        self
+    }
 }
 
 impl IntoResponse for Problem {
     fn into_response(self) -> Response {
-        let status = StatusCode::from_u16(self.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
-        let body = serde_json::to_vec(&self).unwrap_or_default();
+        let this = self.bounded();
+        let status = StatusCode::from_u16(this.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
+        let body = serde_json::to_vec(&this).unwrap_or_default();
         let mut response = (status, body).into_response();
         let headers = response.headers_mut();
         headers.insert(header::CONTENT_TYPE, HeaderValue::from_static(CONTENT_TYPE));
-        if self.challenge {
+        if this.challenge {
             headers.insert(
                 header::WWW_AUTHENTICATE,
                 HeaderValue::from_static("Bearer realm=\"loopbal\""),
@@ -266,7 +326,7 @@ impl From<ModelError> for Problem {
                     }])
             }
             ModelError::Invalid(problems) => Problem::unprocessable(format!(
-                "the model has {} problem(s); each is listed in errors",
+                "the model has {} problem(s), listed in errors",
                 problems.len()
             ))
             .with_errors(problems.into_iter().map(ItemError::from).collect()),
@@ -279,13 +339,18 @@ impl From<Refusal> for Problem {
         match e {
             Refusal::Model(e) => e.into(),
             Refusal::Misnamed { model, plant } => Problem::unprocessable(format!(
-                "the model is named \"{model}\" but was sent to plant \"{plant}\"; a model is \
-                 stored under its own name, so send it to /api/v1/plants/{model}/model or \
-                 rename it"
+                "the model is named {} but was sent to plant {}; a model is stored under its \
+                 own name, so send it to the plant of its name or rename it",
+                quote(&model),
+                quote(&plant)
             ))
             .with_errors(vec![ItemError {
                 item: "name".into(),
-                message: format!("\"{model}\" differs from the plant \"{plant}\" in the path"),
+                message: format!(
+                    "{} differs from the plant {} in the path",
+                    quote(&model),
+                    quote(&plant)
+                ),
             }]),
             Refusal::HoldsNul(places) => Problem::unprocessable(
                 "the model holds the character U+0000, which no text of a model may hold",
@@ -300,5 +365,55 @@ impl From<Refusal> for Problem {
             }),
             Refusal::Store(e) => e.into(),
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_problem_quoting_megabytes_is_answered_in_kilobytes() {
+        let huge = "\u{202e}=1+2\n".repeat(1_000_000);
+        let mut errors = vec![ItemError {
+            item: format!("meter 0 {huge}"),
+            message: huge.clone(),
+        }];
+        errors.extend((1..10_000).map(|i| ItemError {
+            item: format!("meter {i}"),
+            message: "\u{200b}".repeat(1_000),
+        }));
+        let problem = Problem::unprocessable(format!("bad {huge}")).with_errors(errors);
+        let response = problem.bounded();
+        let body = serde_json::to_vec(&response).unwrap();
+        assert!(body.len() < 64 * 1024, "{} bytes", body.len());
+        let listed = response.errors.len();
+        assert!((1..=MAX_LISTED_ERRORS).contains(&listed), "{listed}");
+        assert_eq!(response.errors_omitted, Some(10_000 - listed));
+        assert!(response.errors[0].item.starts_with("meter 0 "));
+        assert!(
+            response.detail.ends_with(&format!(
+                "(errors lists the first {listed} of 10000; errors_omitted counts the others)"
+            )),
+            "{}",
+            response.detail
+        );
+        let text = String::from_utf8(body).unwrap();
+        assert!(!text.contains('\u{202e}'), "the override is escaped");
+        assert!(text.contains("characters)"), "the cut is said");
+    }
+
+    #[test]
+    fn a_small_problem_is_left_as_it_is() {
+        let problem = Problem::unprocessable("the model has 1 problem(s), listed in errors")
+            .with_errors(vec![ItemError {
+                item: "meter \"T-1\"".into(),
+                message: "is on unknown stream \"nowhere\"".into(),
+            }]);
+        let bounded = problem.clone().bounded();
+        assert_eq!(bounded.detail, problem.detail);
+        assert_eq!(bounded.errors[0].item, problem.errors[0].item);
+        assert_eq!(bounded.errors[0].message, problem.errors[0].message);
+        assert_eq!(bounded.errors_omitted, None);
     }
 }

@@ -1,9 +1,12 @@
 //! The CSV form of readings: a header naming the columns (any order; `quality` optional), then
 //! one reading per line. Lines are numbered as an editor shows them, the header being line 1.
 
-use ::csv::{ByteRecord, ReaderBuilder, Trim};
+use std::collections::HashSet;
 
-use crate::readings::{Place, Problem, RawFields, RawReading, RawValue, ReadingsError};
+use ::csv::{ByteRecord, ReaderBuilder, Trim};
+use reconcile::text::Quoted;
+
+use crate::readings::{Place, Problem, RawFields, RawValue, ReadingsError, Sink};
 
 /// Column positions found in the header.
 struct Columns {
@@ -16,7 +19,11 @@ struct Columns {
 
 const NAMES: [&str; 4] = ["tag", "time", "value", "quality"];
 
-pub fn raw_readings(body: &[u8]) -> Result<Vec<RawReading>, ReadingsError> {
+/// Most unknown columns a bad header's message names; the count covers them all.
+const MAX_NAMED_COLUMNS: usize = 5;
+
+/// Every reading of the body, each handed to `sink` as soon as it is read.
+pub fn raw_readings(body: &[u8], sink: &mut Sink) -> Result<(), ReadingsError> {
     // Byte records, not string records: a line that is not UTF-8 becomes a reported bad line
     // instead of stopping the reader. `flexible` for the same reason with a wrong field count.
     let mut reader = ReaderBuilder::new()
@@ -36,11 +43,13 @@ pub fn raw_readings(body: &[u8]) -> Result<Vec<RawReading>, ReadingsError> {
         Some(Ok(h)) => h,
     };
     let mut lines = LineCounter::new(body);
-    let columns = columns(&header, lines.place(&header))?;
-    let mut raw = Vec::new();
+    let at = lines.place(&header);
+    let columns = columns(&header, at, body)?;
+    // The header's fields can be megabytes: let them go before the readings are read.
+    drop(header);
     for record in records {
         match record {
-            Ok(r) => raw.push((lines.place(&r), fields(&r, &columns))),
+            Ok(r) => sink(lines.place(&r), fields(&r, &columns)),
             Err(e) => {
                 // Reading from memory the csv reader fails only on malformed input; its own
                 // message carries the position. Nothing after it can be trusted to line up.
@@ -48,7 +57,7 @@ pub fn raw_readings(body: &[u8]) -> Result<Vec<RawReading>, ReadingsError> {
             }
         }
     }
-    Ok(raw)
+    Ok(())
 }
 
 /// Physical line numbers of records. The csv reader's own line count starts a record where
@@ -90,44 +99,74 @@ impl<'a> LineCounter<'a> {
     }
 }
 
-fn columns(header: &ByteRecord, at: Place) -> Result<Columns, ReadingsError> {
-    let original: Vec<String> = header
+/// The known column a header field names (any case), if any.
+fn known(field: &[u8]) -> Option<&'static str> {
+    NAMES
         .iter()
-        .map(|f| String::from_utf8_lossy(f).into_owned())
-        .collect();
-    let names: Vec<String> = original.iter().map(|n| n.to_ascii_lowercase()).collect();
-    let known = |n: &str| NAMES.contains(&n);
+        .find(|n| field.eq_ignore_ascii_case(n.as_bytes()))
+        .copied()
+}
+
+/// The columns of the header. A bad header is described in a message of bounded size: the
+/// first few unknown columns named (quoted, cut), the rest counted. The header's fields are
+/// looked at in place, never copied one by one.
+fn columns(header: &ByteRecord, at: Place, body: &[u8]) -> Result<Columns, ReadingsError> {
     // A first line with no known column name is data, not a header.
-    if !names.iter().any(|n| known(n)) {
+    if !header.iter().any(|f| known(f).is_some()) {
+        let first = body.split(|&b| b == b'\n').next().unwrap_or_default();
+        let first = first.strip_suffix(b"\r").unwrap_or(first);
         return Err(ReadingsError::File(format!(
             "{at}: missing header: expected a first line naming the columns tag, time, value \
-             and optionally quality; found \"{}\"",
-            original.join(",")
+             and optionally quality; found {}",
+            Quoted::new(&String::from_utf8_lossy(first))
         )));
     }
     let mut problems = Vec::new();
-    for (i, n) in names.iter().enumerate() {
-        if !known(n) {
-            problems.push(format!(
-                "unknown column \"{n}\" (expected tag, time, value, quality)"
-            ));
-        } else if names[..i].contains(n) {
-            problems.push(format!("column \"{n}\" appears twice"));
+    let mut unknown = 0;
+    let mut seen: HashSet<&'static str> = HashSet::new();
+    let mut repeated: HashSet<&'static str> = HashSet::new();
+    let mut place: [Option<usize>; 4] = [None; 4];
+    for (i, field) in header.iter().enumerate() {
+        match known(field) {
+            None => {
+                unknown += 1;
+                if unknown <= MAX_NAMED_COLUMNS {
+                    problems.push(format!(
+                        "unknown column {} (expected tag, time, value, quality)",
+                        Quoted::new(&String::from_utf8_lossy(field))
+                    ));
+                }
+            }
+            Some(name) if !seen.insert(name) => {
+                // Said once per name, however often it repeats.
+                if repeated.insert(name) {
+                    problems.push(format!("column \"{name}\" appears twice"));
+                }
+            }
+            Some(name) => {
+                let k = NAMES.iter().position(|n| *n == name).unwrap_or(0);
+                place[k] = Some(i);
+            }
         }
     }
-    let find = |name: &str| names.iter().position(|n| n == name);
-    for required in &NAMES[..3] {
-        if find(required).is_none() {
+    if unknown > MAX_NAMED_COLUMNS {
+        problems.push(format!(
+            "and {} more unknown column(s)",
+            unknown - MAX_NAMED_COLUMNS
+        ));
+    }
+    for (required, found) in NAMES[..3].iter().zip(place) {
+        if found.is_none() {
             problems.push(format!("the header has no column \"{required}\""));
         }
     }
-    match (find("tag"), find("time"), find("value")) {
-        (Some(tag), Some(time), Some(value)) if problems.is_empty() => Ok(Columns {
+    match place {
+        [Some(tag), Some(time), Some(value), quality] if problems.is_empty() => Ok(Columns {
             tag,
             time,
             value,
-            quality: find("quality"),
-            width: names.len(),
+            quality,
+            width: header.len(),
         }),
         _ => Err(ReadingsError::File(format!(
             "{at}: bad header: {}",

@@ -7,6 +7,7 @@ use std::fmt;
 use std::path::Path;
 
 use chrono::{DateTime, Datelike, TimeZone, Utc};
+use reconcile::text::Quoted;
 use reconcile::{Plant, Quality, Reading};
 
 mod csv;
@@ -57,25 +58,29 @@ impl fmt::Display for Place {
     }
 }
 
-/// What is wrong with one reading.
+/// What is wrong with one reading. The text of a field is held [`Quoted`]: escaped and cut to
+/// a few hundred characters, so a bad line costs little memory and its message is short,
+/// whatever the line's length.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum Problem {
     #[error("tag is empty")]
     EmptyTag,
-    #[error("unknown tag \"{0}\" (no meter of the model has it)")]
-    UnknownTag(String),
+    /// No meter has the tag, or it is not a safe name (reconcile::names), which no meter
+    /// admitted now can have.
+    #[error("unknown tag {0} (no meter of the model has it)")]
+    UnknownTag(Quoted),
     #[error("time is empty")]
     EmptyTime,
-    #[error("time \"{text}\" is not RFC 3339 ({reason})")]
-    BadTime { text: String, reason: String },
+    #[error("time {text} is not RFC 3339 ({reason})")]
+    BadTime { text: Quoted, reason: String },
     #[error("value is empty")]
     EmptyValue,
-    #[error("value \"{0}\" is not a number")]
-    NotANumber(String),
+    #[error("value {0} is not a number")]
+    NotANumber(Quoted),
     #[error("value {0} is not a finite number")]
-    NotFinite(String),
-    #[error("quality \"{0}\" is not one of good, uncertain, bad")]
-    BadQuality(String),
+    NotFinite(Quoted),
+    #[error("quality {0} is not one of good, uncertain, bad")]
+    BadQuality(Quoted),
     #[error("has {found} field(s) but the header names {expected}")]
     FieldCount { found: usize, expected: usize },
     #[error("is not UTF-8 text")]
@@ -104,15 +109,75 @@ impl fmt::Display for BadReading {
     }
 }
 
+/// The bad readings of a body: the first ones (by place) with their problems, and how many
+/// there are in all. Those past the first are counted, not kept: a body bad throughout
+/// costs the memory of its listing, not of its lines.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BadList {
+    pub listed: Vec<BadReading>,
+    pub total: usize,
+    limit: usize,
+}
+
+impl BadList {
+    /// An empty list that keeps the first `limit` bad readings.
+    pub fn new(limit: usize) -> BadList {
+        BadList {
+            listed: Vec::new(),
+            total: 0,
+            limit,
+        }
+    }
+
+    /// Count a bad reading; keep it when it is among the first. Readings come in place order.
+    pub fn push(&mut self, bad: BadReading) {
+        self.total += 1;
+        if self.listed.len() < self.limit {
+            self.listed.push(bad);
+        }
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.total == 0
+    }
+
+    /// Both lists as one: the first of the two together by place (the first `limit` of the
+    /// union are among the first `limit` of each), every one counted.
+    pub fn merge(self, other: BadList) -> BadList {
+        let limit = self.limit.min(other.limit);
+        let mut listed: Vec<BadReading> = self.listed.into_iter().chain(other.listed).collect();
+        listed.sort_by_key(|b| b.place.order());
+        listed.truncate(limit);
+        BadList {
+            listed,
+            total: self.total + other.total,
+            limit,
+        }
+    }
+}
+
+impl Place {
+    /// Position in the body, for ordering.
+    fn order(&self) -> u64 {
+        match *self {
+            Place::Line(n) => n,
+            Place::Index(i) => i as u64,
+        }
+    }
+}
+
+/// Most bad readings a file's error lists one by one; the count covers them all.
+pub const MAX_LISTED_BAD: usize = 50;
+
 /// Why a readings file cannot be used.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum ReadingsError {
     /// The file as a whole is unusable (no header, not JSON, wrong shape).
     #[error("{0}")]
     File(String),
-    /// Some readings are bad; every one is listed.
-    #[error("{} bad reading(s)", .0.len())]
-    Bad(Vec<BadReading>),
+    /// Some readings are bad: the first [`MAX_LISTED_BAD`] listed, all counted.
+    #[error("{} bad reading(s)", .0.total)]
+    Bad(BadList),
 }
 
 /// A later reading of the same (tag, time) that replaced an earlier one.
@@ -152,7 +217,9 @@ pub fn detect(path: &Path, bytes: &[u8]) -> Format {
 }
 
 pub fn parse(bytes: &[u8], format: Format, plant: &Plant) -> Result<Readings, ReadingsError> {
-    let sorted = sort(bytes, format, &|tag| plant.meter_index(tag).is_some())?;
+    let tags: std::collections::HashSet<&str> =
+        plant.meters.iter().map(|m| m.tag.as_str()).collect();
+    let sorted = sort(bytes, format, &|tag| tags.contains(tag), MAX_LISTED_BAD)?;
     if !sorted.bad.is_empty() {
         return Err(ReadingsError::Bad(sorted.bad));
     }
@@ -181,32 +248,36 @@ pub fn parse(bytes: &[u8], format: Format, plant: &Plant) -> Result<Readings, Re
 }
 
 /// A batch split into the readings that passed every check, in the order given, and the bad
-/// ones with all their problems. Repeats of one (tag, instant) are left to the caller.
+/// ones (the first `listed` with all their problems, every one counted). Repeats of one (tag,
+/// instant) are left to the caller.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Sorted {
     pub good: Vec<(Place, Reading)>,
-    pub bad: Vec<BadReading>,
+    pub bad: BadList,
 }
 
 /// Check every reading of a body; `known` says whether a tag belongs to a meter. Fails as a
 /// whole only when the body has no readable structure (no header, not JSON, wrong shape).
+/// Each reading is checked as it is read, so the memory used is that of the good readings
+/// and of the first `listed` bad ones, not of the whole body again.
 pub fn sort(
     bytes: &[u8],
     format: Format,
     known: &dyn Fn(&str) -> bool,
+    listed: usize,
 ) -> Result<Sorted, ReadingsError> {
     let body = bytes.strip_prefix(BOM).unwrap_or(bytes);
-    let raw = match format {
-        Format::Csv => csv::raw_readings(body)?,
-        Format::Json => json::raw_readings(body)?,
+    let mut good = Vec::new();
+    let mut bad = BadList::new(listed);
+    let mut take = |place: Place, fields: Result<RawFields, Vec<Problem>>| match fields
+        .and_then(|f| check(&f, known))
+    {
+        Ok(reading) => good.push((place, reading)),
+        Err(problems) => bad.push(BadReading { place, problems }),
     };
-    let mut good = Vec::with_capacity(raw.len());
-    let mut bad = Vec::new();
-    for (place, fields) in raw {
-        match fields.and_then(|f| check(&f, known)) {
-            Ok(reading) => good.push((place, reading)),
-            Err(problems) => bad.push(BadReading { place, problems }),
-        }
+    match format {
+        Format::Csv => csv::raw_readings(body, &mut take)?,
+        Format::Json => json::raw_readings(body, &mut take)?,
     }
     Ok(Sorted { good, bad })
 }
@@ -228,8 +299,9 @@ pub struct RawFields {
     pub quality: Option<String>,
 }
 
-/// A reading's place and either its fields or what made them unreadable.
-pub type RawReading = (Place, Result<RawFields, Vec<Problem>>);
+/// Where each reading of a body goes as it is read: its place and either its fields or what
+/// made them unreadable.
+pub type Sink<'a> = dyn FnMut(Place, Result<RawFields, Vec<Problem>>) + 'a;
 
 /// Instants are kept to the millisecond, as the service stores them (integer Unix
 /// milliseconds, floored), so `loopbal reconcile` and the service see the same instants: two
@@ -248,8 +320,10 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
     let tag = f.tag.trim();
     if tag.is_empty() {
         problems.push(Problem::EmptyTag);
-    } else if !known(tag) {
-        problems.push(Problem::UnknownTag(tag.to_string()));
+    } else if !reconcile::names::is_safe(tag) || !known(tag) {
+        // A tag outside the safe names is refused even if a model stored before that rule
+        // has it: it would reach reports, downloads and logs.
+        problems.push(Problem::UnknownTag(Quoted::new(tag)));
     }
     let time_text = f.time.trim();
     let time = if time_text.is_empty() {
@@ -261,7 +335,7 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
             // carries a time past 9999 in UTC could not be reported.
             Ok(t) if !supported(t.with_timezone(&Utc)) => {
                 problems.push(Problem::BadTime {
-                    text: time_text.to_string(),
+                    text: Quoted::new(time_text),
                     reason: "outside the supported instants, the years 0000 to 9998 in UTC".into(),
                 });
                 None
@@ -269,7 +343,7 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
             Ok(t) => Some(to_millisecond(t.with_timezone(&Utc))),
             Err(e) => {
                 problems.push(Problem::BadTime {
-                    text: time_text.to_string(),
+                    text: Quoted::new(time_text),
                     reason: e.to_string(),
                 });
                 None
@@ -281,11 +355,11 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
         RawValue::Text(t) if t.trim().is_empty() => Err(Problem::EmptyValue),
         RawValue::Text(t) => match t.trim().parse::<f64>() {
             Ok(v) if v.is_finite() => Ok(v),
-            Ok(_) => Err(Problem::NotFinite(format!("\"{}\"", t.trim()))),
-            Err(_) => Err(Problem::NotANumber(t.trim().to_string())),
+            Ok(_) => Err(Problem::NotFinite(Quoted::new(t.trim()))),
+            Err(_) => Err(Problem::NotANumber(Quoted::new(t.trim()))),
         },
         RawValue::Number(v) if v.is_finite() => Ok(*v),
-        RawValue::Number(v) => Err(Problem::NotFinite(v.to_string())),
+        RawValue::Number(v) => Err(Problem::NotFinite(Quoted::new(&v.to_string()))),
     };
     let value = value.map_err(|p| problems.push(p)).ok();
     // The words are the contract's; case is forgiven because historians disagree on it.
@@ -297,7 +371,7 @@ fn check(f: &RawFields, known: &dyn Fn(&str) -> bool) -> Result<Reading, Vec<Pro
         .to_ascii_lowercase();
     let quality = Quality::parse(&quality_text).or_else(|| {
         let original = f.quality.as_deref().unwrap_or("").trim();
-        problems.push(Problem::BadQuality(original.to_string()));
+        problems.push(Problem::BadQuality(Quoted::new(original)));
         None
     });
     match (time, value, quality) {
@@ -346,12 +420,16 @@ mod tests {
     fn crlf_bom_and_blank_lines_keep_physical_line_numbers() {
         let text = "\u{feff}tag,time,value\r\n\r\nT-1,2026-03-02T05:00:00Z,1\r\n\r\n\r\nT-1,2026-03-02T05:00:00Z,x\r\n";
         let err = parse(text.as_bytes(), Format::Csv, &plant()).expect_err("line 6 is bad");
+        let ReadingsError::Bad(bad) = err else {
+            panic!("expected bad readings, got {err:?}");
+        };
+        assert_eq!(bad.total, 1);
         assert_eq!(
-            err,
-            ReadingsError::Bad(vec![BadReading {
+            bad.listed,
+            [BadReading {
                 place: Place::Line(6),
                 problems: vec![Problem::NotANumber("x".into())],
-            }])
+            }]
         );
     }
 
@@ -397,8 +475,118 @@ mod tests {
         let Err(ReadingsError::Bad(bad)) = parse(text.as_bytes(), Format::Csv, &plant()) else {
             panic!("expected bad readings");
         };
-        assert_eq!(bad.len(), 1);
-        assert_eq!(bad[0].problems.len(), 4, "{}", bad[0]);
+        assert_eq!(bad.total, 1);
+        assert_eq!(bad.listed[0].problems.len(), 4, "{}", bad.listed[0]);
+    }
+
+    fn file_error(text: &str, format: Format) -> String {
+        match sort(text.as_bytes(), format, &|_| true, MAX_LISTED_BAD) {
+            Err(ReadingsError::File(message)) => message,
+            other => panic!("expected the file refused, got {other:?}"),
+        }
+    }
+
+    #[test]
+    fn a_header_of_many_unknown_columns_is_refused_in_a_short_message() {
+        let mut header = String::from("tag,time,value");
+        for k in 0..200_000 {
+            header += &format!(",c{k}");
+        }
+        header += ",tag,tag,\u{202e}\n";
+        let message = file_error(&header, Format::Csv);
+        assert!(message.len() < 1_000, "{} bytes: {message}", message.len());
+        assert!(
+            message.starts_with(
+                "line 1: bad header: unknown column \"c0\" (expected tag, time, value, quality); \
+                 unknown column \"c1\""
+            ),
+            "{message}"
+        );
+        assert!(
+            message.contains("and 199996 more unknown column(s)"),
+            "{message}"
+        );
+        assert_eq!(message.matches("column \"tag\" appears twice").count(), 1);
+
+        // A first line without any known column, a megabyte long, is quoted cut.
+        let line = format!("{}\n", "z\u{200b}".repeat(500_000));
+        let message = file_error(&line, Format::Csv);
+        assert!(message.len() < 1_000, "{message}");
+        assert!(message.contains("…\" (1000000 characters)"), "{message}");
+        assert!(!message.contains('\u{200b}'), "{message}");
+    }
+
+    #[test]
+    fn json_readings_are_read_one_by_one_and_the_shape_is_checked() {
+        let body = r#"{"other": {"x": [1, 2]}, "readings": [
+            {"tag": "T-1", "time": "2026-03-02T05:00:00Z", "value": 1},
+            7,
+            {"tag": "T-1", "time": "2026-03-02T06:00:00Z", "value": "1"}
+        ]}"#;
+        let sorted = sort(body.as_bytes(), Format::Json, &|t| t == "T-1", 1).unwrap();
+        assert_eq!(sorted.good.len(), 1);
+        assert_eq!(sorted.bad.total, 2);
+        assert_eq!(
+            sorted.bad.listed,
+            [BadReading {
+                place: Place::Index(1),
+                problems: vec![Problem::NotAnObject]
+            }]
+        );
+        for (body, says) in [
+            ("[]", "expected a JSON object"),
+            ("{\"rows\": []}", "the key \"readings\" is missing"),
+            ("{\"readings\": {\"0\": {}}}", "expected a JSON object"),
+            (
+                "{\"readings\": [], \"readings\": []}",
+                "the key \"readings\" appears twice",
+            ),
+            ("{\"readings\": []} and more", "not valid JSON"),
+            ("{\"readings\": [", "not valid JSON"),
+        ] {
+            let message = file_error(body, Format::Json);
+            assert!(message.contains(says), "{body}: {message}");
+        }
+        // A key of a megabyte is not repeated back.
+        let body = format!("{{\"{}\": 1, \"readings\": [}}", "k".repeat(1_000_000));
+        assert!(file_error(&body, Format::Json).len() < 1_000);
+    }
+
+    #[test]
+    fn a_tag_outside_the_safe_names_is_an_unknown_tag_quoted_safely() {
+        let text =
+            "tag,time,value\n=1+2,2026-03-02T05:00:00Z,1\n\"T-1\u{202e}\",2026-03-02T05:00:00Z,1\n";
+        // Even were a meter to have them (a model stored before the rule).
+        let sorted = sort(text.as_bytes(), Format::Csv, &|_| true, 10).unwrap();
+        assert!(sorted.good.is_empty());
+        let reasons: Vec<String> = sorted
+            .bad
+            .listed
+            .iter()
+            .map(|b| b.problems[0].to_string())
+            .collect();
+        assert_eq!(
+            reasons,
+            [
+                "unknown tag \"=1+2\" (no meter of the model has it)",
+                "unknown tag \"T-1\\u{202e}\" (no meter of the model has it)"
+            ]
+        );
+    }
+
+    #[test]
+    fn a_file_bad_throughout_keeps_only_its_first_bad_lines() {
+        let mut text = String::from("tag,time,value\n");
+        for _ in 0..20_000 {
+            text += &format!("T-1,{},1\n", "n".repeat(300));
+        }
+        let Err(ReadingsError::Bad(bad)) = parse(text.as_bytes(), Format::Csv, &plant()) else {
+            panic!("expected bad readings");
+        };
+        assert_eq!(bad.total, 20_000);
+        assert_eq!(bad.listed.len(), MAX_LISTED_BAD);
+        assert_eq!(bad.listed[0].place, Place::Line(2));
+        assert!(bad.listed[0].to_string().len() < 500, "{}", bad.listed[0]);
     }
 
     #[test]

@@ -6,6 +6,7 @@
 use std::collections::BTreeMap;
 
 use chrono::{DateTime, Utc};
+use reconcile::text::quote;
 use serde::Serialize;
 use utoipa::ToSchema;
 
@@ -83,7 +84,8 @@ pub fn series(
     if let Some(name) = name {
         if !names.is_empty() && !names.iter().any(|n| n == name) {
             return Err(ResultsError::NoSuchFigure(format!(
-                "no figure named \"{name}\" in the range; the figures there are: {}",
+                "no figure named {} in the range; the figures there are: {}",
+                quote(name),
                 names.join(", ")
             )));
         }
@@ -101,8 +103,10 @@ pub fn series(
             subjects.sort_unstable();
             subjects.dedup();
             return Err(ResultsError::NoSuchFigure(format!(
-                "no figure of subject \"{subject}\"{} in the range; the subjects there are: {}",
-                name.map(|n| format!(" named \"{n}\"")).unwrap_or_default(),
+                "no figure of subject {}{} in the range; the subjects there are: {}",
+                quote(subject),
+                name.map(|n| format!(" named {}", quote(n)))
+                    .unwrap_or_default(),
                 subjects.join(", ")
             )));
         }
@@ -170,30 +174,24 @@ pub fn series(
     })
 }
 
-/// The series as CSV (`text/csv`): `period_start,name,subject,uom,value,sigma`, series after series, empty
-/// cells for null. Numbers are written in Rust's shortest form that reads back as the same
-/// f64, so the CSV and JSON answers agree number for number.
+/// The series as CSV (`text/csv`): `period_start,name,subject,uom,value,sigma`, series after
+/// series, empty cells for null. Numbers are written in Rust's shortest form that reads back as
+/// the same f64, so the CSV and JSON answers agree number for number; text cells that begin
+/// like a formula are neutralised (crate::csv_out).
 pub fn to_csv(answer: &FigureSeriesList) -> Result<Vec<u8>, csv::Error> {
-    let mut out = csv::Writer::from_writer(Vec::new());
-    let write = |out: &mut csv::Writer<Vec<u8>>| -> Result<(), csv::Error> {
-        out.write_record(["period_start", "name", "subject", "uom", "value", "sigma"])?;
-        let number = |v: Option<f64>| v.map(|v| v.to_string()).unwrap_or_default();
-        for s in &answer.series {
-            for p in &s.points {
-                out.write_record([
-                    p.period_start.as_str(),
-                    &s.name,
-                    &s.subject,
-                    &s.uom,
-                    &number(p.value),
-                    &number(p.sigma),
-                ])?;
-            }
+    use crate::csv_out::{Cell, Table};
+    let mut table = Table::new(&["period_start", "name", "subject", "uom", "value", "sigma"])?;
+    for s in &answer.series {
+        for p in &s.points {
+            table.row(&[
+                Cell::Text(&p.period_start),
+                Cell::Text(&s.name),
+                Cell::Text(&s.subject),
+                Cell::Text(&s.uom),
+                Cell::Number(p.value),
+                Cell::Number(p.sigma),
+            ])?;
         }
-        out.flush()?;
-        Ok(())
-    };
-    write(&mut out)?;
-    out.into_inner()
-        .map_err(|e| csv::Error::from(e.into_error()))
+    }
+    table.finish()
 }

@@ -325,8 +325,9 @@ pub async fn detail(
     let count = list.meters.len();
     let Some(meter) = list.meters.into_iter().find(|m| m.tag == tag) else {
         return Err(ResultsError::NotFound(format!(
-            "plant \"{}\" has no meter \"{tag}\" in its current model ({count} meters)",
-            plant.name
+            "plant \"{}\" has no meter {} in its current model ({count} meters)",
+            plant.name,
+            reconcile::text::quote(tag)
         )));
     };
     let notes = service.store.notes(plant, Some(tag)).await?;
@@ -505,8 +506,9 @@ pub async fn add_note(
         .any(|r| r.spec.meters.iter().any(|m| m.tag == tag))
     {
         return Err(ResultsError::NotFound(format!(
-            "plant \"{}\" has no meter \"{tag}\"",
-            plant.name
+            "plant \"{}\" has no meter {}",
+            plant.name,
+            reconcile::text::quote(tag)
         )));
     }
     let draft = NoteDraft {

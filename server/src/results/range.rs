@@ -17,8 +17,9 @@ pub fn rfc3339(t: DateTime<Utc>) -> String {
 
 /// An RFC 3339 time given as `name`, among the supported instants, or a refusal naming it.
 pub fn parse_time(name: &str, text: &str) -> Result<DateTime<Utc>, ResultsError> {
-    crate::readings::instant(text)
-        .map_err(|e| ResultsError::Refused(format!("{name} \"{text}\" is {e}")))
+    crate::readings::instant(text).map_err(|e| {
+        ResultsError::Refused(format!("{name} {} is {e}", reconcile::text::quote(text)))
+    })
 }
 
 /// The periods of a range.

@@ -88,7 +88,9 @@ impl Models {
 
 fn validate(plant: &PlantRow, rev: ModelRevision) -> Result<Arc<Plant>, RevisionError> {
     let revision = rev.revision;
-    Plant::new(rev.spec)
+    // Admitted under the rules of its day: a revision stored before the rule on names keeps
+    // working (its names are quoted and neutralised where they are written).
+    Plant::revalidate(rev.spec)
         .map(Arc::new)
         .map_err(|e| RevisionError::Invalid {
             plant: plant.name.clone(),
