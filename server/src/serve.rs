@@ -1,9 +1,15 @@
 //! `loopbal serve`: open (or create) the database, bind, serve until SIGINT or SIGTERM, then
 //! finish the requests in flight, close the database and exit.
 
+use std::future::Future;
 use std::net::SocketAddr;
+use std::time::Duration;
 
 use anyhow::Context;
+use axum::Router;
+use hyper_util::rt::{TokioIo, TokioTimer};
+use hyper_util::server::graceful::GracefulShutdown;
+use hyper_util::service::TowerToHyperService;
 use tokio::net::TcpListener;
 
 use crate::api::{self, AppState, Limits};
@@ -48,10 +54,7 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
     // One plain line on stdout for scripts and tests that started us on port 0.
     println!("loopbal: listening on http://{addr}");
     tracing::info!(%addr, database = %redacted(&opts.database), instance = %instance, "serving");
-    axum::serve(listener, router)
-        .with_graceful_shutdown(shutdown_signal())
-        .await
-        .context("serving HTTP")?;
+    serve_http(listener, router, &opts.limits, shutdown_signal()).await;
     // The worker finishes the run it is in (its report is stored whole) and stops.
     let _ = stop_tx.send(true);
     if let Err(e) = worker.await {
@@ -62,6 +65,59 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
     store.close().await;
     tracing::info!("stopped");
     Ok(())
+}
+
+/// Serve `router` over HTTP/1 on `listener` until `shutdown` completes; then accept no more
+/// connections, let each finish the request it is in (idle ones close at once) and return when
+/// all have.
+///
+/// Served by hand rather than by `axum::serve` for hyper's header read timeout: a client that
+/// has not sent its whole request head within `limits.header_timeout` is cut off, and the
+/// timer only costs a wake-up, never a thread.
+pub async fn serve_http(
+    listener: TcpListener,
+    router: Router,
+    limits: &Limits,
+    shutdown: impl Future<Output = ()>,
+) {
+    let mut http = hyper::server::conn::http1::Builder::new();
+    http.timer(TokioTimer::new())
+        .header_read_timeout(limits.header_timeout);
+    let connections = GracefulShutdown::new();
+    let mut shutdown = std::pin::pin!(shutdown);
+    loop {
+        let stream = tokio::select! {
+            accepted = listener.accept() => match accepted {
+                Ok((stream, _)) => stream,
+                Err(e) => {
+                    refused_accept(e).await;
+                    continue;
+                }
+            },
+            () = &mut shutdown => break,
+        };
+        let service = TowerToHyperService::new(router.clone());
+        let connection = connections.watch(http.serve_connection(TokioIo::new(stream), service));
+        tokio::spawn(async move {
+            // A client that went away or was cut off is its own business, not an error of ours.
+            if let Err(e) = connection.await {
+                tracing::debug!(error = %e, "connection ended");
+            }
+        });
+    }
+    drop(listener);
+    connections.shutdown().await;
+}
+
+/// A failed accept: a connection reset before it was taken is nothing; anything else (out of
+/// file descriptors, say) is logged and retried after a pause, so the loop does not spin.
+async fn refused_accept(e: std::io::Error) {
+    use std::io::ErrorKind::{ConnectionAborted, ConnectionRefused, ConnectionReset};
+    if matches!(e.kind(), ConnectionAborted | ConnectionRefused | ConnectionReset) {
+        return;
+    }
+    tracing::error!(error = %e, "cannot accept a connection");
+    tokio::time::sleep(Duration::from_secs(1)).await;
 }
 
 async fn shutdown_signal() {

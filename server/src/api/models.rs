@@ -96,6 +96,19 @@ pub async fn put_model(
     headers: HeaderMap,
     body: Result<Bytes, BytesRejection>,
 ) -> Result<Response, Problem> {
+    // What the body is comes before what the query or the body hold: a body of the wrong
+    // kind is refused without being read.
+    let format = match media_type(&headers).as_deref() {
+        Some("application/json") => ModelFormat::Json,
+        Some(m) if m.ends_with("+json") => ModelFormat::Json,
+        Some("application/toml" | "text/toml" | "text/x-toml") => ModelFormat::Toml,
+        other => {
+            return Err(Problem::unsupported_media(format!(
+                "a model is sent as application/toml or application/json, not {}",
+                other.unwrap_or("a body without Content-Type")
+            )))
+        }
+    };
     let Query(query) = query?;
     let effective_from = match query.effective_from.as_deref() {
         None => Utc::now(),
@@ -109,17 +122,6 @@ pub async fn put_model(
             "the model is not UTF-8 text (invalid byte at line {line}, offset {at})"
         ))
     })?;
-    let format = match media_type(&headers).as_deref() {
-        Some("application/json") => ModelFormat::Json,
-        Some(m) if m.ends_with("+json") => ModelFormat::Json,
-        Some("application/toml" | "text/toml" | "text/x-toml") => ModelFormat::Toml,
-        other => {
-            return Err(Problem::unsupported_media(format!(
-                "a model is sent as application/toml or application/json, not {}",
-                other.unwrap_or("a body without Content-Type")
-            )))
-        }
-    };
     let plant = &access.name;
     let stored = admit::admit(&state.store, plant, text, format, effective_from).await?;
     let mut response = (StatusCode::CREATED, Json(summary(plant, &stored))).into_response();
