@@ -167,7 +167,12 @@ pub enum Command {
         body_idle_timeout: u64,
         /// Least average rate of a request body, in bytes a second, once --body-rate-grace has
         /// passed; a slower body is abandoned with 408. 0 turns this rule off.
-        #[arg(long, value_name = "BYTES", default_value_t = 1024, env = "LOOPBAL_MIN_BODY_RATE")]
+        #[arg(
+            long,
+            value_name = "BYTES",
+            default_value_t = 1024,
+            env = "LOOPBAL_MIN_BODY_RATE"
+        )]
         min_body_rate: u64,
         /// Seconds a request body may take before its average rate is held to
         /// --min-body-rate.

@@ -102,9 +102,7 @@ fn main() -> ExitCode {
                             max_body_bytes: *max_body_bytes,
                             request_timeout: std::time::Duration::from_secs(*request_timeout),
                             header_timeout: std::time::Duration::from_secs(*header_timeout),
-                            body_idle_timeout: std::time::Duration::from_secs(
-                                *body_idle_timeout,
-                            ),
+                            body_idle_timeout: std::time::Duration::from_secs(*body_idle_timeout),
                             min_body_rate: *min_body_rate,
                             body_rate_grace: std::time::Duration::from_secs(*body_rate_grace),
                         },

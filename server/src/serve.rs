@@ -113,7 +113,10 @@ pub async fn serve_http(
 /// file descriptors, say) is logged and retried after a pause, so the loop does not spin.
 async fn refused_accept(e: std::io::Error) {
     use std::io::ErrorKind::{ConnectionAborted, ConnectionRefused, ConnectionReset};
-    if matches!(e.kind(), ConnectionAborted | ConnectionRefused | ConnectionReset) {
+    if matches!(
+        e.kind(),
+        ConnectionAborted | ConnectionRefused | ConnectionReset
+    ) {
         return;
     }
     tracing::error!(error = %e, "cannot accept a connection");

@@ -241,7 +241,11 @@ async fn the_role_is_checked_before_the_path_the_query_and_the_body_on_every_rou
                     };
                     let what = format!("{method} {url} {ctype:?}");
                     let r = req(None).send().await.unwrap();
-                    assert_eq!(r.status(), StatusCode::UNAUTHORIZED, "{what} without a token");
+                    assert_eq!(
+                        r.status(),
+                        StatusCode::UNAUTHORIZED,
+                        "{what} without a token"
+                    );
                     problem(r, StatusCode::UNAUTHORIZED).await;
                     for (name, tok) in roles {
                         if name == role {

@@ -171,10 +171,20 @@ async fn a_trickled_or_stalled_body_gets_408_well_before_the_request_timeout() {
     })
     .await
     .unwrap();
-    assert!(raw.status_line().starts_with("HTTP/1.1 408"), "{}", raw.text());
+    assert!(
+        raw.status_line().starts_with("HTTP/1.1 408"),
+        "{}",
+        raw.text()
+    );
     let p = raw.problem(408);
     assert_eq!(p["type"], "urn:loopbal:problem:body-too-slow", "{p}");
-    assert!(p["detail"].as_str().unwrap().contains("1024 bytes a second"), "{p}");
+    assert!(
+        p["detail"]
+            .as_str()
+            .unwrap()
+            .contains("1024 bytes a second"),
+        "{p}"
+    );
     assert!(waited < Duration::from_secs(5), "answered after {waited:?}");
     assert!(raw.closed, "the connection is closed after the 408");
 
@@ -198,7 +208,11 @@ async fn a_trickled_or_stalled_body_gets_408_well_before_the_request_timeout() {
     })
     .await
     .unwrap();
-    assert!(raw.status_line().starts_with("HTTP/1.1 408"), "{}", raw.text());
+    assert!(
+        raw.status_line().starts_with("HTTP/1.1 408"),
+        "{}",
+        raw.text()
+    );
     let p = raw.problem(408);
     assert!(p["detail"].as_str().unwrap().contains("every 1 s"), "{p}");
     assert!(waited < Duration::from_secs(4), "answered after {waited:?}");
@@ -207,7 +221,11 @@ async fn a_trickled_or_stalled_body_gets_408_well_before_the_request_timeout() {
     let c = unpooled();
     for plant in ["trickled", "stalled"] {
         let server = if plant == "trickled" { &s } else { &idle };
-        let tok = if plant == "trickled" { &t.admin } else { &admin2 };
+        let tok = if plant == "trickled" {
+            &t.admin
+        } else {
+            &admin2
+        };
         let r = c
             .get(server.url(&format!("/api/v1/plants/{plant}/model")))
             .bearer_auth(tok)
@@ -216,7 +234,15 @@ async fn a_trickled_or_stalled_body_gets_408_well_before_the_request_timeout() {
             .unwrap();
         problem(r, StatusCode::NOT_FOUND).await;
     }
-    let r = put_model(&c, &s, &t.admin, PLANT, &ombrask_model(), "application/toml").await;
+    let r = put_model(
+        &c,
+        &s,
+        &t.admin,
+        PLANT,
+        &ombrask_model(),
+        "application/toml",
+    )
+    .await;
     assert_eq!(r.status(), StatusCode::CREATED);
     let m = metrics(&c, &s).await;
     assert!(m.contains("status=\"408\""), "{m}");
@@ -226,7 +252,11 @@ async fn a_trickled_or_stalled_body_gets_408_well_before_the_request_timeout() {
 async fn a_declared_length_over_the_limit_gets_413_at_once_without_a_100_continue() {
     let (_dir, s, t) = fresh(&["--max-body-bytes", "1000"]);
     let s = Arc::new(s);
-    for (length, with_token) in [("10000000000", true), ("10000000000", false), ("1001", true)] {
+    for (length, with_token) in [
+        ("10000000000", true),
+        ("10000000000", false),
+        ("1001", true),
+    ] {
         let auth = if with_token {
             format!("Authorization: Bearer {}\r\n", t.ingest)
         } else {
@@ -256,7 +286,10 @@ async fn a_declared_length_over_the_limit_gets_413_at_once_without_a_100_continu
         let p = raw.problem(413);
         assert_eq!(p["type"], "urn:loopbal:problem:too-large", "{p}");
         let detail = p["detail"].as_str().unwrap();
-        assert!(detail.contains(length) && detail.contains("1000 bytes"), "{p}");
+        assert!(
+            detail.contains(length) && detail.contains("1000 bytes"),
+            "{p}"
+        );
         assert!(waited < Duration::from_secs(1), "answered after {waited:?}");
         assert!(raw.closed, "the connection is closed after the 413");
     }
@@ -358,7 +391,10 @@ async fn a_body_of_the_wrong_kind_is_415_on_every_route_that_takes_one_and_ignor
             let bodies: [(Option<&str>, &str); 3] = [
                 (Some("text/plain"), ""),
                 (None, ""),
-                (Some("application/x-www-form-urlencoded"), "?effective_from=never"),
+                (
+                    Some("application/x-www-form-urlencoded"),
+                    "?effective_from=never",
+                ),
             ];
             for (ctype, query) in bodies {
                 let mut req = send(method, format!("{url}{query}"))

@@ -191,7 +191,10 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
         ))
         // Before anything else looks at the request: a body declared too large is refused
         // without reading a byte of it (nor waking a client that waits for 100 Continue).
-        .layer(middleware::from_fn_with_state(limits, refuse_declared_excess))
+        .layer(middleware::from_fn_with_state(
+            limits,
+            refuse_declared_excess,
+        ))
         .layer(middleware::from_fn(problem_details))
         .layer(middleware::from_fn_with_state(state.clone(), observe))
         .layer(
@@ -234,7 +237,11 @@ fn plant_of(path: &str) -> &str {
 
 /// 413 at once for a `Content-Length` over the body limit. The rest of the body is never
 /// read, so the connection is closed after the answer.
-async fn refuse_declared_excess(State(limits): State<Limits>, req: Request, next: Next) -> Response {
+async fn refuse_declared_excess(
+    State(limits): State<Limits>,
+    req: Request,
+    next: Next,
+) -> Response {
     let declared = req
         .headers()
         .get(header::CONTENT_LENGTH)

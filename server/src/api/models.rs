@@ -83,6 +83,7 @@ fn summary(plant: &str, rev: &ModelRevision) -> RevisionSummary {
         (status = 400, description = "Malformed request (plant name, time, not UTF-8)", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The token's role is not admin, or it is for another plant", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "The body arrived too slowly: no byte for the body idle timeout, or below the minimum body rate", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body over the size limit", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Neither TOML nor JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "The model is invalid; `errors` lists every problem", body = Problem, content_type = "application/problem+json"),

@@ -189,8 +189,8 @@ pub async fn keep_pace(State(pace): State<Pace>, req: Request, next: Next) -> Re
     }
     // Whatever the handler answered to the failed read, the cause is the slow client; what
     // is left of its body is never read, so the connection cannot carry another request.
-    let mut answer = Problem::new(StatusCode::REQUEST_TIMEOUT, "body-too-slow", pace.detail())
-        .into_response();
+    let mut answer =
+        Problem::new(StatusCode::REQUEST_TIMEOUT, "body-too-slow", pace.detail()).into_response();
     answer
         .headers_mut()
         .insert(header::CONNECTION, HeaderValue::from_static("close"));
@@ -284,10 +284,7 @@ mod tests {
         impl http_body::Body for Channel {
             type Data = Bytes;
             type Error = std::io::Error;
-            fn poll_frame(
-                mut self: Pin<&mut Self>,
-                cx: &mut Context<'_>,
-            ) -> Poll<Option<Sent>> {
+            fn poll_frame(mut self: Pin<&mut Self>, cx: &mut Context<'_>) -> Poll<Option<Sent>> {
                 self.0.poll_recv(cx)
             }
         }
