@@ -3,14 +3,14 @@
 
 use std::future::Future;
 use std::net::SocketAddr;
+use std::pin::Pin;
 use std::time::Duration;
 
 use anyhow::Context;
 use axum::Router;
 use hyper_util::rt::{TokioIo, TokioTimer};
-use hyper_util::server::graceful::GracefulShutdown;
-use hyper_util::service::TowerToHyperService;
 use tokio::net::TcpListener;
+use tower::ServiceExt;
 
 use crate::api::{self, AppState, Limits};
 use crate::schedule::{self, Claimant, Schedule};
@@ -83,7 +83,11 @@ pub async fn serve_http(
     let mut http = hyper::server::conn::http1::Builder::new();
     http.timer(TokioTimer::new())
         .header_read_timeout(limits.header_timeout);
-    let connections = GracefulShutdown::new();
+    // `stop` tells every connection to finish; each holds a `done` receiver, so all of them
+    // have ended once the sender sees none left.
+    let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
+    let (done_tx, done_rx) = tokio::sync::watch::channel(());
+    let linger = Linger::of(limits);
     let mut shutdown = std::pin::pin!(shutdown);
     loop {
         let stream = tokio::select! {
@@ -96,17 +100,79 @@ pub async fn serve_http(
             },
             () = &mut shutdown => break,
         };
-        let service = TowerToHyperService::new(router.clone());
-        let connection = connections.watch(http.serve_connection(TokioIo::new(stream), service));
+        let router = router.clone();
+        // Boxed so that the connection can be polled without being pinned, and so handed back.
+        let service = hyper::service::service_fn(move |req| {
+            let router = router.clone();
+            Box::pin(async move { router.oneshot(req).await })
+                as Pin<Box<dyn Future<Output = _> + Send>>
+        });
+        let mut connection = http.serve_connection(TokioIo::new(stream), service);
+        let mut stop = stop_rx.clone();
+        let done = done_rx.clone();
         tokio::spawn(async move {
-            // A client that went away or was cut off is its own business, not an error of ours.
-            if let Err(e) = connection.await {
-                tracing::debug!(error = %e, "connection ended");
+            let mut stopping = false;
+            let ended = loop {
+                tokio::select! {
+                    ended = std::future::poll_fn(|cx| connection.poll_without_shutdown(cx)) => {
+                        break ended;
+                    }
+                    _ = stop.wait_for(|stop| *stop), if !stopping => {
+                        stopping = true;
+                        Pin::new(&mut connection).graceful_shutdown();
+                    }
+                }
+            };
+            match ended {
+                Ok(()) => linger.close(connection.into_parts().io.into_inner()).await,
+                // A client that went away or was cut off is its own business, not an error.
+                Err(e) => tracing::debug!(error = %e, "connection ended"),
             }
+            drop(done);
         });
     }
     drop(listener);
-    connections.shutdown().await;
+    let _ = stop_tx.send(true);
+    drop(done_rx);
+    done_tx.closed().await;
+}
+
+/// How a connection is closed after its last answer: the service stops sending, then reads
+/// and drops what the client still sends, for a while, before closing. Closing a socket with
+/// unread bytes makes the kernel reset the connection, and the reset can destroy the answer
+/// before the client reads it: a client still sending a body that was refused (413 for its
+/// declared length, 408 for its pace) would see a broken connection instead of the refusal.
+#[derive(Debug, Clone, Copy)]
+struct Linger {
+    most: usize,
+    within: Duration,
+}
+
+impl Linger {
+    fn of(limits: &Limits) -> Linger {
+        Linger {
+            // What a client may reasonably still be sending: a body up to the limit, and at
+            // least 64 MiB, so that a small limit does not cut off an ordinary upload's answer.
+            most: limits.max_body_bytes.max(64 << 20),
+            within: Duration::from_secs(2),
+        }
+    }
+
+    async fn close(self, mut stream: tokio::net::TcpStream) {
+        use tokio::io::{AsyncReadExt, AsyncWriteExt};
+        if stream.shutdown().await.is_err() {
+            return;
+        }
+        let deadline = tokio::time::Instant::now() + self.within;
+        let mut buf = vec![0u8; 64 * 1024];
+        let mut read = 0;
+        while read < self.most {
+            match tokio::time::timeout_at(deadline, stream.read(&mut buf)).await {
+                Ok(Ok(n)) if n > 0 => read += n,
+                _ => break,
+            }
+        }
+    }
 }
 
 /// A failed accept: a connection reset before it was taken is nothing; anything else (out of
