@@ -154,6 +154,31 @@ pub enum Command {
         #[arg(long, value_name = "SECONDS", default_value_t = 60, env = "LOOPBAL_REQUEST_TIMEOUT",
               value_parser = clap::value_parser!(u64).range(1..=3600))]
         request_timeout: u64,
+        /// Seconds a client has to send a request's line and headers, from the moment the
+        /// connection is ready for a request (so also how long a kept-alive connection may sit
+        /// idle); a client that has not is disconnected.
+        #[arg(long, value_name = "SECONDS", default_value_t = 10, env = "LOOPBAL_HEADER_TIMEOUT",
+              value_parser = clap::value_parser!(u64).range(1..=3600))]
+        header_timeout: u64,
+        /// Seconds a request body may go without a byte before the request is abandoned with
+        /// 408.
+        #[arg(long, value_name = "SECONDS", default_value_t = 10, env = "LOOPBAL_BODY_IDLE_TIMEOUT",
+              value_parser = clap::value_parser!(u64).range(1..=3600))]
+        body_idle_timeout: u64,
+        /// Least average rate of a request body, in bytes a second, once --body-rate-grace has
+        /// passed; a slower body is abandoned with 408. 0 turns this rule off.
+        #[arg(
+            long,
+            value_name = "BYTES",
+            default_value_t = 1024,
+            env = "LOOPBAL_MIN_BODY_RATE"
+        )]
+        min_body_rate: u64,
+        /// Seconds a request body may take before its average rate is held to
+        /// --min-body-rate.
+        #[arg(long, value_name = "SECONDS", default_value_t = 5, env = "LOOPBAL_BODY_RATE_GRACE",
+              value_parser = clap::value_parser!(u64).range(0..=3600))]
+        body_rate_grace: u64,
         /// Seconds after a period's end before it is reconciled (late readings of the hour
         /// arrive in this time); a period whose readings change later is run again.
         #[arg(

@@ -82,6 +82,10 @@ fn main() -> ExitCode {
             database,
             max_body_bytes,
             request_timeout,
+            header_timeout,
+            body_idle_timeout,
+            min_body_rate,
+            body_rate_grace,
             run_grace,
             run_tick,
             run_workers,
@@ -97,6 +101,10 @@ fn main() -> ExitCode {
                         limits: api::Limits {
                             max_body_bytes: *max_body_bytes,
                             request_timeout: std::time::Duration::from_secs(*request_timeout),
+                            header_timeout: std::time::Duration::from_secs(*header_timeout),
+                            body_idle_timeout: std::time::Duration::from_secs(*body_idle_timeout),
+                            min_body_rate: *min_body_rate,
+                            body_rate_grace: std::time::Duration::from_secs(*body_rate_grace),
                         },
                         schedule: loopbal_server::schedule::Schedule {
                             grace: std::time::Duration::from_secs(*run_grace),

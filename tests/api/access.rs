@@ -174,3 +174,133 @@ async fn the_log_has_requests_but_no_token_and_no_reading_value() {
     assert!(!s_log.contains("zqxwvk"), "a presented token is in the log");
     assert!(!s_log.contains("20417.12"), "a reading value is in the log");
 }
+
+/// Plant segments no check after the role's should see first: not UTF-8, a dot name, a NUL, too
+/// long, slashes, and a good name.
+const HOSTILE_PLANTS: [&str; 6] = [
+    "%FF%FE",
+    ".hidden",
+    "a%00b",
+    "xxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxx",
+    "..%2F..%2Fetc",
+    PLANT,
+];
+/// A query every route would refuse if it read it: times that are not times, a figure with a
+/// NUL, a negative count, an unknown format.
+const HOSTILE_QUERY: &str = "from=%FF&to=never&effective_from=garbage&period=x&figure=%00\
+                             &add_best=-1&format=xml&tag=%FF";
+
+#[tokio::test]
+async fn the_role_is_checked_before_the_path_the_query_and_the_body_on_every_route() {
+    let (dir, s, t) = fresh(&[]);
+    let c = client();
+    let db = dir.path().join("loopbal.sqlite");
+    let other_plant_admin = token(&db, "admin", Some("another-plant"));
+    create_ombrask(&c, &s, &t.admin).await;
+    let roles = [
+        ("ingest", &t.ingest),
+        ("read", &t.read),
+        ("maintain", &t.maintain),
+    ];
+
+    // Every secured operation of the document, with the role the table above gives it.
+    let doc = json_ok(c.get(s.url("/api/v1/openapi.json")).send().await.unwrap()).await;
+    let mut walked = 0;
+    for (path, item) in doc["paths"].as_object().expect("paths") {
+        for method in ["get", "put", "post", "delete", "patch"] {
+            let Some(op) = item.get(method) else { continue };
+            if op.get("security").is_none() {
+                continue;
+            }
+            let role = SECURED
+                .iter()
+                .find(|(m, p, _)| *m == method && p == path)
+                .map(|(_, _, role)| *role)
+                .unwrap_or_else(|| panic!("{method} {path} is not in SECURED"));
+            walked += 1;
+            for plant in HOSTILE_PLANTS {
+                let url = s.url(&format!(
+                    "{}?{HOSTILE_QUERY}",
+                    path.replace("{plant}", plant)
+                        .replace("{start}", "%FF-not-a-time")
+                        .replace("{tag}", "%00%FF")
+                ));
+                // With a body, one that is neither of the right kind nor readable.
+                let bodies: &[Option<&str>] = if method == "get" {
+                    &[None]
+                } else {
+                    &[Some("text/plain"), Some("application/json")]
+                };
+                for ctype in bodies {
+                    let req = |auth: Option<&str>| {
+                        let mut r = match method {
+                            "get" => c.get(&url),
+                            "put" => c.put(&url),
+                            "post" => c.post(&url),
+                            other => panic!("method {other}"),
+                        };
+                        if let Some(ct) = ctype {
+                            r = r
+                                .header("content-type", *ct)
+                                .body(b"\xff\xfe{\"period\": [".to_vec());
+                        }
+                        if let Some(a) = auth {
+                            r = r.bearer_auth(a);
+                        }
+                        r
+                    };
+                    let what = format!("{method} {url} {ctype:?}");
+                    let r = req(None).send().await.unwrap();
+                    assert_eq!(
+                        r.status(),
+                        StatusCode::UNAUTHORIZED,
+                        "{what} without a token"
+                    );
+                    problem(r, StatusCode::UNAUTHORIZED).await;
+                    for (name, tok) in roles {
+                        if name == role {
+                            continue;
+                        }
+                        let r = req(Some(tok)).send().await.unwrap();
+                        assert_eq!(r.status(), StatusCode::FORBIDDEN, "{what} as {name}");
+                        let p = problem(r, StatusCode::FORBIDDEN).await;
+                        assert!(p["detail"].as_str().unwrap().contains(role), "{what}: {p}");
+                    }
+                    let r = req(Some(&other_plant_admin)).send().await.unwrap();
+                    assert_eq!(
+                        r.status(),
+                        StatusCode::FORBIDDEN,
+                        "{what} as the admin of another plant"
+                    );
+                }
+            }
+        }
+    }
+    assert_eq!(walked, SECURED.len());
+
+    // The right role on the same hostile requests learns what was wrong, never with a 500.
+    let r = c
+        .put(s.url("/api/v1/plants/%FF%FE/model"))
+        .bearer_auth(&t.admin)
+        .header("content-type", "application/toml")
+        .body("name = \"x\"")
+        .send()
+        .await
+        .unwrap();
+    let p = problem(r, StatusCode::BAD_REQUEST).await;
+    assert!(p["detail"].as_str().unwrap().contains("not UTF-8"), "{p}");
+    let r = c
+        .get(s.url(&format!("/api/v1/plants/{PLANT}/meters/%FF")))
+        .bearer_auth(&t.read)
+        .send()
+        .await
+        .unwrap();
+    problem(r, StatusCode::BAD_REQUEST).await;
+    let r = c
+        .get(s.url("/api/v1/plants/%FF%FE/meters"))
+        .bearer_auth(&t.read)
+        .send()
+        .await
+        .unwrap();
+    problem(r, StatusCode::NOT_FOUND).await;
+}

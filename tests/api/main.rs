@@ -2,7 +2,7 @@
 //! a free loopback port with a temporary SQLite file, driven over HTTP as the historian, the
 //! engineer and the administrator would. This file holds the service and the helpers every
 //! module uses; the tests are by concern: `readings`, `models`, `access`, `lifecycle`,
-//! `problems`, `periods`, `notes`, `bounds`.
+//! `limits`, `problems`, `periods`, `notes`, `bounds`, `openapi`.
 
 /// The end-to-end harness (testkit::e2e) bound to this package's `loopbal` binary.
 mod support {
@@ -12,6 +12,7 @@ mod support {
 mod access;
 mod bounds;
 mod lifecycle;
+mod limits;
 mod models;
 mod notes;
 mod openapi;

@@ -8,7 +8,7 @@
 
 use std::marker::PhantomData;
 
-use axum::extract::{FromRequestParts, RawPathParams};
+use axum::extract::{FromRequestParts, MatchedPath};
 use axum::http::request::Parts;
 
 use super::auth::Caller;
@@ -58,16 +58,23 @@ pub struct PlantName<N> {
     needs: PhantomData<N>,
 }
 
-/// The `{plant}` segment of the path, percent-decoded.
-async fn path_plant(parts: &mut Parts, state: &AppState) -> Result<String, Problem> {
-    let params = RawPathParams::from_request_parts(parts, state)
-        .await
-        .map_err(|e| Problem::bad_request(format!("the path cannot be read: {e}")))?;
-    params
-        .iter()
-        .find(|(key, _)| *key == "plant")
-        .map(|(_, value)| value.to_string())
-        .ok_or_else(|| Problem::not_found("this path names no plant"))
+/// The `{plant}` segment of the path as sent, percent-decoded: `Ok` when it is UTF-8 text,
+/// else `Err` with the text made readable (U+FFFD for what is not). Taken from the raw path by
+/// the route's template rather than from axum's path parameters, which refuse the whole path
+/// when any segment is not UTF-8: that refusal would come before the role check.
+fn path_plant(parts: &Parts) -> Result<Result<String, String>, Problem> {
+    let template = parts
+        .extensions
+        .get::<MatchedPath>()
+        .map(|p| p.as_str())
+        .unwrap_or_default();
+    let at = template.split('/').position(|segment| segment == "{plant}");
+    let raw = at
+        .and_then(|i| parts.uri.path().split('/').nth(i))
+        .ok_or_else(|| Problem::not_found("this path names no plant"))?;
+    // As axum decodes path parameters: `%HH` is its byte, any other `%` stays as it is.
+    let bytes: Vec<u8> = percent_encoding::percent_decode_str(raw).collect();
+    Ok(String::from_utf8(bytes).map_err(|e| String::from_utf8_lossy(e.as_bytes()).into_owned()))
 }
 
 impl<N: Needs> FromRequestParts<AppState> for PlantName<N> {
@@ -75,8 +82,15 @@ impl<N: Needs> FromRequestParts<AppState> for PlantName<N> {
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, Problem> {
         let caller = Caller::from_request_parts(parts, state).await?;
-        let name = path_plant(parts, state).await?;
-        caller.require(N::ROLE, &name)?;
+        let name = path_plant(parts)?;
+        // The text shown for a name that is not UTF-8 is no plant's name, so a token limited
+        // to one plant is refused on it like on any other plant.
+        caller.require(N::ROLE, name.as_ref().unwrap_or_else(|shown| shown))?;
+        let name = name.map_err(|shown| {
+            Problem::bad_request(format!(
+                "plant name \"{shown}\" is not UTF-8 text once percent-decoded"
+            ))
+        })?;
         super::check_plant_name(&name)?;
         Ok(PlantName {
             caller,
@@ -91,12 +105,14 @@ impl<N: Needs> FromRequestParts<AppState> for OnPlant<N> {
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, Problem> {
         let caller = Caller::from_request_parts(parts, state).await?;
-        let name = path_plant(parts, state).await?;
-        caller.require(N::ROLE, &name)?;
+        let name = path_plant(parts)?;
+        caller.require(N::ROLE, name.as_ref().unwrap_or_else(|shown| shown))?;
+        let exact = name.is_ok();
+        let name = name.unwrap_or_else(|shown| shown);
         // A name no plant can have is not looked up: it may hold what a store cannot even
         // compare, such as U+0000, which PostgreSQL's text refuses with an error.
         let not_found = || Problem::not_found(format!("no plant named \"{name}\""));
-        if super::check_plant_name(&name).is_err() {
+        if !exact || super::check_plant_name(&name).is_err() {
             return Err(not_found());
         }
         let plant = state.store.plant(&name).await?.ok_or_else(not_found)?;

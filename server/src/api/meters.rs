@@ -74,6 +74,7 @@ pub async fn get_meter(
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The token's role is not maintain, or it is for another plant", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such plant or meter", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "The body arrived too slowly: no byte for the body idle timeout, or below the minimum body rate", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body over the size limit", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not sent as application/json", body = Problem, content_type = "application/problem+json"),
     ),

@@ -29,6 +29,7 @@ mod figures;
 mod meter_value;
 mod meters;
 mod models;
+pub mod pace;
 mod periods;
 pub mod problem;
 mod range;
@@ -44,6 +45,15 @@ pub struct Limits {
     pub max_body_bytes: usize,
     /// A request not answered in this time gets 408.
     pub request_timeout: Duration,
+    /// A connection that has not sent a whole request head in this time is closed (so is a
+    /// kept-alive connection idle for this long).
+    pub header_timeout: Duration,
+    /// A request body with no byte for this long gets 408.
+    pub body_idle_timeout: Duration,
+    /// A request body averaging fewer bytes a second than this, once `body_rate_grace` has
+    /// passed, gets 408; 0 turns the rule off.
+    pub min_body_rate: u64,
+    pub body_rate_grace: Duration,
 }
 
 impl Default for Limits {
@@ -51,6 +61,10 @@ impl Default for Limits {
         Limits {
             max_body_bytes: 64 * 1024 * 1024,
             request_timeout: Duration::from_secs(60),
+            header_timeout: Duration::from_secs(10),
+            body_idle_timeout: Duration::from_secs(10),
+            min_body_rate: 1024,
+            body_rate_grace: Duration::from_secs(5),
         }
     }
 }
@@ -293,11 +307,21 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
             },
         ))
         .layer(axum::extract::DefaultBodyLimit::max(limits.max_body_bytes))
+        .layer(middleware::from_fn_with_state(
+            pace::Pace::of(&limits),
+            pace::keep_pace,
+        ))
         // Innermost first: the timeout's 408 and axum's own plain-text rejections are turned
         // into problem details, then counted and traced with their final status.
         .layer(TimeoutLayer::with_status_code(
             StatusCode::REQUEST_TIMEOUT,
             limits.request_timeout,
+        ))
+        // Before anything else looks at the request: a body declared too large is refused
+        // without reading a byte of it (nor waking a client that waits for 100 Continue).
+        .layer(middleware::from_fn_with_state(
+            limits,
+            refuse_declared_excess,
         ))
         .layer(middleware::from_fn(problem_details))
         .layer(middleware::from_fn_with_state(state.clone(), observe))
@@ -337,6 +361,39 @@ fn plant_of(path: &str) -> &str {
         .and_then(|rest| rest.split('/').next())
         .filter(|p| !p.is_empty())
         .unwrap_or("-")
+}
+
+/// 413 at once for a `Content-Length` over the body limit. The rest of the body is never
+/// read, so the connection is closed after the answer.
+async fn refuse_declared_excess(
+    State(limits): State<Limits>,
+    req: Request,
+    next: Next,
+) -> Response {
+    let declared = req
+        .headers()
+        .get(header::CONTENT_LENGTH)
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.trim().parse::<u64>().ok());
+    match declared {
+        Some(length) if length > limits.max_body_bytes as u64 => {
+            let mut answer = Problem::new(
+                StatusCode::PAYLOAD_TOO_LARGE,
+                "too-large",
+                format!(
+                    "the body is declared as {length} bytes (Content-Length), over the limit of \
+                     {} bytes; send smaller batches",
+                    limits.max_body_bytes
+                ),
+            )
+            .into_response();
+            answer
+                .headers_mut()
+                .insert(header::CONNECTION, HeaderValue::from_static("close"));
+            answer
+        }
+        _ => next.run(req).await,
+    }
 }
 
 /// Count every answer by route template and status.

@@ -83,6 +83,7 @@ fn summary(plant: &str, rev: &ModelRevision) -> RevisionSummary {
         (status = 400, description = "Malformed request (plant name, time, not UTF-8)", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The token's role is not admin, or it is for another plant", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "The body arrived too slowly: no byte for the body idle timeout, or below the minimum body rate", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body over the size limit", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Neither TOML nor JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "The model is invalid; `errors` lists every problem", body = Problem, content_type = "application/problem+json"),
@@ -96,6 +97,19 @@ pub async fn put_model(
     headers: HeaderMap,
     body: Result<Bytes, BytesRejection>,
 ) -> Result<Response, Problem> {
+    // What the body is comes before what the query or the body hold: a body of the wrong
+    // kind is refused without being read.
+    let format = match media_type(&headers).as_deref() {
+        Some("application/json") => ModelFormat::Json,
+        Some(m) if m.ends_with("+json") => ModelFormat::Json,
+        Some("application/toml" | "text/toml" | "text/x-toml") => ModelFormat::Toml,
+        other => {
+            return Err(Problem::unsupported_media(format!(
+                "a model is sent as application/toml or application/json, not {}",
+                other.unwrap_or("a body without Content-Type")
+            )))
+        }
+    };
     let Query(query) = query?;
     let effective_from = match query.effective_from.as_deref() {
         None => Utc::now(),
@@ -109,17 +123,6 @@ pub async fn put_model(
             "the model is not UTF-8 text (invalid byte at line {line}, offset {at})"
         ))
     })?;
-    let format = match media_type(&headers).as_deref() {
-        Some("application/json") => ModelFormat::Json,
-        Some(m) if m.ends_with("+json") => ModelFormat::Json,
-        Some("application/toml" | "text/toml" | "text/x-toml") => ModelFormat::Toml,
-        other => {
-            return Err(Problem::unsupported_media(format!(
-                "a model is sent as application/toml or application/json, not {}",
-                other.unwrap_or("a body without Content-Type")
-            )))
-        }
-    };
     let plant = &access.name;
     let stored = admit::admit(&state.store, plant, text, format, effective_from).await?;
     let mut response = (StatusCode::CREATED, Json(summary(plant, &stored))).into_response();

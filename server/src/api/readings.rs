@@ -74,6 +74,7 @@ pub enum QualityWord {
         (status = 403, description = "The token's role is not ingest, or it is for another plant", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such plant", body = Problem, content_type = "application/problem+json"),
         (status = 409, description = "The plant has no model yet, so no tag is known", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "The body arrived too slowly: no byte for the body idle timeout, or below the minimum body rate", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body over the size limit (64 MiB by default)", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Neither CSV nor JSON", body = Problem, content_type = "application/problem+json"),
     ),

@@ -130,6 +130,8 @@ impl WhatIfBody {
         (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such plant, or no readings in the base period", body = Problem, content_type = "application/problem+json"),
         (status = 409, description = "The plant has no model", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "The body arrived too slowly: no byte for the body idle timeout, or below the minimum body rate", body = Problem, content_type = "application/problem+json"),
+        (status = 413, description = "Body over the size limit", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not sent as application/json", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "The base case was not reconciled, leaves unobservable what the what-if needs, or cannot reach a target", body = Problem, content_type = "application/problem+json"),
     ),

@@ -139,11 +139,11 @@ pub async fn run(opts: Options) -> anyhow::Result<()> {
     let base = format!("http://{addr}");
     let mut http_stop = stop_rx.clone();
     let server = tokio::spawn(async move {
-        axum::serve(listener, router)
-            .with_graceful_shutdown(async move {
-                let _ = http_stop.wait_for(|stop| *stop).await;
-            })
-            .await
+        let limits = Limits::default();
+        crate::serve::serve_http(listener, router, &limits, async move {
+            let _ = http_stop.wait_for(|stop| *stop).await;
+        })
+        .await
     });
 
     let historian = Historian::new(&base, &tokens)?;
@@ -175,7 +175,7 @@ pub async fn run(opts: Options) -> anyhow::Result<()> {
         eprintln!("stopping");
     }
     let _ = stop_tx.send(true);
-    server.await.context("the HTTP server")??;
+    server.await.context("the HTTP server")?;
     worker.await.context("the scheduler")?;
     store.close().await;
     Ok(())

@@ -80,15 +80,12 @@ pub(crate) fn model_case() -> impl Strategy<Value = ModelCase> {
 }
 
 /// What the service must answer to a model PUT to `plant`: decided by the engine's own parser
-/// and validator on the same bytes, and the order of the checks in docs/api.md (size,
-/// UTF-8, media type, content).
+/// and validator on the same bytes, and the order of the checks in docs/api.md (size, media
+/// type, UTF-8, content).
 pub(crate) fn model_verdict(body: &[u8], media: Option<&str>, plant: &str) -> (u16, String) {
     if body.len() > MAX_BODY {
         return (413, "the body is over the limit".into());
     }
-    let Ok(text) = std::str::from_utf8(body) else {
-        return (400, "the body is not UTF-8".into());
-    };
     let m = media
         .and_then(|m| m.split(';').next())
         .unwrap_or("")
@@ -100,6 +97,9 @@ pub(crate) fn model_verdict(body: &[u8], media: Option<&str>, plant: &str) -> (u
         false
     } else {
         return (415, format!("{media:?} is neither TOML nor JSON"));
+    };
+    let Ok(text) = std::str::from_utf8(body) else {
+        return (400, "the body is not UTF-8".into());
     };
     let spec = match parse_model(text, json) {
         Ok(spec) => spec,

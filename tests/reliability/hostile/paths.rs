@@ -78,7 +78,7 @@ pub(crate) fn decoded_time(
     ((0..=9998).contains(&year) || utc.to_rfc3339() == "9999-01-01T00:00:00+00:00").then_some(t)
 }
 
-/// Whether a path segment percent-decodes to UTF-8 (else the router's extractor refuses it).
+/// Whether a path segment percent-decodes to UTF-8 (else the path extractor refuses it).
 pub(crate) fn decodes(segment: &str) -> bool {
     let b = segment.as_bytes();
     let mut out = Vec::with_capacity(b.len());
@@ -252,19 +252,29 @@ impl QueryCase {
         if self.long.is_some() || !self.junk.is_empty() {
             return None;
         }
-        let mut segments = vec![self.plant];
-        match self.endpoint {
-            4 | 9 => segments.push(self.start),
-            8 => segments.push(self.tag),
-            _ => {}
+        // A dot tag is resolved away by the client too: another path, whose answer is not ours
+        // to predict here.
+        if self.endpoint == 8 && self.tag == ".." {
+            return None;
         }
-        if !segments.iter().all(|s| decodes(s)) || (self.endpoint == 8 && self.tag == "..") {
-            return (self.tag != "..").then(|| vec![400]);
+        // The plant segment is decoded by the access check, after the role: one that is not
+        // UTF-8 is no plant's (404), nor a name a first model could create (400).
+        if !decodes(self.plant) {
+            return Some(vec![if self.endpoint == 10 { 400 } else { 404 }]);
         }
         let ours = [PLANT, SCRATCH].contains(&self.plant);
-        // The plant of the path is looked up before its query is read (docs/api.md, Errors).
+        // The plant of the path is looked up before its query and its other segments are read
+        // (docs/api.md, Errors).
         if !ours && self.endpoint <= 9 {
             return Some(vec![404]);
+        }
+        let others: &[&str] = match self.endpoint {
+            4 | 9 => &[self.start],
+            8 => &[self.tag],
+            _ => &[],
+        };
+        if !others.iter().all(|s| decodes(s)) {
+            return Some(vec![400]);
         }
         let ranged = matches!(self.endpoint, 2 | 3 | 5 | 6);
         let from = self.from.and_then(|t| decoded_time(t, true));
