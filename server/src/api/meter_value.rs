@@ -32,6 +32,7 @@ pub struct MeterValueQuery {
     /// `component_flow:STREAM:COMPONENT`, `split_fraction:STREAM`. Several, comma-separated,
     /// each with an optional `=WEIGHT`, for the set the best additions are chosen for; the
     /// meters and candidates are valued for the first.
+    #[param(pattern = r"^[a-z_]+:[^,=]+(=[^,]+)?(,[a-z_]+:[^,=]+(=[^,]+)?)*$")]
     figure: String,
     /// Choose the best this many new meters together.
     add_best: Option<usize>,

@@ -21,9 +21,11 @@ use crate::results::what_if;
 #[serde(deny_unknown_fields)]
 pub struct WhatIfBody {
     /// Start of the base period (RFC 3339); its reconciled state is the base case.
+    #[schema(format = DateTime)]
     pub period: String,
     /// With it, the base is the periods from `period` to this time (exclusive), combined by
     /// their covariance.
+    #[schema(format = DateTime, nullable = false)]
     pub period_to: Option<String>,
     /// Settings by name: `split:STREAM`, `feed:STREAM` (kmol/h),
     /// `conversion:REACTION`, `inlet_fraction:UNIT:COMPONENT`.
@@ -35,6 +37,7 @@ pub struct WhatIfBody {
     pub free: Option<String>,
     /// What each reaction is held at: `conversion` (of its key reactant, the default) or
     /// `extent`.
+    #[schema(pattern = "^(conversion|extent)$", nullable = false)]
     pub hold: Option<String>,
     /// Values for the purge's economic optimum.
     pub economics: Option<EconomicsBody>,

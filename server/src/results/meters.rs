@@ -432,11 +432,14 @@ pub struct NewNote {
     /// checked, recalibrated, replaced, out_of_service or back_in_service; recalibrated and
     /// replaced start a fresh history, out_of_service takes the meter out of the estimate
     /// until back_in_service.
+    #[schema(pattern = "^(checked|recalibrated|replaced|out_of_service|back_in_service)$")]
     pub kind: String,
     /// What was found or done.
     #[serde(default)]
+    #[schema(max_length = 4000)]
     pub text: String,
     /// When it was done (RFC 3339); now when absent.
+    #[schema(format = DateTime, nullable = false)]
     pub effective_at: Option<String>,
     /// On a recalibrated note only: the error measured before recalibrating, in the meter's
     /// uom (positive: read high).
