@@ -127,8 +127,27 @@ testkit::both_backends! {
             assert!(Instant::now() < deadline, "alpha never claimed a period");
             tokio::time::sleep(Duration::from_millis(5)).await;
         }
-        let pause = rand::thread_rng().gen_range(0..200);
+        let pause = rand::thread_rng().gen_range(0..50);
         tokio::time::sleep(Duration::from_millis(pause)).await;
+        // A run can end between a look at the claims and the kill: freeze alpha, look, and
+        // kill it only while it holds a claim (else let it go on and look again).
+        let signal = |name: &str| {
+            let status = std::process::Command::new("kill")
+                .args([name, &alpha.pid().to_string()])
+                .status()
+                .expect("kill runs");
+            assert!(status.success(), "kill {name}");
+        };
+        let deadline = Instant::now() + Duration::from_secs(30);
+        loop {
+            signal("-STOP");
+            if !query_ints(&url, claims_of, "alpha/%").await.is_empty() {
+                break;
+            }
+            signal("-CONT");
+            assert!(Instant::now() < deadline, "alpha held no claim again");
+            tokio::time::sleep(Duration::from_millis(1)).await;
+        }
         alpha.kill9();
         let orphaned = query_ints(&url, claims_of, "alpha/%").await;
         eprintln!("alpha killed {pause} ms after its first claim, holding periods {orphaned:?} (ms)");
