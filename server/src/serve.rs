@@ -51,10 +51,11 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
         .await
         .with_context(|| format!("listening on {}", opts.listen))?;
     let addr = listener.local_addr()?;
+    let shutdown = shutdown_signal();
     // One plain line on stdout for scripts and tests that started us on port 0.
     println!("loopbal: listening on http://{addr}");
     tracing::info!(%addr, database = %redacted(&opts.database), instance = %instance, "serving");
-    serve_http(listener, router, &opts.limits, shutdown_signal()).await;
+    serve_http(listener, router, &opts.limits, shutdown).await;
     // The worker finishes the run it is in (its report is stored whole) and stops.
     let _ = stop_tx.send(true);
     if let Err(e) = worker.await {
@@ -189,30 +190,44 @@ async fn refused_accept(e: std::io::Error) {
     tokio::time::sleep(Duration::from_secs(1)).await;
 }
 
-async fn shutdown_signal() {
-    let interrupt = async {
+/// The shutdown request: SIGINT or SIGTERM. The handlers are installed here, when it is
+/// called, not when it is first awaited: a signal sent as soon as the service says it listens
+/// must find them (else the default action ends the process with no graceful stop).
+fn shutdown_signal() -> impl Future<Output = ()> {
+    #[cfg(unix)]
+    let (interrupt, terminate) = {
+        use tokio::signal::unix::{signal, SignalKind};
+        let listen = |kind: SignalKind, name: &'static str| {
+            signal(kind)
+                .map_err(|e| tracing::error!(error = %e, "cannot listen for {name}"))
+                .ok()
+        };
+        (
+            listen(SignalKind::interrupt(), "SIGINT"),
+            listen(SignalKind::terminate(), "SIGTERM"),
+        )
+    };
+    async move {
+        #[cfg(unix)]
+        {
+            let wait = |s: Option<tokio::signal::unix::Signal>| async move {
+                match s {
+                    Some(mut s) => {
+                        s.recv().await;
+                    }
+                    None => std::future::pending::<()>().await,
+                }
+            };
+            tokio::select! {
+                _ = wait(interrupt) => {},
+                _ = wait(terminate) => {},
+            }
+        }
+        #[cfg(not(unix))]
         if let Err(e) = tokio::signal::ctrl_c().await {
-            tracing::error!(error = %e, "cannot listen for SIGINT");
+            tracing::error!(error = %e, "cannot listen for Ctrl-C");
             std::future::pending::<()>().await;
         }
-    };
-    #[cfg(unix)]
-    let terminate = async {
-        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
-            Ok(mut s) => {
-                s.recv().await;
-            }
-            Err(e) => {
-                tracing::error!(error = %e, "cannot listen for SIGTERM");
-                std::future::pending::<()>().await;
-            }
-        }
-    };
-    #[cfg(not(unix))]
-    let terminate = std::future::pending::<()>();
-    tokio::select! {
-        _ = interrupt => {},
-        _ = terminate => {},
+        tracing::info!("shutting down: finishing requests in flight");
     }
-    tracing::info!("shutting down: finishing requests in flight");
 }
