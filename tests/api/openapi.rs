@@ -59,7 +59,7 @@ async fn the_openapi_document_is_valid_openapi_3_1_and_says_where_each_parameter
 
 #[tokio::test]
 async fn the_document_types_the_bodies_names_and_links_the_service_takes() {
-    let (_dir, s, _t) = fresh(&[]);
+    let (_dir, s, t) = fresh(&[]);
     let c = client();
     let doc = json_ok(c.get(s.url("/api/v1/openapi.json")).send().await.unwrap()).await;
     // A schema of the document's components, resolved against the document itself.
@@ -86,6 +86,32 @@ async fn the_document_types_the_bodies_names_and_links_the_service_takes() {
     assert!(batch.is_valid(&one("uncertain")));
     assert!(!batch.is_valid(&one("so-so")));
     assert!(!batch.is_valid(&json!({"readings": [{"tag": "OB2-FI-101", "value": 1.5}]})));
+
+    // A note's kind is one of the five words; the stored model reads back as the model schema.
+    let note = schema_of(json!({"$ref": "#/components/schemas/NewNote"}));
+    for kind in [
+        "checked",
+        "recalibrated",
+        "replaced",
+        "out_of_service",
+        "back_in_service",
+    ] {
+        assert!(
+            note.is_valid(&json!({"kind": kind, "text": "zero checked"})),
+            "{kind}"
+        );
+    }
+    assert!(!note.is_valid(&json!({"kind": "inspected", "text": "zero checked"})));
+    let get = &ops["/api/v1/plants/{plant}/model"]["get"];
+    let answer =
+        schema_of(get["responses"]["200"]["content"]["application/json"]["schema"].clone());
+    create_ombrask(&c, &s, &t.admin).await;
+    let stored = get_ok(&c, &s, &t.read, "/model").await;
+    let errors: Vec<String> = answer.iter_errors(&stored).map(|e| e.to_string()).collect();
+    assert!(errors.is_empty(), "{errors:?}");
+    let mut bad = stored.clone();
+    bad["model"]["meter"][0]["quantity"] = json!("pressure");
+    assert!(!answer.is_valid(&bad), "the model is typed, not any object");
 
     // The plant name's pattern, as the service checks it.
     let plant = put["parameters"]

@@ -49,7 +49,6 @@ pub struct RevisionBody {
     #[serde(flatten)]
     pub summary: RevisionSummary,
     /// The model as JSON (the structure of the model file).
-    #[schema(value_type = Object)]
     pub model: ModelSpec,
     /// The model exactly as it was sent (TOML or JSON, with its comments).
     pub source: String,

@@ -432,7 +432,7 @@ pub struct NewNote {
     /// checked, recalibrated, replaced, out_of_service or back_in_service; recalibrated and
     /// replaced start a fresh history, out_of_service takes the meter out of the estimate
     /// until back_in_service.
-    #[schema(pattern = "^(checked|recalibrated|replaced|out_of_service|back_in_service)$")]
+    #[schema(value_type = NoteKindWord)]
     pub kind: String,
     /// What was found or done.
     #[serde(default)]
@@ -444,6 +444,19 @@ pub struct NewNote {
     /// On a recalibrated note only: the error measured before recalibrating, in the meter's
     /// uom (positive: read high).
     pub as_found: Option<f64>,
+}
+
+/// The kinds of note, as the document lists them (the handler reads the word itself, so that
+/// an unknown one is refused with the list of kinds).
+#[derive(Debug, Deserialize, ToSchema)]
+#[serde(rename_all = "snake_case")]
+#[allow(dead_code)]
+pub enum NoteKindWord {
+    Checked,
+    Recalibrated,
+    Replaced,
+    OutOfService,
+    BackInService,
 }
 
 /// Longest note text accepted.
