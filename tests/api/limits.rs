@@ -12,6 +12,21 @@ use std::time::Instant;
 use super::*;
 
 /// One connection spoken to byte by byte.
+/// Send `request` whole on a new raw connection and read what comes back for `listen`: the
+/// connection and how long that took.
+async fn exchange(server: &Arc<Server>, request: String, listen: Duration) -> (Raw, Duration) {
+    let server = server.clone();
+    tokio::task::spawn_blocking(move || {
+        let mut raw = Raw::connect(&server);
+        let began = Instant::now();
+        assert!(raw.send(request.as_bytes()));
+        raw.read_for(listen);
+        (raw, began.elapsed())
+    })
+    .await
+    .unwrap()
+}
+
 struct Raw {
     stream: TcpStream,
     answer: Vec<u8>,
@@ -198,16 +213,7 @@ async fn a_trickled_or_stalled_body_gets_408_well_before_the_request_timeout() {
          Content-Length: 4096\r\n\r\nname = \"stalled\"\n"
     );
     let idle = Arc::new(idle);
-    let server = idle.clone();
-    let (raw, waited) = tokio::task::spawn_blocking(move || {
-        let mut raw = Raw::connect(&server);
-        let began = Instant::now();
-        assert!(raw.send(stalled.as_bytes()));
-        raw.read_for(Duration::from_secs(5));
-        (raw, began.elapsed())
-    })
-    .await
-    .unwrap();
+    let (raw, waited) = exchange(&idle, stalled, Duration::from_secs(5)).await;
     assert!(
         raw.status_line().starts_with("HTTP/1.1 408"),
         "{}",
@@ -267,16 +273,7 @@ async fn a_declared_length_over_the_limit_gets_413_at_once_without_a_100_continu
             "POST /api/v1/plants/{PLANT}/readings HTTP/1.1\r\nHost: loopback\r\n{auth}\
              Content-Type: text/csv\r\nContent-Length: {length}\r\nExpect: 100-continue\r\n\r\n"
         );
-        let server = s.clone();
-        let (raw, waited) = tokio::task::spawn_blocking(move || {
-            let mut raw = Raw::connect(&server);
-            let began = Instant::now();
-            assert!(raw.send(request.as_bytes()));
-            raw.read_for(Duration::from_secs(1));
-            (raw, began.elapsed())
-        })
-        .await
-        .unwrap();
+        let (raw, waited) = exchange(&s, request, Duration::from_secs(1)).await;
         assert!(
             raw.status_line().starts_with("HTTP/1.1 413"),
             "Content-Length {length}: {}",
