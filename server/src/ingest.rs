@@ -37,8 +37,11 @@ type Kinds = HashMap<String, Kind>;
 #[derive(Debug, Clone)]
 pub struct Catalogue {
     known: HashSet<String>,
-    /// (effective_from, revision, kinds of the revision's meters), in the order of [`in_effect`].
-    revisions: Vec<(DateTime<Utc>, i64, Kinds)>,
+    /// (effective_from, revision) of each revision, as [`in_effect`] takes them: built once,
+    /// not per reading.
+    keys: Vec<(DateTime<Utc>, i64)>,
+    /// The kinds of each revision's meters, beside `keys`.
+    kinds: Vec<Kinds>,
     period_seconds: i64,
 }
 
@@ -65,21 +68,20 @@ impl Catalogue {
             .iter()
             .flat_map(|r| r.spec.meters.iter().map(|m| m.tag.clone()))
             .collect();
-        let revisions = revisions
+        let kinds = revisions
             .iter()
             .map(|r| {
-                let kinds = r
-                    .spec
+                r.spec
                     .meters
                     .iter()
                     .filter_map(|m| Some((m.tag.clone(), Kind::of_spec(m)?)))
-                    .collect();
-                (r.effective_from, r.revision, kinds)
+                    .collect()
             })
             .collect();
         Ok(Some(Catalogue {
             known,
-            revisions,
+            keys,
+            kinds,
             period_seconds,
         }))
     }
@@ -90,24 +92,26 @@ impl Catalogue {
 
     /// The kind of the reading's meter in the revision in effect at the reading's time.
     fn kind(&self, r: &Reading) -> Option<&Kind> {
-        let keys: Vec<(DateTime<Utc>, i64)> =
-            self.revisions.iter().map(|(t, n, _)| (*t, *n)).collect();
-        in_effect(&keys, r.time).and_then(|i| self.revisions[i].2.get(&r.tag))
+        in_effect(&self.keys, r.time).and_then(|i| self.kinds[i].get(&r.tag))
     }
 
     /// Outside the range its meter has in the revision in effect at the reading's time, or a
     /// value no meter of its kind could give (the plausibility screen): the stored flag.
     pub fn out_of_range(&self, r: &Reading) -> bool {
-        self.kind(r).is_some_and(|k| {
-            k.range
-                .is_some_and(|[lo, hi]| !(lo..=hi).contains(&r.value))
-                || k.screen(r.value).is_some()
-        })
+        self.flags(r).0
     }
 
-    /// A value no meter of its kind could give: stored and flagged, never averaged.
-    pub fn implausible(&self, r: &Reading) -> bool {
-        self.kind(r).is_some_and(|k| k.screen(r.value).is_some())
+    /// (the stored flag, a value no meter of its kind could give), from one look at the
+    /// reading's meter. An implausible reading is stored flagged and never averaged.
+    fn flags(&self, r: &Reading) -> (bool, bool) {
+        let Some(kind) = self.kind(r) else {
+            return (false, false);
+        };
+        let implausible = kind.screen(r.value).is_some();
+        let outside = kind
+            .range
+            .is_some_and(|[lo, hi]| !(lo..=hi).contains(&r.value));
+        (outside || implausible, implausible)
     }
 }
 
@@ -216,11 +220,10 @@ pub async fn store_batch(
     catalogue: &Catalogue,
     checked: Checked,
 ) -> Result<IngestAnswer, BatchError> {
-    let out_of_range: Vec<bool> = checked
-        .good
-        .iter()
-        .map(|r| catalogue.out_of_range(r))
-        .collect();
+    let (out_of_range, implausible) = checked.good.iter().fold((0, 0), |(out, odd), r| {
+        let (flagged, absurd) = catalogue.flags(r);
+        (out + usize::from(flagged), odd + usize::from(absurd))
+    });
     let counts = if checked.good.is_empty() {
         Default::default()
     } else {
@@ -238,12 +241,8 @@ pub async fn store_batch(
         replaced: counts.replaced,
         unchanged: counts.unchanged,
         rejected: checked.bad.total,
-        out_of_range: out_of_range.iter().filter(|&&f| f).count(),
-        implausible: checked
-            .good
-            .iter()
-            .filter(|r| catalogue.implausible(r))
-            .count(),
+        out_of_range,
+        implausible,
         bad_quality: checked
             .good
             .iter()
@@ -288,7 +287,8 @@ mod tests {
         // The store keeps instants to the millisecond: two such readings would be one row.
         let catalogue = Catalogue {
             known: ["F-1".to_string()].into_iter().collect(),
-            revisions: Vec::new(),
+            keys: Vec::new(),
+            kinds: Vec::new(),
             period_seconds: 3600,
         };
         let body =
@@ -307,7 +307,8 @@ mod tests {
     fn catalogue(tags: &[&str]) -> Catalogue {
         Catalogue {
             known: tags.iter().map(|t| t.to_string()).collect(),
-            revisions: Vec::new(),
+            keys: Vec::new(),
+            kinds: Vec::new(),
             period_seconds: 3600,
         }
     }
