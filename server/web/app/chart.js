@@ -144,7 +144,7 @@ export function chart(opts) {
   }
   if (opts.failed && opts.failed.length) {
     legend.append(h('li', null, h('span', { class: 'key key-failed', 'aria-hidden': 'true' }),
-      `hatched column with ✕: global test failed that period (${opts.failed.length})`));
+      `hatched column with ✕: ${opts.failedLabel || 'global test failed that period'} (${opts.failed.length})`));
   }
   if (opts.notes && opts.notes.length) {
     legend.append(h('li', null, h('span', { class: 'key key-note', 'aria-hidden': 'true' }), 'vertical line with ✎: a technician\'s note'));
@@ -225,7 +225,7 @@ export function chart(opts) {
       const g = s('g', { 'data-failed': new Date(t).toISOString(), class: 'failed' },
         s('rect', { x: xa, y: M.t, width: w, height: ph, fill: `url(#${hatchId})`, class: 'failed-col' }),
         s('text', { x: xa + w / 2, y: M.t + 11, 'text-anchor': 'middle', class: 'failed-x', text: '✕' }),
-        s('title', { text: `global test failed, period from ${new Date(t).toISOString()}` }));
+        s('title', { text: `${opts.failedLabel || 'global test failed'}: period from ${new Date(t).toISOString()}` }));
       plot.append(g);
     }
 
