@@ -93,7 +93,8 @@ export function num(v, sig = 4) {
   const a = Math.abs(v);
   if (a >= 1e6 || a < 1e-4) return v.toExponential(sig - 1);
   const d = Math.max(0, sig - 1 - Math.floor(Math.log10(a)));
-  return v.toFixed(Math.min(d, 10));
+  const text = v.toFixed(Math.min(d, 10));
+  return text.includes('.') ? text.replace(/\.?0+$/, '') : text;
 }
 
 /** "1234 ± 5.6" (σ to two significant figures, value to the same place). */
