@@ -135,7 +135,7 @@ export function chart(opts) {
 
   for (const ser of opts.series) {
     legend.append(h('li', null,
-      h('span', { class: `key key-line ${ser.cls || ''}`, 'aria-hidden': 'true' }),
+      h('span', { class: `key key-line ${ser.cls || ''}${ser.band ? '' : ' key-noband'}`, 'aria-hidden': 'true' }),
       ser.label + (ser.band ? ' (line: value; shaded band: ± 1σ)' : '')));
   }
   for (const hl of opts.hlines || []) {
@@ -209,7 +209,8 @@ export function chart(opts) {
     for (const t of xt.ticks) {
       if (t < x0 || t > x1) continue;
       gx.append(s('line', { x1: x(t), x2: x(t), y1: M.t, y2: M.t + ph, class: 'grid grid-x' }));
-      gx.append(s('text', { x: x(t), y: H - M.b + 16, 'text-anchor': 'middle', text: xt.fmt(t) }));
+      const edge = x(t) > W - M.r - 40 ? 'end' : x(t) < M.l + 30 ? 'start' : 'middle';
+      gx.append(s('text', { x: x(t), y: H - M.b + 16, 'text-anchor': edge, text: xt.fmt(t) }));
     }
     gx.append(s('text', { x: M.l + pw, y: H - 4, 'text-anchor': 'end', class: 'axis-title', text: opts.xKind === 'time' ? 'time, UTC (+00:00)' : (opts.xLabel || '') }));
     svg.append(gx);

@@ -139,16 +139,21 @@ export function iso(ms) {
   return new Date(ms).toISOString().replace(/\.\d{3}Z$/, 'Z');
 }
 
-/** Value for <input type="datetime-local"> holding a UTC time. */
+/** A UTC time as the text of a time input: "2026-09-17 23:00". */
 export function toLocalInput(ms) {
-  return iso(ms).slice(0, 16);
+  return iso(ms).slice(0, 16).replace('T', ' ');
 }
 
-/** Parse the UTC value of a datetime-local input. */
+/** Parse "YYYY-MM-DD HH:MM" (or with a T, or a date alone) as UTC; NaN when malformed. */
 export function fromLocalInput(v) {
-  if (!v) return NaN;
-  return Date.parse(`${v.length === 16 ? `${v}:00` : v}Z`);
+  const m = /^\s*(\d{4})-(\d{2})-(\d{2})(?:[ T](\d{2}):(\d{2}))?\s*(?:Z|UTC)?\s*$/i.exec(v || '');
+  if (!m) return NaN;
+  const t = Date.UTC(+m[1], +m[2] - 1, +m[3], +(m[4] || 0), +(m[5] || 0));
+  return Number.isNaN(t) ? NaN : t;
 }
+
+/** Attributes of a UTC time input. */
+export const TIME_INPUT = { type: 'text', inputmode: 'numeric', placeholder: 'YYYY-MM-DD HH:MM', pattern: '\\d{4}-\\d{2}-\\d{2}( \\d{2}:\\d{2})?', size: '17', autocomplete: 'off' };
 
 export const HOUR = 3600 * 1000;
 

@@ -1,7 +1,7 @@
 // Balances over a range: stream totals with σ, per-period flows, coverage, and per unit
 // in − out per component beside the raw imbalance of the measured flows.
 import { api, seg, qs } from '../api.js';
-import { h, clear, message, errorBox, ready, utc, iso, num, pm, pmu, HOUR, parseTime, toLocalInput, fromLocalInput, download, csv } from '../dom.js';
+import { h, clear, message, errorBox, ready, utc, iso, num, pm, pmu, HOUR, parseTime, toLocalInput, fromLocalInput, TIME_INPUT, download, csv } from '../dom.js';
 import { latestStart, plantInfo, periodMs, model, modelBody, listOf } from './common.js';
 
 export function compMap(obj) {
@@ -50,8 +50,8 @@ export async function render(ctx, view) {
 
   view.append(h('h1', null, 'Balances ', h('span', { class: 'muted mono', text: plant })),
     h('p', { class: 'lede', text: 'Amounts over a range from the reconciled flows of each period, with σ, and each unit\'s balance per component.' }));
-  const fromIn = h('input', { id: 'bal-from', type: 'datetime-local', value: toLocalInput(from), step: '3600' });
-  const toIn = h('input', { id: 'bal-to', type: 'datetime-local', value: toLocalInput(to), step: '3600' });
+  const fromIn = h('input', { id: 'bal-from', ...TIME_INPUT, value: toLocalInput(from) });
+  const toIn = h('input', { id: 'bal-to', ...TIME_INPUT, value: toLocalInput(to) });
   const csvBtn = h('button', { type: 'button', class: 'btn', id: 'bal-csv', text: 'Download CSV' });
   const form = h('form', { class: 'toolbar', novalidate: true },
     h('div', { class: 'field' }, h('label', { for: 'bal-from', text: 'From (UTC)' }), fromIn),

@@ -1,6 +1,6 @@
 // Figures: one loop figure over a range, with its σ band, zoom and pan, failed tests marked.
 import { api, seg, qs } from '../api.js';
-import { h, clear, message, errorBox, ready, utc, iso, num, pmu, HOUR, parseTime, toLocalInput, fromLocalInput, download } from '../dom.js';
+import { h, clear, message, errorBox, ready, utc, iso, num, pmu, HOUR, parseTime, toLocalInput, fromLocalInput, TIME_INPUT, download } from '../dom.js';
 import { chart, makeAxis } from '../chart.js';
 import { latestStart, plantInfo, periodMs } from './common.js';
 
@@ -17,8 +17,8 @@ export async function render(ctx, view) {
   view.append(h('h1', null, 'Loop figures ', h('span', { class: 'muted mono', text: plant })),
     h('p', { class: 'lede', text: 'A figure of the reconciled loop over time. The line is the value, the shaded band ± 1σ; gaps are periods where the figure could not be determined; hatched columns mark periods whose global test failed.' }));
 
-  const fromIn = h('input', { id: 'fig-from', type: 'datetime-local', value: toLocalInput(from), step: '3600' });
-  const toIn = h('input', { id: 'fig-to', type: 'datetime-local', value: toLocalInput(to), step: '3600' });
+  const fromIn = h('input', { id: 'fig-from', ...TIME_INPUT, value: toLocalInput(from) });
+  const toIn = h('input', { id: 'fig-to', ...TIME_INPUT, value: toLocalInput(to) });
   const nameSel = h('select', { id: 'fig-name' });
   const subjSel = h('select', { id: 'fig-subject' });
   const show = h('button', { type: 'submit', class: 'btn btn-primary', id: 'fig-show', text: 'Show' });

@@ -1,6 +1,6 @@
 // One meter: its history on one time axis, its notes, the note form, its value to a figure.
 import { api, seg, qs } from '../api.js';
-import { h, clear, message, loading, errorBox, ready, utc, iso, num, pmu, parseTime, stateBadge, toLocalInput, fromLocalInput } from '../dom.js';
+import { h, clear, message, loading, errorBox, ready, utc, iso, num, pmu, parseTime, stateBadge, toLocalInput, fromLocalInput, TIME_INPUT } from '../dom.js';
 import { chart, makeAxis } from '../chart.js';
 import { latestStart, plantInfo, periodMs } from './common.js';
 
@@ -114,7 +114,7 @@ function noteItem(n, uom) {
 function noteForm(ctx, P, tag, uom) {
   const kind = h('select', { id: 'note-kind' }, KINDS.map(([v, label]) => h('option', { value: v, text: label })));
   const text = h('textarea', { id: 'note-text', maxlength: '4000', rows: '3' });
-  const when = h('input', { id: 'note-effective', type: 'datetime-local', step: '60' });
+  const when = h('input', { id: 'note-effective', ...TIME_INPUT });
   const asFound = h('input', { id: 'note-as-found', type: 'number', step: 'any', inputmode: 'decimal' });
   const asFoundWrap = h('div', { class: 'field' },
     h('label', { for: 'note-as-found', text: `As found (${uom}, positive: read high)` }), asFound);
@@ -166,7 +166,6 @@ function noteForm(ctx, P, tag, uom) {
     }
   });
   when.value = '';
-  when.placeholder = toLocalInput(Date.now());
   return form;
 }
 

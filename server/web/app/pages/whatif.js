@@ -1,6 +1,6 @@
 // Purge what-if: sweep a splitter outlet's fraction from a reconciled base case, with σ bands.
 import { api, seg } from '../api.js';
-import { h, clear, message, loading, errorBox, ready, utc, iso, num, pmu, parseTime, toLocalInput, fromLocalInput, table } from '../dom.js';
+import { h, clear, message, loading, errorBox, ready, utc, iso, num, pmu, parseTime, toLocalInput, fromLocalInput, TIME_INPUT, table } from '../dom.js';
 import { chart } from '../chart.js';
 import { latestStart, model, modelBody, listOf } from './common.js';
 
@@ -29,8 +29,8 @@ export async function render(ctx, view) {
 
   const defaultOutlet = (outlets.find((x) => x.to === 'outside') || outlets[0]).id;
   const outletSel = h('select', { id: 'wi-outlet' }, outlets.map((x) => h('option', { value: x.id, text: `${x.id} (of ${x.from}, to ${x.to})`, selected: x.id === defaultOutlet })));
-  const baseIn = h('input', { id: 'wi-period', type: 'datetime-local', step: '3600', value: last !== null ? toLocalInput(last) : '' });
-  const baseTo = h('input', { id: 'wi-period-to', type: 'datetime-local', step: '3600' });
+  const baseIn = h('input', { id: 'wi-period', ...TIME_INPUT, value: last !== null ? toLocalInput(last) : '' });
+  const baseTo = h('input', { id: 'wi-period-to', ...TIME_INPUT });
   const sFrom = h('input', { id: 'wi-from', type: 'number', step: 'any', min: '0', max: '1', value: '0.02' });
   const sTo = h('input', { id: 'wi-to', type: 'number', step: 'any', min: '0', max: '1', value: '0.2' });
   const sN = h('input', { id: 'wi-points', type: 'number', step: '1', min: '2', max: '1000', value: '10' });
