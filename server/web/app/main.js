@@ -225,4 +225,9 @@ window.addEventListener('hashchange', () => {
 });
 
 document.getElementById('sign-out').addEventListener('click', () => signOut(null));
+// The skip link must not change the hash (the router owns it): move the focus instead.
+document.getElementById('skip-link').addEventListener('click', (e) => {
+  e.preventDefault();
+  document.getElementById('main').focus();
+});
 route();
