@@ -142,6 +142,29 @@ function signInPage(main) {
   input.focus();
 }
 
+/** A token that may not read results (ingest, maintain): say so, and for maintain offer the way to a meter's note form. */
+function noReadPage(r) {
+  const view = h('div', { class: 'page page-noread' },
+    h('h1', { text: 'This token cannot read results' }),
+    h('p', { class: 'lede', text: `Its role is ${me.role}. Reconciled values, balances, figures and meters need a token of role read or admin.` }));
+  if (me.may && me.may.maintain) {
+    const plant = h('input', { id: 'go-plant', type: 'text', required: true, value: r.plant || me.plant || '', autocomplete: 'off' });
+    const tag = h('input', { id: 'go-tag', type: 'text', required: true, autocomplete: 'off' });
+    const form = h('form', { class: 'card toolbar', novalidate: true },
+      h('div', { class: 'field' }, h('label', { for: 'go-plant', text: 'Plant' }), plant),
+      h('div', { class: 'field' }, h('label', { for: 'go-tag', text: 'Meter tag' }), tag),
+      h('button', { type: 'submit', class: 'btn btn-primary', id: 'go-meter', text: 'Write a note on this meter' }));
+    form.addEventListener('submit', (e) => {
+      e.preventDefault();
+      if (plant.value.trim() && tag.value.trim()) location.hash = `#/plant/${encodeURIComponent(plant.value.trim())}/meters/${encodeURIComponent(tag.value.trim())}`;
+    });
+    view.append(h('p', { text: 'A maintain token writes technicians\' notes on meters. Name the plant and the meter:' }), form);
+  } else if (me.may && me.may.ingest) {
+    view.append(h('p', { text: 'An ingest token posts historian readings (POST /api/v1/plants/NAME/readings); it has nothing to show here.' }));
+  }
+  return view;
+}
+
 export function signOut(msg) {
   clearToken();
   clearCache();
@@ -193,6 +216,11 @@ async function route() {
   clear(main);
   if (!loader) {
     main.append(message('error', `There is no page "${r.page}".`), h('p', null, h('a', { href: '#/plants', text: 'Back to the plants' })));
+    setReady(true);
+    return;
+  }
+  if (!(me.may && me.may.read) && r.page !== 'meter') {
+    main.append(noReadPage(r));
     setReady(true);
     return;
   }

@@ -33,8 +33,9 @@ export function compAmounts(total) {
 
 export function totalsList(bal) {
   const t = bal.totals || [];
-  if (Array.isArray(t)) return t;
-  return Object.entries(t).map(([stream, v]) => ({ stream, ...v }));
+  const list = Array.isArray(t) ? t : Array.isArray(t.streams) ? t.streams
+    : Object.entries(t).filter(([, v]) => v && typeof v === 'object').map(([stream, v]) => ({ stream, ...v }));
+  return list.map((x) => ({ ...x, stream: x.stream ?? x.id }));
 }
 
 export async function render(ctx, view) {

@@ -23,7 +23,7 @@ export async function latestStart(plant) {
   const list = await api(`/plants/${seg(plant)}/periods${qs({ from: new Date(now - 60 * 24 * HOUR).toISOString(), to: new Date(now).toISOString() })}`);
   const runs = (list.periods || []).filter((p) => p.status && !['no_readings', 'pending', 'no_run'].includes(p.status));
   if (!runs.length) return null;
-  return parseTime(runs[runs.length - 1].period_start);
+  return parseTime(runs[runs.length - 1].start ?? runs[runs.length - 1].period_start);
 }
 
 export async function model(plant) {

@@ -59,12 +59,15 @@ export async function render(ctx, view) {
       h('input', { type: 'radio', name: 'label-mode', id, value: m, checked: m === mode }), label));
   }
   radios.append(h('label', { for: 'label-component', class: 'visually-hidden', text: 'Component' }), compSel);
+  const tagsBox = h('input', { type: 'checkbox', id: 'show-tags', checked: q.tags === '1' });
   const toolbar = h('div', { class: 'toolbar' },
     h('div', { class: 'field' },
       h('label', { for: 'period', text: 'Period (start, UTC)' }),
       h('div', { class: 'period-nav' }, prevBtn, periodSel, nextBtn),
       h('span', { class: 'hint', id: 'period-hint', text: 'The latest 48 periods; older ones from the Balances or Figures pages.' })),
-    h('fieldset', null, h('legend', { text: 'Stream labels' }), radios));
+    h('fieldset', null, h('legend', { text: 'Stream labels' }), radios),
+    h('div', { class: 'field' }, h('span', { class: 'field-title', text: 'Meters' }),
+      h('label', { for: 'show-tags', class: 'check' }, tagsBox, ' show meter tags')));
   view.append(toolbar);
 
   const status = h('div', { class: 'page-status' });
@@ -72,6 +75,8 @@ export async function render(ctx, view) {
 
   // ---- drawing and side ------------------------------------------------------------------
   const svg = buildSheet(sheet, health, plant);
+  svg.el.classList.toggle('show-tags', tagsBox.checked);
+  tagsBox.addEventListener('change', () => svg.el.classList.toggle('show-tags', tagsBox.checked));
   const side = h('aside', { class: 'side', 'aria-label': 'Period and stream details' });
   const periodCard = h('section', { class: 'card', id: 'period-card', 'aria-labelledby': 'period-card-h' });
   const panel = h('section', { class: 'card', id: 'stream-panel', 'aria-live': 'polite', 'aria-labelledby': 'stream-panel-h' });
@@ -89,9 +94,9 @@ export async function render(ctx, view) {
       const ans = await api(`${P}/periods${qs({ from: iso(anchor - 47 * pms), to: iso(anchor + pms) })}`);
       list = (ans.periods || []).slice().reverse();
     } catch { list = []; }
-    if (!list.some((p) => parseTime(p.period_start) === period)) list.unshift({ period_start: iso(period), status: '' });
+    if (!list.some((p) => parseTime(p.start ?? p.period_start) === period)) list.unshift({ start: iso(period), status: '' });
     for (const p of list) {
-      const t = parseTime(p.period_start);
+      const t = parseTime(p.start ?? p.period_start);
       periodSel.append(h('option', { value: iso(t), selected: t === period, text: `${utc(t, false)}${p.status ? ` — ${p.status}` : ''}` }));
     }
   }
@@ -250,8 +255,9 @@ function buildSheet(sheet, health, plant) {
   const pad = 30;
   const W = sheet.width || 1000;
   const H = sheet.height || 600;
+  const k = Math.max(1, W / 1000); // text and marks grow with the drawing so they stay legible when it is scaled to the width
   const svg = s('svg', {
-    id: 'flowsheet', viewBox: `${-pad} ${-pad} ${W + 2 * pad} ${H + 2 * pad}`,
+    id: 'flowsheet', viewBox: `${-pad * k} ${-pad * k} ${W + 2 * pad * k} ${H + 2 * pad * k}`,
     role: 'group', 'aria-label': `Flowsheet of ${plant}: units, streams and meters`,
   });
   const defs = s('defs');
@@ -293,8 +299,8 @@ function buildSheet(sheet, health, plant) {
   for (const u of sheet.units || []) {
     const g = s('g', { class: `unit unit-${u.kind}`, 'data-unit': u.id, 'data-kind': u.kind },
       unitShape(u),
-      s('text', { x: u.x + u.w / 2, y: u.y + u.h + 14, 'text-anchor': 'middle', class: 'unit-name', text: u.id }),
-      s('text', { x: u.x + u.w / 2, y: u.y + u.h + 26, 'text-anchor': 'middle', class: 'unit-kind', text: u.kind }),
+      s('text', { x: u.x + u.w / 2, y: u.y + u.h + 14 * k, 'text-anchor': 'middle', class: 'unit-name', 'font-size': 12 * k, text: u.id }),
+      s('text', { x: u.x + u.w / 2, y: u.y + u.h + 26 * k, 'text-anchor': 'middle', class: 'unit-kind', 'font-size': 10 * k, text: u.kind }),
       s('title', { text: `${u.kind} ${u.id}` }));
     gUnits.append(g);
   }
@@ -303,10 +309,10 @@ function buildSheet(sheet, health, plant) {
     const g = s('g', { class: `term term-${t.kind}`, 'data-terminal': t.id });
     if (t.kind === 'feed') {
       g.append(s('path', { d: `M${t.x - 14},${t.y - 9} h18 l10,9 l-10,9 h-18 z`, class: 'term-shape' }));
-      g.append(s('text', { x: t.x - 4, y: t.y + 22, 'text-anchor': 'middle', class: 'term-text', text: 'feed' }));
+      g.append(s('text', { x: t.x - 4, y: t.y + 22 * k, 'text-anchor': 'middle', class: 'term-text', 'font-size': 10 * k, text: 'feed' }));
     } else {
       g.append(s('path', { d: `M${t.x - 12},${t.y - 9} h16 l8,9 l-8,9 h-16 l6,-9 z`, class: 'term-shape' }));
-      g.append(s('text', { x: t.x, y: t.y + 22, 'text-anchor': 'middle', class: 'term-text', text: 'product' }));
+      g.append(s('text', { x: t.x, y: t.y + 22 * k, 'text-anchor': 'middle', class: 'term-text', 'font-size': 10 * k, text: 'product' }));
     }
     g.append(s('title', { text: `${t.kind}: stream ${t.stream}` }));
     gTerms.append(g);
@@ -321,10 +327,10 @@ function buildSheet(sheet, health, plant) {
       class: 'meter', 'data-meter': m.tag, 'data-state': state,
       'aria-label': `Meter ${m.tag}, ${m.quantity}${m.component ? ` ${m.component}` : ''}, state ${info.word}`,
     },
-    s('circle', { cx: m.x, cy: m.y, r: 8, class: 'meter-dot' }),
-    s('text', { x: m.x, y: m.y + 4, 'text-anchor': 'middle', class: 'meter-sym', text: info.sym }),
-    s('text', { x: m.x + 11, y: m.y + 15, class: 'meter-text', text: m.tag }),
-    s('text', { x: m.x + 11, y: m.y + 26, class: 'meter-word', text: `${info.word}${m.component ? ` · ${m.component}` : ''}` }),
+    s('circle', { cx: m.x, cy: m.y, r: 8 * k, class: 'meter-dot' }),
+    s('text', { x: m.x, y: m.y + 4 * k, 'text-anchor': 'middle', class: 'meter-sym', 'font-size': 11 * k, text: info.sym }),
+    s('text', { x: m.x + 10 * k, y: m.y + 15 * k, class: 'meter-word', 'font-size': 10 * k, text: `${info.word}${m.component ? ` · ${m.component}` : ''}` }),
+    s('text', { x: m.x + 10 * k, y: m.y + 26 * k, class: 'meter-text', 'font-size': 10 * k, text: m.tag }),
     s('title', { text: `${m.tag}: ${m.quantity}${m.component ? ` ${m.component}` : ''} — ${info.word}` }));
     gMeters.append(a);
   }
@@ -356,7 +362,7 @@ function buildSheet(sheet, health, plant) {
         const v = st ? compGet(st.composition, comp) : null;
         lines.push(v === null || v === undefined ? `${comp || 'component'}: unobservable` : `${comp}: ${pm(v, compGet(st.composition_sigma, comp))} mole fraction`);
       }
-      drawLabel(labelEls.get(id), def, lines, unobs);
+      drawLabel(labelEls.get(id), def, lines, unobs, k);
       g.setAttribute('aria-label', `Stream ${id} from ${def.from} to ${def.to}${def.recycle ? ', recycle' : ''}${unobs ? ', unobservable' : ''}: ${lines.join('; ')}`);
     }
   }
@@ -368,17 +374,17 @@ function buildSheet(sheet, health, plant) {
   return { el: svg, label, select, onSelect: (fn) => listeners.push(fn) };
 }
 
-function drawLabel(g, def, lines, unobs) {
+function drawLabel(g, def, lines, unobs, k) {
   clear(g);
   const [lx, ly] = def.label || def.points[0];
   const all = [def.id, ...lines];
-  const w = Math.max(...all.map((t) => t.length)) * 6.3 + 10;
-  const hgt = all.length * 13 + 6;
+  const w = (Math.max(...all.map((t) => t.length)) * 6.3 + 10) * k;
+  const hgt = (all.length * 13 + 6) * k;
   const x = lx - w / 2;
   const y = ly - hgt / 2;
   g.append(s('rect', { x, y, width: w, height: hgt, class: 'label-box', rx: 3 }));
   all.forEach((t, i) => g.append(s('text', {
-    x: lx, y: y + 14 + i * 13, 'text-anchor': 'middle',
+    x: lx, y: y + (14 + i * 13) * k, 'text-anchor': 'middle', 'font-size': 11 * k,
     class: i === 0 ? 'label-id' : `label-text${unobs && /unobservable/.test(t) ? ' label-unobs' : ''}`, text: t,
   })));
 }

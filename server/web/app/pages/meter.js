@@ -17,6 +17,13 @@ const CUSUM_SUSPECT = 10;
 export async function render(ctx, view) {
   const { plant, tag } = ctx.route;
   const P = `/plants/${seg(plant)}`;
+  if (!(ctx.me.may && ctx.me.may.read)) {
+    // A maintain token writes notes but may not read the meter's record.
+    view.append(h('h1', null, 'Meter ', h('span', { class: 'mono', text: tag }), ' ', h('span', { class: 'muted', text: `on ${plant}` })),
+      message('info', `This ${ctx.me.role} token may write notes but not read results, so the meter's history is not shown. The service checks the tag when the note is sent.`));
+    if (ctx.me.may && ctx.me.may.maintain) view.append(h('ul', { id: 'notes', class: 'notes-list' }), noteForm(ctx, P, tag, 'the meter\'s unit'));
+    return;
+  }
   const [m, info] = await Promise.all([api(`${P}/meters/${seg(tag)}`), plantInfo(plant).catch(() => null)]);
   const pms = periodMs(info);
   const uom = m.uom;
