@@ -144,7 +144,7 @@ function drawAnswer(out, ans, baseReport, outlet, dom) {
     out.append(h('h3', { text: `Points without a steady state (${noSteady.length})` }),
       h('ul', null, noSteady.map((p) => h('li', { text: `${sweepName} = ${num(p.settings ? p.settings[sweepName] : null, 4)}: ${p.reason || p.status}` }))));
   }
-  const grid = h('div', { class: 'grid-2' });
+  const grid = h('div', { class: 'chart-stack' });
   out.append(h('h2', { text: 'Trade-off' }), grid);
   for (const curve of CURVES) {
     const subjects = new Set();
