@@ -12,7 +12,7 @@ use std::time::{Duration, Instant};
 
 use reqwest::StatusCode;
 use serde_json::Value;
-use support::{client, json_ok, purge_design_csv, put_model, token, BIN, LOOPBAL};
+use support::{client, conforms, json_ok, purge_design_csv, put_model, token, BIN, LOOPBAL};
 
 const PLANT: &str = "purge-design";
 const HOURS: usize = 5;
@@ -167,6 +167,14 @@ async fn service_reports(
             .await
             .unwrap();
         let run = json_ok(r).await;
+        conforms(
+            &c,
+            &s,
+            "get",
+            "/api/v1/plants/{plant}/periods/{start}",
+            &run,
+        )
+        .await;
         reports.push(run["report"].clone());
     }
     reports
@@ -363,6 +371,19 @@ async fn the_cli_and_the_service_give_equal_what_ifs_on_the_same_readings() {
         .any(|f| f["sigma"].as_f64().is_some_and(|s| s > 0.0)));
     assert!(service["optimum"].is_object(), "{service}");
     assert_eq!(cli, service, "the CLI's what-if, then the service's");
+    // The answer is the one the OpenAPI document describes, and that description is typed.
+    let schema = conforms(&c, &s, "post", "/api/v1/plants/{plant}/what-if", &service).await;
+    let mut bad = service.clone();
+    bad["points"][0]["status"] = "melted".into();
+    assert!(
+        !schema.is_valid(&bad),
+        "a point's status is one of its words"
+    );
+    bad["points"][0] = serde_json::json!({"settings": {}});
+    assert!(
+        !schema.is_valid(&bad),
+        "a point has its figures and streams"
+    );
 
     // A range of periods as the base case, combined: the same on both.
     let service = json_ok(
@@ -484,6 +505,11 @@ async fn the_cli_and_the_service_give_equal_meter_values_on_the_same_readings() 
     assert!(!service["candidates"].as_array().unwrap().is_empty());
     assert_eq!(service["best"]["additions"].as_array().unwrap().len(), 2);
     assert_eq!(cli, service, "the CLI's meter value, then the service's");
+    let path = "/api/v1/plants/{plant}/meter-value";
+    let schema = conforms(&c, &s, "get", path, &service).await;
+    let mut bad = service.clone();
+    bad["meters"][0]["sigma"] = "small".into();
+    assert!(!schema.is_valid(&bad), "a meter's σ is a number");
 
     // A range: each period valued, the firsts counted.
     let range = json_ok(
@@ -501,6 +527,7 @@ async fn the_cli_and_the_service_give_equal_meter_values_on_the_same_readings() 
         .map(|f| f["periods"].as_u64().unwrap())
         .sum();
     assert_eq!(firsts, 3);
+    conforms(&c, &s, "get", path, &range).await;
     let one = json_ok(
         value("period=2026-06-01T01:00:00Z&figure=purge_fraction:purge")
             .await

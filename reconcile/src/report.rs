@@ -6,6 +6,7 @@ use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[serde(rename_all = "snake_case")]
 pub enum ReportStatus {
     /// Converged, and every stream flow and extent is observable.
@@ -64,6 +65,7 @@ impl std::fmt::Display for ReportStatus {
 pub type GlobalTestReport = crate::stats::GlobalTest;
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct MeasurementTestReport {
     /// Critical |normalised adjustment|: z_{1−β/2} with β = 1 − (1 − α)^{1/m_r}.
     pub critical: f64,
@@ -74,6 +76,7 @@ pub struct MeasurementTestReport {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct MeterReport {
     pub tag: String,
     pub stream: String,
@@ -123,6 +126,7 @@ fn used_by_default() -> bool {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct StreamReport {
     pub id: String,
     pub from: String,
@@ -144,6 +148,7 @@ pub struct StreamReport {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct ExtentReport {
     pub reaction: String,
     pub unit: String,
@@ -154,6 +159,7 @@ pub struct ExtentReport {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct SplitReport {
     /// The outlet stream.
     pub stream: String,
@@ -164,6 +170,7 @@ pub struct SplitReport {
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[serde(rename_all = "snake_case")]
 pub enum FaultKind {
     MeterBias,
@@ -175,6 +182,7 @@ pub enum FaultKind {
 
 /// One member of a fault group, with its own estimate.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct FaultCandidate {
     pub kind: FaultKind,
     /// Meter tag or unit id.
@@ -191,6 +199,7 @@ pub struct FaultCandidate {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct Fault {
     pub kind: FaultKind,
     /// Meters (tags) or units (ids) that the data cannot tell apart: one of them is probably
@@ -205,6 +214,7 @@ pub struct Fault {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct Figure {
     pub name: String,
     /// What the figure is of: a reaction, a stream, a unit, a component, or `item:component`.
@@ -216,6 +226,7 @@ pub struct Figure {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct Diagnostics {
     /// ‖g‖∞ at the solution, kmol/h.
     pub constraint_residual: f64,
@@ -233,6 +244,7 @@ pub struct Diagnostics {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct Report {
     pub plant: String,
     pub period_start: String,

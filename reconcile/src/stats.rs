@@ -46,6 +46,7 @@ pub fn measurement_test_critical(alpha: f64, tests: usize) -> f64 {
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct GlobalTest {
     /// Minimised objective J = Σ((y − ŷ)/σ)².
     pub statistic: f64,

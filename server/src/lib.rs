@@ -12,6 +12,7 @@ pub mod claimant;
 pub mod cli;
 pub mod csv_out;
 pub mod demo;
+pub mod flowsheet;
 pub mod health;
 pub mod ingest;
 pub mod meter_value;

@@ -429,6 +429,34 @@ pub fn check_problem(p: &serde_json::Value, status: u16, what: &str) {
     );
 }
 
+/// Assert that `answer` conforms to the schema the service's own OpenAPI document gives the
+/// 200 answer of `method path` (`path` as the document writes it, `{plant}` and all); that
+/// schema, for more answers.
+pub async fn conforms(
+    c: &reqwest::Client,
+    s: &Server,
+    method: &str,
+    path: &str,
+    answer: &serde_json::Value,
+) -> jsonschema::Validator {
+    let doc = json_ok(c.get(s.url("/api/v1/openapi.json")).send().await.unwrap()).await;
+    let op = &doc["paths"][path][method];
+    let mut root = op["responses"]["200"]["content"]["application/json"]["schema"].clone();
+    assert!(
+        root.is_object(),
+        "{method} {path}: no JSON 200 answer in the document"
+    );
+    root["components"] = doc["components"].clone();
+    let schema = jsonschema::validator_for(&root).expect("the document's schema compiles");
+    let errors: Vec<String> = schema
+        .iter_errors(answer)
+        .take(10)
+        .map(|e| format!("{} at {}", e, e.instance_path))
+        .collect();
+    assert!(errors.is_empty(), "{method} {path}: {errors:#?}");
+    schema
+}
+
 /// The purge-design model's text and `hours` hours of its readings as CSV from
 /// 2026-06-01T00:00Z at its design case (testkit::purge_design), from the engine's simulator
 /// (three per meter and hour, noise at each meter's σ, fixed seed), less those `skip(tag, hour)`

@@ -22,6 +22,8 @@ pub mod plants;
 pub mod purge_design;
 pub mod values;
 pub mod vantle;
+#[cfg(feature = "e2e")]
+pub mod webdriver;
 
 pub use values::{exact_values, noisy_values, one_reading_each, period, readings_csv};
 pub use vantle::{vantle_true_state, VantleConditions};

@@ -19,6 +19,7 @@ mod openapi;
 mod periods;
 mod problems;
 mod readings;
+mod workspace;
 
 use std::collections::BTreeSet;
 use std::time::Duration;
@@ -26,8 +27,8 @@ use std::time::Duration;
 use reqwest::{Client, StatusCode};
 use serde_json::{json, Value};
 use support::{
-    client, json_ok, metrics, ombrask_model, post_readings, problem, purge_design_csv, put_model,
-    token, wait_for_periods, Server, OMBRASK_TAGS,
+    client, conforms, content_type, json_ok, metrics, ombrask_model, post_readings, problem,
+    purge_design_csv, put_model, token, wait_for_periods, Server, OMBRASK_TAGS,
 };
 
 const PLANT: &str = "ombrask-ob2";

@@ -46,6 +46,7 @@ pub enum RequestError {
 
 /// One existing meter's worth to the figure.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct MeterEntry {
     pub tag: String,
     pub uom: String,
@@ -59,6 +60,7 @@ pub struct MeterEntry {
 
 /// A candidate new meter as the answer names it.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct CandidateName {
     pub stream: String,
     pub quantity: Quantity,
@@ -72,6 +74,7 @@ pub struct CandidateName {
 
 /// A meter's smallest detectable bias now and with a candidate added.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct BiasChange {
     pub tag: String,
     pub uom: String,
@@ -81,6 +84,7 @@ pub struct BiasChange {
 
 /// What one candidate would buy.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct CandidateEntry {
     #[serde(flatten)]
     pub candidate: CandidateName,
@@ -94,6 +98,7 @@ pub struct CandidateEntry {
 
 /// One figure of the best additions' goal.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct GoalFigure {
     pub name: String,
     pub subject: String,
@@ -104,6 +109,7 @@ pub struct GoalFigure {
 
 /// The best k additions.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct BestEntry {
     pub k: usize,
     /// `exhaustive` (every subset tried) or `greedy`.
@@ -116,6 +122,7 @@ pub struct BestEntry {
 
 /// The accuracies the candidates were given.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct AccuracyEntry {
     pub flow_sigma_pct: f64,
     /// kmol/h, when given instead of the percentage.
@@ -126,6 +133,7 @@ pub struct AccuracyEntry {
 
 /// The answer for one period.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct MeterValueReport {
     pub figure: Figure,
     /// Measured meters, the best repair (smallest σ with its σ halved) first.

@@ -118,6 +118,7 @@ pub struct Request {
 
 /// The base case a what-if starts from.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct Base {
     /// The period's start (of a range: its first reconciled period's).
     pub period_start: String,
@@ -136,6 +137,7 @@ pub struct Base {
 
 /// The answer: the base case, what was held, each point, the optimum when asked.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct WhatIf {
     pub base: Base,
     pub holds: Vec<String>,

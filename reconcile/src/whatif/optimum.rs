@@ -29,6 +29,7 @@ const TOLERANCE: f64 = 1e-7;
 
 /// An upper limit on a component's mole fraction at a reactor inlet.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct InletLimit {
     pub unit: String,
     pub component: String,
@@ -37,6 +38,7 @@ pub struct InletLimit {
 
 /// The values of the trade-off, per kmol (any currency, the same throughout).
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct Economics {
     /// Price per kmol of each product component made.
     pub product_price: BTreeMap<String, f64>,
@@ -51,6 +53,7 @@ pub struct Economics {
 
 /// The optimum found.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct Optimum {
     /// The setting moved, `split:STREAM`.
     pub setting: String,

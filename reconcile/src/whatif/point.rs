@@ -19,6 +19,7 @@ use super::propagate::Propagated;
 use super::WhatIfError;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 #[serde(rename_all = "snake_case")]
 pub enum PointStatus {
     Solved,
@@ -27,6 +28,7 @@ pub enum PointStatus {
 
 /// The loop at one set of settings.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "openapi", derive(utoipa::ToSchema))]
 pub struct Point {
     /// The settings of this point, by name.
     pub settings: BTreeMap<String, f64>,

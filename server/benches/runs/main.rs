@@ -14,7 +14,8 @@
 //!    period the same way (bounded: after `LOOPBAL_BENCH_YEAR_BUDGET_S`, 240 s by default, the
 //!    periods left get copies of stored runs through `Store::record_run`, and the bench says
 //!    so); then `GET /api/v1/plants/{plant}/periods/{start}` is timed for 500 random periods
-//!    with one keep-alive client.
+//!    with one keep-alive client; then the six requests of the web workspace's loop page and
+//!    a year of one figure thinned to 800 points, 20 rounds each.
 //!
 //! Commands:
 //!
@@ -37,7 +38,7 @@
 //! The modules: `service` (the service in-process, the readings POSTed, the runs counted in the
 //! database), `passes` (timed `run_due` passes and the runs they left), `month` (the month's
 //! cases and the engine alone), `processes` (the month by `loopbal serve` processes), `year`
-//! (the year and the report reads).
+//! (the year, the report reads and what the workspace reads).
 
 mod month;
 mod passes;
@@ -54,7 +55,7 @@ use testkit::bench::{self, load_average as load, Db};
 
 use month::{engine_alone, month_cases, print_side_by_side};
 use service::{readings, Service};
-use year::{report_reads, run_year, Year};
+use year::{report_reads, run_year, workspace_reads, Year};
 
 const BATCH: usize = 10_000;
 const MONTH_HOURS: usize = 720;
@@ -163,6 +164,7 @@ async fn run() {
     let svc = Service::start(year_url, model_text, &plant_name, start).await;
     run_year(&svc, &year).await;
     let median = report_reads(&svc, &year, reads, meters).await;
+    workspace_reads(&svc, &year, 20).await;
     svc.stop().await;
 
     println!();

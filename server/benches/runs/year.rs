@@ -198,3 +198,104 @@ pub fn percentile(sorted: &[f64], p: f64) -> f64 {
     let rank = ((p / 100.0) * sorted.len() as f64).ceil().max(1.0) as usize;
     sorted[rank.min(sorted.len()) - 1]
 }
+
+/// What the workspace's loop page asks the service for, with the year stored: the plant list,
+/// the drawing, the model, the latest 48 periods, the last period's run and the meters; then a
+/// year of one figure thinned to 800 points, as the figures page asks for it. Medians of
+/// `rounds` rounds, one request at a time on one keep-alive client.
+pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
+    let base = &svc.served.base;
+    let root = base.split("/api/v1/").next().expect("a base URL");
+    let end = year.start + TimeDelta::hours(year.hours as i64);
+    let last = rfc3339(end - TimeDelta::hours(1));
+    let recent = rfc3339(end - TimeDelta::hours(48));
+    let (from, to) = (rfc3339(year.start), rfc3339(end));
+    let loop_page = [
+        format!("{root}/api/v1/plants"),
+        format!("{base}/flowsheet"),
+        format!("{base}/model"),
+        format!("{base}/periods?from={recent}&to={}", rfc3339(end)),
+        format!("{base}/periods/{last}"),
+        format!("{base}/meters"),
+    ];
+    let figures = format!("{base}/figures?from={from}&to={to}&name=purge_fraction&points=800");
+    let client = reqwest::Client::builder()
+        .pool_max_idle_per_host(1)
+        .build()
+        .expect("client");
+    let get = |url: String| {
+        let req = client.get(url.clone()).bearer_auth(&svc.served.token);
+        async move {
+            let t = Instant::now();
+            let res = req.send().await.expect("GET");
+            let ok = res.status().is_success();
+            let body = res.bytes().await.expect("body");
+            refuse_unless(ok, "tests/api/workspace.rs", || {
+                format!("GET {url} failed: {}", String::from_utf8_lossy(&body))
+            });
+            (t.elapsed().as_secs_f64() * 1e3, body)
+        }
+    };
+    let mut pages = Vec::with_capacity(rounds);
+    let mut each = vec![Vec::with_capacity(rounds); loop_page.len()];
+    let mut series = Vec::with_capacity(rounds);
+    let began = Instant::now();
+    for round in 0..rounds + 1 {
+        if began.elapsed() > READ_LIMIT {
+            break;
+        }
+        let mut page = 0.0;
+        for (i, url) in loop_page.iter().enumerate() {
+            let (ms, _) = get(url.clone()).await;
+            page += ms;
+            if round > 0 {
+                each[i].push(ms);
+            }
+        }
+        let (ms, body) = get(figures.clone()).await;
+        let v: serde_json::Value = serde_json::from_slice(&body).unwrap_or_default();
+        let points = v["series"][0]["points"].as_array().map_or(0, Vec::len);
+        refuse_unless(
+            points > 0 && points <= 801,
+            "results::figures::tests::thinning_keeps_every_excursion_gap_and_failed_test_in_time_order",
+            || format!("a year thinned to 800 points gave {points}"),
+        );
+        // The first round warms the caches.
+        if round > 0 {
+            pages.push(page);
+            series.push(ms);
+        }
+    }
+    refuse_unless(
+        !pages.is_empty(),
+        "nothing: the reads' own time bound",
+        || "no timed workspace reads".into(),
+    );
+    let median = |v: &mut Vec<f64>| {
+        v.sort_by(f64::total_cmp);
+        percentile(v, 50.0)
+    };
+    let names = [
+        "plants",
+        "flowsheet",
+        "model",
+        "periods (48 h)",
+        "period",
+        "meters",
+    ];
+    let parts: Vec<String> = names
+        .iter()
+        .zip(each.iter_mut())
+        .map(|(name, times)| format!("{name} {:.1}", median(times)))
+        .collect();
+    println!(
+        "   the workspace's loop page, {} rounds: its six requests {:.1} ms in all (median; {} ms each)",
+        pages.len(),
+        median(&mut pages),
+        parts.join(", ")
+    );
+    println!(
+        "   a year of purge_fraction thinned to 800 points: median {:.1} ms",
+        median(&mut series)
+    );
+}

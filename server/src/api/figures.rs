@@ -31,6 +31,11 @@ pub struct FiguresQuery {
     subject: Option<String>,
     /// `json` or `csv`: overrides the Accept header (for tools that cannot set headers).
     format: Option<String>,
+    /// At most this many points per series in a JSON answer (2 to 100,000): a longer range is
+    /// thinned to each bucket's lowest and highest value (`bucket_seconds` says how long a
+    /// bucket is). CSV is always every period's point.
+    #[param(minimum = 2, maximum = 100000)]
+    points: Option<usize>,
 }
 
 /// Does the caller want CSV? `format=` first, then the Accept header: CSV when it names
@@ -101,6 +106,13 @@ pub async fn get_figures(
 ) -> Result<Response, Problem> {
     let Query(query) = query?;
     let csv = wants_csv(query.format.as_deref(), &headers)?;
+    if let Some(points) = query.points {
+        if !(2..=100_000).contains(&points) {
+            return Err(Problem::bad_request(format!(
+                "points {points} is not between 2 and 100000"
+            )));
+        }
+    }
     let plant = &access.plant;
     let range = range::periods(&state, plant, &query.from, &query.to).await?;
     let reports = stored::current_parts(&state.store, plant, &range, Part::Figures).await?;
@@ -112,6 +124,10 @@ pub async fn get_figures(
         query.subject.as_deref(),
     )?;
     if !csv {
+        let mut answer = answer;
+        if let Some(points) = query.points {
+            figures::thin(&mut answer, points);
+        }
         return Ok(Json(answer).into_response());
     }
     let body = figures::to_csv(&answer).map_err(|e| {

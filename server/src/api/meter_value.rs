@@ -14,6 +14,7 @@ use super::problem::Problem;
 use super::AppState;
 use crate::meter_value::request;
 use crate::results::meter_value;
+use crate::results::meter_value::MeterValueAnswer;
 use crate::results::range::parse_time;
 
 #[derive(Debug, Deserialize, IntoParams)]
@@ -53,7 +54,7 @@ pub struct MeterValueQuery {
     tag = "results",
     params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$"), MeterValueQuery),
     responses(
-        (status = 200, description = "For a period: the figure, the meters (best repair first), the candidates (best buy first), the accuracies and, with add_best, the best set; for a range: the same per period with the repairs and additions that came first. See docs/meter-value.md", body = Object),
+        (status = 200, description = "For a period: the figure, the meters (best repair first), the candidates (best buy first), the accuracies and, with add_best, the best set; for a range: the same per period with the repairs and additions that came first. See docs/meter-value.md", body = MeterValueAnswer),
         (status = 400, description = "A time not RFC 3339, neither period nor from and to, an unknown figure or subject (the detail lists those there are), or an accuracy or weight that is not positive", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),
@@ -83,12 +84,12 @@ pub async fn get_meter_value(
         (Some(period), None, None) => {
             let start = parse_time("period", period)?;
             let answer = meter_value::of_stored_period(&state, plant, start, request).await?;
-            Ok(Json(answer).into_response())
+            Ok(Json(MeterValueAnswer::Period(Box::new(answer))).into_response())
         }
         (None, Some(from), Some(to)) => {
             let (from, to) = (parse_time("from", from)?, parse_time("to", to)?);
             let answer = meter_value::of_stored_range(&state, plant, from, to, request).await?;
-            Ok(Json(answer).into_response())
+            Ok(Json(MeterValueAnswer::Range(answer)).into_response())
         }
         _ => Err(Problem::bad_request(
             "give either period, or from and to (RFC 3339 times)".to_string(),

@@ -34,7 +34,9 @@ mod periods;
 pub mod problem;
 mod range;
 pub(crate) mod readings;
+mod web;
 mod what_if;
+mod workspace;
 
 use problem::Problem;
 
@@ -129,7 +131,8 @@ impl std::ops::Deref for AppState {
         (name = "periods", description = "Period runs and their reports"),
         (name = "meters", description = "Meter health and technicians' notes"),
         (name = "results", description = "Loop figures as time series and balances over a range"),
-        (name = "service", description = "Liveness, metrics and this description"),
+        (name = "service", description = "Liveness, metrics, this description and the web workspace"),
+        (name = "workspace", description = "What the web workspace shows besides the results: the token's role, the plants, the loop's drawing"),
     )
 )]
 struct ApiDoc;
@@ -291,6 +294,10 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
         .routes(routes!(balances::get_balances))
         .routes(routes!(what_if::post_what_if))
         .routes(routes!(meter_value::get_meter_value))
+        .routes(routes!(workspace::get_token))
+        .routes(routes!(workspace::list_plants))
+        .routes(routes!(workspace::get_flowsheet))
+        .routes(routes!(web::index))
         .split_for_parts();
     let mut doc = serde_json::to_value(&openapi).unwrap_or_default();
     NextRequests::add_to(&mut doc);
@@ -298,6 +305,7 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
     let _ = state.openapi.set(text);
     let limits = state.limits;
     let router = routes
+        .route("/app/{*path}", axum::routing::get(web::asset))
         .fallback(not_found)
         // A panic in a handler is a bug of ours: answer 500 as a problem and keep serving.
         .layer(tower_http::catch_panic::CatchPanicLayer::custom(
@@ -324,6 +332,7 @@ pub fn router(state: AppState) -> (Router, utoipa::openapi::OpenApi) {
             refuse_declared_excess,
         ))
         .layer(middleware::from_fn(problem_details))
+        .layer(middleware::from_fn(web::security_headers))
         .layer(middleware::from_fn_with_state(state.clone(), observe))
         .layer(
             TraceLayer::new_for_http()

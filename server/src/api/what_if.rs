@@ -37,10 +37,20 @@ pub struct WhatIfBody {
     pub free: Option<String>,
     /// What each reaction is held at: `conversion` (of its key reactant, the default) or
     /// `extent`.
-    #[schema(pattern = "^(conversion|extent)$", nullable = false)]
-    pub hold: Option<String>,
+    #[schema(nullable = false)]
+    pub hold: Option<HoldWord>,
     /// Values for the purge's economic optimum.
     pub economics: Option<EconomicsBody>,
+}
+
+/// What each reaction is held at while the settings move.
+#[derive(Debug, Clone, Copy, Deserialize, ToSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum HoldWord {
+    /// The single-pass conversion of the reaction's key reactant.
+    Conversion,
+    /// The extent, kmol/h.
+    Extent,
 }
 
 /// One setting over evenly spaced values, ends included.
@@ -82,14 +92,9 @@ pub struct InletLimitBody {
 
 impl WhatIfBody {
     fn request(self) -> Result<Request, Problem> {
-        let hold = match self.hold.as_deref() {
-            None | Some("conversion") => ReactionHold::Conversion,
-            Some("extent") => ReactionHold::Extent,
-            Some(other) => {
-                return Err(Problem::bad_request(format!(
-                    "hold \"{other}\" is not one of conversion, extent"
-                )))
-            }
+        let hold = match self.hold {
+            None | Some(HoldWord::Conversion) => ReactionHold::Conversion,
+            Some(HoldWord::Extent) => ReactionHold::Extent,
         };
         let sweep = self
             .sweep
@@ -127,7 +132,7 @@ impl WhatIfBody {
     params(("plant" = String, Path, description = "Plant name: 1 to 64 letters, digits, '.', '_' or '-', not starting with '.'", pattern = r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")),
     request_body(content = WhatIfBody, description = "The base period and the change", content_type = "application/json"),
     responses(
-        (status = 200, description = "The base case, what was held, one point per setting (or sweep value), the optimum when values were given; see docs/what-if.md", body = Object),
+        (status = 200, description = "The base case, what was held, one point per setting (or sweep value), the optimum when values were given; see docs/what-if.md", body = WhatIf),
         (status = 400, description = "Not JSON of the expected shape, a time not RFC 3339, or a setting, sweep or value at fault (named)", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No valid token", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The token may not read this plant", body = Problem, content_type = "application/problem+json"),

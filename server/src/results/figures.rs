@@ -27,6 +27,9 @@ pub struct FigureSeriesList {
     /// Every figure name found in the range (before the name and subject filters).
     pub names: Vec<String>,
     pub series: Vec<FigureSeries>,
+    /// With `points`: the length of the buckets the series were thinned to (each bucket's
+    /// lowest and highest value kept); null when every period's point is given.
+    pub bucket_seconds: Option<i64>,
 }
 
 /// One figure of one subject over the range.
@@ -43,7 +46,7 @@ pub struct FigureSeries {
 
 /// The figure in one period. Value and σ are null where the period has no run, its run did
 /// not converge, or the figure is not observable that period: a gap, never a made-up number.
-#[derive(Debug, Serialize, ToSchema)]
+#[derive(Debug, Clone, Serialize, ToSchema)]
 pub struct FigurePoint {
     pub period_start: String,
     pub value: Option<f64>,
@@ -51,6 +54,10 @@ pub struct FigurePoint {
     /// The period's run status (solved, unobservable, not_converged, infeasible, no_data), or
     /// `no_run`.
     pub status: String,
+    /// Whether the period passed the global test; null without a test (no run, no redundancy,
+    /// not converged). Of a thinned series: false when any period of the point's bucket
+    /// failed it.
+    pub global_test_passed: Option<bool>,
 }
 
 /// The figure series of the range from the current reports of its periods (`reports`, by
@@ -132,12 +139,15 @@ pub fn series(
             }
         }
     }
-    let statuses: Vec<String> = range
+    let statuses: Vec<(String, Option<bool>)> = range
         .starts
         .iter()
         .map(|start| match reports.get(start) {
-            Some(r) => r.status.as_str().to_string(),
-            None => NO_RUN.into(),
+            Some(r) => (
+                r.status.as_str().to_string(),
+                r.global_test.as_ref().map(|t| t.passed),
+            ),
+            None => (NO_RUN.into(), None),
         })
         .collect();
     let series: Vec<FigureSeries> = keys
@@ -153,11 +163,12 @@ pub fn series(
                 .iter()
                 .zip(row)
                 .zip(&statuses)
-                .map(|((start, cell), status)| FigurePoint {
+                .map(|((start, cell), (status, passed))| FigurePoint {
                     period_start: rfc3339(*start),
                     value: cell.and_then(|c| c.0),
                     sigma: cell.and_then(|c| c.1),
                     status: status.clone(),
+                    global_test_passed: *passed,
                 })
                 .collect(),
         })
@@ -171,7 +182,52 @@ pub fn series(
         periods: range.starts.len(),
         names,
         series,
+        bucket_seconds: None,
     })
+}
+
+/// Thin every series to at most `points` points when the range has more periods: the periods
+/// are cut into `points / 2` buckets of equal length, and each bucket keeps its lowest and its
+/// highest value (in time order, once when they are the same point), each with its own σ and
+/// status, so that a chart of the thinned series shows every excursion of the full one. A
+/// bucket with a period without a value also keeps that period's null point, so that gaps
+/// stay gaps; a bucket where any period failed the global test says so on all its points.
+pub fn thin(answer: &mut FigureSeriesList, points: usize) {
+    let periods = answer.periods;
+    let buckets = (points / 2).max(1);
+    if periods <= points.max(2) {
+        return;
+    }
+    let per_bucket = periods.div_ceil(buckets);
+    answer.bucket_seconds = Some(per_bucket as i64 * answer.period_seconds);
+    for series in &mut answer.series {
+        let full = std::mem::take(&mut series.points);
+        let mut kept = Vec::with_capacity(2 * buckets + 1);
+        for chunk in full.chunks(per_bucket) {
+            let failed = chunk.iter().any(|p| p.global_test_passed == Some(false));
+            let with_value = chunk
+                .iter()
+                .enumerate()
+                .filter_map(|(i, p)| p.value.map(|v| (i, v)));
+            let low = with_value.clone().min_by(|a, b| a.1.total_cmp(&b.1));
+            let high = with_value.max_by(|a, b| a.1.total_cmp(&b.1));
+            let gap = chunk.iter().position(|p| p.value.is_none());
+            let mut chosen: Vec<usize> = [low.map(|l| l.0), high.map(|h| h.0), gap]
+                .into_iter()
+                .flatten()
+                .collect();
+            chosen.sort_unstable();
+            chosen.dedup();
+            for i in chosen {
+                let mut point = chunk[i].clone();
+                if failed {
+                    point.global_test_passed = Some(false);
+                }
+                kept.push(point);
+            }
+        }
+        series.points = kept;
+    }
 }
 
 /// The series as CSV (`text/csv`): `period_start,name,subject,uom,value,sigma`, series after
@@ -194,4 +250,96 @@ pub fn to_csv(answer: &FigureSeriesList) -> Result<Vec<u8>, csv::Error> {
         }
     }
     table.finish()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A year-like series of `n` hourly points: a slow wave, one spike, a gap, one period
+    /// failing the global test.
+    fn series_of(n: usize) -> FigureSeriesList {
+        let points = (0..n)
+            .map(|i| {
+                let gap = (200..210).contains(&i);
+                let value = match i {
+                    537 => 9.0,
+                    _ => (i as f64 / 50.0).sin(),
+                };
+                FigurePoint {
+                    period_start: format!("period {i:05}"),
+                    value: (!gap).then_some(value),
+                    sigma: (!gap).then_some(0.01 + i as f64 * 1e-6),
+                    status: if gap { NO_RUN.into() } else { "solved".into() },
+                    global_test_passed: if gap { None } else { Some(i != 800) },
+                }
+            })
+            .collect();
+        FigureSeriesList {
+            plant: "p".into(),
+            from: "a".into(),
+            to: "b".into(),
+            period_seconds: 3600,
+            periods: n,
+            names: vec!["purge_fraction".into()],
+            series: vec![FigureSeries {
+                name: "purge_fraction".into(),
+                subject: "purge".into(),
+                uom: "fraction".into(),
+                points,
+            }],
+            bucket_seconds: None,
+        }
+    }
+
+    #[test]
+    fn thinning_keeps_every_excursion_gap_and_failed_test_in_time_order() {
+        let full = series_of(1000);
+        let mut thinned = series_of(1000);
+        thin(&mut thinned, 100);
+        assert_eq!(thinned.bucket_seconds, Some(20 * 3600));
+        let kept = &thinned.series[0].points;
+        // Two per bucket, and the one bucket with a gap keeps its null as well.
+        assert!(kept.len() <= 100 + 1, "{}", kept.len());
+        assert!(kept.len() >= 90, "{}", kept.len());
+        assert!(kept
+            .windows(2)
+            .all(|w| w[0].period_start < w[1].period_start));
+        let values = |p: &[FigurePoint]| p.iter().filter_map(|p| p.value).collect::<Vec<_>>();
+        let max = |v: Vec<f64>| v.into_iter().fold(f64::MIN, f64::max);
+        let min = |v: Vec<f64>| v.into_iter().fold(f64::MAX, f64::min);
+        assert_eq!(max(values(kept)), 9.0, "the spike survives");
+        assert_eq!(min(values(kept)), min(values(&full.series[0].points)));
+        assert!(
+            kept.iter().any(|p| p.value.is_none()),
+            "the gap stays a gap"
+        );
+        // The bucket holding period 800 (periods 800..820) is marked failed, no other is.
+        let failed: Vec<&str> = kept
+            .iter()
+            .filter(|p| p.global_test_passed == Some(false))
+            .map(|p| p.period_start.as_str())
+            .collect();
+        assert!(!failed.is_empty());
+        assert!(
+            failed
+                .iter()
+                .all(|s| ("period 00800"..="period 00819").contains(s)),
+            "{failed:?}"
+        );
+        // Each kept point is a real period's, σ and all.
+        for p in kept {
+            let i: usize = p.period_start[7..].parse().unwrap();
+            assert_eq!(p.value, full.series[0].points[i].value);
+            assert_eq!(p.sigma, full.series[0].points[i].sigma);
+        }
+    }
+
+    #[test]
+    fn a_series_within_the_points_is_left_whole() {
+        let mut answer = series_of(300);
+        thin(&mut answer, 300);
+        assert_eq!(answer.series[0].points.len(), 300);
+        assert_eq!(answer.bucket_seconds, None);
+    }
 }

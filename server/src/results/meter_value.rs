@@ -8,6 +8,7 @@ use chrono::{DateTime, Utc};
 use reconcile::meter_value::{self, MeterValueReport, Request};
 use reconcile::{Analysis, Plant};
 use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
 
 use super::rerun::stored_periods;
 use super::{rfc3339, ResultsError};
@@ -19,7 +20,7 @@ use crate::store::PlantRow;
 pub const MAX_PERIODS: usize = 168;
 
 /// One period's answer.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, ToSchema)]
 pub struct PeriodValue {
     pub period: String,
     #[serde(flatten)]
@@ -27,15 +28,23 @@ pub struct PeriodValue {
 }
 
 /// How often each repair or addition came first over a range.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, ToSchema)]
 pub struct Firsts {
     /// The meter or candidate (`STREAM molar_flow`, `STREAM mole_fraction COMPONENT`).
     pub item: String,
     pub periods: usize,
 }
 
+/// The answer: of one period, or of a range.
+#[derive(Debug, Serialize, ToSchema)]
+#[serde(untagged)]
+pub enum MeterValueAnswer {
+    Period(Box<PeriodValue>),
+    Range(RangeValue),
+}
+
 /// The answer over a range: each period's, and the repairs and additions that came first.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, ToSchema)]
 pub struct RangeValue {
     pub from: String,
     pub to: String,

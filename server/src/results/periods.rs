@@ -98,7 +98,7 @@ pub struct PeriodRun {
     #[schema(value_type = Object)]
     pub inputs: serde_json::Value,
     /// The period's report.
-    #[schema(value_type = Object)]
+    #[schema(value_type = reconcile::report::Report)]
     pub report: serde_json::Value,
 }
 

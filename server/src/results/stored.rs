@@ -4,7 +4,7 @@
 use std::collections::BTreeMap;
 
 use chrono::{DateTime, Utc};
-use reconcile::report::{Figure, StreamReport};
+use reconcile::report::{Figure, GlobalTestReport, StreamReport};
 use reconcile::ReportStatus;
 use serde::Deserialize;
 
@@ -22,6 +22,8 @@ pub struct ReportPart {
     pub streams: Option<Vec<StreamReport>>,
     #[serde(default)]
     pub figures: Option<Vec<Figure>>,
+    #[serde(default)]
+    pub global_test: Option<GlobalTestReport>,
 }
 
 /// Which parts of a report to read besides its status.
@@ -42,7 +44,7 @@ pub async fn current_parts(
 ) -> Result<BTreeMap<DateTime<Utc>, ReportPart>, ResultsError> {
     let fields: &[&str] = match part {
         Part::Streams => &["status", "period_end", "streams"],
-        Part::Figures => &["status", "figures"],
+        Part::Figures => &["status", "figures", "global_test"],
     };
     let stored = store
         .current_reports(plant, range.first(), range.to, fields)

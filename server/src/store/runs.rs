@@ -116,6 +116,24 @@ impl Store {
             .transpose())
     }
 
+    /// The current run of the latest period whose run gave usable values (`solved` or
+    /// `unobservable`), if any.
+    pub async fn latest_usable_run(&self, plant: &PlantRow) -> Result<Option<RunRow>> {
+        let sql = format!(
+            "SELECT {COLUMNS} FROM runs AS r
+             WHERE r.plant_id = $1 AND {} AND r.status IN ('solved', 'unobservable')
+             ORDER BY r.period_start DESC LIMIT 1",
+            self.is_current()
+        );
+        on_backend!(self, s => sqlx::query(&sql)
+            .bind(plant.id)
+            .fetch_optional(&s.pool)
+            .await?
+            .as_ref()
+            .map(rows::run)
+            .transpose())
+    }
+
     /// The current run of every period starting in `[from, to)`, oldest first.
     pub async fn current_runs(
         &self,

@@ -60,14 +60,16 @@ export async function render(ctx, view) {
   }
   radios.append(h('label', { for: 'label-component', class: 'visually-hidden', text: 'Component' }), compSel);
   const tagsBox = h('input', { type: 'checkbox', id: 'show-tags', checked: q.tags === '1' });
+  const fitBox = h('input', { type: 'checkbox', id: 'fit-sheet', checked: q.fit === '1' });
   const toolbar = h('div', { class: 'toolbar' },
     h('div', { class: 'field' },
       h('label', { for: 'period', text: 'Period (start, UTC)' }),
       h('div', { class: 'period-nav' }, prevBtn, periodSel, nextBtn),
       h('span', { class: 'hint', id: 'period-hint', text: 'The latest 48 periods; older ones from the Balances or Figures pages.' })),
     h('fieldset', null, h('legend', { text: 'Stream labels' }), radios),
-    h('div', { class: 'field' }, h('span', { class: 'field-title', text: 'Meters' }),
-      h('label', { for: 'show-tags', class: 'check' }, tagsBox, ' show meter tags')));
+    h('div', { class: 'field' }, h('span', { class: 'field-title', text: 'Drawing' }),
+      h('label', { for: 'show-tags', class: 'check' }, tagsBox, ' show meter tags'),
+      h('label', { for: 'fit-sheet', class: 'check' }, fitBox, ' fit the drawing to the width')));
   view.append(toolbar);
 
   const status = h('div', { class: 'page-status' });
@@ -77,6 +79,8 @@ export async function render(ctx, view) {
   const svg = buildSheet(sheet, health, plant);
   svg.el.classList.toggle('show-tags', tagsBox.checked);
   tagsBox.addEventListener('change', () => svg.el.classList.toggle('show-tags', tagsBox.checked));
+  svg.el.classList.toggle('fit', fitBox.checked);
+  fitBox.addEventListener('change', () => svg.el.classList.toggle('fit', fitBox.checked));
   const side = h('aside', { class: 'side', 'aria-label': 'Period and stream details' });
   const periodCard = h('section', { class: 'card', id: 'period-card', 'aria-labelledby': 'period-card-h' });
   const panel = h('section', { class: 'card', id: 'stream-panel', 'aria-live': 'polite', 'aria-labelledby': 'stream-panel-h' });
@@ -255,9 +259,12 @@ function buildSheet(sheet, health, plant) {
   const pad = 30;
   const W = sheet.width || 1000;
   const H = sheet.height || 600;
-  const k = Math.max(1, W / 1000); // text and marks grow with the drawing so they stay legible when it is scaled to the width
+  // Drawn one user unit to one CSS pixel (the card scrolls sideways), or fitted to the width on
+  // request; text keeps its size relative to the drawing either way.
+  const k = 1;
   const svg = s('svg', {
     id: 'flowsheet', viewBox: `${-pad * k} ${-pad * k} ${W + 2 * pad * k} ${H + 2 * pad * k}`,
+    width: W + 2 * pad * k, height: H + 2 * pad * k,
     role: 'group', 'aria-label': `Flowsheet of ${plant}: units, streams and meters`,
   });
   const defs = s('defs');
@@ -329,8 +336,10 @@ function buildSheet(sheet, health, plant) {
     },
     s('circle', { cx: m.x, cy: m.y, r: 8 * k, class: 'meter-dot' }),
     s('text', { x: m.x, y: m.y + 4 * k, 'text-anchor': 'middle', class: 'meter-sym', 'font-size': 11 * k, text: info.sym }),
-    s('text', { x: m.x + 10 * k, y: m.y + 15 * k, class: 'meter-word', 'font-size': 10 * k, text: `${info.word}${m.component ? ` · ${m.component}` : ''}` }),
-    s('text', { x: m.x + 10 * k, y: m.y + 26 * k, class: 'meter-text', 'font-size': 10 * k, text: m.tag }),
+    // The state word (and the tag, when shown) slant down and to the right, so that the
+    // words of meters close together on a stream do not run into each other.
+    s('text', { x: m.x + 6 * k, y: m.y + 16 * k, class: 'meter-word', 'font-size': 10 * k, transform: `rotate(35 ${m.x + 6 * k} ${m.y + 16 * k})`, text: `${info.word}${m.component ? ` · ${m.component}` : ''}` }),
+    s('text', { x: m.x - 2 * k, y: m.y + 26 * k, class: 'meter-text', 'font-size': 10 * k, transform: `rotate(35 ${m.x - 2 * k} ${m.y + 26 * k})`, text: m.tag }),
     s('title', { text: `${m.tag}: ${m.quantity}${m.component ? ` ${m.component}` : ''} — ${info.word}` }));
     gMeters.append(a);
   }
@@ -381,7 +390,7 @@ function drawLabel(g, def, lines, unobs, k) {
   const w = (Math.max(...all.map((t) => t.length)) * 6.3 + 10) * k;
   const hgt = (all.length * 13 + 6) * k;
   const x = lx - w / 2;
-  const y = ly - hgt / 2;
+  const y = ly - hgt; // above the stream, clear of its line and meters
   g.append(s('rect', { x, y, width: w, height: hgt, class: 'label-box', rx: 3 }));
   all.forEach((t, i) => g.append(s('text', {
     x: lx, y: y + (14 + i * 13) * k, 'text-anchor': 'middle', 'font-size': 11 * k,
