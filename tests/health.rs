@@ -95,9 +95,14 @@ impl Service {
     }
 
     async fn get(&self, path: &str) -> Value {
+        self.get_from(&self.server, path).await
+    }
+
+    /// The same from another instance on the same database: its own memo of meter health.
+    async fn get_from(&self, server: &support::Server, path: &str) -> Value {
         let r = self
             .client
-            .get(self.server.url(&format!("/api/v1/plants/{PLANT}{path}")))
+            .get(server.url(&format!("/api/v1/plants/{PLANT}{path}")))
             .bearer_auth(&self.read)
             .send()
             .await
@@ -188,6 +193,12 @@ async fn a_small_bias_turns_its_meter_suspect_within_two_days_and_no_other() {
     let list = s.get("/meters").await;
     let biased = meter(&list, BIASED);
     assert_eq!(biased["status"], "suspect", "{biased}");
+    // What the first instance kept in its memo (assessed when its runs landed, or at the
+    // first request) is what a second instance, assessing afresh, answers.
+    let db = s._dir.path().join("loopbal.sqlite");
+    let other = support::LOOPBAL.serve(&db, &["--run-tick", "3600"]);
+    assert_eq!(s.get_from(&other, "/meters").await, list);
+    assert_eq!(s.get("/meters").await, list, "asked again, the same");
     assert_eq!(list["meters"][0]["tag"], BIASED, "the suspect ranks first");
     let (b, sb) = (
         biased["bias"].as_f64().unwrap(),
@@ -238,6 +249,10 @@ async fn a_small_bias_turns_its_meter_suspect_within_two_days_and_no_other() {
     let detail = s.get(&format!("/meters/{BIASED}")).await;
     assert_eq!(detail["history"].as_array().unwrap().len(), 24);
     assert_eq!(detail["status"], "ok", "{}", detail["reason"]);
+    // The note and the new runs made both memos stale: each instance answers the new state.
+    let after = s.get("/meters").await;
+    assert_eq!(meter(&after, BIASED)["status"], "ok");
+    assert_eq!(s.get_from(&other, "/meters").await, after);
     assert_eq!(detail["notes"][0]["kind"], "recalibrated");
     assert_eq!(
         detail["history_since"],

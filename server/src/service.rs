@@ -28,6 +28,8 @@ pub struct Service {
     /// This instance's name and lease in its claims on periods.
     pub claimant: Arc<Claimant>,
     models: Arc<ModelCache>,
+    /// Each plant's meter health as last assessed (crate::health::Memo).
+    pub health: Arc<crate::health::Memo>,
 }
 
 impl Service {
@@ -38,6 +40,7 @@ impl Service {
             wake: Arc::new(Notify::new()),
             claimant: Arc::new(Claimant::default()),
             models: Arc::new(ModelCache::default()),
+            health: Arc::new(crate::health::Memo::default()),
         }
     }
 

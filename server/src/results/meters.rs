@@ -176,18 +176,52 @@ fn common_evidence(
     }
 }
 
-/// Every meter of the model in effect at `now`, worst first: suspect, frozen, out of range,
-/// watch, out of service, missing, untestable, ok; by statistic within a status. A meter
-/// suspect together with another it cannot be told apart from is named with it (see
-/// [`health::attribute`]); a meter a note took out of service at `now` is `out_of_service`,
-/// with what the loop loses meanwhile (see [`out_of_service::losses`]).
-pub async fn ranking(
+/// Bring the memo of every plant without a period waiting to run up to date with its
+/// stored runs and notes (nothing is assessed for a plant whose memo is current). Failures
+/// are logged: the next request assesses again.
+pub async fn refresh_all(service: &Service) {
+    let plants = match service.store.plants().await {
+        Ok(plants) => plants,
+        Err(e) => return tracing::warn!(error = %e, "meter health refresh: listing plants"),
+    };
+    for plant in plants {
+        match service.store.has_dirty_periods(&plant).await {
+            Ok(false) => {}
+            Ok(true) => continue,
+            Err(e) => return tracing::warn!(error = %e, "meter health refresh"),
+        }
+        let refreshed = async {
+            let spec = spec_at(service, &plant, Utc::now()).await?;
+            let notes = service.store.notes(&plant, None).await?;
+            let tags = spec.meters.iter().map(|m| m.tag.clone()).collect();
+            assessed(service, &plant, tags, &notes).await
+        };
+        match refreshed.await {
+            Ok(_) | Err(ResultsError::Revision(RevisionError::NoModel { .. })) => {}
+            Err(e) => tracing::warn!(plant = %plant.name, error = %e, "meter health refresh"),
+        }
+    }
+}
+
+/// Every meter's health over its record since its last reset, after attribution among
+/// correlated suspects, and the first period of each record: as kept in the service's memo
+/// when nothing it depends on has changed since (see [`health::Memo`]), else assessed now and
+/// kept. The key is read before the records, so a run that lands meanwhile only makes the
+/// kept assessment look stale, never hides itself.
+async fn assessed(
     service: &Service,
     plant: &PlantRow,
-    now: DateTime<Utc>,
-) -> Result<MeterList, ResultsError> {
-    let spec = spec_at(service, plant, now).await?;
-    let notes = service.store.notes(plant, None).await?;
+    tags: Vec<String>,
+    notes: &[MeterNote],
+) -> Result<std::sync::Arc<health::Assessed>, ResultsError> {
+    let key = health::MemoKey {
+        tags,
+        runs: service.store.run_tally(plant).await?,
+        notes: (notes.len(), notes.iter().map(|n| n.id).max().unwrap_or(0)),
+    };
+    if let Some(kept) = service.health.get(plant.id, &key) {
+        return Ok(kept);
+    }
     let records = service
         .store
         .meter_periods(
@@ -197,11 +231,11 @@ pub async fn ranking(
             DateTime::<Utc>::MAX_UTC,
         )
         .await?;
-    let tags: Vec<String> = spec.meters.iter().map(|m| m.tag.clone()).collect();
+    let tags = &key.tags;
     let healths: Vec<Health> = tags
         .iter()
         .map(|tag| {
-            let since = resets(&notes, tag);
+            let since = resets(notes, tag);
             let record: Vec<MeterPeriod> = records
                 .iter()
                 .filter(|(t, p)| t == tag && since.is_none_or(|s| p.period_start >= s))
@@ -220,22 +254,52 @@ pub async fn ranking(
     };
     let mut attributed = healths.clone();
     health::attribute(
-        &tags,
+        tags,
         &mut attributed,
         &|i, j| correlation(&records, &tags[i], &tags[j]),
         &evidence,
     );
-    let healths = attributed;
+    let first = tags
+        .iter()
+        .map(|tag| {
+            let since = resets(notes, tag);
+            records
+                .iter()
+                .find(|(t, p)| t == tag && since.is_none_or(|s| p.period_start >= s))
+                .map(|(_, p)| p.period_start)
+        })
+        .collect();
+    let value = std::sync::Arc::new(health::Assessed {
+        healths: attributed,
+        first,
+    });
+    service
+        .health
+        .put(plant.id, key, std::sync::Arc::clone(&value));
+    Ok(value)
+}
+
+/// Every meter of the model in effect at `now`, worst first: suspect, frozen, out of range,
+/// watch, out of service, missing, untestable, ok; by statistic within a status. A meter
+/// suspect together with another it cannot be told apart from is named with it (see
+/// [`health::attribute`]); a meter a note took out of service at `now` is `out_of_service`,
+/// with what the loop loses meanwhile (see [`out_of_service::losses`]).
+pub async fn ranking(
+    service: &Service,
+    plant: &PlantRow,
+    now: DateTime<Utc>,
+) -> Result<MeterList, ResultsError> {
+    let spec = spec_at(service, plant, now).await?;
+    let notes = service.store.notes(plant, None).await?;
+    let tags: Vec<String> = spec.meters.iter().map(|m| m.tag.clone()).collect();
+    let assessed = assessed(service, plant, tags, &notes).await?;
     let mut meters: Vec<MeterHealth> = spec
         .meters
         .iter()
-        .zip(healths)
-        .map(|(m, health)| {
+        .zip(assessed.healths.iter().zip(&assessed.first))
+        .map(|(m, (health, first))| {
             let since = resets(&notes, &m.tag);
-            let first = records
-                .iter()
-                .find(|(t, p)| *t == m.tag && since.is_none_or(|s| p.period_start >= s))
-                .map(|(_, p)| p.period_start);
+            let health = health.clone();
             MeterHealth {
                 tag: m.tag.clone(),
                 stream: m.stream.clone(),
@@ -243,7 +307,7 @@ pub async fn ranking(
                 component: m.component.clone(),
                 uom: m.uom.clone(),
                 health,
-                history_since: since.or(first).map(rfc3339),
+                history_since: since.or(*first).map(rfc3339),
                 last_note: notes
                     .iter()
                     .rev()

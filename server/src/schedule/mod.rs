@@ -193,8 +193,14 @@ pub async fn worker(service: Service, schedule: Schedule, mut stop: watch::Recei
         if *stop.borrow() {
             break;
         }
-        if let Err(e) = run_due(&service, &schedule).await {
-            tracing::error!(error = %e, "scheduler pass failed; retrying on the next tick");
+        match run_due(&service, &schedule).await {
+            Ok(0) => {}
+            // Runs landed: the meter health of each plant that has caught up is assessed now,
+            // while nobody waits for it, so the next meter list is read from the memo.
+            Ok(_) => crate::results::meters::refresh_all(&service).await,
+            Err(e) => {
+                tracing::error!(error = %e, "scheduler pass failed; retrying on the next tick");
+            }
         }
         tokio::select! {
             _ = tokio::time::sleep(schedule.tick) => {}

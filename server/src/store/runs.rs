@@ -116,6 +116,18 @@ impl Store {
             .transpose())
     }
 
+    /// How many runs the plant has had and its largest run id. Runs are never deleted, so any
+    /// new run of the plant, by any instance, changes the pair (the count as well when ids
+    /// commit out of order), and so does nothing else: the per-meter records change only with
+    /// a run.
+    pub async fn run_tally(&self, plant: &PlantRow) -> Result<(i64, i64)> {
+        const SQL: &str = "SELECT COUNT(*), COALESCE(MAX(id), 0) FROM runs WHERE plant_id = $1";
+        Ok(on_backend!(self, s => sqlx::query_as::<_, (i64, i64)>(SQL)
+            .bind(plant.id)
+            .fetch_one(&s.pool)
+            .await?))
+    }
+
     /// The current run of the latest period whose run gave usable values (`solved` or
     /// `unobservable`), if any.
     pub async fn latest_usable_run(&self, plant: &PlantRow) -> Result<Option<RunRow>> {
