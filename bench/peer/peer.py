@@ -443,7 +443,8 @@ def compare(args):
         )
     solver = ca.nlpsol("peer", "ipopt", nlp, options)
     # The first period, and any period the warm start fails on, is solved from a cold start.
-    cold = ca.nlpsol("peer_cold", "ipopt", nlp, {k: v for k, v in options.items() if "warm" not in k and "mu_init" not in k})
+    cold_options = {k: v for k, v in options.items() if "warm" not in k and "mu_init" not in k}
+    cold = ca.nlpsol("peer_cold", "ipopt", nlp, cold_options)
     build_seconds = time.perf_counter() - built
     lbx = ca.DM([-ca.inf if math.isinf(v) else v for v in model.lower])
     ubx = ca.DM([ca.inf if math.isinf(v) else v for v in model.upper])
