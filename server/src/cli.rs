@@ -43,6 +43,10 @@ pub enum Command {
         /// Only periods starting before this RFC 3339 time.
         #[arg(long, value_name = "TIME", value_parser = parse_time)]
         period_to: Option<DateTime<Utc>>,
+        /// Write the engine's wall time of each period (the whole analysis, reading the file
+        /// and printing excluded) to standard error, one line `timing: PERIOD SECONDS s` each.
+        #[arg(long)]
+        timing: bool,
     },
     /// The loop's new steady state after a change (a purge split, a feed, a conversion, a
     /// target inlet fraction), from the reconciled base case of one period, every value with

@@ -19,11 +19,13 @@ fn main() -> ExitCode {
             readings,
             period_from,
             period_to,
+            timing,
         } => run::reconcile(&run::Options {
             model,
             readings,
             from: *period_from,
             to: *period_to,
+            timing: *timing,
         }),
         Command::WhatIf {
             model,

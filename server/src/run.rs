@@ -27,6 +27,8 @@ pub struct Options<'a> {
     pub readings: &'a Path,
     pub from: Option<DateTime<Utc>>,
     pub to: Option<DateTime<Utc>>,
+    /// Write each period's engine wall time to standard error (`--timing`).
+    pub timing: bool,
 }
 
 /// The readings of a file grouped by the periods of `plant`.
@@ -105,14 +107,29 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
         .filter(|(start, _)| opts.to.is_none_or(|to| *start < to));
     let mut reports: Vec<Report> = Vec::new();
     let mut crashed = Vec::new();
+    let mut timings = Vec::new();
     for (start, readings) in periods {
         // The engine promises not to panic; should it break that promise on some input, the
         // other periods are still reported and the run fails (exit 1) instead of aborting.
         // Files carry no technicians' notes, so no meter is left out.
         let run = || period_run::run_period(&plant, FILE_REVISION, start, readings, Vec::new());
-        match std::panic::catch_unwind(run) {
+        let began = std::time::Instant::now();
+        let outcome = std::panic::catch_unwind(run);
+        timings.push((start, began.elapsed()));
+        match outcome {
             Ok(run) => reports.push(run.report),
             Err(_) => crashed.push(start),
+        }
+    }
+    // Written after the runs, so that writing them is not timed (bench/peer/ reads them).
+    if opts.timing {
+        for (start, elapsed) in &timings {
+            let _ = writeln!(
+                stderr,
+                "timing: {} {:.9} s",
+                start.to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
+                elapsed.as_secs_f64()
+            );
         }
     }
 

@@ -261,3 +261,36 @@ fn period_filters_keep_the_periods_asked_for() {
     assert_eq!(reports[0]["period_start"], "2026-03-02T03:00:00Z");
     assert_exit_matches_statuses(&out, &reports);
 }
+
+#[test]
+fn timing_writes_each_periods_engine_seconds_to_stderr_and_leaves_stdout_alone() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let readings = write(dir.path(), "ombrask.csv", ombrask_csv());
+    let plain = reconcile(Path::new(OMBRASK), &readings);
+    let timed = loopbal(&[
+        "reconcile",
+        "--model",
+        OMBRASK,
+        "--readings",
+        s(&readings),
+        "--timing",
+    ]);
+    assert_eq!(timed.status.code(), plain.status.code());
+    // The same reports (a timing line on stdout would break the JSON).
+    assert_eq!(reports(&timed), reports(&plain));
+    let lines: Vec<String> = stderr(&timed)
+        .lines()
+        .filter(|l| l.starts_with("timing: "))
+        .map(str::to_owned)
+        .collect();
+    assert_eq!(lines.len(), 3, "{}", stderr(&timed));
+    for (line, h) in lines.iter().zip(2..) {
+        let fields: Vec<&str> = line.split(' ').collect();
+        assert_eq!(fields.len(), 4, "{line}");
+        assert_eq!(fields[1], format!("2026-03-02T{h:02}:00:00Z"), "{line}");
+        let seconds: f64 = fields[2].parse().expect("seconds are a number");
+        assert!(seconds > 0.0 && seconds < 10.0, "{line}");
+        assert_eq!(fields[3], "s", "{line}");
+    }
+    assert!(!stderr(&plain).contains("timing: "));
+}
