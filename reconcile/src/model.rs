@@ -128,6 +128,12 @@ pub struct MeterSpec {
     /// component of the stream when absent.
     #[serde(default)]
     pub basis: Option<Vec<String>>,
+    /// Unit of measure, spelled exactly as listed (docs/model.md): molar_flow and
+    /// component_flow: `kmol/h`, `mol/s`, `kmol/s`, `lbmol/h`; mass_flow: `kg/h`, `t/h`, `t/d`,
+    /// `kg/s`, `lb/h`, `klb/h`; std_volume_flow: `Nm3/h`, `Sm3/h`, `Nm3/d`, `SCFH`, `MSCFD`,
+    /// `MMSCFD`; mole_fraction: `fraction`, `%`, `ppm`, `mol %`, `vol %`, `ppmv`;
+    /// mass_fraction: `fraction`, `%`, `ppm`.
+    #[cfg_attr(feature = "openapi", schema(example = "kmol/h"))]
     pub uom: String,
     #[serde(default)]
     pub sigma: Option<f64>,
