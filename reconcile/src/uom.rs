@@ -282,8 +282,8 @@ impl Uom {
     pub fn misfit_note(self, quantity: Quantity) -> Option<&'static str> {
         match (self, quantity) {
             (Uom::MolPercent | Uom::VolPercent | Uom::Ppmv, Quantity::MassFraction) => Some(
-                "mol %, vol % and ppmv are mole fractions (vol % and ppmv of an ideal gas), \
-                 never mass fractions",
+                "mol %, vol % and ppmv measure mole fractions only (vol % and ppmv those of an \
+                 ideal gas)",
             ),
             _ => None,
         }

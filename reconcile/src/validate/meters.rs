@@ -42,7 +42,7 @@ pub(super) fn validate_meters(
             Some(u) if !u.fits(m.quantity) => {
                 let note = u
                     .misfit_note(m.quantity)
-                    .map(|n| format!(" ({n})"))
+                    .map(|n| format!("; {n}"))
                     .unwrap_or_default();
                 p.add(
                     &item,

@@ -112,7 +112,7 @@ fn customary_units_that_do_not_fit_the_quantity() {
                 &format!("\"{unit}\""),
                 "does not fit mass_fraction",
                 "use one of \"fraction\", \"%\", \"ppm\"",
-                "never mass fractions",
+                "; mol %, vol % and ppmv measure mole fractions only",
             ],
         );
     }
