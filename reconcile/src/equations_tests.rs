@@ -972,9 +972,21 @@ fn customary_flow_units_on_hand_computed_cases() {
     // 100 / 0.453 592 37 lbmol/h, about 83 662 SCFH, 2007.9 MSCFD and 2.0079 MMSCFD
     // (1 MMSCFD ≈ 49.8 kmol/h).
     assert!((h("V-SCFH", &z) - 379.48 * 100.0 / 0.453_592_37).abs() < 3.0);
-    assert!((h("V-MSCFD", &z) - 2_007.9).abs() < 0.05, "{}", h("V-MSCFD", &z));
-    assert!((h("V-MMSCFD", &z) - 100.0 / 49.8).abs() < 2e-4, "{}", h("V-MMSCFD", &z));
-    assert!(rel_close(h("V-MMSCFD", &z) * 1000.0, h("V-MSCFD", &z), 1e-14));
+    assert!(
+        (h("V-MSCFD", &z) - 2_007.9).abs() < 0.05,
+        "{}",
+        h("V-MSCFD", &z)
+    );
+    assert!(
+        (h("V-MMSCFD", &z) - 100.0 / 49.8).abs() < 2e-4,
+        "{}",
+        h("V-MMSCFD", &z)
+    );
+    assert!(rel_close(
+        h("V-MMSCFD", &z) * 1000.0,
+        h("V-MSCFD", &z),
+        1e-14
+    ));
 
     // 180 kmol/h = 0.05 kmol/s = 180 / 0.453 592 37 lbmol/h (1 lbmol = 453.592 37 mol).
     set_stream(

@@ -372,3 +372,45 @@ pub fn parse_period(text: &str) -> Option<i64> {
     (secs > 0 && secs <= MAX_PERIOD_SECONDS && (86_400 % secs == 0 || secs % 86_400 == 0))
         .then_some(secs)
 }
+
+#[cfg(all(test, feature = "openapi"))]
+mod tests {
+    use super::*;
+
+    /// The model file's JSON Schema (the service's OpenAPI document) describes `uom` with the
+    /// list of units each quantity accepts, as [`Uom::units_for`] gives them.
+    #[test]
+    fn the_model_schema_lists_each_quantitys_units() {
+        use utoipa::PartialSchema;
+        let schema = serde_json::to_value(MeterSpec::schema()).unwrap();
+        let described = schema["properties"]["uom"]["description"]
+            .as_str()
+            .expect("uom has a description")
+            .split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ");
+        let list = |q: Quantity| {
+            Uom::units_for(q)
+                .iter()
+                .map(|u| format!("`{u}`"))
+                .collect::<Vec<_>>()
+                .join(", ")
+        };
+        let expected = format!(
+            "Unit of measure, spelled exactly as listed (docs/model.md): molar_flow and \
+             component_flow: {}; mass_flow: {}; std_volume_flow: {}; mole_fraction: {}; \
+             mass_fraction: {}.",
+            list(Quantity::MolarFlow),
+            list(Quantity::MassFlow),
+            list(Quantity::StdVolumeFlow),
+            list(Quantity::MoleFraction),
+            list(Quantity::MassFraction)
+        );
+        assert_eq!(
+            Uom::units_for(Quantity::ComponentFlow),
+            Uom::units_for(Quantity::MolarFlow)
+        );
+        assert_eq!(described, expected);
+        assert_eq!(schema["properties"]["uom"]["type"], "string");
+    }
+}

@@ -257,7 +257,10 @@ mod tests {
             assert_eq!(screen(&pct, 99.0), None, "{u}");
             assert_eq!(
                 screen(&pct, 130.0),
-                Some(Implausible::NotAComposition { lo: -25.0, hi: 125.0 }),
+                Some(Implausible::NotAComposition {
+                    lo: -25.0,
+                    hi: 125.0
+                }),
                 "{u}"
             );
         }

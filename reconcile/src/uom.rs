@@ -373,7 +373,11 @@ mod tests {
         assert!((PSI - 6.894_757e3).abs() < 5e-4, "{PSI}");
         // One standard atmosphere (101 325 Pa) is 14.695 949 psi, so 14.696 psia lies just
         // above it (NIST SP 811 (2008), B.8: 1 atm = 1.013 25 E+05 Pa exactly).
-        assert!((101_325.0 / PSI - 14.695_949).abs() < 1e-6, "{}", 101_325.0 / PSI);
+        assert!(
+            (101_325.0 / PSI - 14.695_949).abs() < 1e-6,
+            "{}",
+            101_325.0 / PSI
+        );
         assert!((SCF_PRESSURE - 101_325.353).abs() < 1e-3, "{SCF_PRESSURE}");
         // 60 °F = 15.5556 °C = 288.7056 K (NIST SP 811 (2008), B.9: T/K = (t/°F + 459.67)/1.8).
         assert!((SCF_TEMPERATURE - 273.15 - 15.555_6).abs() < 1e-4);
@@ -385,7 +389,10 @@ mod tests {
         // Ideal gas, V = R T / p with CODATA 2018 R: 23.690 m³/kmol.
         let vm = 8.314_462_618 * ((60.0 + 459.67) / 1.8) / (14.696 * PSI) * 1000.0;
         assert!(rel_close(vm, MOLAR_VOLUME_SCF, 1e-12), "{vm}");
-        assert!((MOLAR_VOLUME_SCF - 23.690_3).abs() < 1e-4, "{MOLAR_VOLUME_SCF}");
+        assert!(
+            (MOLAR_VOLUME_SCF - 23.690_3).abs() < 1e-4,
+            "{MOLAR_VOLUME_SCF}"
+        );
         // 379.48 scf per lbmol at 60 °F and 14.696 psia: the figure gas-processing handbooks
         // print (a handbook value quoted from memory, not from a copy at hand).
         let scf_per_lbmol = SCF_PER_KMOL * POUND;
@@ -525,13 +532,21 @@ mod tests {
             assert_eq!(u.to_string(), u.as_str());
             for v in [0.0, 1.0, -3.5, 1234.567_89, 6.02e-7, 4.2e8] {
                 let back = u.from_base(u.to_base(v));
-                assert!((back - v).abs() <= 4.0 * f64::EPSILON * v.abs(), "{u}: {v} → {back}");
+                assert!(
+                    (back - v).abs() <= 4.0 * f64::EPSILON * v.abs(),
+                    "{u}: {v} → {back}"
+                );
                 let there = u.to_base(u.from_base(v));
-                assert!((there - v).abs() <= 4.0 * f64::EPSILON * v.abs(), "{u}: {v}");
+                assert!(
+                    (there - v).abs() <= 4.0 * f64::EPSILON * v.abs(),
+                    "{u}: {v}"
+                );
             }
         }
         // Spelled exactly: case and spaces count.
-        for bad in ["Kmol/h", "mol%", "Mol %", "vol%", "scfh", "MMscfd", "LB/H", "ppmV", " %"] {
+        for bad in [
+            "Kmol/h", "mol%", "Mol %", "vol%", "scfh", "MMscfd", "LB/H", "ppmV", " %",
+        ] {
             assert_eq!(Uom::parse(bad), None, "{bad}");
         }
         assert_eq!(Uom::parse("mol %"), Some(Uom::MolPercent));
@@ -541,7 +556,11 @@ mod tests {
     fn customary_conversions_by_hand() {
         // 1000 lb/h = 453.592 37 kg/h; 2204.622 62 lb/h = 1000 kg/h.
         assert!(rel_close(Uom::LbPerHour.to_base(1000.0), 453.592_37, 1e-15));
-        assert!(rel_close(Uom::LbPerHour.from_base(1000.0), 2_204.622_621_8, 1e-10));
+        assert!(rel_close(
+            Uom::LbPerHour.from_base(1000.0),
+            2_204.622_621_8,
+            1e-10
+        ));
         // 1 kg/s = 3.6 t/h = 86.4 t/d.
         assert!(rel_close(
             Uom::TonnePerDay.from_base(Uom::KgPerSecond.to_base(1.0)),
@@ -549,7 +568,11 @@ mod tests {
             1e-14
         ));
         // 100 lbmol/h = 45.359 237 kmol/h.
-        assert!(rel_close(Uom::LbmolPerHour.to_base(100.0), 45.359_237, 1e-15));
+        assert!(rel_close(
+            Uom::LbmolPerHour.to_base(100.0),
+            45.359_237,
+            1e-15
+        ));
         // 1 kmol/s = 3600 kmol/h.
         assert!(rel_close(Uom::KmolPerSecond.to_base(1.0), 3600.0, 1e-15));
         // 1 MMSCFD = 1000 MSCFD = 10⁶/24 SCFH.
@@ -567,41 +590,6 @@ mod tests {
         ] {
             assert!(rel_close(u.to_base(v), 0.025, 1e-15), "{u}");
         }
-    }
-
-    /// The model file's JSON Schema (the service's OpenAPI document) describes `uom` with the
-    /// list of units each quantity accepts, as [`Uom::units_for`] gives them.
-    #[cfg(feature = "openapi")]
-    #[test]
-    fn the_model_schema_lists_each_quantitys_units() {
-        use utoipa::PartialSchema;
-        let schema = serde_json::to_value(crate::model::MeterSpec::schema()).unwrap();
-        let described = schema["properties"]["uom"]["description"]
-            .as_str()
-            .expect("uom has a description")
-            .split_whitespace()
-            .collect::<Vec<_>>()
-            .join(" ");
-        let list = |q: Quantity| {
-            Uom::units_for(q)
-                .iter()
-                .map(|u| format!("`{u}`"))
-                .collect::<Vec<_>>()
-                .join(", ")
-        };
-        let expected = format!(
-            "Unit of measure, spelled exactly as listed (docs/model.md): molar_flow and \
-             component_flow: {}; mass_flow: {}; std_volume_flow: {}; mole_fraction: {}; \
-             mass_fraction: {}.",
-            list(Quantity::MolarFlow),
-            list(Quantity::MassFlow),
-            list(Quantity::StdVolumeFlow),
-            list(Quantity::MoleFraction),
-            list(Quantity::MassFraction)
-        );
-        assert_eq!(Uom::units_for(Quantity::ComponentFlow), Uom::units_for(Quantity::MolarFlow));
-        assert_eq!(described, expected);
-        assert_eq!(schema["properties"]["uom"]["type"], "string");
     }
 
     #[test]

@@ -113,10 +113,16 @@ fn assert_same_reconciliation(a: &Report, b: &Report, ratios: &[f64], rel: f64) 
             _ => assert_eq!(na, nb, "{}", ma.tag),
         }
         assert_eq!(ma.suspect, mb.suspect, "{}", ma.tag);
-        assert_eq!(mb.uom, b.meters.iter().find(|m| m.tag == mb.tag).unwrap().uom);
+        assert_eq!(
+            mb.uom,
+            b.meters.iter().find(|m| m.tag == mb.tag).unwrap().uom
+        );
     }
     let (oa, ob) = (a.objective.unwrap(), b.objective.unwrap());
-    assert!((oa - ob).abs() <= 1e-9 * oa.max(1.0), "objective {oa} vs {ob}");
+    assert!(
+        (oa - ob).abs() <= 1e-9 * oa.max(1.0),
+        "objective {oa} vs {ob}"
+    );
 }
 
 #[test]
@@ -133,7 +139,12 @@ fn exact_readings_in_customary_units_reconcile_to_the_same_state() {
     let in_customary = exact_values(&plant, &layout, &z);
     for ((a, b), k) in in_si.iter().zip(&in_customary).zip(&ratios) {
         let tag = &plant.meters[b.meter].tag;
-        assert!(close(a.value * k, b.value, 1e-12), "{tag}: {} vs {}", a.value * k, b.value);
+        assert!(
+            close(a.value * k, b.value, 1e-12),
+            "{tag}: {} vs {}",
+            a.value * k,
+            b.value
+        );
     }
     let a = reconcile_period(&original, &period(in_si));
     let b = reconcile_period(&plant, &period(in_customary));

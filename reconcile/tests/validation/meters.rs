@@ -99,12 +99,10 @@ fn customary_units_that_do_not_fit_the_quantity() {
     // vol % (and ppmv, mol %) are mole fractions: refused on a mass fraction, naming the
     // meter and listing the units a mass fraction accepts.
     for unit in ["vol %", "ppmv", "mol %"] {
-        let text = edit(&[
-            (
-                "quantity = \"mole_fraction\"\ncomponent = \"Ar\"\nuom = \"%\"",
-                &format!("quantity = \"mass_fraction\"\ncomponent = \"Ar\"\nuom = \"{unit}\""),
-            ),
-        ]);
+        let text = edit(&[(
+            "quantity = \"mole_fraction\"\ncomponent = \"Ar\"\nuom = \"%\"",
+            &format!("quantity = \"mass_fraction\"\ncomponent = \"Ar\"\nuom = \"{unit}\""),
+        )]);
         assert_only_problem(
             &text,
             "meter \"AI-2\"",
