@@ -530,7 +530,7 @@ mod tests {
         for u in Uom::ALL {
             assert_eq!(Uom::parse(u.as_str()), Some(u), "{u}");
             assert_eq!(u.to_string(), u.as_str());
-            for v in [0.0, 1.0, -3.5, 1234.567_89, 6.02e-7, 4.2e8] {
+            for v in [0.0, 1.0, -3.5, 1_234.567_89, 6.02e-7, 4.2e8] {
                 let back = u.from_base(u.to_base(v));
                 assert!(
                     (back - v).abs() <= 4.0 * f64::EPSILON * v.abs(),
