@@ -55,7 +55,8 @@ pub const MOLAR_VOLUME_SCF: f64 = MOLAR_GAS_CONSTANT * SCF_TEMPERATURE / SCF_PRE
 /// Standard cubic feet (60 °F, 14.696 psia) per kmol: the molar volume over a cubic foot.
 pub const SCF_PER_KMOL: f64 = MOLAR_VOLUME_SCF / (FOOT * FOOT * FOOT);
 
-/// Seconds in an hour and hours in a day (SI units accepted for use with the SI).
+/// Seconds in an hour and hours in a day (non-SI units accepted for use with the SI: SI
+/// Brochure, 9th edition, table 8).
 const SECONDS_PER_HOUR: f64 = 3600.0;
 const HOURS_PER_DAY: f64 = 24.0;
 
