@@ -208,6 +208,109 @@ quantity = "mass_fraction"
 component = "CO"
 uom = "ppm"
 sigma = 5.0
+[[meter]]
+tag = "F-kmols"
+stream = "react-in"
+quantity = "molar_flow"
+uom = "kmol/s"
+sigma = 0.001
+[[meter]]
+tag = "F-lbmolh"
+stream = "react-in"
+quantity = "molar_flow"
+uom = "lbmol/h"
+sigma = 2.0
+[[meter]]
+tag = "M-td"
+stream = "liquid"
+quantity = "mass_flow"
+uom = "t/d"
+sigma = 0.2
+[[meter]]
+tag = "M-kgs"
+stream = "liquid"
+quantity = "mass_flow"
+uom = "kg/s"
+sigma = 0.01
+[[meter]]
+tag = "M-lbh"
+stream = "liquid"
+quantity = "mass_flow"
+uom = "lb/h"
+sigma = 2.0
+[[meter]]
+tag = "M-klbh"
+stream = "liquid"
+quantity = "mass_flow"
+uom = "klb/h"
+sigma = 0.002
+[[meter]]
+tag = "V-Nm3d"
+stream = "feed"
+quantity = "std_volume_flow"
+uom = "Nm3/d"
+sigma = 240.0
+[[meter]]
+tag = "V-SCFH"
+stream = "feed"
+quantity = "std_volume_flow"
+uom = "SCFH"
+sigma = 400.0
+[[meter]]
+tag = "V-MSCFD"
+stream = "feed"
+quantity = "std_volume_flow"
+uom = "MSCFD"
+sigma = 10.0
+[[meter]]
+tag = "V-MMSCFD"
+stream = "feed"
+quantity = "std_volume_flow"
+uom = "MMSCFD"
+sigma = 0.01
+[[meter]]
+tag = "C-kmols"
+stream = "purge"
+quantity = "component_flow"
+component = "CH4"
+uom = "kmol/s"
+sigma = 0.0001
+[[meter]]
+tag = "C-lbmolh"
+stream = "purge"
+quantity = "component_flow"
+component = "CH4"
+uom = "lbmol/h"
+sigma = 0.2
+[[meter]]
+tag = "X-molpct"
+stream = "gas"
+quantity = "mole_fraction"
+component = "NH3"
+uom = "mol %"
+sigma = 0.1
+[[meter]]
+tag = "X-volpct"
+stream = "gas"
+quantity = "mole_fraction"
+component = "CH4"
+uom = "vol %"
+sigma = 0.1
+[[meter]]
+tag = "X-ppmv"
+stream = "gas"
+quantity = "mole_fraction"
+component = "H2O"
+uom = "ppmv"
+sigma = 1.0
+[[meter]]
+tag = "X-dry-ppmv"
+stream = "react-out"
+quantity = "mole_fraction"
+component = "CO"
+basis = ["CO", "N2", "H2", "NH3", "CH4"]
+uom = "ppmv"
+sigma = 5.0
 "#;
 
 fn plant() -> Plant {
@@ -723,9 +826,29 @@ fn every_quantity_and_uom_is_exercised() {
         ("mass_fraction", "fraction", false),
         ("mass_fraction", "%", false),
         ("mass_fraction", "ppm", false),
+        ("molar_flow", "kmol/s", false),
+        ("molar_flow", "lbmol/h", false),
+        ("mass_flow", "t/d", false),
+        ("mass_flow", "kg/s", false),
+        ("mass_flow", "lb/h", false),
+        ("mass_flow", "klb/h", false),
+        ("std_volume_flow", "Nm3/d", false),
+        ("std_volume_flow", "SCFH", false),
+        ("std_volume_flow", "MSCFD", false),
+        ("std_volume_flow", "MMSCFD", false),
+        ("component_flow", "kmol/s", false),
+        ("component_flow", "lbmol/h", false),
+        ("mole_fraction", "mol %", false),
+        ("mole_fraction", "vol %", false),
+        ("mole_fraction", "ppmv", false),
+        ("mole_fraction", "ppmv", true),
     ];
     expected.sort_unstable();
     assert_eq!(kinds, expected);
+    // And every unit there is, on some meter.
+    for u in crate::uom::Uom::ALL {
+        assert!(p.meters.iter().any(|m| m.uom == u), "no meter in {u}");
+    }
 }
 
 #[test]
@@ -813,6 +936,79 @@ fn flow_measurements_on_hand_computed_cases() {
         "{}",
         h("M-th", &z)
     );
+    // The same flow per day in tonnes, per second in kg, and in international pounds
+    // (1 lb = 0.453 592 37 kg exactly, NIST SP 811 (2008), appendix B).
+    let kg_h = h("M-kgh", &z);
+    assert!(rel_close(h("M-td", &z), kg_h * 24.0 / 1000.0, 1e-14));
+    assert!(rel_close(h("M-kgs", &z), kg_h / 3600.0, 1e-14));
+    assert!(rel_close(h("M-lbh", &z), kg_h / 0.453_592_37, 1e-14));
+    assert!(rel_close(h("M-klbh", &z), kg_h / 453.592_37, 1e-14));
+    assert!((h("M-lbh", &z) - 1523.6).abs() < 0.1, "{}", h("M-lbh", &z));
+}
+
+#[test]
+fn customary_flow_units_on_hand_computed_cases() {
+    let p = plant();
+    let l = Layout::new(&p);
+    let mut z = vec![0.0; l.n];
+    let h = |tag: &str, z: &[f64]| measurement(&p, &l, meter(&p, tag), z).0;
+    // 100 kmol/h of feed gas.
+    set_stream(
+        &p,
+        &l,
+        &mut z,
+        "feed",
+        &[("N2", 24.0), ("H2", 72.0), ("CH4", 1.0), ("H2O", 3.0)],
+    );
+    // Nm3/d: 24 × 2241.396 954 = 53 793.526 896 (CODATA 2018 molar volume).
+    assert!(rel_close(h("V-Nm3d", &z), 53_793.526_896, 1e-10));
+    // Standard cubic feet at 60 °F, 14.696 psia: V = R T / p with T = 519.67 × 5/9 K and
+    // p = 14.696 lbf/in² (lbf = 0.453 592 37 kg × 9.806 65 m/s², in = 0.0254 m; NIST SP 811).
+    let p_scf = 14.696 * 0.453_592_37 * 9.806_65 / (0.0254 * 0.0254);
+    let vm_scf = CODATA_R * (519.67 * 5.0 / 9.0) / p_scf; // m³/mol
+    let scf_per_kmol = vm_scf * 1000.0 / 0.3048_f64.powi(3);
+    assert!(rel_close(h("V-SCFH", &z), 100.0 * scf_per_kmol, 1e-12));
+    // 379.48 scf per lbmol (gas-processing handbook figure, from memory): 100 kmol/h is
+    // 100 / 0.453 592 37 lbmol/h, about 83 662 SCFH, 2007.9 MSCFD and 2.0079 MMSCFD
+    // (1 MMSCFD ≈ 49.8 kmol/h).
+    assert!((h("V-SCFH", &z) - 379.48 * 100.0 / 0.453_592_37).abs() < 3.0);
+    assert!(
+        (h("V-MSCFD", &z) - 2_007.9).abs() < 0.05,
+        "{}",
+        h("V-MSCFD", &z)
+    );
+    assert!(
+        (h("V-MMSCFD", &z) - 100.0 / 49.8).abs() < 2e-4,
+        "{}",
+        h("V-MMSCFD", &z)
+    );
+    assert!(rel_close(
+        h("V-MMSCFD", &z) * 1000.0,
+        h("V-MSCFD", &z),
+        1e-14
+    ));
+
+    // 180 kmol/h = 0.05 kmol/s = 180 / 0.453 592 37 lbmol/h (1 lbmol = 453.592 37 mol).
+    set_stream(
+        &p,
+        &l,
+        &mut z,
+        "react-in",
+        &[("N2", 30.0), ("H2", 90.0), ("NH3", 60.0)],
+    );
+    assert!(rel_close(h("F-kmols", &z), 0.05, 1e-14));
+    assert!(rel_close(h("F-lbmolh", &z), 180.0 / 0.453_592_37, 1e-14));
+    assert!((h("F-lbmolh", &z) - 396.83).abs() < 0.01);
+    // Component flow: 7.2 kmol/h of CH4 = 0.002 kmol/s = 15.873 lbmol/h.
+    set_stream(
+        &p,
+        &l,
+        &mut z,
+        "purge",
+        &[("CH4", 7.2), ("H2", 40.0), ("N2", 13.0)],
+    );
+    assert!(rel_close(h("C-kmols", &z), 0.002, 1e-14));
+    assert!(rel_close(h("C-lbmolh", &z), 7.2 / 0.453_592_37, 1e-14));
 }
 
 #[test]
@@ -844,6 +1040,11 @@ fn composition_measurements_on_hand_computed_cases() {
     assert!(rel_close(h("X-pct", &z), 15.0, 1e-12), "{}", h("X-pct", &z));
     // 0.001 / 100 = 1e-5 = 10 ppm.
     assert!(rel_close(h("X-ppm", &z), 10.0, 1e-9), "{}", h("X-ppm", &z));
+    // The same mole fractions in mol %, vol % and ppmv (an ideal gas: volume fraction =
+    // mole fraction).
+    assert!(rel_close(h("X-molpct", &z), 4.0, 1e-12));
+    assert!(rel_close(h("X-volpct", &z), 15.0, 1e-12));
+    assert!(rel_close(h("X-ppmv", &z), 10.0, 1e-9));
 
     // Dry basis: feed 24 N2, 70 H2, 2 CH4, 4 H2O; water is left out: 24 / 96 = 25 %.
     set_stream(
@@ -883,6 +1084,7 @@ fn composition_measurements_on_hand_computed_cases() {
         "{}",
         h("X-dry-ppm", &z)
     );
+    assert!(rel_close(h("X-dry-ppmv", &z), 50.0, 1e-9));
 
     // Mass fractions of the liquid: 30 kmol/h NH3 and 10 kmol/h water (IUPAC 2021 weights).
     set_stream(&p, &l, &mut z, "liquid", &[("NH3", 30.0), ("H2O", 10.0)]);

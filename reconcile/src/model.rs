@@ -128,6 +128,12 @@ pub struct MeterSpec {
     /// component of the stream when absent.
     #[serde(default)]
     pub basis: Option<Vec<String>>,
+    /// Unit of measure, spelled exactly as listed (docs/model.md): molar_flow and
+    /// component_flow: `kmol/h`, `mol/s`, `kmol/s`, `lbmol/h`; mass_flow: `kg/h`, `t/h`, `t/d`,
+    /// `kg/s`, `lb/h`, `klb/h`; std_volume_flow: `Nm3/h`, `Sm3/h`, `Nm3/d`, `SCFH`, `MSCFD`,
+    /// `MMSCFD`; mole_fraction: `fraction`, `%`, `ppm`, `mol %`, `vol %`, `ppmv`;
+    /// mass_fraction: `fraction`, `%`, `ppm`.
+    #[cfg_attr(feature = "openapi", schema(example = "kmol/h"))]
     pub uom: String,
     #[serde(default)]
     pub sigma: Option<f64>,
@@ -365,4 +371,46 @@ pub fn parse_period(text: &str) -> Option<i64> {
     // MAX_PERIOD_SECONDS, so that every period's end is a representable date.
     (secs > 0 && secs <= MAX_PERIOD_SECONDS && (86_400 % secs == 0 || secs % 86_400 == 0))
         .then_some(secs)
+}
+
+#[cfg(all(test, feature = "openapi"))]
+mod tests {
+    use super::*;
+
+    /// The model file's JSON Schema (the service's OpenAPI document) describes `uom` with the
+    /// list of units each quantity accepts, as [`Uom::units_for`] gives them.
+    #[test]
+    fn the_model_schema_lists_each_quantitys_units() {
+        use utoipa::PartialSchema;
+        let schema = serde_json::to_value(MeterSpec::schema()).unwrap();
+        let described = schema["properties"]["uom"]["description"]
+            .as_str()
+            .expect("uom has a description")
+            .split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ");
+        let list = |q: Quantity| {
+            Uom::units_for(q)
+                .iter()
+                .map(|u| format!("`{u}`"))
+                .collect::<Vec<_>>()
+                .join(", ")
+        };
+        let expected = format!(
+            "Unit of measure, spelled exactly as listed (docs/model.md): molar_flow and \
+             component_flow: {}; mass_flow: {}; std_volume_flow: {}; mole_fraction: {}; \
+             mass_fraction: {}.",
+            list(Quantity::MolarFlow),
+            list(Quantity::MassFlow),
+            list(Quantity::StdVolumeFlow),
+            list(Quantity::MoleFraction),
+            list(Quantity::MassFraction)
+        );
+        assert_eq!(
+            Uom::units_for(Quantity::ComponentFlow),
+            Uom::units_for(Quantity::MolarFlow)
+        );
+        assert_eq!(described, expected);
+        assert_eq!(schema["properties"]["uom"]["type"], "string");
+    }
 }

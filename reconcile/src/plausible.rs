@@ -222,6 +222,54 @@ mod tests {
     }
 
     #[test]
+    fn customary_units_are_screened_against_the_same_ceilings() {
+        // 10⁹ kg/h = 10⁹ / 0.453 592 37 lb/h = 2.204 6·10⁹ lb/h (NIST SP 811 pound).
+        let lb = meter(Quantity::MassFlow, Uom::LbPerHour, None);
+        assert_eq!(screen(&lb, 2.2e9), None, "just under 10⁹ kg/h");
+        match screen(&lb, 2.21e9) {
+            Some(Implausible::PastCeiling { ceiling }) => {
+                assert!((ceiling - 2.204_622_621_8e9).abs() < 1.0, "{ceiling}")
+            }
+            other => panic!("{other:?}"),
+        }
+        // A big plant's 5·10⁶ lb/h (2268 t/h) is a reading.
+        assert_eq!(screen(&lb, 5.0e6), None);
+        let klb = meter(Quantity::MassFlow, Uom::KlbPerHour, None);
+        assert_eq!(screen(&klb, 2.2e6), None);
+        assert!(screen(&klb, 2.21e6).is_some());
+        // 10⁷ kmol/h ≈ 2.0·10⁵ MMSCFD (1 MMSCFD ≈ 49.8 kmol/h).
+        let mmscfd = meter(Quantity::StdVolumeFlow, Uom::Mmscfd, None);
+        assert_eq!(screen(&mmscfd, 350.0), None, "a large gas plant's feed");
+        assert_eq!(screen(&mmscfd, 2.0e5), None);
+        assert!(matches!(
+            screen(&mmscfd, 2.01e5),
+            Some(Implausible::PastCeiling { .. })
+        ));
+        let scfh = meter(Quantity::StdVolumeFlow, Uom::Scfh, None);
+        assert_eq!(screen(&scfh, 8.3e9), None);
+        assert!(screen(&scfh, 8.4e9).is_some());
+        let lbmol = meter(Quantity::ComponentFlow, Uom::LbmolPerHour, None);
+        assert_eq!(screen(&lbmol, 2.2e7), None);
+        assert!(screen(&lbmol, 2.21e7).is_some());
+        // Compositions: -25 % to 125 % in mol % and vol %, -2.5·10⁵ to 1.25·10⁶ ppmv.
+        for u in [Uom::MolPercent, Uom::VolPercent] {
+            let pct = meter(Quantity::MoleFraction, u, None);
+            assert_eq!(screen(&pct, 99.0), None, "{u}");
+            assert_eq!(
+                screen(&pct, 130.0),
+                Some(Implausible::NotAComposition {
+                    lo: -25.0,
+                    hi: 125.0
+                }),
+                "{u}"
+            );
+        }
+        let ppmv = meter(Quantity::MoleFraction, Uom::Ppmv, None);
+        assert_eq!(screen(&ppmv, 3.0e5), None);
+        assert!(screen(&ppmv, 1.3e6).is_some());
+    }
+
+    #[test]
     fn compositions_far_outside_zero_to_one_are_implausible() {
         let pct = meter(Quantity::MoleFraction, Uom::Percent, None);
         assert_eq!(screen(&pct, -0.4), None, "zero drift");

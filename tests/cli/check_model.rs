@@ -187,3 +187,37 @@ fn a_model_wrong_throughout_is_reported_in_a_few_lines_with_its_names_escaped() 
     // One line per listed problem, the rest counted: newlines in ids are escaped.
     assert_eq!(err.lines().count(), 52, "{err}");
 }
+
+#[test]
+fn check_model_takes_the_units_plants_send_spelled_exactly() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let fixture = std::fs::read_to_string(OMBRASK).expect("the fixture");
+    let once = |text: &str, from: &str, to: &str| {
+        assert!(text.contains(from), "{from}");
+        text.replacen(from, to, 1)
+    };
+    // Makeup in MMSCFD, product in lb/h, the argon analyser in mol % (a space in the unit).
+    let text = once(&fixture, "uom = \"Nm3/h\"", "uom = \"MMSCFD\"");
+    let text = once(&text, "uom = \"t/h\"", "uom = \"lb/h\"");
+    let text = once(&text, "uom = \"%\"", "uom = \"mol %\"");
+    let model = write(dir.path(), "customary.toml", &text);
+    let out = loopbal(&["check-model", s(&model)]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
+
+    // Spelled otherwise, or on a quantity it does not measure: refused, naming the meter and
+    // the units its quantity accepts.
+    let text = once(&text, "uom = \"mol %\"", "uom = \"mol%\"");
+    let text = once(&text, "uom = \"kmol/h\"", "uom = \"lb/h\"");
+    let model = write(dir.path(), "misspelt.toml", &text);
+    let out = loopbal(&["check-model", s(&model)]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = stderr(&out);
+    for expected in [
+        "meter \"OB2-AI-102\": uom \"mol%\" is not one of \"fraction\", \"%\", \"ppm\", \"mol %\", \"vol %\", \"ppmv\" for mole_fraction",
+        "did you mean \"mol %\"?",
+        "meter \"OB2-FI-201\": uom \"lb/h\" does not fit molar_flow; use one of \"kmol/h\", \"mol/s\", \"kmol/s\", \"lbmol/h\"",
+        "the model has 2 problem(s)",
+    ] {
+        assert!(err.contains(expected), "stderr lacks {expected:?}:\n{err}");
+    }
+}

@@ -25,24 +25,35 @@ pub(super) fn validate_meters(
         let carried = |ci: usize| stream.is_none_or(|s| streams[s].components.contains(&ci));
         let uom = Uom::parse(&m.uom);
         match uom {
-            None => p.add(
-                &item,
-                format!(
-                    "uom {} is not one of {} for {}",
-                    quote(&m.uom),
-                    Uom::allowed_for(m.quantity).join(", "),
-                    m.quantity.as_str()
-                ),
-            ),
-            Some(u) if !u.fits(m.quantity) => p.add(
-                &item,
-                format!(
-                    "uom {} does not fit {}; use one of {}",
-                    quote(&m.uom),
-                    m.quantity.as_str(),
-                    Uom::allowed_for(m.quantity).join(", ")
-                ),
-            ),
+            None => {
+                let hint = Uom::near_miss(&m.uom, m.quantity)
+                    .map(|u| format!(" (spelled exactly: did you mean \"{u}\"?)"))
+                    .unwrap_or_default();
+                p.add(
+                    &item,
+                    format!(
+                        "uom {} is not one of {} for {}{hint}",
+                        quote(&m.uom),
+                        Uom::allowed_list(m.quantity),
+                        m.quantity.as_str()
+                    ),
+                )
+            }
+            Some(u) if !u.fits(m.quantity) => {
+                let note = u
+                    .misfit_note(m.quantity)
+                    .map(|n| format!("; {n}"))
+                    .unwrap_or_default();
+                p.add(
+                    &item,
+                    format!(
+                        "uom {} does not fit {}; use one of {}{note}",
+                        quote(&m.uom),
+                        m.quantity.as_str(),
+                        Uom::allowed_list(m.quantity)
+                    ),
+                )
+            }
             Some(_) => {}
         }
         let component = match (&m.component, m.quantity.needs_component()) {

@@ -161,3 +161,23 @@ fn assert_only_problem_json(json: &str, item: &str, word: &str) {
     assert_eq!(problems[0].item, item);
     assert!(problems[0].message.contains(word), "{problems:#?}");
 }
+
+#[test]
+fn units_with_a_space_read_alike_from_toml_and_json() {
+    // `mol %` and `vol %` hold a space: TOML and JSON strings carry it as written.
+    let toml = SMALL_TOML
+        .replace("uom = \"ppm\"", "uom = \"mol %\"")
+        .replace("uom = \"Sm3/h\"", "uom = \"MMSCFD\"");
+    let json = SMALL_JSON
+        .replace("\"uom\": \"ppm\"", "\"uom\": \"mol %\"")
+        .replace("\"uom\": \"Sm3/h\"", "\"uom\": \"MMSCFD\"");
+    let from_toml = parse_plant(&toml).unwrap_or_else(|e| panic!("{e}"));
+    let from_json = parse_plant(&json).unwrap_or_else(|e| panic!("{e}"));
+    same_plant(&from_toml, &from_json);
+    assert_eq!(from_toml.meters[1].uom.as_str(), "mol %");
+    // And back: the JSON written holds the unit as it was read.
+    let written = serde_json::to_string(&from_toml.spec).expect("serialises");
+    assert!(written.contains("\"uom\":\"mol %\""), "{written}");
+    let again = ModelSpec::from_json(&written).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(again, from_toml.spec);
+}

@@ -93,3 +93,89 @@ fn uom_that_does_not_fit_the_quantity() {
         assert_only_problem(&text, "meter \"FI-1\"", &[&format!("\"{bad}\"")]);
     }
 }
+
+#[test]
+fn customary_units_that_do_not_fit_the_quantity() {
+    // vol % (and ppmv, mol %) are mole fractions: refused on a mass fraction, naming the
+    // meter and listing the units a mass fraction accepts.
+    for unit in ["vol %", "ppmv", "mol %"] {
+        let text = edit(&[(
+            "quantity = \"mole_fraction\"\ncomponent = \"Ar\"\nuom = \"%\"",
+            &format!("quantity = \"mass_fraction\"\ncomponent = \"Ar\"\nuom = \"{unit}\""),
+        )]);
+        assert_only_problem(
+            &text,
+            "meter \"AI-2\"",
+            &[
+                &format!("\"{unit}\""),
+                "does not fit mass_fraction",
+                "use one of \"fraction\", \"%\", \"ppm\"",
+                "; mol %, vol % and ppmv measure mole fractions only",
+            ],
+        );
+    }
+    // lb/h is a mass flow: refused on a molar flow, listing the molar flow's units.
+    let text = edit(&[("uom = \"kmol/h\"", "uom = \"lb/h\"")]);
+    assert_only_problem(
+        &text,
+        "meter \"FI-1\"",
+        &[
+            "\"lb/h\"",
+            "does not fit molar_flow",
+            "use one of \"kmol/h\", \"mol/s\", \"kmol/s\", \"lbmol/h\"",
+        ],
+    );
+    // MMSCFD is a standard volume flow, not a mass flow.
+    let text = edit(&[("uom = \"t/h\"", "uom = \"MMSCFD\"")]);
+    assert_only_problem(
+        &text,
+        "meter \"FI-4\"",
+        &[
+            "\"MMSCFD\"",
+            "mass_flow",
+            "\"kg/h\", \"t/h\", \"t/d\", \"kg/s\", \"lb/h\", \"klb/h\"",
+        ],
+    );
+}
+
+#[test]
+fn customary_units_are_accepted_where_they_fit() {
+    let text = edit(&[
+        ("uom = \"kmol/h\"", "uom = \"lbmol/h\""),
+        (
+            "component = \"Ar\"\nuom = \"%\"",
+            "component = \"Ar\"\nuom = \"mol %\"",
+        ),
+        (
+            "basis = [\"N2\", \"H2\", \"Ar\"]\nuom = \"%\"",
+            "basis = [\"N2\", \"H2\", \"Ar\"]\nuom = \"vol %\"",
+        ),
+        ("uom = \"t/h\"", "uom = \"klb/h\""),
+    ]);
+    let plant = parse_plant(&text).unwrap_or_else(|e| panic!("{e}"));
+    let uoms: Vec<&str> = plant.meters.iter().map(|m| m.uom.as_str()).collect();
+    assert_eq!(uoms, ["lbmol/h", "mol %", "vol %", "klb/h"]);
+    // The model keeps the unit as written, space and all.
+    assert_eq!(plant.spec.meters[1].uom, "mol %");
+}
+
+#[test]
+fn a_unit_spelled_otherwise_is_refused_with_its_spelling() {
+    // Units are spelled exactly (docs/model.md): `mol%` is not `mol %`, and the message says
+    // which unit was meant.
+    let text = edit(&[(
+        "component = \"Ar\"\nuom = \"%\"",
+        "component = \"Ar\"\nuom = \"mol%\"",
+    )]);
+    assert_only_problem(
+        &text,
+        "meter \"AI-2\"",
+        &[
+            "\"mol%\" is not one of",
+            "\"fraction\", \"%\", \"ppm\", \"mol %\", \"vol %\", \"ppmv\"",
+            "did you mean \"mol %\"",
+        ],
+    );
+    let text = edit(&[("uom = \"kmol/h\"", "uom = \"LBMOL/H\"")]);
+    assert_only_problem(&text, "meter \"FI-1\"", &["did you mean \"lbmol/h\""]);
+}
