@@ -41,11 +41,16 @@ pub(super) fn qp_step(
             break;
         };
         let snapshot = fixed.to_vec();
-        // A free variable on its bound that the step would push outwards joins the set.
+        // A free variable on its bound that the step would push outwards joins the set. For
+        // one released in this loop, a step that merely rounds to either side of zero leaves
+        // it free: while the balances tie it to others still on their bounds it cannot move
+        // alone, and must wait for them to be released too.
+        let tiny = 1e-12 * s.dz.iter().fold(0.0f64, |m, d| m.max(d.abs()));
         let mut changed = false;
         for i in 0..n {
-            let outwards = (z[i] == layout.lower[i] && s.dz[i] < 0.0)
-                || (z[i] == layout.upper[i] && s.dz[i] > 0.0);
+            let slack = if released[i] { tiny } else { 0.0 };
+            let outwards = (z[i] == layout.lower[i] && s.dz[i] < -slack)
+                || (z[i] == layout.upper[i] && s.dz[i] > slack);
             if !fixed[i] && outwards {
                 fixed[i] = true;
                 changed = true;
