@@ -54,7 +54,11 @@ fn flows_tied_together_on_their_bounds_are_released_together_and_reach_the_minim
         s.component_flows["H2O"].expect("observable")
     };
     for stream in ["flash-gas", "purge", "loop-return", "recycle", "conv-feed"] {
-        assert!(water(stream) > 0.1, "{stream}: {} kmol/h of water", water(stream));
+        assert!(
+            water(stream) > 0.1,
+            "{stream}: {} kmol/h of water",
+            water(stream)
+        );
     }
     let at_bound = &report.diagnostics.as_ref().unwrap().at_bound;
     assert!(

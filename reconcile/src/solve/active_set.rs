@@ -81,6 +81,17 @@ pub(super) fn qp_step(
                 changed = true;
             }
         }
+        // What is left of an outward step of a free variable on its bound is rounding (a
+        // larger one fixed it above): drop it, so that the step keeps the bound exactly and
+        // the line search is not stopped at zero length by it.
+        let mut s = s;
+        for i in 0..n {
+            let outwards = (z[i] == layout.lower[i] && s.dz[i] < 0.0)
+                || (z[i] == layout.upper[i] && s.dz[i] > 0.0);
+            if !fixed[i] && outwards {
+                s.dz[i] = 0.0;
+            }
+        }
         step = Some(s);
         kkt = Some((system, snapshot));
         if !changed {
