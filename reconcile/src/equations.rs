@@ -382,5 +382,5 @@ pub fn var_name(plant: &Plant, layout: &Layout, i: usize) -> String {
 }
 
 #[cfg(test)]
-#[path = "equations_tests.rs"]
+#[path = "equations_tests/mod.rs"]
 mod tests;

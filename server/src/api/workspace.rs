@@ -152,14 +152,7 @@ async fn summary(state: &AppState, plant: &PlantRow) -> Result<PlantSummary, Pro
                 .filter(|t| !t.is_null())
                 .cloned(),
         });
-    let mut counts = BTreeMap::new();
-    for meter in meters::ranking(state, plant, now).await?.meters {
-        let word = serde_json::to_value(meter.health.status)
-            .ok()
-            .and_then(|w| w.as_str().map(str::to_string))
-            .unwrap_or_default();
-        *counts.entry(word).or_insert(0) += 1;
-    }
+    let counts = meters::state_counts(state, plant, now).await?;
     Ok(PlantSummary {
         name: plant.name.clone(),
         revision: Some(revision),

@@ -176,6 +176,34 @@ fn common_evidence(
     }
 }
 
+/// The current model's meters counted by health state at `now`, as the meter list ranks them
+/// (`suspect`, `watch`, `out_of_service`, ...), without what the list adds to an
+/// out-of-service meter (what the loop loses without it, which reconciles a period again).
+pub async fn state_counts(
+    service: &Service,
+    plant: &PlantRow,
+    now: DateTime<Utc>,
+) -> Result<std::collections::BTreeMap<String, usize>, ResultsError> {
+    let spec = spec_at(service, plant, now).await?;
+    let notes = service.store.notes(plant, None).await?;
+    let tags: Vec<String> = spec.meters.iter().map(|m| m.tag.clone()).collect();
+    let assessed = assessed(service, plant, tags, &notes).await?;
+    let intervals = crate::out_of_service::intervals(&notes);
+    let mut counts = std::collections::BTreeMap::new();
+    for (meter, health) in spec.meters.iter().zip(&assessed.healths) {
+        let status = match covering(&intervals, &meter.tag, now) {
+            Some(_) => Status::OutOfService,
+            None => health.status,
+        };
+        let word = serde_json::to_value(status)
+            .ok()
+            .and_then(|w| w.as_str().map(str::to_string))
+            .unwrap_or_default();
+        *counts.entry(word).or_insert(0) += 1;
+    }
+    Ok(counts)
+}
+
 /// Bring the memo of every plant without a period waiting to run up to date with its
 /// stored runs and notes (nothing is assessed for a plant whose memo is current). Failures
 /// are logged: the next request assesses again.
