@@ -13,7 +13,10 @@ use std::time::Instant;
 
 use loopbal_server::demo::scenario::{self, PLANT_NAME};
 use serde_json::{json, Value};
-use support::{client, json_ok, token, Server, BIN, LOOPBAL};
+use support::{
+    client, json_ok, post_readings, purge_design_csv, put_model, token, wait_for_periods, Server,
+    BIN, LOOPBAL, OMBRASK_TAGS,
+};
 use testkit::webdriver::Browser;
 
 /// A database the demo filled (two days, reconciled), served; its folder and tokens.
@@ -23,6 +26,7 @@ struct Served {
     read: String,
     maintain: String,
     admin: String,
+    ingest: String,
 }
 
 fn served() -> Served {
@@ -49,6 +53,7 @@ fn served() -> Served {
     let read = token(&db, "read", None);
     let maintain = token(&db, "maintain", None);
     let admin = token(&db, "admin", None);
+    let ingest = token(&db, "ingest", None);
     let server = LOOPBAL.serve(&db, &[]);
     Served {
         _dir: dir,
@@ -56,6 +61,7 @@ fn served() -> Served {
         read,
         maintain,
         admin,
+        ingest,
     }
 }
 
@@ -353,4 +359,339 @@ async fn the_monthly_report_prints_without_the_controls_and_with_the_caution() {
     assert!(pdf.starts_with(b"%PDF"), "a PDF");
     assert!(pdf.len() > 10_000, "{} bytes", pdf.len());
     std::fs::write(shot("report.pdf"), &pdf).expect("write the PDF");
+}
+
+/// The text of the page's main view.
+async fn main_text(b: &Browser) -> String {
+    let v = b
+        .run("return document.querySelector('main').innerText", json!([]))
+        .await;
+    v.as_str().unwrap_or_default().to_string()
+}
+
+/// Every alert on the page is empty (a page shows its errors in `[role=alert]`).
+async fn no_alerts(b: &Browser, page: &str) {
+    for a in &b.find_all("[role=alert]").await {
+        let text = b.text(a).await;
+        assert!(text.trim().is_empty(), "{page}: {text}");
+    }
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (run by .ci/run)"]
+async fn each_role_is_shown_what_it_may_do_and_maintain_writes_a_note() {
+    let s = served();
+    let tag = scenario::BIASED;
+    let b = Browser::start(1280, 800).await;
+
+    // ingest: posts readings only; the workspace says so and shows no results.
+    let role = sign_in(&b, &s.server, &s.ingest).await;
+    assert!(role.contains("ingest"), "{role}");
+    open(&b, &s.server, "/plants").await;
+    let text = main_text(&b).await;
+    assert!(text.contains("cannot read results"), "{text}");
+    assert!(
+        text.contains("ingest token posts historian readings"),
+        "{text}"
+    );
+    assert!(
+        b.find("#go-meter").await.is_none(),
+        "ingest writes no notes"
+    );
+    assert_eq!(b.find_all("[data-plant]").await.len(), 0);
+    b.screenshot(&shot("role-ingest.png")).await;
+
+    // maintain: no results, but the way to a meter's note form, and the note is stored.
+    b.run("sessionStorage.clear()", json!([])).await;
+    let role = sign_in(&b, &s.server, &s.maintain).await;
+    assert!(role.contains("maintain"), "{role}");
+    open(&b, &s.server, "/plants").await;
+    let plant_field = b.wait_for("#go-plant", 10).await;
+    b.run(
+        "document.querySelector('#go-plant').value = arguments[0]",
+        json!([PLANT_NAME]),
+    )
+    .await;
+    let tag_field = b.wait_for("#go-tag", 5).await;
+    b.type_into(&tag_field, tag).await;
+    let _ = plant_field;
+    let go = b.wait_for("#go-meter", 5).await;
+    b.click(&go).await;
+    b.wait_until("return !!document.querySelector('#note-text')", 10)
+        .await;
+    let text = main_text(&b).await;
+    assert!(text.contains("history is not shown"), "{text}");
+    let note = b.wait_for("#note-text", 5).await;
+    b.type_into(&note, "transmitter zero trimmed by the maintain role")
+        .await;
+    let submit = b.wait_for("#note-submit", 5).await;
+    b.click(&submit).await;
+    b.wait_until(
+        "return document.querySelector('main').textContent.includes('zero trimmed')",
+        10,
+    )
+    .await;
+    b.screenshot(&shot("role-maintain.png")).await;
+    let detail: Value = json_ok(
+        client()
+            .get(
+                s.server
+                    .url(&format!("/api/v1/plants/{PLANT_NAME}/meters/{tag}")),
+            )
+            .bearer_auth(&s.read)
+            .send()
+            .await
+            .unwrap(),
+    )
+    .await;
+    assert!(
+        detail["notes"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|n| n["text"] == "transmitter zero trimmed by the maintain role"),
+        "{detail}"
+    );
+
+    // read and admin: every page; only admin has the note form.
+    for (tok, word, form) in [(&s.read, "read", false), (&s.admin, "admin", true)] {
+        b.run("sessionStorage.clear()", json!([])).await;
+        let role = sign_in(&b, &s.server, tok).await;
+        assert!(role.contains(word), "{role}");
+        open(&b, &s.server, &format!("/plant/{PLANT_NAME}/meters/{tag}")).await;
+        b.wait_for("#notes", 10).await;
+        assert_eq!(b.find("#note-form").await.is_some(), form, "{word}");
+        assert!(
+            main_text(&b).await.contains("zero trimmed"),
+            "{word} sees the note"
+        );
+    }
+    assert_eq!(csp_violations(&b).await, "");
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (run by .ci/run)"]
+async fn a_trend_draws_every_period_and_the_what_if_follows_its_base_range() {
+    let s = served();
+    let b = Browser::start(1280, 800).await;
+    sign_in(&b, &s.server, &s.read).await;
+
+    // The figures page: the line has one vertex per period with a value, as the service
+    // answers the same figure over the same range.
+    open(&b, &s.server, &format!("/plant/{PLANT_NAME}/figures")).await;
+    let shown = b
+        .run(
+            "const q = new URLSearchParams(location.hash.split('?')[1]);
+             const line = document.querySelector('#trend [data-series] path.line');
+             return { from: q.get('from'), to: q.get('to'), name: q.get('name'),
+                      subject: q.get('subject'),
+                      vertices: line ? (line.getAttribute('d').match(/[ML]/g) || []).length : 0 }",
+            json!([]),
+        )
+        .await;
+    let get = |k: &str| shown[k].as_str().unwrap_or_default().to_string();
+    let answer: Value = json_ok(
+        client()
+            .get(
+                s.server
+                    .url(&format!("/api/v1/plants/{PLANT_NAME}/figures")),
+            )
+            .query(&[
+                ("from", get("from")),
+                ("to", get("to")),
+                ("name", get("name")),
+                ("subject", get("subject")),
+            ])
+            .bearer_auth(&s.read)
+            .send()
+            .await
+            .unwrap(),
+    )
+    .await;
+    let series = &answer["series"][0];
+    let valued = series["points"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|p| p["value"].is_number())
+        .count();
+    assert!(valued > 20, "the demo's two days give a series: {answer}");
+    assert_eq!(
+        shown["vertices"].as_u64(),
+        Some(valued as u64),
+        "the chart draws every period's value: {shown}"
+    );
+    b.screenshot(&shot("figures-trend.png")).await;
+
+    // The what-if: one base period, then a base range ending there; the curve moves.
+    open(&b, &s.server, &format!("/plant/{PLANT_NAME}/what-if")).await;
+    b.run(
+        "document.querySelector('#wi-points').value = '5'",
+        json!([]),
+    )
+    .await;
+    let run = b.wait_for("#wi-run", 5).await;
+    b.click(&run).await;
+    let single = what_if_table(&b).await;
+    assert!(
+        single.contains("solved") || single.contains('±'),
+        "{single}"
+    );
+    // The base range: the twelve hours before the base period, to it.
+    b.run(
+        "const p = document.querySelector('#wi-period');
+         const end = p.value;
+         const start = new Date(new Date(end + ':00Z').getTime() - 12 * 3600e3)
+             .toISOString().slice(0, 16);
+         p.value = start;
+         document.querySelector('#wi-period-to').value = end;
+         document.querySelector('#wi-table').remove();",
+        json!([]),
+    )
+    .await;
+    b.click(&run).await;
+    let ranged = what_if_table(&b).await;
+    assert_ne!(single, ranged, "the curve follows the base range");
+    let said = main_text(&b).await;
+    assert!(said.contains("periods combined"), "{said}");
+    no_alerts(&b, "what-if").await;
+    b.screenshot(&shot("what-if-range.png")).await;
+    assert_eq!(csp_violations(&b).await, "");
+}
+
+/// The what-if page's table of points, once the sweep is drawn.
+async fn what_if_table(b: &Browser) -> String {
+    b.wait_until(
+        "return document.body.dataset.ready === '1' && !!document.querySelector('#wi-table')",
+        60,
+    )
+    .await;
+    // The table sits in a closed <details>: read its text content, not its rendered text.
+    let t = b
+        .run(
+            "return document.querySelector('#wi-table').textContent",
+            json!([]),
+        )
+        .await;
+    t.as_str().unwrap_or_default().to_string()
+}
+
+/// Another plant than the demo's: its model put, and its readings of the twelve hours from
+/// 2026-06-01T00:00Z posted and run.
+async fn plant_with_readings(
+    s: &Server,
+    admin: &str,
+    ingest: &str,
+    read: &str,
+    name: &str,
+    model: &str,
+    csv: &str,
+) {
+    let c = client();
+    let r = put_model(&c, s, admin, name, model, "application/toml").await;
+    assert!(r.status().is_success(), "{}", r.text().await.unwrap());
+    let r = post_readings(&c, s, ingest, name, csv, "text/csv").await;
+    assert!(r.status().is_success(), "{}", r.text().await.unwrap());
+    let (from, to) = ("2026-06-01T00:00:00Z", "2026-06-01T12:00:00Z");
+    wait_for_periods(&c, s, read, name, from, to, |ps| {
+        ps.len() == 12 && ps.iter().all(|p| p["runs"] == 1 && p["rerun_due"] == false)
+    })
+    .await;
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (run by .ci/run)"]
+async fn every_page_works_on_the_other_test_plants() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let db = dir.path().join("plants.sqlite");
+    let admin = token(&db, "admin", None);
+    let ingest = token(&db, "ingest", None);
+    let read = token(&db, "read", None);
+    let server = LOOPBAL.serve(&db, &[]);
+
+    let (purge_model, purge_csv) = purge_design_csv(12, &|_, _| false);
+    plant_with_readings(
+        &server,
+        &admin,
+        &ingest,
+        &read,
+        "purge-design",
+        &purge_model,
+        &purge_csv,
+    )
+    .await;
+    let mut ombrask_csv = String::from("tag,time,value,quality\n");
+    for hour in 0..12 {
+        for (tag, value) in OMBRASK_TAGS {
+            // A little scatter from hour to hour, so that no two periods are alike.
+            let v = value * (1.0 + 0.002 * ((hour * 7 + tag.len()) % 5) as f64);
+            ombrask_csv += &format!("{tag},2026-06-01T{hour:02}:30:00Z,{v},good\n");
+        }
+    }
+    plant_with_readings(
+        &server,
+        &admin,
+        &ingest,
+        &read,
+        "ombrask-ob2",
+        testkit::plants::OMBRASK,
+        &ombrask_csv,
+    )
+    .await;
+
+    let b = Browser::start(1280, 800).await;
+    sign_in(&b, &server, &read).await;
+    open(&b, &server, "/plants").await;
+    assert_eq!(b.find_all("[data-plant]").await.len(), 2);
+    for (name, model) in [
+        ("purge-design", purge_model.as_str()),
+        ("ombrask-ob2", testkit::plants::OMBRASK),
+    ] {
+        let plant = reconcile::parse_plant(model).expect("the test plant parses");
+        open(&b, &server, &format!("/plant/{name}/loop")).await;
+        assert_eq!(
+            b.find_all("svg#flowsheet [data-unit]").await.len(),
+            plant.units.len(),
+            "{name}"
+        );
+        assert_eq!(
+            b.find_all("svg#flowsheet [data-stream]").await.len(),
+            plant.streams.len(),
+            "{name}"
+        );
+        assert_eq!(
+            b.find_all("svg#flowsheet [data-meter]").await.len(),
+            plant.spec.meters.len(),
+            "{name}"
+        );
+        no_alerts(&b, name).await;
+        b.screenshot(&shot(&format!("{name}-loop.png"))).await;
+        for page in [
+            "balances",
+            "figures",
+            "meters",
+            "what-if",
+            "report?month=2026-06",
+        ] {
+            open(&b, &server, &format!("/plant/{name}/{page}")).await;
+            no_alerts(&b, &format!("{name} {page}")).await;
+            let text = main_text(&b).await;
+            assert!(text.len() > 100, "{name} {page}: {text}");
+            b.screenshot(&shot(&format!(
+                "{name}-{}.png",
+                page.split('?').next().unwrap()
+            )))
+            .await;
+        }
+        let meters = reconcile::parse_plant(model).unwrap().spec.meters;
+        open(
+            &b,
+            &server,
+            &format!("/plant/{name}/meters/{}", meters[0].tag),
+        )
+        .await;
+        no_alerts(&b, &format!("{name} meter")).await;
+        b.wait_for("#notes", 10).await;
+    }
+    assert_eq!(csp_violations(&b).await, "");
 }

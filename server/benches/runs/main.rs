@@ -21,6 +21,8 @@
 //!
 //!     cargo bench -p loopbal-server --bench runs
 //!     LOOPBAL_BENCH_QUICK=1 cargo bench -p loopbal-server --bench runs    # 3 months, 200 reads
+//!     LOOPBAL_BENCH_YEAR_ONLY=1 cargo bench -p loopbal-server --bench runs  # part 2 alone
+//!     LOOPBAL_BENCH_KEEP=1 ...                     # and keep the databases (path printed)
 //!     LOOPBAL_BENCH_READS=2000 LOOPBAL_BENCH_PER_HOUR=4 cargo bench -p loopbal-server --bench runs
 //!     LOOPBAL_BENCH_POSTGRES_URL=postgres://postgres@127.0.0.1:5432/test \
 //!         cargo bench -p loopbal-server --bench runs
@@ -124,7 +126,9 @@ async fn run() {
         println!("  {line}");
     }
 
-    // 1. A month, run by the scheduler in each case on a fresh database, on each backend.
+    // 1. A month, run by the scheduler in each case on a fresh database, on each backend
+    // (skipped with LOOPBAL_BENCH_YEAR_ONLY, for a look at the year's reads alone).
+    let year_only = std::env::var_os("LOOPBAL_BENCH_YEAR_ONLY").is_some();
     let month = readings(&plant, &z, start, MONTH_HOURS, per_hour, 1);
     println!();
     println!(
@@ -143,11 +147,13 @@ async fn run() {
         );
     }
     let mut months = Vec::new();
-    for db in backends {
-        let cases = month_cases(db, model_text, &plant_name, start, &month).await;
-        months.push((db.label(), cases));
+    if !year_only {
+        for db in backends {
+            let cases = month_cases(db, model_text, &plant_name, start, &month).await;
+            months.push((db.label(), cases));
+        }
+        engine_alone(&plant, &month);
     }
-    engine_alone(&plant, &month);
 
     // 2. A year of runs, then report reads.
     println!();
@@ -167,6 +173,15 @@ async fn run() {
     workspace_reads(&svc, &year, 20).await;
     svc.stop().await;
 
+    if std::env::var_os("LOOPBAL_BENCH_KEEP").is_some() {
+        // The databases stay, for a look at them with sqlite3.
+        println!("   kept: {}", dir.keep().display());
+        return;
+    }
+    if year_only {
+        println!("load average after: {}", load());
+        return;
+    }
     println!();
     print_side_by_side(&months);
     println!();

@@ -219,6 +219,8 @@ pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
         format!("{base}/meters"),
     ];
     let figures = format!("{base}/figures?from={from}&to={to}&name=purge_fraction&points=800");
+    // What the figures page asks for first: every figure of the range, thinned.
+    let all_figures = format!("{base}/figures?from={from}&to={to}&points=800");
     let client = reqwest::Client::builder()
         .pool_max_idle_per_host(1)
         .build()
@@ -239,6 +241,7 @@ pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
     let mut pages = Vec::with_capacity(rounds);
     let mut each = vec![Vec::with_capacity(rounds); loop_page.len()];
     let mut series = Vec::with_capacity(rounds);
+    let mut every = Vec::with_capacity(rounds);
     let mut first = (0.0, 0.0);
     let began = Instant::now();
     for round in 0..rounds + 1 {
@@ -261,11 +264,18 @@ pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
             "results::figures::tests::thinning_keeps_every_excursion_gap_and_failed_test_in_time_order",
             || format!("a year thinned to 800 points gave {points}"),
         );
+        let (all_ms, body) = get(all_figures.clone()).await;
+        let v: serde_json::Value = serde_json::from_slice(&body).unwrap_or_default();
+        let count = v["series"].as_array().map_or(0, Vec::len);
+        refuse_unless(count > 1, "tests/api/workspace.rs", || {
+            format!("every figure of a year gave {count} series")
+        });
         // The first round warms the caches (the meter health memo among them): it is shown
         // on its own.
         if round > 0 {
             pages.push(page);
             series.push(ms);
+            every.push((all_ms, count));
         } else {
             first = (page, ms);
         }
@@ -301,6 +311,12 @@ pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
     println!(
         "   a year of purge_fraction thinned to 800 points: median {:.1} ms",
         median(&mut series)
+    );
+    let count = every.first().map_or(0, |e| e.1);
+    let mut all_ms: Vec<f64> = every.iter().map(|e| e.0).collect();
+    println!(
+        "   a year of every figure ({count} series) thinned to 800 points each: median {:.1} ms",
+        median(&mut all_ms)
     );
     println!(
         "   the first round, before any memo: the loop page's requests {:.1} ms, the thinned year {:.1} ms",

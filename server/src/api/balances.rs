@@ -10,7 +10,7 @@ use super::problem::Problem;
 use super::range::{self, RangeQuery};
 use super::AppState;
 use crate::results::balances::{self, Balances};
-use crate::results::stored::{self, Part};
+use crate::results::stored;
 
 /// Reconciled stream flows of every period of a range, and the amounts over the range with σ.
 ///
@@ -41,6 +41,6 @@ pub async fn get_balances(
     let Query(query) = query?;
     let plant = &access.plant;
     let range = range::periods(&state, plant, &query.from, &query.to).await?;
-    let reports = stored::current_parts(&state.store, plant, &range, Part::Streams).await?;
+    let reports = stored::current_parts(&state.store, plant, &range).await?;
     Ok(Json(balances::balances(&plant.name, &range, reports)))
 }

@@ -14,7 +14,6 @@ use super::problem::Problem;
 use super::range;
 use super::AppState;
 use crate::results::figures::{self, FigureSeriesList};
-use crate::results::stored::{self, Part};
 
 #[derive(Debug, Deserialize, IntoParams)]
 #[into_params(parameter_in = Query)]
@@ -115,14 +114,9 @@ pub async fn get_figures(
     }
     let plant = &access.plant;
     let range = range::periods(&state, plant, &query.from, &query.to).await?;
-    let reports = stored::current_parts(&state.store, plant, &range, Part::Figures).await?;
-    let answer = figures::series(
-        &plant.name,
-        &range,
-        &reports,
-        query.name.as_deref(),
-        query.subject.as_deref(),
-    )?;
+    let (name, subject) = (query.name.as_deref(), query.subject.as_deref());
+    let stored = figures::Stored::read(&state.store, plant, &range, name, subject).await?;
+    let answer = figures::series(&plant.name, &range, &stored, name, subject)?;
     if !csv {
         let mut answer = answer;
         if let Some(points) = query.points {

@@ -197,7 +197,7 @@ struct StreamSum {
 
 /// Each period's reconciled stream flows, the coverage of the range and the amounts over it,
 /// from the current reports of the range's periods (`reports`, by period start, read with
-/// [`Part::Streams`](super::stored::Part::Streams)).
+/// [`current_parts`](super::stored::current_parts)).
 pub fn balances(
     plant: &str,
     range: &PeriodRange,

@@ -3,7 +3,7 @@
 //! series per figure and one point per period, as JSON or as CSV for the spreadsheets and
 //! trending tools engineers already use.
 
-use std::collections::BTreeMap;
+use std::collections::HashMap;
 
 use chrono::{DateTime, Utc};
 use reconcile::text::quote;
@@ -11,8 +11,8 @@ use serde::Serialize;
 use utoipa::ToSchema;
 
 use super::balances::NO_RUN;
-use super::stored::ReportPart;
 use super::{rfc3339, PeriodRange, ResultsError};
+use crate::store::{FigureCell, FigureKey, PeriodOutcome, PlantRow, Store};
 
 /// The figures of a range, one series per figure.
 #[derive(Debug, Serialize, ToSchema)]
@@ -60,32 +60,61 @@ pub struct FigurePoint {
     pub global_test_passed: Option<bool>,
 }
 
-/// The figure series of the range from the current reports of its periods (`reports`, by
-/// period start, read with [`Part::Figures`](super::stored::Part::Figures)), only those of
+/// What the store holds of a range for its figure series: the status and global-test
+/// result of each period's current run, every figure the range has (in the order the reports
+/// list them), and the values of the figures asked for.
+pub struct Stored {
+    pub outcomes: Vec<PeriodOutcome>,
+    pub keys: Vec<FigureKey>,
+    pub cells: Vec<FigureCell>,
+}
+
+impl Stored {
+    /// Read from the store: the figures of `name` and `subject` only, when given.
+    pub async fn read(
+        store: &Store,
+        plant: &PlantRow,
+        range: &PeriodRange,
+        name: Option<&str>,
+        subject: Option<&str>,
+    ) -> Result<Stored, ResultsError> {
+        let (from, to) = (range.first(), range.to);
+        let keys = store.figure_keys(plant, from, to).await?;
+        let cells = if name.is_none() && subject.is_none() {
+            store.figure_cells(plant, from, to, None).await?
+        } else {
+            // Each figure asked for on its own, through the index by figure.
+            let mut cells = Vec::new();
+            for key in keys.iter().filter(|k| {
+                name.is_none_or(|q| q == k.name) && subject.is_none_or(|q| q == k.subject)
+            }) {
+                cells.extend(store.figure_cells(plant, from, to, Some(key)).await?);
+            }
+            cells
+        };
+        Ok(Stored {
+            outcomes: store.period_outcomes(plant, from, to).await?,
+            keys,
+            cells,
+        })
+    }
+}
+
+/// The figure series of the range from the current runs of its periods, only those of
 /// `name` and `subject` when given. A name or subject that no figure of the range has is
-/// refused with the ones there are; a range without any report answers empty series.
+/// refused with the ones there are; a range without any run answers empty series.
 pub fn series(
     plant: &str,
     range: &PeriodRange,
-    reports: &BTreeMap<DateTime<Utc>, ReportPart>,
+    stored: &Stored,
     name: Option<&str>,
     subject: Option<&str>,
 ) -> Result<FigureSeriesList, ResultsError> {
-    // Series in the order the reports list their figures (model order), each keyed by
-    // name, subject and uom (a new model revision may change a figure's uom).
-    let mut keys: Vec<(String, String, String)> = Vec::new();
-    let mut index: BTreeMap<(String, String, String), usize> = BTreeMap::new();
+    let keys = &stored.keys;
     let mut names: Vec<String> = Vec::new();
-    for report in reports.values() {
-        for f in report.figures.iter().flatten() {
-            if !names.contains(&f.name) {
-                names.push(f.name.clone());
-            }
-            let key = (f.name.clone(), f.subject.clone(), f.uom.clone());
-            if !index.contains_key(&key) {
-                index.insert(key.clone(), keys.len());
-                keys.push(key);
-            }
+    for k in keys {
+        if !names.contains(&k.name) {
+            names.push(k.name.clone());
         }
     }
     if let Some(name) = name {
@@ -97,15 +126,14 @@ pub fn series(
             )));
         }
     }
-    let wanted = |(n, s, _): &(String, String, String)| {
-        name.is_none_or(|q| q == n) && subject.is_none_or(|q| q == s)
-    };
+    let wanted =
+        |k: &FigureKey| name.is_none_or(|q| q == k.name) && subject.is_none_or(|q| q == k.subject);
     if let Some(subject) = subject {
         if !names.is_empty() && !keys.iter().any(wanted) {
             let mut subjects: Vec<&str> = keys
                 .iter()
-                .filter(|(n, _, _)| name.is_none_or(|q| q == n))
-                .map(|(_, s, _)| s.as_str())
+                .filter(|k| name.is_none_or(|q| q == k.name))
+                .map(|k| k.subject.as_str())
                 .collect();
             subjects.sort_unstable();
             subjects.dedup();
@@ -120,44 +148,34 @@ pub fn series(
     }
 
     // cells[series][period]: the figure's value and σ in that period, if it has the figure.
-    let position: BTreeMap<DateTime<Utc>, usize> = range
+    let index: HashMap<&FigureKey, usize> = keys.iter().enumerate().map(|(i, k)| (k, i)).collect();
+    let position: HashMap<DateTime<Utc>, usize> = range
         .starts
         .iter()
         .enumerate()
         .map(|(i, s)| (*s, i))
         .collect();
     let mut cells = vec![vec![None; range.starts.len()]; keys.len()];
-    for (start, report) in reports {
-        let Some(&p) = position.get(start) else {
-            continue;
-        };
-        for f in report.figures.iter().flatten() {
-            let key = (f.name.clone(), f.subject.clone(), f.uom.clone());
-            if let Some(&k) = index.get(&key) {
-                // A σ without its value would be no use to anyone.
-                cells[k][p] = Some((f.value, f.value.and(f.sigma)));
-            }
+    for c in &stored.cells {
+        if let (Some(&p), Some(&k)) = (position.get(&c.period_start), index.get(&c.key)) {
+            // A σ without its value would be no use to anyone.
+            cells[k][p] = Some((c.value, c.value.and(c.sigma)));
         }
     }
-    let statuses: Vec<(String, Option<bool>)> = range
-        .starts
-        .iter()
-        .map(|start| match reports.get(start) {
-            Some(r) => (
-                r.status.as_str().to_string(),
-                r.global_test.as_ref().map(|t| t.passed),
-            ),
-            None => (NO_RUN.into(), None),
-        })
-        .collect();
+    let mut statuses: Vec<(&str, Option<bool>)> = vec![(NO_RUN, None); range.starts.len()];
+    for o in &stored.outcomes {
+        if let Some(&p) = position.get(&o.period_start) {
+            statuses[p] = (o.status.as_str(), o.global_test_passed);
+        }
+    }
     let series: Vec<FigureSeries> = keys
         .iter()
         .zip(&cells)
         .filter(|(key, _)| wanted(key))
-        .map(|((name, subject, uom), row)| FigureSeries {
-            name: name.clone(),
-            subject: subject.clone(),
-            uom: uom.clone(),
+        .map(|(key, row)| FigureSeries {
+            name: key.name.clone(),
+            subject: key.subject.clone(),
+            uom: key.uom.clone(),
             points: range
                 .starts
                 .iter()
@@ -167,7 +185,7 @@ pub fn series(
                     period_start: rfc3339(*start),
                     value: cell.and_then(|c| c.0),
                     sigma: cell.and_then(|c| c.1),
-                    status: status.clone(),
+                    status: status.to_string(),
                     global_test_passed: *passed,
                 })
                 .collect(),

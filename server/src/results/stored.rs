@@ -4,7 +4,7 @@
 use std::collections::BTreeMap;
 
 use chrono::{DateTime, Utc};
-use reconcile::report::{Figure, GlobalTestReport, StreamReport};
+use reconcile::report::StreamReport;
 use reconcile::ReportStatus;
 use serde::Deserialize;
 
@@ -20,32 +20,16 @@ pub struct ReportPart {
     pub period_end: Option<String>,
     #[serde(default)]
     pub streams: Option<Vec<StreamReport>>,
-    #[serde(default)]
-    pub figures: Option<Vec<Figure>>,
-    #[serde(default)]
-    pub global_test: Option<GlobalTestReport>,
 }
 
-/// Which parts of a report to read besides its status.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Part {
-    /// `period_end` and `streams`.
-    Streams,
-    /// `figures`.
-    Figures,
-}
-
-/// The current report of every period of the range that has one, by period start.
+/// The status, end and streams of the current report of every period of the range that has
+/// one, by period start.
 pub async fn current_parts(
     store: &Store,
     plant: &PlantRow,
     range: &PeriodRange,
-    part: Part,
 ) -> Result<BTreeMap<DateTime<Utc>, ReportPart>, ResultsError> {
-    let fields: &[&str] = match part {
-        Part::Streams => &["status", "period_end", "streams"],
-        Part::Figures => &["status", "figures", "global_test"],
-    };
+    let fields: &[&str] = &["status", "period_end", "streams"];
     let stored = store
         .current_reports(plant, range.first(), range.to, fields)
         .await?;

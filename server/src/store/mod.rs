@@ -41,6 +41,7 @@ macro_rules! in_tx {
 }
 
 mod claims;
+mod figures;
 mod meters;
 mod pg;
 mod plants;
@@ -57,8 +58,9 @@ pub use meters::NoteCheck;
 pub use pg::PgStore;
 pub use readings::{outside, OutOfRange};
 pub use rows::{
-    Claim, Grant, IngestCounts, MeterNote, MeterRow, ModelRevision, NewRun, NewToken, NoteDraft,
-    NoteKind, NoteOutcome, PlantRow, Role, RunRow, RunSummary, Settled, StoredReading,
+    Claim, FigureCell, FigureKey, Grant, IngestCounts, MeterNote, MeterRow, ModelRevision, NewRun,
+    NewToken, NoteDraft, NoteKind, NoteOutcome, PeriodOutcome, PlantRow, Role, RunRow, RunSummary,
+    Settled, StoredReading,
 };
 pub use sqlite::SqliteStore;
 

@@ -76,6 +76,28 @@ pub struct NewRun {
     pub meters: Vec<(String, MeterPeriod)>,
 }
 
+impl NewRun {
+    /// The report's loop figures and whether it passed the global test (none without a test),
+    /// as the store keeps them in columns beside the report. A report without figures (no
+    /// data) has none.
+    pub(super) fn figures_and_test(
+        &self,
+    ) -> Result<(Vec<reconcile::report::Figure>, Option<bool>)> {
+        let figures = match self.report.get("figures") {
+            None | Some(serde_json::Value::Null) => Vec::new(),
+            Some(list) => serde_json::from_value(list.clone()).map_err(|e| {
+                StoreError::Corrupt(format!("a report's figures do not read back: {e}"))
+            })?,
+        };
+        let passed = self
+            .report
+            .get("global_test")
+            .and_then(|t| t.get("passed"))
+            .and_then(serde_json::Value::as_bool);
+        Ok((figures, passed))
+    }
+}
+
 /// A current run without its report and inputs, for listings.
 #[derive(Debug, Clone, PartialEq)]
 pub struct RunSummary {
@@ -431,5 +453,59 @@ pub(super) fn note<R: StoreRow>(r: &R) -> Result<MeterNote> {
         effective_at: r.instant("effective_at")?,
         created_at: r.instant("created_at")?,
         as_found: r.read("as_found")?,
+    })
+}
+
+/// A period's current run as a series of figures needs it: its status and whether it passed
+/// the global test (none without a test).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PeriodOutcome {
+    pub period_start: DateTime<Utc>,
+    pub status: ReportStatus,
+    pub global_test_passed: Option<bool>,
+}
+
+/// A loop figure's identity: its name, what it is of, and its unit.
+#[derive(Debug, Clone, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub struct FigureKey {
+    pub name: String,
+    pub subject: String,
+    pub uom: String,
+}
+
+/// One figure of one period's current run.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FigureCell {
+    pub period_start: DateTime<Utc>,
+    pub key: FigureKey,
+    pub value: Option<f64>,
+    pub sigma: Option<f64>,
+}
+
+/// `period_start, status, global_test_passed` of `runs`.
+pub(super) fn period_outcome<R: StoreRow>(r: &R) -> Result<PeriodOutcome> {
+    Ok(PeriodOutcome {
+        period_start: r.instant("period_start")?,
+        status: named(r, "status", "run status", ReportStatus::parse)?,
+        global_test_passed: r.read("global_test_passed")?,
+    })
+}
+
+/// `name, subject, uom` of `period_figures`.
+pub(super) fn figure_key<R: StoreRow>(r: &R) -> Result<FigureKey> {
+    Ok(FigureKey {
+        name: r.read("name")?,
+        subject: r.read("subject")?,
+        uom: r.read("uom")?,
+    })
+}
+
+/// `period_start, name, subject, uom, value, sigma` of `period_figures`.
+pub(super) fn figure_cell<R: StoreRow>(r: &R) -> Result<FigureCell> {
+    Ok(FigureCell {
+        period_start: r.instant("period_start")?,
+        key: figure_key(r)?,
+        value: r.read("value")?,
+        sigma: r.read("sigma")?,
     })
 }

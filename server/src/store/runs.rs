@@ -4,7 +4,7 @@ use chrono::{DateTime, Utc};
 
 use super::rows::{self, Claim, NewRun, PlantRow, RunRow, RunSummary, Settled};
 use super::values::{JsonText, Millis};
-use super::{claims, pg, sqlite, Result, Store, Tx};
+use super::{claims, figures, pg, sqlite, Result, Store, Tx};
 
 /// The columns `rows::run` reads.
 const COLUMNS: &str = "id, period_start, revision, engine_version, status, report_json, \
@@ -14,7 +14,7 @@ impl Store {
     /// How this backend's SQL says a run (`runs` as `r`) is its period's current one. The
     /// column is 0/1 in SQLite, whose planner uses the partial index runs_current only for its
     /// own term `current = 1`, and a boolean in PostgreSQL, which would refuse `= 1`.
-    fn is_current(&self) -> &'static str {
+    pub(super) fn is_current(&self) -> &'static str {
         match self {
             Store::Sqlite(_) => "r.current = 1",
             Store::Postgres(_) => "r.current",
@@ -55,10 +55,12 @@ impl Store {
         );
         const INSERT: &str = "
             INSERT INTO runs (plant_id, period_start, revision, engine_version, status,
-                              report_json, inputs_json, created_at, current)
-            VALUES ($1, $2, $3, $4, $5, $6, $7, $8, TRUE) RETURNING id";
+                              report_json, inputs_json, created_at, current,
+                              global_test_passed)
+            VALUES ($1, $2, $3, $4, $5, $6, $7, $8, TRUE, $9) RETURNING id";
         let start = Millis::from(run.period_start);
         let (report, inputs) = (JsonText::of(&run.report)?, JsonText::of(&run.inputs)?);
+        let (figures, global_test_passed) = run.figures_and_test()?;
         // Demoting the old current run and inserting the new one in one transaction keeps
         // exactly one current run per period (the partial unique index runs_current holds the
         // database to at most one). Concurrent records of one plant take turns, so a second
@@ -80,6 +82,7 @@ impl Store {
                 .bind(&report)
                 .bind(&inputs)
                 .bind(Millis::now())
+                .bind(global_test_passed)
                 .fetch_one(&mut **t)
                 .await?
         });
@@ -87,6 +90,7 @@ impl Store {
             Tx::Sqlite(t) => sqlite::write_meter_periods(t, plant, id, &run.meters).await?,
             Tx::Postgres(t) => pg::write_meter_periods(t, plant, id, &run.meters).await?,
         }
+        figures::write(&mut tx, plant, run.period_start, id, &figures).await?;
         // A claim lost meanwhile refuses the whole run: the transaction is dropped unapplied.
         let settled = match claim {
             Some(claim) => Some(claims::settle(&mut tx, plant, claim).await?),

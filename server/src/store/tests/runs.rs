@@ -112,7 +112,7 @@ async fn listings_reports_meter_records_and_notes(db: Scratch) {
         status: ReportStatus::parse(status).expect("a status word"),
         report: serde_json::json!({
             "status": status,
-            "figures": { "closure": measured / 3.0, "tiny": 1.0e-300, "huge": 1.7e308 },
+            "closures": { "closure": measured / 3.0, "tiny": 1.0e-300, "huge": 1.7e308 },
             "meters": [{ "tag": "FT-1" }],
         }),
         inputs: serde_json::json!([{ "tag": "FT-1", "value": measured }]),
@@ -159,7 +159,7 @@ async fn listings_reports_meter_records_and_notes(db: Scratch) {
 
     // Only the named fields, a missing one as null; the period bounds are [from, to).
     let parts = store
-        .current_reports(&plant, t(five), t(six), &["status", "figures", "absent"])
+        .current_reports(&plant, t(five), t(six), &["status", "closures", "absent"])
         .await
         .unwrap();
     assert_eq!(parts.len(), 1);
@@ -168,7 +168,7 @@ async fn listings_reports_meter_records_and_notes(db: Scratch) {
         parts[0].1,
         serde_json::json!({
             "status": "solved",
-            "figures": { "closure": 50.0 / 3.0, "tiny": 1.0e-300, "huge": 1.7e308 },
+            "closures": { "closure": 50.0 / 3.0, "tiny": 1.0e-300, "huge": 1.7e308 },
             "absent": null,
         })
     );

@@ -153,7 +153,7 @@ async fn a_stored_instant_out_of_range_is_corrupt(db: Scratch) {
 async fn json_is_stored_as_written(db: Scratch) {
     let store = &db.store;
     let (plant, revision) = west_with_tee(store).await;
-    let report = serde_json::json!({ "status": "solved", "figures": { "z": 1.5e-7, "a": 1.0 } });
+    let report = serde_json::json!({ "status": "solved", "closures": { "z": 1.5e-7, "a": 1.0 } });
     let run = NewRun {
         period_start: t("2026-03-02T05:00:00Z"),
         revision,

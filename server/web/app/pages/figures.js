@@ -35,23 +35,39 @@ export async function render(ctx, view) {
 
   let data = null;
 
+  // The names and subjects the range has: the last period's list first (a cheap request),
+  // then the chosen figure alone over the range, thinned by the service, whose answer names
+  // every figure of the range. A year of every figure at once would be twenty series.
   async function load() {
     ready(false);
     clear(status);
     clear(out);
     const width = Math.max(300, Math.min(1600, Math.round((view.clientWidth || document.getElementById('main').clientWidth || 960))));
     try {
-      data = await api(`${P}/figures${qs({ from: iso(from), to: iso(to), points: width })}`);
+      let want = nameSel.value || q.name;
+      if (!want) {
+        const lastOne = await api(`${P}/figures${qs({ from: iso(Math.max(from, to - pms)), to: iso(to) })}`);
+        const names0 = lastOne.names || [];
+        want = names0.includes('purge_fraction') ? 'purge_fraction' : names0[0];
+      }
+      data = want ? await api(`${P}/figures${qs({ from: iso(from), to: iso(to), name: want, points: width })}`)
+        .catch(async (err) => {
+          // A figure the range does not have (a stale address): start from the range's first.
+          if (err.status !== 404) throw err;
+          const all = await api(`${P}/figures${qs({ from: iso(Math.max(from, to - pms)), to: iso(to) })}`);
+          want = (all.names || [])[0];
+          return want ? api(`${P}/figures${qs({ from: iso(from), to: iso(to), name: want, points: width })}`) : all;
+        })
+        : await api(`${P}/figures${qs({ from: iso(from), to: iso(to), points: width })}`);
+      const names = data.names || [...new Set((data.series || []).map((x) => x.name))];
+      clear(nameSel);
+      for (const n of names) nameSel.append(h('option', { value: n, text: n.replace(/_/g, ' '), selected: n === want }));
     } catch (err) {
       data = null;
       if (err.status !== 401) status.append(errorBox(err, 'Figures'));
       ready(true);
       return;
     }
-    const names = data.names || [...new Set((data.series || []).map((x) => x.name))];
-    const want = nameSel.value || q.name || (names.includes('purge_fraction') ? 'purge_fraction' : names[0]);
-    clear(nameSel);
-    for (const n of names) nameSel.append(h('option', { value: n, text: n.replace(/_/g, ' '), selected: n === want }));
     fillSubjects(q.subject);
     draw();
     ready(true);
@@ -103,7 +119,7 @@ export async function render(ctx, view) {
       h('span', { class: 'small muted', text: ' Zoom with the mouse wheel, the + and − buttons or keys (chart focused); pan by dragging, ◀ ▶ or the arrow keys; 0 resets.' })));
   }
 
-  nameSel.addEventListener('change', () => { fillSubjects(); draw(); });
+  nameSel.addEventListener('change', () => { q.subject = undefined; clear(subjSel); load(); });
   subjSel.addEventListener('change', draw);
   form.addEventListener('submit', (e) => {
     e.preventDefault();
