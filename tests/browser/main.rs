@@ -555,6 +555,12 @@ async fn a_trend_draws_every_period_and_the_what_if_follows_its_base_range() {
     let said = main_text(&b).await;
     assert!(said.contains("periods combined"), "{said}");
     no_alerts(&b, "what-if").await;
+    // The curves, not the form, in the picture.
+    b.run(
+        "document.querySelector('svg.chart').closest('section, div').scrollIntoView()",
+        json!([]),
+    )
+    .await;
     b.screenshot(&shot("what-if-range.png")).await;
     assert_eq!(csp_violations(&b).await, "");
 }

@@ -18,6 +18,7 @@ use super::values::{JsonText, Millis};
 use super::Result;
 use crate::health::MeterPeriod;
 
+mod allocator;
 mod readings;
 
 #[cfg(test)]
@@ -41,6 +42,7 @@ impl SqliteStore {
     /// Open (creating it if missing) the database `options` name and apply any newer
     /// migrations.
     pub(super) async fn open(options: SqliteConnectOptions) -> Result<SqliteStore> {
+        allocator::tune();
         let options = options
             .create_if_missing(true)
             // WAL lets readers (reports, dashboards) go on while a batch of readings is

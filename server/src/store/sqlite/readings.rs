@@ -1,11 +1,14 @@
 //! Storing a batch of readings in SQLite: per run of readings, a probe of what the batch would
 //! do and the upsert itself, each one statement of many rows (multi-row VALUES), under the
-//! write lock taken at BEGIN.
+//! write lock taken at BEGIN. A run whose every reading is later than anything stored for its
+//! tag (a historian posting the hours since its last batch, the usual case) needs no probe:
+//! the latest stored instant of each tag of the batch, read once (one index seek a tag), tells
+//! that every reading of it is new.
 
-use std::collections::BTreeSet;
+use std::collections::{BTreeSet, HashMap};
 use std::sync::OnceLock;
 
-use sqlx::Row;
+use sqlx::{Row, Sqlite, Transaction};
 
 use super::super::readings::{runs, Batch};
 use super::super::rows::{quality_str, IngestCounts};
@@ -91,6 +94,38 @@ fn mark_sql(rows: usize) -> String {
     )
 }
 
+/// The latest stored instant of each of `tags` tags, given as (plant, tag) pairs; NULL for a
+/// tag with none: a correlated MAX per tag, which SQLite answers with one seek of the primary
+/// key each (a GROUP BY would read every reading of the tags).
+fn latest_sql(tags: usize) -> String {
+    format!(
+        "WITH batch (plant_id, tag) AS (VALUES {})
+         SELECT b.tag, (SELECT MAX(r.time) FROM readings AS r
+                        WHERE r.plant_id = b.plant_id AND r.tag = b.tag)
+         FROM batch AS b",
+        values(tags, 2)
+    )
+}
+
+/// Tags per statement of [`latest_sql`].
+const TAGS_PER_STATEMENT: usize = 500;
+
+/// The period start of `time` (ms), the Euclidean floor to a multiple of `period` as in
+/// reconcile::period::period_start.
+fn period_of(time: i64, period: i64) -> i64 {
+    time - time.rem_euclid(period)
+}
+
+/// Whether every reading of `run` is later than the latest instant `latest` holds for its tag
+/// (stored, or written by an earlier run of the batch): then each one is new.
+fn all_later(run: &[reconcile::Reading], latest: &HashMap<&str, i64>) -> bool {
+    run.iter().all(|r| {
+        latest
+            .get(r.tag.as_str())
+            .is_none_or(|&t| Millis::from(r.time).0 > t)
+    })
+}
+
 /// The texts of full-size statements, made once: sqlx keeps a prepared statement per text.
 struct FullSize {
     probe: String,
@@ -107,6 +142,79 @@ fn full_size() -> &'static FullSize {
     })
 }
 
+/// The latest stored instant of every tag of the batch (tags with none are left out).
+async fn latest_stored<'b>(
+    tx: &mut Transaction<'static, Sqlite>,
+    batch: &Batch<'b>,
+) -> Result<HashMap<&'b str, i64>> {
+    let tags: Vec<&str> = batch
+        .readings
+        .iter()
+        .map(|r| r.tag.as_str())
+        .collect::<BTreeSet<_>>()
+        .into_iter()
+        .collect();
+    let mut latest = HashMap::with_capacity(tags.len());
+    for chunk in tags.chunks(TAGS_PER_STATEMENT) {
+        let sql = latest_sql(chunk.len());
+        let mut query = sqlx::query(&sql).persistent(false);
+        for tag in chunk {
+            query = query.bind(batch.plant.id).bind(*tag);
+        }
+        for row in query.fetch_all(&mut **tx).await? {
+            let tag: String = row.try_get(0)?;
+            let Ok(at) = chunk.binary_search(&tag.as_str()) else {
+                return Err(StoreError::Corrupt(format!(
+                    "the latest instants answered for tag \"{tag}\", not in the batch"
+                )));
+            };
+            if let Some(t) = row.try_get::<Option<i64>, _>(1)? {
+                latest.insert(chunk[at], t);
+            }
+        }
+    }
+    Ok(latest)
+}
+
+/// What `run` would do (the probe): how many of its readings are new and how many change a
+/// stored one; the periods of those are added to `dirty`.
+async fn probe(
+    tx: &mut Transaction<'static, Sqlite>,
+    batch: &Batch<'_>,
+    run: &[reconcile::Reading],
+    dirty: &mut BTreeSet<i64>,
+) -> Result<(usize, usize)> {
+    let is_full = run.len() == READINGS_PER_STATEMENT;
+    let text = (!is_full).then(|| probe_sql(run.len()));
+    let mut probe = sqlx::query(text.as_deref().unwrap_or(&full_size().probe)).persistent(is_full);
+    for r in run {
+        probe = probe
+            .bind(r.tag.as_str())
+            .bind(Millis::from(r.time))
+            .bind(r.value)
+            .bind(quality_str(r.quality));
+    }
+    let probe = probe.bind(batch.plant.id).bind(batch.period_ms);
+    let found = probe.fetch_one(&mut **tx).await?;
+    let total: i64 = found.try_get(0)?;
+    let new = found.try_get::<i64, _>(1)? as usize;
+    let changed = found.try_get::<i64, _>(2)? as usize;
+    let periods: Option<String> = found.try_get(3)?;
+    if total as usize != run.len() {
+        return Err(StoreError::Corrupt(format!(
+            "the probe of {} readings answered {total} ({new} new, {changed} changed)",
+            run.len()
+        )));
+    }
+    for p in periods.iter().flat_map(|p| p.split(',')) {
+        let start: i64 = p
+            .parse()
+            .map_err(|_| StoreError::Corrupt(format!("the probe answered period start \"{p}\"")))?;
+        dirty.insert(start);
+    }
+    Ok((new, changed))
+}
+
 impl SqliteStore {
     pub(in crate::store) async fn ingest(&self, batch: &Batch<'_>) -> Result<IngestCounts> {
         let mut counts = IngestCounts::default();
@@ -116,44 +224,27 @@ impl SqliteStore {
         // rolls it back. BEGIN IMMEDIATE holds the write lock throughout, so what the probe
         // finds is what the upsert that follows it meets.
         let mut tx = self.write().await?;
+        let mut latest = latest_stored(&mut tx, batch).await?;
         for run in runs(batch.readings, READINGS_PER_STATEMENT) {
             let is_full = run.len() == READINGS_PER_STATEMENT;
             // A shorter run's one-off text is prepared for this call only, so it does not push
             // the full-size statements out of sqlx's statement cache.
-            let (probe_text, upsert_text) = if is_full {
-                (None, None)
+            let upsert_text = (!is_full).then(|| upsert_sql(run.len()));
+            let (new, changed) = if all_later(run, &latest) {
+                dirty.extend(
+                    run.iter()
+                        .map(|r| period_of(Millis::from(r.time).0, batch.period_ms)),
+                );
+                (run.len(), 0)
             } else {
-                (Some(probe_sql(run.len())), Some(upsert_sql(run.len())))
+                probe(&mut tx, batch, run, &mut dirty).await?
             };
-            let mut probe =
-                sqlx::query(probe_text.as_deref().unwrap_or(&full.probe)).persistent(is_full);
-            for r in run {
-                probe = probe
-                    .bind(r.tag.as_str())
-                    .bind(Millis::from(r.time))
-                    .bind(r.value)
-                    .bind(quality_str(r.quality));
-            }
-            let probe = probe.bind(batch.plant.id).bind(batch.period_ms);
-            let found = probe.fetch_one(&mut *tx).await?;
-            let total: i64 = found.try_get(0)?;
-            let new = found.try_get::<i64, _>(1)? as usize;
-            let changed = found.try_get::<i64, _>(2)? as usize;
-            let periods: Option<String> = found.try_get(3)?;
-            if total as usize != run.len() {
-                return Err(StoreError::Corrupt(format!(
-                    "the probe of {} readings answered {total} ({new} new, {changed} changed)",
-                    run.len()
-                )));
-            }
             counts.add_run(run.len(), new, changed)?;
-            for p in periods.iter().flat_map(|p| p.split(',')) {
-                let start: i64 = p.parse().map_err(|_| {
-                    StoreError::Corrupt(format!("the probe answered period start \"{p}\""))
-                })?;
-                dirty.insert(start);
+            for r in run {
+                let t = Millis::from(r.time).0;
+                let kept = latest.entry(r.tag.as_str()).or_insert(t);
+                *kept = (*kept).max(t);
             }
-
             let mut upsert =
                 sqlx::query(upsert_text.as_deref().unwrap_or(&full.upsert)).persistent(is_full);
             for r in run {

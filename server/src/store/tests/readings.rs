@@ -14,6 +14,7 @@ on_both_backends!(
     concurrent_batches_over_the_same_readings_in_any_order_both_succeed,
     long_batches_count_and_mark_as_one_statement_per_reading_would,
     periods_are_marked_as_the_engine_floors_them_before_1970_too,
+    readings_later_than_everything_stored_count_and_mark_as_any_other,
 );
 
 async fn readings_are_idempotent_and_changes_mark_their_period(db: Scratch) {
@@ -283,4 +284,45 @@ async fn periods_are_marked_as_the_engine_floors_them_before_1970_too(db: Scratc
         assert_eq!(dirty_starts(store, &plant).await, want, "period {period} s");
         clear_all_dirty(store, &plant).await;
     }
+}
+
+/// A batch whose every reading is later than its tag's stored ones is stored without the
+/// probe (sqlite/readings.rs); it must count and mark as one that needs it.
+async fn readings_later_than_everything_stored_count_and_mark_as_any_other(db: Scratch) {
+    let store = &db.store;
+    let plant = store.create_plant("west").await.unwrap();
+    let at =
+        |h: i64| Utc.with_ymd_and_hms(2026, 3, 1, 0, 0, 0).unwrap() + chrono::Duration::hours(h);
+    let r = |tag: &str, h: i64, v: f64| Reading {
+        tag: tag.to_string(),
+        time: at(h),
+        value: v,
+        quality: Quality::Good,
+    };
+    // Hours 0 to 4 of FT-1 and FT-2.
+    assert_eq!(
+        ingest(store, &plant, &hourly(10, &["FT-1", "FT-2"])).await,
+        counts(10, 0, 0)
+    );
+    clear_all_dirty(store, &plant).await;
+
+    // Later hours of FT-1 beside a correction of FT-2's hour 2.
+    let mixed = [r("FT-1", 5, 1.0), r("FT-1", 6, 2.0), r("FT-2", 2, 99.0)];
+    assert_eq!(ingest(store, &plant, &mixed).await, counts(2, 1, 0));
+    assert_eq!(dirty_starts(store, &plant).await, [at(2), at(5), at(6)]);
+    clear_all_dirty(store, &plant).await;
+
+    // Only later hours, one of a tag never stored before.
+    let later = [r("FT-1", 8, 3.0), r("FT-2", 7, 4.0), r("FT-9", 0, 5.0)];
+    assert_eq!(ingest(store, &plant, &later).await, counts(3, 0, 0));
+    assert_eq!(dirty_starts(store, &plant).await, [at(0), at(7), at(8)]);
+    clear_all_dirty(store, &plant).await;
+
+    // The same again, and a reading between two stored ones of its tag: each as it is.
+    assert_eq!(ingest(store, &plant, &later).await, counts(0, 0, 3));
+    let between = [r("FT-1", 7, 6.0), r("FT-1", 9, 7.0)];
+    assert_eq!(ingest(store, &plant, &between).await, counts(2, 0, 0));
+    assert_eq!(dirty_starts(store, &plant).await, [at(7), at(9)]);
+    let stored = store.readings_in(&plant, at(0), at(10)).await.unwrap();
+    assert_eq!(stored.len(), 10 + 2 + 3 + 2);
 }
