@@ -16,6 +16,10 @@
 //! - `period/N`: the whole analysis of one period on the network of N streams with noisy
 //!   readings: `reconcile_period` (estimate with its restarts, classification, every σ, the
 //!   tests, identification when the global test fails, loop figures, the report).
+//! - `deadline/vantle`, `deadline/500`: `vantle/reconcile_period` and `period/500` with a
+//!   deadline an hour off (`reconcile_period_cancellable`), as the service runs a period: the
+//!   cost of the clock reads at the checkpoints, beside the same cases without one (which read
+//!   no clock) in the same run.
 //!
 //! - `whatif/point`, `whatif/sweep_50`, `whatif/optimum`: what-if steady states from the
 //!   reconciled Vantle period (the base case above): one point with the purge moved
@@ -34,7 +38,7 @@ use reconcile::equations::Layout;
 use reconcile::model::Plant;
 use reconcile::solve::{solve, Measured, Solution, SolveOptions};
 use reconcile::start::initial_point;
-use reconcile::{parse_plant, reconcile_period};
+use reconcile::{parse_plant, reconcile_period, reconcile_period_cancellable, Cancel};
 use testkit::network::{network, Network};
 use testkit::plants::VANTLE;
 use testkit::{exact_values, noisy_values, period, vantle_true_state, VantleConditions};
@@ -380,7 +384,44 @@ fn whatif(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, vantle, networks, whatif);
+/// The period cases with a deadline far off, each beside the same case without one.
+fn deadline(c: &mut Criterion) {
+    let plant = parse_plant(VANTLE).expect("Vantle model is valid");
+    let layout = Layout::new(&plant);
+    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
+    let vantle = period(noisy_values(
+        &plant,
+        &exact_values(&plant, &layout, &z),
+        NOISE_SEED,
+    ));
+    let net = network(500, NETWORK_SEED);
+    let large = period(noisy_values(
+        &net.plant,
+        &exact_values(&net.plant, &net.layout, &net.z),
+        NOISE_SEED,
+    ));
+    let far = || Cancel::after(Duration::from_secs(3600));
+    let mut group = c.benchmark_group("deadline");
+    group.bench_function("vantle_without", |b| {
+        b.iter(|| reconcile_period(black_box(&plant), black_box(&vantle)))
+    });
+    group.bench_function("vantle", |b| {
+        b.iter(|| reconcile_period_cancellable(black_box(&plant), black_box(&vantle), &far()))
+    });
+    group
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(8));
+    group.bench_function("500_without", |b| {
+        b.iter(|| reconcile_period(black_box(&net.plant), black_box(&large)))
+    });
+    group.bench_function("500", |b| {
+        b.iter(|| reconcile_period_cancellable(black_box(&net.plant), black_box(&large), &far()))
+    });
+    group.finish();
+}
+
+criterion_group!(benches, vantle, networks, whatif, deadline);
 
 fn main() {
     if std::env::var_os("LOOPBAL_BENCH_PROBE").is_some() {

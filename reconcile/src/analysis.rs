@@ -1,11 +1,12 @@
 //! One period end to end: measured values → estimate → classification → tests → report.
 
+use crate::cancel::{uncancelled, Cancel, Cancelled};
 use crate::estimate::Estimate;
 use crate::model::Plant;
 use crate::period::PeriodInput;
 use crate::period_report::{fill_report, report_left_out, unmeasured_meter};
 use crate::report::{Report, ReportStatus, CAUTION};
-use crate::restarts::estimate;
+use crate::restarts::estimate_cancellable;
 use crate::solve::Measured;
 
 /// A period's report and the estimate behind it (none when no meter gave a usable value).
@@ -19,9 +20,31 @@ pub fn reconcile_period(plant: &Plant, input: &PeriodInput) -> Report {
     analyse_period(plant, input).report
 }
 
+/// [`reconcile_period`], given up with [`Cancelled`] once `cancel`'s deadline has passed.
+pub fn reconcile_period_cancellable(
+    plant: &Plant,
+    input: &PeriodInput,
+    cancel: &Cancel,
+) -> Result<Report, Cancelled> {
+    analyse_period_cancellable(plant, input, cancel).map(|a| a.report)
+}
+
 /// [`reconcile_period`], keeping the estimate for callers that need more of it than the
 /// report holds (the service's meter records use its adjustment correlations).
 pub fn analyse_period(plant: &Plant, input: &PeriodInput) -> Analysis {
+    uncancelled(analyse_period_cancellable(plant, input, &Cancel::never()))
+}
+
+/// [`analyse_period`], given up with [`Cancelled`] once `cancel`'s deadline has passed. The
+/// deadline is checked at the analysis's checkpoints (crate::cancel): every iteration of every
+/// solve, each restart, the classifications, identification's rounds and solves, and between
+/// the report's stages; a small loop's analysis passes a few dozen, a large network's a few
+/// thousand. An analysis that finishes gives exactly the answer of [`analyse_period`].
+pub fn analyse_period_cancellable(
+    plant: &Plant,
+    input: &PeriodInput,
+    cancel: &Cancel,
+) -> Result<Analysis, Cancelled> {
     let mut warnings = Vec::new();
     let mut measured = Vec::new();
     // A meter left out never reaches the estimate; its entry says why (`report_left_out`).
@@ -91,16 +114,16 @@ pub fn analyse_period(plant: &Plant, input: &PeriodInput) -> Analysis {
             .map(|m| unmeasured_meter(plant, m))
             .collect();
         report_left_out(input, &mut report);
-        return Analysis {
+        return Ok(Analysis {
             report,
             estimate: None,
-        };
+        });
     }
-    let est = estimate(plant, measured);
-    fill_report(plant, input, &est, &mut report);
+    let est = estimate_cancellable(plant, measured, cancel)?;
+    fill_report(plant, input, &est, &mut report, cancel)?;
     report_left_out(input, &mut report);
-    Analysis {
+    Ok(Analysis {
         report,
         estimate: Some(est),
-    }
+    })
 }

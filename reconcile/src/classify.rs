@@ -18,6 +18,7 @@
 
 use nalgebra::DMatrix;
 
+use crate::cancel::{uncancelled, Cancel, Cancelled};
 use crate::covariance::SparseCovariance;
 use crate::equations::{constraints, Layout};
 use crate::model::Plant;
@@ -183,12 +184,34 @@ pub fn classify(
     z: &[f64],
     at_bound: &[bool],
 ) -> Classification {
+    uncancelled(classify_cancellable(
+        plant,
+        layout,
+        measured,
+        z,
+        at_bound,
+        &Cancel::never(),
+    ))
+}
+
+/// [`classify`], given up once `cancel` has passed: on the sparse path, checked between the
+/// stages of the factorisation (crate::covariance), each a good part of a large network's
+/// classification; the dense path (small loops) runs whole.
+pub fn classify_cancellable(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+    at_bound: &[bool],
+    cancel: &Cancel,
+) -> Result<Classification, Cancelled> {
+    cancel.check()?;
     if layout.n >= SPARSE_THRESHOLD && !at_bound.iter().any(|&b| b) {
-        if let Some(c) = classify_sparse(plant, layout, measured, z) {
-            return c;
+        if let Some(c) = classify_sparse_cancellable(plant, layout, measured, z, cancel)? {
+            return Ok(c);
         }
     }
-    classify_dense(plant, layout, measured, z, at_bound)
+    Ok(classify_dense(plant, layout, measured, z, at_bound))
 }
 
 /// The sparse path (covariance.rs), with every variable free; `None` when the factorisation
@@ -199,6 +222,23 @@ pub fn classify_sparse(
     measured: &[Measured],
     z: &[f64],
 ) -> Option<Classification> {
+    uncancelled(classify_sparse_cancellable(
+        plant,
+        layout,
+        measured,
+        z,
+        &Cancel::never(),
+    ))
+}
+
+/// [`classify_sparse`], given up once `cancel` has passed.
+pub fn classify_sparse_cancellable(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+    cancel: &Cancel,
+) -> Result<Option<Classification>, Cancelled> {
     let mut gj = Triplets::new(layout.rows.len(), layout.n);
     constraints(plant, layout, z, Some(&mut gj));
     let (_, j) = scaled_measurements(plant, layout, measured, z);
@@ -213,14 +253,16 @@ pub fn classify_sparse(
             blocks.push(splits);
         }
     }
-    let sparse = SparseCovariance::factorise(&gj, &j, &blocks)?;
-    Some(Classification {
+    let Some(sparse) = SparseCovariance::factorise_cancellable(&gj, &j, &blocks, cancel)? else {
+        return Ok(None);
+    };
+    Ok(Some(Classification {
         unobservable: sparse.unobservable,
         l: DMatrix::zeros(layout.n, 0),
         u: DMatrix::zeros(measured.len(), 0),
         redundancy: sparse.redundancy,
         sparse: Some(sparse.covariance),
-    })
+    }))
 }
 
 /// The dense path: projection on the null space of G and an SVD of J N.
@@ -410,12 +452,22 @@ impl Classification {
     /// Covariance of the σ-scaled adjustments, I − U Uᵀ (m × m): the seam for fault
     /// identification, whose bias signatures live in this space.
     pub fn scaled_adjustment_covariance(&self) -> DMatrix<f64> {
+        uncancelled(self.scaled_adjustment_covariance_cancellable(&Cancel::never()))
+    }
+
+    /// [`Classification::scaled_adjustment_covariance`], given up once `cancel` has passed:
+    /// on the sparse path it costs one solve per meter, and the deadline is checked before
+    /// each.
+    pub fn scaled_adjustment_covariance_cancellable(
+        &self,
+        cancel: &Cancel,
+    ) -> Result<DMatrix<f64>, Cancelled> {
         if let Some(sparse) = &self.sparse {
-            let h = sparse.hat_matrix();
-            return DMatrix::identity(h.nrows(), h.nrows()) - h;
+            let h = sparse.hat_matrix_cancellable(cancel)?;
+            return Ok(DMatrix::identity(h.nrows(), h.nrows()) - h);
         }
         let m = self.u.nrows();
-        DMatrix::identity(m, m) - &self.u * self.u.transpose()
+        Ok(DMatrix::identity(m, m) - &self.u * self.u.transpose())
     }
 }
 

@@ -39,7 +39,12 @@ use clarabel::algebra::CscMatrix;
 use clarabel::qdldl::{QDLDLFactorisation, QDLDLSettingsBuilder};
 use nalgebra::DMatrix;
 
+use crate::cancel::{uncancelled, Cancel, Cancelled};
 use crate::sparse::Triplets;
+
+/// Columns of the selected inverse between two looks at the deadline: some milliseconds on
+/// a large network.
+const COLUMNS_PER_CHECK: usize = 1024;
 
 /// A pivot of the equilibrated matrix below this (in magnitude, with the block's sign) counts
 /// as zero: the direction is undetermined (a state) or the row dependent (a constraint).
@@ -106,6 +111,20 @@ impl SparseCovariance {
         j: &Triplets,
         blocks: &[Vec<usize>],
     ) -> Option<SparseClassification> {
+        uncancelled(Self::factorise_cancellable(gj, j, blocks, &Cancel::never()))
+    }
+
+    /// [`SparseCovariance::factorise`], given up once `cancel` has passed: checked between its
+    /// stages (assembly and equilibration, ordering, the numeric factorisation, the selected
+    /// inverse, each null vector), each some tens of milliseconds on a large network.
+    pub fn factorise_cancellable(
+        gj: &Triplets,
+        j: &Triplets,
+        blocks: &[Vec<usize>],
+        cancel: &Cancel,
+    ) -> Result<Option<SparseClassification>, Cancelled> {
+        // A stage that fails gives `Ok(None)` (the caller takes the dense path); the deadline
+        // gives `Err`.
         let n = gj.ncols;
         let p = gj.nrows;
         let m = j.nrows;
@@ -143,6 +162,7 @@ impl SparseCovariance {
             upper.push((i, i, 0.0));
         }
         let scale = ruiz(size, &upper);
+        cancel.check()?;
 
         // The augmentation Gᵀ W G with W = S_y², in equilibrated units: (S G S)ᵀ (S G S).
         let mut aug = Vec::new();
@@ -175,12 +195,18 @@ impl SparseCovariance {
         // Ordering: AMD on the pattern, then every constraint row moved after the last state
         // it touches.
         let signs: Vec<i8> = (0..size).map(|i| if i < n { 1 } else { -1 }).collect();
-        let logical = QDLDLSettingsBuilder::default()
+        cancel.check()?;
+        let Ok(logical) = QDLDLSettingsBuilder::default()
             .logical(true)
             .Dsigns(signs.clone())
             .build()
-            .ok()?;
-        let amd = QDLDLFactorisation::new(&a_upper, Some(logical)).ok()?.perm;
+        else {
+            return Ok(None);
+        };
+        let Ok(ordering) = QDLDLFactorisation::new(&a_upper, Some(logical)) else {
+            return Ok(None);
+        };
+        let amd = ordering.perm;
         let mut position = vec![0usize; size];
         for (k, &v) in amd.iter().enumerate() {
             position[v] = k;
@@ -205,15 +231,21 @@ impl SparseCovariance {
             .collect();
         key.sort_unstable();
         let perm: Vec<usize> = key.iter().map(|&(_, _, v)| v).collect();
-        let settings = QDLDLSettingsBuilder::default()
+        let Ok(settings) = QDLDLSettingsBuilder::default()
             .perm(perm)
             .Dsigns(signs.clone())
             .regularize_enable(true)
             .regularize_eps(PIVOT_TOLERANCE)
             .regularize_delta(PIN)
             .build()
-            .ok()?;
-        let factor = QDLDLFactorisation::new(&a_upper, Some(settings)).ok()?;
+        else {
+            return Ok(None);
+        };
+        cancel.check()?;
+        let Ok(factor) = QDLDLFactorisation::new(&a_upper, Some(settings)) else {
+            return Ok(None);
+        };
+        cancel.check()?;
         let perm = factor.perm.clone();
         let mut iperm = vec![0usize; size];
         for (k, &v) in perm.iter().enumerate() {
@@ -221,7 +253,7 @@ impl SparseCovariance {
         }
         let d = factor.D.clone();
         if d.iter().any(|x| !x.is_finite()) {
-            return None;
+            return Ok(None);
         }
         // Pivots replaced by ±PIN (QDLDL sets them to exactly that).
         let pinned: Vec<usize> = (0..size)
@@ -260,7 +292,7 @@ impl SparseCovariance {
             dependent_rows: 0,
             solved: RefCell::new(Vec::new()),
         };
-        cov.selected_inverse();
+        cov.selected_inverse(cancel)?;
 
         // Null space of K: K̃⁻¹ e_k over the replaced pivots; the state parts span the
         // unobservable directions.
@@ -268,6 +300,7 @@ impl SparseCovariance {
         // has a state part of rounding size only, which the basis then drops.
         let mut candidates = DMatrix::zeros(n, pinned.len());
         for (col, &k) in pinned.iter().enumerate() {
+            cancel.check()?;
             let mut e = vec![0.0; size];
             e[cov.perm[k]] = 1.0;
             let x = cov.solve(&e);
@@ -285,11 +318,11 @@ impl SparseCovariance {
         cov.dependent_rows = dependent;
         let rank_g = p - dependent;
         let rank_jn = (n - rank_g).saturating_sub(k);
-        Some(SparseClassification {
+        Ok(Some(SparseClassification {
             covariance: cov,
             unobservable,
             redundancy: m.saturating_sub(rank_jn),
-        })
+        }))
     }
 
     /// Z = A⁻¹ on the pattern of L: Z_ij = −Σ_{k>j} Z_ik L_kj (i > j) and
@@ -297,13 +330,17 @@ impl SparseCovariance {
     /// the pattern of column j, the pattern of column k holds every row of column j below k
     /// (the rows of a column of L form a clique of the filled graph), so every Z_ik needed is
     /// already there.
-    fn selected_inverse(&mut self) {
+    /// Given up once `cancel` has passed, checked every [`COLUMNS_PER_CHECK`] columns.
+    fn selected_inverse(&mut self, cancel: &Cancel) -> Result<(), Cancelled> {
         let size = self.dinv.len();
         let mut zval = vec![0.0; self.rowval.len()];
         let mut zdiag = vec![0.0; size];
         let mut local = vec![usize::MAX; size];
         let mut acc: Vec<f64> = Vec::new();
         for j in (0..size).rev() {
+            if j % COLUMNS_PER_CHECK == 0 {
+                cancel.check()?;
+            }
             let (start, end) = (self.colptr[j], self.colptr[j + 1]);
             for q in start..end {
                 local[self.rowval[q]] = q - start;
@@ -336,6 +373,7 @@ impl SparseCovariance {
         }
         self.zval = zval;
         self.zdiag = zdiag;
+        Ok(())
     }
 
     /// K̃⁻¹ b in the original order (K̃ = S⁻¹ A S⁻¹, so K̃⁻¹ b = S A⁻¹ S b).
@@ -452,10 +490,17 @@ impl SparseCovariance {
 
     /// J P Jᵀ column by column (m solves).
     pub fn hat_matrix(&self) -> DMatrix<f64> {
+        uncancelled(self.hat_matrix_cancellable(&Cancel::never()))
+    }
+
+    /// [`SparseCovariance::hat_matrix`], given up once `cancel` has passed (checked before
+    /// each solve: thousands of them on a large network, seconds in all).
+    pub fn hat_matrix_cancellable(&self, cancel: &Cancel) -> Result<DMatrix<f64>, Cancelled> {
         let m = self.j_rows.len();
         let size = self.dinv.len();
         let mut h = DMatrix::zeros(m, m);
         for i in 0..m {
+            cancel.check()?;
             let mut b = vec![0.0; size];
             for &(c, v) in &self.j_rows[i] {
                 b[c] += v;
@@ -465,7 +510,7 @@ impl SparseCovariance {
                 h[(k, i)] = row.iter().map(|&(c, v)| v * x[c]).sum();
             }
         }
-        h
+        Ok(h)
     }
 
     /// A solution x of G x = d: the state part of K̃⁻¹ [0; d].

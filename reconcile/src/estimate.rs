@@ -1,6 +1,7 @@
 //! A period's estimate with everything needed to test it (docs/methods.md §2–§3): the seam on
 //! which fault identification, the loop figures and the report build.
 
+use crate::cancel::{uncancelled, Cancel, Cancelled};
 use crate::classify::Classification;
 use crate::equations::{measurement, Layout};
 use crate::model::Plant;
@@ -25,11 +26,24 @@ impl Estimate {
     /// adjustment of meter i is ρᵢⱼ times that of j. Empty when the classification holds no
     /// dense covariance (the sparse path).
     pub fn adjustment_correlations(&self, min_abs: f64) -> Vec<(usize, usize, f64)> {
-        let c = self.classification.scaled_adjustment_covariance();
+        uncancelled(self.adjustment_correlations_cancellable(min_abs, &Cancel::never()))
+    }
+
+    /// [`Estimate::adjustment_correlations`], given up once `cancel` has passed (on the sparse
+    /// path the covariance costs one solve per meter, and the deadline is checked before
+    /// each).
+    pub fn adjustment_correlations_cancellable(
+        &self,
+        min_abs: f64,
+        cancel: &Cancel,
+    ) -> Result<Vec<(usize, usize, f64)>, Cancelled> {
+        let c = self
+            .classification
+            .scaled_adjustment_covariance_cancellable(cancel)?;
         let m = self.measured.len();
         let mut out = Vec::new();
         if c.nrows() != m || c.ncols() != m {
-            return out;
+            return Ok(out);
         }
         for i in 0..m {
             for j in (0..m).filter(|&j| j != i) {
@@ -43,7 +57,7 @@ impl Estimate {
                 }
             }
         }
-        out
+        Ok(out)
     }
 
     /// Reconciled value of measured meter k (index into `measured`) and its gradient.

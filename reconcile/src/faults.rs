@@ -23,6 +23,7 @@
 
 use nalgebra::{DMatrix, DVector};
 
+use crate::cancel::{uncancelled, Cancel, Cancelled};
 use crate::classify::Classification;
 use crate::equations::{constraints, Layout, Row};
 use crate::estimate::Estimate;
@@ -38,6 +39,9 @@ pub const EQUIVALENCE_TOLERANCE: f64 = 1e-6;
 /// A hypothesis whose signature keeps less than this share of variance (fᵀWf / fᵀf) after
 /// projection is undetectable by this meter set and is not tested.
 const DETECTABLE: f64 = 1e-9;
+
+/// Hypotheses whose statistics are computed between two looks at the deadline.
+const HYPOTHESES_PER_CHECK: usize = 64;
 
 #[derive(Debug, Clone)]
 struct Hypothesis {
@@ -58,7 +62,9 @@ struct Basis<'a> {
     classification: &'a Classification,
 }
 
-fn hypotheses(plant: &Plant, est: &Basis) -> Vec<Hypothesis> {
+/// The hypotheses of `est`; given up once `cancel` has passed (checked before each unit's
+/// leak signature, a solve of the constraints).
+fn hypotheses(plant: &Plant, est: &Basis, cancel: &Cancel) -> Result<Vec<Hypothesis>, Cancelled> {
     let m = est.measured.len();
     let c = est.classification;
     let mut out = Vec::new();
@@ -81,10 +87,12 @@ fn hypotheses(plant: &Plant, est: &Basis) -> Vec<Hypothesis> {
     constraints(plant, layout, z, Some(&mut gj));
     let (_, jt) = scaled_measurements(plant, layout, est.measured, z);
     if gj.nrows == 0 {
-        return out;
+        return Ok(out);
     }
+    cancel.check()?;
     let solver = ConstraintSolver::new(&gj, c);
     for (u, unit) in plant.units.iter().enumerate() {
+        cancel.check()?;
         let mut inflow = vec![0.0; plant.components.len()];
         for &s in &unit.inlets {
             for &cc in &plant.streams[s].components {
@@ -109,7 +117,7 @@ fn hypotheses(plant: &Plant, est: &Basis) -> Vec<Hypothesis> {
             unit_factor: 1.0,
         });
     }
-    out
+    Ok(out)
 }
 
 /// Solutions z_d of G z_d = d for the leak signatures. The GLR statistic, the magnitude and the
@@ -193,6 +201,27 @@ pub fn identify_at(
     z: &[f64],
     classification: &Classification,
 ) -> Identification {
+    uncancelled(identify_at_cancellable(
+        plant,
+        layout,
+        measured,
+        z,
+        classification,
+        &Cancel::never(),
+    ))
+}
+
+/// [`identify_at`], given up with [`Cancelled`] once `cancel`'s deadline has passed: checked
+/// in the adjustment covariance's solves (the sparse path), before each leak signature and
+/// every few hypotheses of each round of serial compensation.
+pub fn identify_at_cancellable(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    z: &[f64],
+    classification: &Classification,
+    cancel: &Cancel,
+) -> Result<Identification, Cancelled> {
     let est = &Basis {
         layout,
         measured,
@@ -203,7 +232,7 @@ pub fn identify_at(
     let c = est.classification;
     let mut result = Identification::default();
     if m == 0 || c.redundancy == 0 {
-        return result;
+        return Ok(result);
     }
     let r0 = DVector::from_vec(scaled_residuals(plant, est.layout, est.measured, est.z));
     if c.sparse.is_some() && global_test(r0.dot(&r0), c.redundancy, plant.alpha).passed {
@@ -211,18 +240,18 @@ pub fn identify_at(
         // test) decides first. (At the solution W r0 = r0 up to the solver's tolerance.)
         result.compensated_objective = r0.dot(&r0);
         result.compensated_dof = c.redundancy;
-        return result;
+        return Ok(result);
     }
-    let mut w: DMatrix<f64> = c.scaled_adjustment_covariance();
+    let mut w: DMatrix<f64> = c.scaled_adjustment_covariance_cancellable(cancel)?;
     let mut r = &w * &r0;
     let mut dof = c.redundancy;
     if global_test(r.dot(&r), dof, plant.alpha).passed {
         // Nothing to identify: spare the hypotheses (a dense solve per unit for the leaks).
         result.compensated_objective = r.dot(&r);
         result.compensated_dof = dof;
-        return result;
+        return Ok(result);
     }
-    let hyps = hypotheses(plant, est);
+    let hyps = hypotheses(plant, est, cancel)?;
     let mut accepted = vec![false; hyps.len()];
     let tested = hyps.len().max(1);
     // Per-hypothesis level: Šidák over every hypothesis tested; T follows χ²(1) under H0.
@@ -233,6 +262,11 @@ pub fn identify_at(
         let mut statistics: Vec<Option<f64>> = vec![None; hyps.len()];
         let mut signatures: Vec<Option<DVector<f64>>> = vec![None; hyps.len()];
         for (h, hyp) in hyps.iter().enumerate() {
+            // A round costs a product with the m × m W per hypothesis: a large network's
+            // round takes a good part of a second.
+            if h % HYPOTHESES_PER_CHECK == 0 {
+                cancel.check()?;
+            }
             if accepted[h] {
                 continue;
             }
@@ -325,7 +359,7 @@ pub fn identify_at(
     }
     result.compensated_objective = r.dot(&r);
     result.compensated_dof = dof;
-    result
+    Ok(result)
 }
 
 /// The power at which reports state a meter's smallest detectable bias.

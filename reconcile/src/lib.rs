@@ -2,13 +2,16 @@
 //! classification, uncertainty and the statistical tests.
 //!
 //! No I/O, no async, no clock: the same input gives the same output. The `server` crate turns
-//! files, requests and rows into calls of [`analysis::reconcile_period`] and back.
+//! files, requests and rows into calls of [`analysis::reconcile_period`] and back. (The one
+//! clock read is a caller's deadline, [`Cancel`], which can stop an analysis but never change
+//! the answer of one that finishes.)
 
 // The numerical kernels index several arrays with one index (a sparse pattern's slots and
 // values, permutations, bounds beside the state), as the published algorithms are written.
 #![allow(clippy::needless_range_loop)]
 
 pub mod analysis;
+pub mod cancel;
 pub mod classify;
 pub mod covariance;
 pub mod equations;
@@ -34,12 +37,16 @@ pub mod uom;
 mod validate;
 pub mod whatif;
 
-pub use analysis::{analyse_period, reconcile_period, Analysis};
+pub use analysis::{
+    analyse_period, analyse_period_cancellable, reconcile_period, reconcile_period_cancellable,
+    Analysis,
+};
+pub use cancel::{Cancel, Cancelled};
 pub use estimate::Estimate;
 pub use model::{ModelError, ModelProblem, ModelSpec, Plant};
 pub use period::{group_readings, prepare, LeftOut, PeriodInput, Quality, Reading};
 pub use report::{Report, ReportStatus};
-pub use restarts::estimate;
+pub use restarts::{estimate, estimate_cancellable};
 pub use validate::parse_plant;
 
 /// Version of the engine, recorded with every report.

@@ -3,10 +3,11 @@
 
 use std::collections::BTreeMap;
 
+use crate::cancel::{Cancel, Cancelled};
 use crate::classify::{classify, Classification, SPARSE_THRESHOLD};
 use crate::equations::{measurement, stream_fraction, stream_total, var_name, Layout};
 use crate::estimate::Estimate;
-use crate::faults::{detectable_bias, identify_at, REPORTED_POWER};
+use crate::faults::{detectable_bias, identify_at_cancellable, REPORTED_POWER};
 use crate::figures::{loop_figures, raw_imbalances};
 use crate::model::{Meter, Plant, UnitKind};
 use crate::period::PeriodInput;
@@ -74,8 +75,15 @@ fn observed(c: &dyn Uncertainty, value: f64, grad: &[(usize, f64)]) -> (Option<f
 
 /// Fill `report` from the period's estimate: status and diagnostics, every meter with its
 /// measurement test, streams, extents and split fractions with their σ (null when
-/// unobservable), faults and loop figures.
-pub(crate) fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, report: &mut Report) {
+/// unobservable), faults and loop figures. Given up with [`Cancelled`] once `cancel` has
+/// passed: checked between these stages and within identification.
+pub(crate) fn fill_report(
+    plant: &Plant,
+    input: &PeriodInput,
+    est: &Estimate,
+    report: &mut Report,
+    cancel: &Cancel,
+) -> Result<(), Cancelled> {
     let sol = &est.solution;
     let c = &est.classification;
     let z = &sol.z;
@@ -89,6 +97,7 @@ pub(crate) fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, re
     // rather than a dense one of thousands of states.)
     let fixed;
     let t: &Classification = if layout.n < SPARSE_THRESHOLD && sol.at_bound.iter().any(|&b| b) {
+        cancel.check()?;
         fixed = classify(plant, layout, &est.measured, z, &sol.at_bound);
         &fixed
     } else {
@@ -180,6 +189,7 @@ pub(crate) fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, re
     }
 
     // Streams.
+    cancel.check()?;
     for (s, stream) in plant.streams.iter().enumerate() {
         let entry = stream_report(plant, layout, s, z, c);
         let molar_flow = entry.molar_flow;
@@ -244,11 +254,14 @@ pub(crate) fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, re
     }
 
     if sol.status == SolveStatus::Converged {
-        let identified = identify_at(plant, &est.layout, &est.measured, &sol.z, t);
+        cancel.check()?;
+        let identified =
+            identify_at_cancellable(plant, &est.layout, &est.measured, &sol.z, t, cancel)?;
         for entry in report.meters.iter_mut() {
             entry.suspect = identified.suspect_tags.contains(&entry.tag);
         }
         report.faults = identified.faults;
+        cancel.check()?;
         report.figures = loop_figures(plant, est);
         report.figures.extend(raw_imbalances(plant, est));
     }
@@ -258,6 +271,7 @@ pub(crate) fn fill_report(plant: &Plant, input: &PeriodInput, est: &Estimate, re
     if report.status == ReportStatus::Solved && any_flow_or_extent_unobservable {
         report.status = ReportStatus::Unobservable;
     }
+    Ok(())
 }
 
 /// A stream's flows and composition at state z with σ from `unc` (null where unobservable).

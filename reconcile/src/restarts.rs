@@ -2,10 +2,11 @@
 //! the meters give, and deterministic restarts when it does not converge, rests on a bound or
 //! fails the global test.
 
-use crate::classify::{classify, Classification};
+use crate::cancel::{uncancelled, Cancel, Cancelled};
+use crate::classify::{classify_cancellable, Classification};
 use crate::equations::Layout;
 use crate::estimate::Estimate;
-use crate::faults::identify_at;
+use crate::faults::identify_at_cancellable;
 use crate::model::Plant;
 use crate::solve::{solve_with, Measured, Solution, SolveOptions, SolveStatus};
 use crate::sparse::Symbolic;
@@ -14,6 +15,16 @@ use crate::stats::global_test;
 
 /// Estimate the state from measured values.
 pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
+    uncancelled(estimate_cancellable(plant, measured, &Cancel::never()))
+}
+
+/// [`estimate`], given up with [`Cancelled`] once `cancel`'s deadline has passed: checked in
+/// every iteration of every solve, and before each restart and classification.
+pub fn estimate_cancellable(
+    plant: &Plant,
+    measured: Vec<Measured>,
+    cancel: &Cancel,
+) -> Result<Estimate, Cancelled> {
     let layout = Layout::new(plant);
     let start = initial_point(plant, &layout, &measured);
     // The KKT pattern depends only on the plant and the meters measured: restarts share its
@@ -26,6 +37,7 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
         start.clone(),
         &mut kkt,
         SolveOptions::default().max_iterations,
+        cancel,
     );
     // Bilinear problems are not convex: from a poor start the iteration can stall or settle in
     // a local minimum. When the estimate did not converge or fails the global test, try up to
@@ -36,7 +48,9 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
     // Seeds of the perturbed starts, in the order they are used.
     let mut perturbed = 0;
     loop {
-        let verdict = verdict(plant, &layout, &measured, &mut best);
+        // A solve stopped by the deadline ends as not converged: nothing to judge.
+        cancel.check()?;
+        let verdict = verdict(plant, &layout, &measured, &mut best, cancel)?;
         let limit = match verdict {
             Verdict::Good => break,
             Verdict::OnBound | Verdict::FailsGlobalTest => FEW_RESTARTS,
@@ -54,7 +68,7 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
         // iterations and confirms the minimum, where a perturbed start would take many.
         let informed = match verdict {
             Verdict::FailsGlobalTest if restarts == 1 => {
-                start_without_suspects(plant, &layout, &measured, &best)
+                start_without_suspects(plant, &layout, &measured, &best, cancel)?
             }
             _ => None,
         };
@@ -69,7 +83,9 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
             alternative,
             &mut kkt,
             RESTART_ITERATIONS,
+            cancel,
         );
+        cancel.check()?;
         // A converged restart that lands on the same objective confirms the minimum: a gross
         // error, not a poor start, is what fails the global test; stop looking.
         let confirms = candidate.0.status == SolveStatus::Converged
@@ -84,15 +100,17 @@ pub fn estimate(plant: &Plant, measured: Vec<Measured>) -> Estimate {
         }
     }
     let (solution, classification) = best;
-    let classification =
-        classification.unwrap_or_else(|| classify_free(plant, &layout, &measured, &solution));
-    Estimate {
+    let classification = match classification {
+        Some(c) => c,
+        None => classify_free(plant, &layout, &measured, &solution, cancel)?,
+    };
+    Ok(Estimate {
         layout,
         measured,
         solution,
         classification,
         restarts,
-    }
+    })
 }
 
 /// Restarts tried when the estimate did not converge.
@@ -120,9 +138,11 @@ fn settle(
     start: Vec<f64>,
     kkt: &mut Option<Symbolic>,
     max_iterations: usize,
+    cancel: &Cancel,
 ) -> Settled {
     let options = SolveOptions {
         max_iterations,
+        cancel: *cancel,
         ..SolveOptions::default()
     };
     (
@@ -139,27 +159,44 @@ fn classify_free(
     layout: &Layout,
     measured: &[Measured],
     solution: &Solution,
-) -> Classification {
-    classify(plant, layout, measured, &solution.z, &vec![false; layout.n])
+    cancel: &Cancel,
+) -> Result<Classification, Cancelled> {
+    classify_cancellable(
+        plant,
+        layout,
+        measured,
+        &solution.z,
+        &vec![false; layout.n],
+        cancel,
+    )
 }
 
-fn verdict(plant: &Plant, layout: &Layout, measured: &[Measured], best: &mut Settled) -> Verdict {
+fn verdict(
+    plant: &Plant,
+    layout: &Layout,
+    measured: &[Measured],
+    best: &mut Settled,
+    cancel: &Cancel,
+) -> Result<Verdict, Cancelled> {
     let solution = &best.0;
     if solution.status != SolveStatus::Converged {
-        return Verdict::NotConverged;
+        return Ok(Verdict::NotConverged);
     }
-    let classification = best
-        .1
-        .get_or_insert_with(|| classify_free(plant, layout, measured, solution));
-    if !global_test(solution.objective, classification.redundancy, plant.alpha).passed {
-        Verdict::FailsGlobalTest
-    } else if solution.at_bound.iter().any(|&b| b) {
-        // A state resting on a bound is also suspect: from a poor start the iteration can pin
-        // a flow at zero and settle in a minimum of the boundary.
-        Verdict::OnBound
-    } else {
-        Verdict::Good
-    }
+    let classification = match &mut best.1 {
+        Some(c) => c,
+        slot => slot.insert(classify_free(plant, layout, measured, solution, cancel)?),
+    };
+    Ok(
+        if !global_test(solution.objective, classification.redundancy, plant.alpha).passed {
+            Verdict::FailsGlobalTest
+        } else if solution.at_bound.iter().any(|&b| b) {
+            // A state resting on a bound is also suspect: from a poor start the iteration can pin
+            // a flow at zero and settle in a minimum of the boundary.
+            Verdict::OnBound
+        } else {
+            Verdict::Good
+        },
+    )
 }
 
 fn better(a: &Settled, b: &Settled) -> bool {
@@ -179,18 +216,22 @@ fn start_without_suspects(
     layout: &Layout,
     measured: &[Measured],
     best: &Settled,
-) -> Option<Vec<f64>> {
-    let classification = best.1.as_ref()?;
-    let found = identify_at(plant, layout, measured, &best.0.z, classification);
+    cancel: &Cancel,
+) -> Result<Option<Vec<f64>>, Cancelled> {
+    let Some(classification) = best.1.as_ref() else {
+        return Ok(None);
+    };
+    let found =
+        identify_at_cancellable(plant, layout, measured, &best.0.z, classification, cancel)?;
     if found.suspect_tags.is_empty() {
-        return None;
+        return Ok(None);
     }
     let trusted: Vec<Measured> = measured
         .iter()
         .filter(|m| !found.suspect_tags.contains(&plant.meters[m.meter].tag))
         .copied()
         .collect();
-    Some(initial_point(plant, layout, &trusted))
+    Ok(Some(initial_point(plant, layout, &trusted)))
 }
 
 /// The start with every flow scaled by a factor in [1/3, 3] and split fractions redrawn, from

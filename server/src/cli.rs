@@ -201,6 +201,13 @@ pub enum Command {
         #[arg(long, value_name = "N", env = "LOOPBAL_RUN_WORKERS",
               value_parser = clap::value_parser!(u64).range(1..=256))]
         run_workers: Option<u64>,
+        /// Seconds a period run may take before it is abandoned (1 to 86400): its claim is
+        /// given up, the period is listed as failed with the reason and retried after a
+        /// backoff (a minute, doubling to an hour), and the other periods go on. Default: by
+        /// the model, 3 s per 100 states and at least 5 s.
+        #[arg(long, value_name = "SECONDS", env = "LOOPBAL_RUN_TIMEOUT",
+              value_parser = clap::value_parser!(u64).range(1..=86400))]
+        run_timeout: Option<u64>,
         /// Seconds a claim on a period lasts unless renewed. Instances sharing one database
         /// claim each period before running it and renew the claim while the run goes on; the
         /// periods of an instance that died are taken by another once its claims lapse.

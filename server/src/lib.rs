@@ -5,8 +5,8 @@
 use std::fmt;
 
 // Layers, each using only those below it: `serve` and `demo` start `api` and `schedule`, both
-// of which stand on `service` (state, ingestion) and the pure `period_run`; `revisions`,
-// `ingest` and `store` are below those. Nothing below `api` names it.
+// of which stand on `service` (state, ingestion) and the pure `period_run` and `run_limit`;
+// `revisions`, `ingest` and `store` are below those. Nothing below `api` names it.
 pub mod api;
 pub mod claimant;
 pub mod cli;
@@ -24,6 +24,7 @@ pub mod readings;
 pub mod results;
 pub mod revisions;
 pub mod run;
+pub mod run_limit;
 pub mod schedule;
 pub mod serve;
 pub mod service;

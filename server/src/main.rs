@@ -91,6 +91,7 @@ fn main() -> ExitCode {
             run_grace,
             run_tick,
             run_workers,
+            run_timeout,
             run_lease,
             instance_name,
         } => {
@@ -116,6 +117,14 @@ fn main() -> ExitCode {
                                     n as usize
                                 }),
                         },
+                        run_limit: run_timeout.map_or(
+                            loopbal_server::run_limit::RunLimit::PerModel,
+                            |seconds| {
+                                loopbal_server::run_limit::RunLimit::Fixed(
+                                    std::time::Duration::from_secs(seconds),
+                                )
+                            },
+                        ),
                         claimant: loopbal_server::schedule::Claimant {
                             instance: loopbal_server::schedule::instance_name(
                                 instance_name.as_deref(),

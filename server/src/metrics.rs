@@ -66,6 +66,7 @@ pub struct Metrics {
     readings_rejected: AtomicU64,
     runs: Mutex<BTreeMap<String, u64>>,
     run_duration: Mutex<Histogram>,
+    runs_abandoned: AtomicU64,
 }
 
 fn lock<T>(m: &Mutex<T>) -> std::sync::MutexGuard<'_, T> {
@@ -99,6 +100,11 @@ impl Metrics {
     pub fn run(&self, status: &str, duration: Duration) {
         *lock(&self.runs).entry(status.to_string()).or_default() += 1;
         lock(&self.run_duration).observe(duration.as_secs_f64());
+    }
+
+    /// A period run abandoned at its time limit.
+    pub fn run_abandoned(&self) {
+        self.runs_abandoned.fetch_add(1, Ordering::Relaxed);
     }
 
     pub fn render(&self) -> String {
@@ -168,6 +174,13 @@ impl Metrics {
              # TYPE loopbal_run_duration_seconds histogram\n",
         );
         lock(&self.run_duration).render(&mut out, "loopbal_run_duration_seconds", "");
+        let _ = writeln!(
+            out,
+            "# HELP loopbal_runs_abandoned_total Period runs abandoned at their time limit.\n\
+             # TYPE loopbal_runs_abandoned_total counter\n\
+             loopbal_runs_abandoned_total {}",
+            self.runs_abandoned.load(Ordering::Relaxed)
+        );
         out
     }
 }
@@ -201,6 +214,9 @@ mod tests {
         assert!(text.contains("route=\"/healthz\",le=\"+Inf\"} 2"));
         assert!(text.contains("loopbal_readings_rejected_total 3"));
         assert!(text.contains("loopbal_run_duration_seconds_count 0"));
+        assert!(text.contains("\nloopbal_runs_abandoned_total 0\n"));
+        m.run_abandoned();
+        assert!(m.render().contains("\nloopbal_runs_abandoned_total 1\n"));
     }
 
     #[test]

@@ -2,7 +2,8 @@
 //! its out-of-range flag) in, the report, what the engine ran on and each meter's health
 //! record out. No store, no clock, no async: `loopbal reconcile` on files and the service's
 //! scheduler both call [`run_period`], so the same readings give the same report, warnings
-//! included.
+//! included. (The scheduler gives a run a deadline, `reconcile::Cancel`, which can stop it but
+//! never change the report of a run that finishes.)
 //!
 //! The steps: each meter's mean of its good and uncertain readings (bad ones are kept but not
 //! used), the steadiness screen, the engine, the inputs as the engine saw them (missing and
@@ -12,7 +13,9 @@ use std::collections::{BTreeMap, HashMap};
 
 use chrono::{DateTime, TimeDelta, Utc};
 use reconcile::plausible::Screened;
-use reconcile::{Analysis, LeftOut, PeriodInput, Plant, Quality, Reading, Report};
+use reconcile::{
+    Analysis, Cancel, Cancelled, LeftOut, PeriodInput, Plant, Quality, Reading, Report,
+};
 use serde::Serialize;
 
 use crate::health::MeterPeriod;
@@ -91,14 +94,18 @@ pub struct PeriodRun {
 /// Run the period of `plant` (revision number `revision`) starting at `start` on its readings,
 /// without the meters of `left_out` (their readings are reported, never used).
 /// Readings outside the period, or of tags the revision does not have, count in
-/// [`RunInputs::readings`] but are not used.
+/// [`RunInputs::readings`] but are not used. Given up with [`Cancelled`] once `cancel`'s
+/// deadline has passed (the engine's checkpoints, and the per-meter correlations, which on a
+/// large network cost one solve per meter); with [`Cancel::never`] it always finishes, and a
+/// run that finishes gives the same answer whatever its deadline.
 pub fn run_period(
     plant: &Plant,
     revision: i64,
     start: DateTime<Utc>,
     readings: Vec<PeriodReading>,
     left_out: Vec<LeftOut>,
-) -> PeriodRun {
+    cancel: &Cancel,
+) -> Result<PeriodRun, Cancelled> {
     let found = readings.len();
     let screens = screens(plant, &readings);
     let mut readings: Vec<Reading> = readings.into_iter().map(|r| r.reading).collect();
@@ -107,8 +114,8 @@ pub fn run_period(
     readings.sort_by(|a, b| a.time.cmp(&b.time).then_with(|| a.tag.cmp(&b.tag)));
     let (input, screened) = period_input(plant, &readings, start, left_out);
     let (unsteady, warnings) = steadiness(plant, &input);
-    let analysis = reconcile::analyse_period(plant, &input);
-    let correlations = correlations_by_tag(plant, &analysis);
+    let analysis = reconcile::analyse_period_cancellable(plant, &input, cancel)?;
+    let correlations = correlations_by_tag(plant, &analysis, cancel)?;
     let mut report = analysis.report;
     report
         .warnings
@@ -125,11 +132,11 @@ pub fn run_period(
         })
         .collect();
     let meters = meter_rows(&report, start, &screens, correlations);
-    PeriodRun {
+    Ok(PeriodRun {
         report,
         inputs,
         meters,
-    }
+    })
 }
 
 /// The engine's analysis of the period (report and estimate) as [`run_period`] makes it, with
@@ -346,16 +353,17 @@ fn meter_rows(
 fn correlations_by_tag(
     plant: &Plant,
     analysis: &Analysis,
-) -> HashMap<String, BTreeMap<String, f64>> {
+    cancel: &Cancel,
+) -> Result<HashMap<String, BTreeMap<String, f64>>, Cancelled> {
     let mut out: HashMap<String, BTreeMap<String, f64>> = HashMap::new();
     let Some(est) = &analysis.estimate else {
-        return out;
+        return Ok(out);
     };
     let tag = |k: usize| plant.meters[est.measured[k].meter].tag.clone();
-    for (i, j, rho) in est.adjustment_correlations(KEPT_CORRELATION) {
+    for (i, j, rho) in est.adjustment_correlations_cancellable(KEPT_CORRELATION, cancel)? {
         out.entry(tag(i)).or_default().insert(tag(j), rho);
     }
-    out
+    Ok(out)
 }
 
 #[cfg(test)]
@@ -466,7 +474,15 @@ mod tests {
             !out_of_range(&plant, &readings[4].reading),
             "F-2 has no range"
         );
-        let run = run_period(&plant, 3, start(), readings.clone(), Vec::new());
+        let run = run_period(
+            &plant,
+            3,
+            start(),
+            readings.clone(),
+            Vec::new(),
+            &Cancel::never(),
+        )
+        .unwrap();
         assert_eq!(run.inputs.readings, 6);
         assert_eq!(run.inputs.unsteady, ["F-2"]);
         assert!(run.inputs.meters[0].used_uncertain);
@@ -486,7 +502,8 @@ mod tests {
         assert_eq!((f1.bad_readings, f1.out_of_range_readings), (1, 1));
         assert_eq!(run.report.status, reconcile::ReportStatus::Solved);
         readings.reverse();
-        let reversed = run_period(&plant, 3, start(), readings, Vec::new());
+        let reversed =
+            run_period(&plant, 3, start(), readings, Vec::new(), &Cancel::never()).unwrap();
         assert_eq!(
             serde_json::to_value(&reversed.report).unwrap(),
             serde_json::to_value(&run.report).unwrap()
@@ -504,7 +521,15 @@ mod tests {
             reading("F-1", 40, 1.7e308, Quality::Uncertain),
             reading("F-2", 0, 100.6, Quality::Good),
         ];
-        let run = run_period(&plant, 1, start(), readings.clone(), Vec::new());
+        let run = run_period(
+            &plant,
+            1,
+            start(),
+            readings.clone(),
+            Vec::new(),
+            &Cancel::never(),
+        )
+        .unwrap();
         assert_eq!(run.report.status, reconcile::ReportStatus::Solved);
         let f1 = run.inputs.meters.iter().find(|m| m.tag == "F-1").unwrap();
         assert_eq!(
@@ -540,7 +565,7 @@ mod tests {
             reading("F-1", 0, 1e300, Quality::Good),
             reading("F-2", 0, 100.6, Quality::Good),
         ];
-        let run = run_period(&plant, 1, start(), readings, Vec::new());
+        let run = run_period(&plant, 1, start(), readings, Vec::new(), &Cancel::never()).unwrap();
         assert_eq!(run.inputs.missing, ["F-1"]);
         assert!(run.report.warnings[0].contains("the meter has no value this period"));
         let f2 = run.report.meters.iter().find(|m| m.tag == "F-2").unwrap();

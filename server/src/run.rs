@@ -111,14 +111,17 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
     for (start, readings) in periods {
         // The engine promises not to panic; should it break that promise on some input, the
         // other periods are still reported and the run fails (exit 1) instead of aborting.
-        // Files carry no technicians' notes, so no meter is left out.
-        let run = || period_run::run_period(&plant, FILE_REVISION, start, readings, Vec::new());
+        // Files carry no technicians' notes, so no meter is left out; a command on files has
+        // no time limit, so a run always finishes.
+        let never = reconcile::Cancel::never();
+        let run =
+            || period_run::run_period(&plant, FILE_REVISION, start, readings, Vec::new(), &never);
         let began = std::time::Instant::now();
         let outcome = std::panic::catch_unwind(run);
         timings.push((start, began.elapsed()));
         match outcome {
-            Ok(run) => reports.push(run.report),
-            Err(_) => crashed.push(start),
+            Ok(Ok(run)) => reports.push(run.report),
+            Ok(Err(reconcile::Cancelled)) | Err(_) => crashed.push(start),
         }
     }
     // Written after the runs, so that writing them is not timed (bench/peer/ reads them).

@@ -13,6 +13,7 @@ use tokio::net::TcpListener;
 use tower::ServiceExt;
 
 use crate::api::{self, AppState, Limits};
+use crate::run_limit::RunLimit;
 use crate::schedule::{self, Claimant, Schedule};
 use crate::service::Service;
 use crate::store::{redacted, Store};
@@ -22,6 +23,8 @@ pub struct Options {
     pub database: String,
     pub limits: Limits,
     pub schedule: Schedule,
+    /// How long a period run may take (the scheduler's and an administrator's re-run).
+    pub run_limit: RunLimit,
     pub claimant: Claimant,
 }
 
@@ -42,7 +45,9 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
     let store = Store::open(&opts.database)
         .await
         .with_context(|| format!("opening the database {}", redacted(&opts.database)))?;
-    let service = Service::new(store.clone()).with_claimant(opts.claimant);
+    let service = Service::new(store.clone())
+        .with_claimant(opts.claimant)
+        .with_run_limit(opts.run_limit);
     let instance = service.claimant.instance.clone();
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
     let worker = tokio::spawn(schedule::worker(service.clone(), opts.schedule, stop_rx));

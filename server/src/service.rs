@@ -1,6 +1,6 @@
 //! The service's shared state, below both the HTTP API and the scheduler and knowing nothing of
-//! either: the store, the metrics, the scheduler's wake-up, this instance's claimant and the
-//! validated model revisions. Ingestion goes through here so that every writer of readings
+//! either: the store, the metrics, the scheduler's wake-up, this instance's claimant, the time
+//! limit of a period run and the validated model revisions. Ingestion goes through here so that every writer of readings
 //! wakes the scheduler the same way.
 
 use std::sync::Arc;
@@ -16,6 +16,7 @@ use crate::out_of_service::{self, Interval};
 use crate::period_run::PeriodReading;
 use crate::readings::Format;
 use crate::revisions::{ModelCache, Models, RevisionError};
+use crate::run_limit::RunLimit;
 use crate::store::{PlantRow, Store, StoreError};
 
 /// What the handlers and the scheduler share. Cheap to clone: every part is shared.
@@ -27,6 +28,8 @@ pub struct Service {
     pub wake: Arc<Notify>,
     /// This instance's name and lease in its claims on periods.
     pub claimant: Arc<Claimant>,
+    /// How long a period run may take, the scheduler's and an administrator's re-run alike.
+    pub run_limit: RunLimit,
     models: Arc<ModelCache>,
     /// Each plant's meter health as last assessed (crate::health::Memo).
     pub health: Arc<crate::health::Memo>,
@@ -39,6 +42,7 @@ impl Service {
             metrics: Arc::new(Metrics::default()),
             wake: Arc::new(Notify::new()),
             claimant: Arc::new(Claimant::default()),
+            run_limit: RunLimit::default(),
             models: Arc::new(ModelCache::default()),
             health: Arc::new(crate::health::Memo::default()),
         }
@@ -47,6 +51,12 @@ impl Service {
     /// The same service claiming periods as `claimant`.
     pub fn with_claimant(mut self, claimant: Claimant) -> Service {
         self.claimant = Arc::new(claimant);
+        self
+    }
+
+    /// The same service with `limit` on its period runs.
+    pub fn with_run_limit(mut self, limit: RunLimit) -> Service {
+        self.run_limit = limit;
         self
     }
 

@@ -27,6 +27,8 @@ const RECYCLE_BACK: usize = 4;
 
 /// A generated plant and its true state.
 pub struct Network {
+    /// The model as written (for a service's store, which keeps the model file).
+    pub spec: ModelSpec,
     pub plant: Plant,
     pub layout: Layout,
     pub z: Vec<f64>,
@@ -232,7 +234,7 @@ pub fn network(streams: usize, seed: u64) -> Network {
             ));
         }
     }
-    let plant = Plant::new(spec).expect("generated model is valid");
+    let plant = Plant::new(spec.clone()).expect("generated model is valid");
     let layout = Layout::new(&plant);
 
     // True state by Gauss–Seidel sweeps down the chain until the recycles stop changing.
@@ -281,5 +283,10 @@ pub fn network(streams: usize, seed: u64) -> Network {
             .expect("main stream");
         z[layout.split(main).expect("main is the first outlet")] = phi[k];
     }
-    Network { plant, layout, z }
+    Network {
+        spec,
+        plant,
+        layout,
+        z,
+    }
 }

@@ -195,3 +195,90 @@ async fn an_absurd_reading_is_kept_flagged_and_costs_no_other_meter_its_period()
     assert_eq!(stored["readings"][2]["out_of_range"], true, "flagged");
     assert_eq!(stored["readings"][1]["out_of_range"], false);
 }
+
+/// A run past `--run-timeout`: the 2,000-stream generated network (16,478 states, 2,904
+/// meters), whose run takes far more than the 1 s allowed (its meters' correlations alone are
+/// one solve per meter), re-run on demand: 503 `run-timed-out` naming the plant, the period and
+/// the limit, nothing stored, the period listed `failed` with the reason and its retry, the
+/// abandoned run counted. The grace keeps the scheduler off the period.
+#[tokio::test]
+async fn a_run_past_its_time_limit_is_503_and_its_period_is_listed_failed() {
+    let (_dir, s, t) = fresh(&["--run-timeout", "1", "--run-grace", "100000000"]);
+    let c = client();
+    let net = testkit::network::network(2000, 7);
+    let plant = net.spec.name.clone();
+    let model = serde_json::to_string(&net.spec).unwrap();
+    let r = put_model(&c, &s, &t.admin, &plant, &model, "application/json").await;
+    assert_eq!(
+        r.status(),
+        StatusCode::CREATED,
+        "{}",
+        r.text().await.unwrap()
+    );
+    let values = testkit::noisy_values(
+        &net.plant,
+        &testkit::exact_values(&net.plant, &net.layout, &net.z),
+        0,
+    );
+    let mut csv = String::from("tag,time,value,quality\n");
+    for v in &values {
+        let tag = &net.plant.meters[v.meter].tag;
+        csv += &format!("{tag},2026-06-01T05:10:00Z,{},good\n", v.value);
+    }
+    let answer = json_ok(post_readings(&c, &s, &t.ingest, &plant, &csv, "text/csv").await).await;
+    assert_eq!(answer["accepted"], values.len(), "{answer}");
+
+    let start = "2026-06-01T05:00:00Z";
+    let r = c
+        .post(s.url(&format!("/api/v1/plants/{plant}/periods/{start}/reconcile")))
+        .bearer_auth(&t.admin)
+        .send()
+        .await
+        .unwrap();
+    let p = problem(r, StatusCode::SERVICE_UNAVAILABLE).await;
+    assert_eq!(p["type"], "urn:loopbal:problem:run-timed-out", "{p}");
+    let detail = p["detail"].as_str().unwrap();
+    for named in [
+        plant.as_str(),
+        start,
+        "time limit of 1 s",
+        "nothing was stored",
+    ] {
+        assert!(detail.contains(named), "{detail} names {named}");
+    }
+
+    let r = c
+        .get(s.url(&format!(
+            "/api/v1/plants/{plant}/periods?from={start}&to=2026-06-01T06:00:00Z"
+        )))
+        .bearer_auth(&t.read)
+        .send()
+        .await
+        .unwrap();
+    let listed = json_ok(r).await;
+    let period = &listed["periods"][0];
+    assert_eq!(period["status"], "failed", "{period}");
+    assert_eq!(period["rerun_due"], true);
+    assert_eq!(period["runs"], 0);
+    assert!(period.get("run_id").is_none(), "{period}");
+    let failure = &period["last_failure"];
+    assert_eq!(
+        failure["reason"],
+        "the run was abandoned at its time limit of 1 s"
+    );
+    assert_eq!(failure["failures"], 1);
+    let at = chrono::DateTime::parse_from_rfc3339(failure["at"].as_str().unwrap()).unwrap();
+    let retry =
+        chrono::DateTime::parse_from_rfc3339(failure["retry_after"].as_str().unwrap()).unwrap();
+    assert_eq!(retry - at, chrono::TimeDelta::minutes(1), "{failure}");
+    let r = c
+        .get(s.url(&format!("/api/v1/plants/{plant}/periods/{start}")))
+        .bearer_auth(&t.read)
+        .send()
+        .await
+        .unwrap();
+    problem(r, StatusCode::NOT_FOUND).await;
+    assert!(metrics(&c, &s)
+        .await
+        .contains("\nloopbal_runs_abandoned_total 1\n"));
+}

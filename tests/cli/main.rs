@@ -1,7 +1,8 @@
 //! End-to-end tests of the `loopbal` binary's file commands (docs/cli.md):
 //! the real executable on files in a temporary folder, checked by exit status, stdout and stderr.
 //! This file holds the fixtures and helpers; the tests are by command and input: `check_model`,
-//! `good_input`, `bad_input`, `faults`.
+//! `good_input`, `bad_input`, `faults`, `meter_value`, `what_if`, and `serve` (its options
+//! refused before it starts).
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
@@ -18,6 +19,7 @@ mod check_model;
 mod faults;
 mod good_input;
 mod meter_value;
+mod serve;
 mod what_if;
 
 use testkit::plants::OMBRASK_PATH as OMBRASK;

@@ -35,6 +35,7 @@ use kkt::{constraint_curvature, Kkt, Step};
 use line_search::{line_search, Landing};
 use norms::{norm_1, norm_inf};
 
+use crate::cancel::Cancel;
 use crate::equations::{constraints, Layout};
 use crate::model::Plant;
 use crate::sparse::{Symbolic, Triplets};
@@ -80,6 +81,10 @@ pub struct SolveOptions {
     pub constraint_tolerance: f64,
     /// Tolerance on the largest step relative to (1 + |z|).
     pub step_tolerance: f64,
+    /// Checked before each iteration: once it has passed, the iteration stops where it is,
+    /// `NotConverged` (the caller, which gave it, tells that from a genuine failure by
+    /// checking it too). Never, by default.
+    pub cancel: Cancel,
 }
 
 impl Default for SolveOptions {
@@ -88,6 +93,7 @@ impl Default for SolveOptions {
             max_iterations: 100,
             constraint_tolerance: 1e-10,
             step_tolerance: 1e-9,
+            cancel: Cancel::never(),
         }
     }
 }
@@ -136,6 +142,9 @@ pub fn solve_with(
     let mut force_plain = false;
 
     while iterations < options.max_iterations {
+        if options.cancel.is_cancelled() {
+            break;
+        }
         iterations += 1;
         let mut gj = Triplets::new(layout.rows.len(), n);
         let g = constraints(plant, layout, &z, Some(&mut gj));

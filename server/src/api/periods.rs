@@ -68,7 +68,8 @@ pub async fn get_period(
     Ok(Json(periods::current(&state, &access.plant, start).await?))
 }
 
-/// Run one period again now, whatever its state; answers the new current run.
+/// Run one period again now, whatever its state (a period waiting out the backoff of an
+/// abandoned run too); answers the new current run.
 #[utoipa::path(
     post,
     path = "/api/v1/plants/{plant}/periods/{start}/reconcile",
@@ -84,6 +85,7 @@ pub async fn get_period(
         (status = 403, description = "The token's role is not admin, or it is for another plant", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such plant", body = Problem, content_type = "application/problem+json"),
         (status = 409, description = "The plant has no model", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "The run passed its time limit and was abandoned (`run-timed-out`, naming the plant, the period and the limit); nothing was stored, and a dirty period is retried after a backoff", body = Problem, content_type = "application/problem+json"),
     ),
     security(("token" = []))
 )]

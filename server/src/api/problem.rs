@@ -245,6 +245,13 @@ impl From<RunError> for Problem {
         match e {
             RunError::Revision(e) => e.into(),
             RunError::Store(e) => e.into(),
+            // Not the caller's fault, nor a failure of ours: the run needs more time than the
+            // service gives one (`--run-timeout`). Nothing was stored.
+            e @ RunError::TimedOut { .. } => Problem::new(
+                StatusCode::SERVICE_UNAVAILABLE,
+                "run-timed-out",
+                format!("{e}; nothing was stored"),
+            ),
             e @ (RunError::Engine { .. } | RunError::Task(_)) => {
                 tracing::error!(error = %e, "period run failure");
                 Problem::internal()

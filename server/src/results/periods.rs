@@ -8,7 +8,7 @@ use utoipa::ToSchema;
 use super::range::parse_time;
 use super::{rfc3339, PeriodRange, ResultsError};
 use crate::service::Service;
-use crate::store::PlantRow;
+use crate::store::{PlantRow, RunFailure};
 
 /// One period of the listing.
 #[derive(Debug, Serialize, ToSchema)]
@@ -17,7 +17,9 @@ pub struct PeriodStatus {
     pub start: String,
     pub end: String,
     /// The current report's status (solved, unobservable, not_converged, infeasible, no_data),
-    /// `pending` when readings arrived but the period has not been run yet, or `no_readings`.
+    /// `pending` when readings arrived but the period has not been run yet, `failed` when its
+    /// last run was abandoned (see `last_failure`) and no run was recorded since, or
+    /// `no_readings`.
     pub status: String,
     /// Readings changed since the current run (or since none): a run is due.
     pub rerun_due: bool,
@@ -29,6 +31,36 @@ pub struct PeriodStatus {
     pub run_at: Option<String>,
     /// Runs of this period so far (history included).
     pub runs: i64,
+    /// The period's last abandoned run, while no run of it has been recorded since.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub last_failure: Option<LastFailure>,
+}
+
+/// A period's last abandoned run.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct LastFailure {
+    /// When it was abandoned (RFC 3339, UTC).
+    #[schema(format = DateTime)]
+    pub at: String,
+    /// Why.
+    pub reason: String,
+    /// Runs of the period abandoned in a row.
+    pub failures: i64,
+    /// The scheduler tries the period again from then (RFC 3339, UTC): a minute after the
+    /// first failure, doubling with each, at most an hour.
+    #[schema(format = DateTime)]
+    pub retry_after: String,
+}
+
+impl From<&RunFailure> for LastFailure {
+    fn from(f: &RunFailure) -> LastFailure {
+        LastFailure {
+            at: rfc3339(f.failed_at),
+            reason: f.reason.clone(),
+            failures: f.failures,
+            retry_after: rfc3339(f.retry_after),
+        }
+    }
 }
 
 #[derive(Debug, Serialize, ToSchema)]
@@ -38,8 +70,9 @@ pub struct PeriodList {
     pub periods: Vec<PeriodStatus>,
 }
 
-/// Every period of the range with the status of its current run, or `pending` (readings
-/// arrived, not run yet) or `no_readings`.
+/// Every period of the range with the status of its current run, or `failed` (its last run
+/// was abandoned, none recorded since), `pending` (readings arrived, not run yet) or
+/// `no_readings`.
 pub async fn listing(
     service: &Service,
     plant: &PlantRow,
@@ -51,12 +84,21 @@ pub async fn listing(
         .current_runs(plant, range.first(), range.to)
         .await?;
     let dirty = service.store.dirty_periods(plant).await?;
+    let failures = service
+        .store
+        .run_failures(plant, range.first(), range.to)
+        .await?;
     let mut periods = Vec::new();
     for &start in &range.starts {
         let end = start + TimeDelta::seconds(secs);
         let run = runs.iter().find(|r| r.period_start == start);
         let due = dirty.iter().any(|(s, _)| *s == start);
+        let failure = failures.iter().find(|f| f.period_start == start);
+        // Recording a run deletes the period's failure, so a failure with a newer current run
+        // is one whose instant was read off a clock behind the run's: the run counts.
+        let failed = failure.is_some_and(|f| run.is_none_or(|r| r.created_at < f.failed_at));
         let status = match (run, due) {
+            _ if failed => "failed".to_string(),
             (Some(r), _) => r.status.as_str().to_string(),
             (None, true) => "pending".to_string(),
             (None, false) => "no_readings".to_string(),
@@ -70,6 +112,7 @@ pub async fn listing(
             revision: run.map(|r| r.revision),
             run_at: run.map(|r| rfc3339(r.created_at)),
             runs: run.map_or(0, |r| r.runs),
+            last_failure: failure.map(LastFailure::from),
         });
     }
     Ok(PeriodList {

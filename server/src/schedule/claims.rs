@@ -9,6 +9,7 @@ use chrono::{DateTime, Utc};
 
 use super::record::{record_period, RunError, RunOutcome};
 use crate::revisions::Models;
+use crate::run_limit;
 use crate::service::Service;
 use crate::store::{Claim, PlantRow, StoreError};
 
@@ -40,7 +41,10 @@ pub async fn run_period(
 }
 
 /// Run a claimed period, renewing the claim every third of its lease until the run is
-/// recorded; a run that fails gives its claim up, so the period stays dirty and runs again.
+/// recorded; a run that fails gives its claim up, so the period stays dirty and runs again. A
+/// run abandoned at its time limit records the failure as it gives the claim up (one
+/// transaction), and the period waits out its backoff (`run_limit::backoff`) before it is
+/// claimed again.
 pub(super) async fn run_claimed(
     service: &Service,
     plant: &PlantRow,
@@ -70,13 +74,34 @@ pub(super) async fn run_claimed(
         }
         Err(e) => Err(e.into()),
     };
-    if let Err(e) = &outcome {
-        if !matches!(e, RunError::Store(StoreError::ClaimLost(_))) {
-            if let Err(release) = service.store.release_claim(plant, claim).await {
-                tracing::warn!(plant = %plant.name, period = %start, error = %release,
-                    "could not give up the claim of a failed run; it lapses with its lease");
-            }
-        }
+    match &outcome {
+        Ok(_) | Err(RunError::Store(StoreError::ClaimLost(_))) => {}
+        Err(e) => give_up(service, plant, claim, e).await,
     }
     outcome
+}
+
+/// Give up the claim of a failed run: with its failure recorded when the run was abandoned,
+/// else simply released. Either way the period stays dirty; a store that fails here leaves
+/// the claim to lapse with its lease.
+async fn give_up(service: &Service, plant: &PlantRow, claim: &Claim, error: &RunError) {
+    let start = claim.period_start;
+    let given_up = match error.failure_reason() {
+        Some(reason) => service
+            .store
+            .record_run_failure(plant, claim, &reason, run_limit::backoff)
+            .await
+            .map(|failure| match failure {
+                Some(f) => tracing::debug!(plant = %plant.name, period = %start,
+                    failures = f.failures, retry_after = %f.retry_after,
+                    "the period's failure is recorded; it is retried after its backoff"),
+                None => tracing::warn!(plant = %plant.name, period = %start,
+                    "the claim on this period lapsed during its run; its failure is not recorded"),
+            }),
+        None => service.store.release_claim(plant, claim).await.map(drop),
+    };
+    if let Err(e) = given_up {
+        tracing::warn!(plant = %plant.name, period = %start, error = %e,
+            "could not give up the claim of a failed run; it lapses with its lease");
+    }
 }

@@ -1,16 +1,19 @@
 //! One period run against the store: the period's stored readings read, with the meters out of
 //! service at its start (from the technicians' notes), the pure run (`period_run`) on a
-//! blocking thread so requests keep flowing, and the report with its per-meter records stored
-//! in one transaction as the period's new current run (earlier runs stay as history).
+//! blocking thread so requests keep flowing, under the model's time limit (`run_limit`), and
+//! the report with its per-meter records stored in one transaction as the period's new current
+//! run (earlier runs stay as history). A run that passes its limit is abandoned: nothing is
+//! stored, and the caller gets [`RunError::TimedOut`].
 
 use std::sync::Arc;
-use std::time::Instant;
+use std::time::{Duration, Instant};
 
-use chrono::{DateTime, Utc};
-use reconcile::{Plant, Report};
+use chrono::{DateTime, SecondsFormat, Utc};
+use reconcile::{Cancel, Plant, Report};
 
 use crate::period_run::{self, RunInputs};
 use crate::revisions::RevisionError;
+use crate::run_limit;
 use crate::service::Service;
 use crate::store::{Claim, NewRun, PlantRow, StoreError};
 
@@ -30,6 +33,30 @@ pub enum RunError {
     /// A run's task ended without an outcome (it panicked or was cancelled).
     #[error("a period run stopped unexpectedly: {0}")]
     Task(String),
+    /// The run passed its time limit and was abandoned: nothing was stored.
+    #[error(
+        "the run of period {} of plant \"{plant}\" was abandoned at its time limit of {}",
+        period.to_rfc3339_opts(SecondsFormat::Secs, true),
+        run_limit::seconds(*limit)
+    )]
+    TimedOut {
+        plant: String,
+        period: DateTime<Utc>,
+        limit: Duration,
+    },
+}
+
+impl RunError {
+    /// Why an abandoned run failed, as its period's failure records it.
+    pub fn failure_reason(&self) -> Option<String> {
+        match self {
+            RunError::TimedOut { limit, .. } => Some(format!(
+                "the run was abandoned at its time limit of {}",
+                run_limit::seconds(*limit)
+            )),
+            _ => None,
+        }
+    }
 }
 
 /// The outcome of one run.
@@ -42,7 +69,9 @@ pub struct RunOutcome {
 
 /// Run the period of `plant` starting at `start` on `model` (revision number `revision`) and
 /// store the run as its current one; with a claim, the run is recorded only while the claim is
-/// held, and settles it.
+/// held, and settles it. The run is given the model's time limit (`service.run_limit`), from
+/// when it starts on its blocking thread; past it, [`RunError::TimedOut`] and nothing stored
+/// (the claim is the caller's to give up).
 pub(super) async fn record_period(
     service: &Service,
     plant: &PlantRow,
@@ -61,11 +90,22 @@ pub(super) async fn record_period(
         period: start,
         reason,
     };
+    let limit = service.run_limit.for_model(&model);
     let run = tokio::task::spawn_blocking(move || {
-        period_run::run_period(&model, revision, start, readings, left_out)
+        // The clock starts here, not while the run waits for a blocking thread.
+        let cancel = Cancel::after(limit);
+        period_run::run_period(&model, revision, start, readings, left_out, &cancel)
     })
     .await
     .map_err(|e| engine(e.to_string()))?;
+    let Ok(run) = run else {
+        service.metrics.run_abandoned();
+        return Err(RunError::TimedOut {
+            plant: plant.name.clone(),
+            period: start,
+            limit,
+        });
+    };
     let status = run.report.status;
     let new = NewRun {
         meters: run.meters,

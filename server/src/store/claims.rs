@@ -25,7 +25,7 @@ pub(super) fn lease_ms(lease: Duration) -> i64 {
 }
 
 /// Give up the claim `$3` holds on period `$2` of plant `$1`.
-const RELEASE: &str = "
+pub(super) const RELEASE: &str = "
     UPDATE dirty_periods SET claimed_by = NULL, lease_until = NULL
     WHERE plant_id = $1 AND period_start = $2 AND claimed_by = $3";
 

@@ -3,7 +3,7 @@
 //!
 //! One store, two dialects. The row types live in `rows` and are decoded there once for both
 //! backends; each group of tables has its module (`plants`, `readings`, `tokens`, `claims`,
-//! `runs`, `meters`) holding its methods, written once with SQL both dialects accept (`$n`
+//! `failures`, `runs`, `meters`) holding its methods, written once with SQL both dialects accept (`$n`
 //! parameters, which SQLite takes too). Only what the dialects truly do differently lives in
 //! `sqlite/` and `pg/`: opening, batch writes (multi-row VALUES in SQLite, arrays and UNNEST in
 //! PostgreSQL), claims (SQLite's one writer against PostgreSQL's SKIP LOCKED and database
@@ -41,6 +41,7 @@ macro_rules! in_tx {
 }
 
 mod claims;
+mod failures;
 mod figures;
 mod meters;
 mod pg;
@@ -59,8 +60,8 @@ pub use pg::PgStore;
 pub use readings::{outside, OutOfRange};
 pub use rows::{
     Claim, FigureCell, FigureKey, Grant, IngestCounts, MeterNote, MeterRow, ModelRevision, NewRun,
-    NewToken, NoteDraft, NoteKind, NoteOutcome, PeriodOutcome, PlantRow, Role, RunRow, RunSummary,
-    Settled, StoredReading,
+    NewToken, NoteDraft, NoteKind, NoteOutcome, PeriodOutcome, PlantRow, Role, RunFailure, RunRow,
+    RunSummary, Settled, StoredReading,
 };
 pub use sqlite::SqliteStore;
 

@@ -212,6 +212,20 @@ pub enum Settled {
     StillDirty,
 }
 
+/// A period whose run was abandoned (migrations/0006_run_failures.sql): why, how often since
+/// its last recorded run, and when it may be claimed again.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct RunFailure {
+    pub period_start: DateTime<Utc>,
+    /// Abandoned runs since the period's last recorded one (at least 1).
+    pub failures: i64,
+    /// Why the last one was abandoned.
+    pub reason: String,
+    pub failed_at: DateTime<Utc>,
+    /// Claims skip the period until then.
+    pub retry_after: DateTime<Utc>,
+}
+
 /// The roles of docs/api.md ("Tokens and roles"); `admin` may do everything.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Role {
@@ -353,6 +367,17 @@ pub(super) fn stored_reading<R: StoreRow>(r: &R) -> Result<StoredReading> {
 /// `period_start, marked_at` of `dirty_periods`.
 pub(super) fn dirty_period<R: StoreRow>(r: &R) -> Result<(DateTime<Utc>, DateTime<Utc>)> {
     Ok((r.instant("period_start")?, r.instant("marked_at")?))
+}
+
+/// Every column of `run_failures` but the plant.
+pub(super) fn run_failure<R: StoreRow>(r: &R) -> Result<RunFailure> {
+    Ok(RunFailure {
+        period_start: r.instant("period_start")?,
+        failures: r.read("failures")?,
+        reason: r.read("reason")?,
+        failed_at: r.instant("failed_at")?,
+        retry_after: r.instant("retry_after")?,
+    })
 }
 
 /// `period_start, marked_at` of `dirty_periods`, as claims of `instance`, oldest first.

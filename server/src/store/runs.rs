@@ -4,7 +4,7 @@ use chrono::{DateTime, Utc};
 
 use super::rows::{self, Claim, NewRun, PlantRow, RunRow, RunSummary, Settled};
 use super::values::{JsonText, Millis};
-use super::{claims, figures, pg, sqlite, Result, Store, Tx};
+use super::{claims, failures, figures, pg, sqlite, Result, Store, Tx};
 
 /// The columns `rows::run` reads.
 const COLUMNS: &str = "id, period_start, revision, engine_version, status, report_json, \
@@ -40,8 +40,9 @@ impl Store {
         Ok((id, settled.unwrap_or(Settled::Cleared)))
     }
 
-    /// Record `run` as its period's current run; with a claim, only while the claim is held,
-    /// settling it in the same transaction.
+    /// Record `run` as its period's current run, and forget the period's failures
+    /// (`failures`); with a claim, only while the claim is held, settling it in the same
+    /// transaction.
     async fn record(
         &self,
         plant: &PlantRow,
@@ -91,6 +92,8 @@ impl Store {
             Tx::Postgres(t) => pg::write_meter_periods(t, plant, id, &run.meters).await?,
         }
         figures::write(&mut tx, plant, run.period_start, id, &figures).await?;
+        // The engine finished the period: an earlier abandoned run of it no longer counts.
+        failures::clear(&mut tx, plant, run.period_start).await?;
         // A claim lost meanwhile refuses the whole run: the transaction is dropped unapplied.
         let settled = match claim {
             Some(claim) => Some(claims::settle(&mut tx, plant, claim).await?),

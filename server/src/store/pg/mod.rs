@@ -56,10 +56,11 @@ impl PgStore {
     }
 
     /// Claim up to `limit` of the plant's dirty periods starting within `starts` that no live
-    /// claim holds, oldest first. Rows another claimer holds are skipped, so two instances
-    /// claiming at once take different periods and never wait on each other; the lease is
-    /// timed by the database's clock, so instances whose clocks disagree still agree on when
-    /// a claim lapses.
+    /// claim holds and no recorded failure holds back (its `retry_after`, by this instance's
+    /// clock as it was written, still to come), oldest first. Rows another claimer holds are
+    /// skipped, so two instances claiming at once take different periods and never wait on
+    /// each other; the lease is timed by the database's clock, so instances whose clocks
+    /// disagree still agree on when a claim lapses.
     pub(super) async fn claim_due(
         &self,
         plant: &PlantRow,
@@ -74,6 +75,10 @@ impl PgStore {
                  SELECT d.plant_id, d.period_start FROM dirty_periods d, now
                  WHERE d.plant_id = $1 AND d.period_start BETWEEN $6 AND $2
                    AND (d.lease_until IS NULL OR d.lease_until <= now.ms)
+                   AND NOT EXISTS (
+                       SELECT 1 FROM run_failures f
+                       WHERE f.plant_id = d.plant_id AND f.period_start = d.period_start
+                         AND f.retry_after > $7)
                  ORDER BY d.period_start LIMIT $3
                  FOR UPDATE OF d SKIP LOCKED)
              UPDATE dirty_periods t
@@ -88,6 +93,7 @@ impl PgStore {
         .bind(instance)
         .bind(lease_ms(lease))
         .bind(Millis::from(*starts.start()))
+        .bind(Millis::now())
         .fetch_all(&self.pool)
         .await?;
         rows::claims(instance, &rows)

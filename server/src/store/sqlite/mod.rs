@@ -64,8 +64,9 @@ impl SqliteStore {
     }
 
     /// Claim up to `limit` of the plant's dirty periods starting within `starts` that no live
-    /// claim holds, oldest first. SQLite has one writer at a time, so the single statement
-    /// cannot race another claimer.
+    /// claim holds and no recorded failure holds back (its `retry_after` still to come), oldest
+    /// first. SQLite has one writer at a time, so the single statement cannot race another
+    /// claimer.
     pub(super) async fn claim_due(
         &self,
         plant: &PlantRow,
@@ -81,6 +82,10 @@ impl SqliteStore {
                  SELECT period_start FROM dirty_periods
                  WHERE plant_id = $3 AND period_start BETWEEN $4 AND $7
                    AND (lease_until IS NULL OR lease_until <= $5)
+                   AND NOT EXISTS (
+                       SELECT 1 FROM run_failures f
+                       WHERE f.plant_id = $3 AND f.period_start = dirty_periods.period_start
+                         AND f.retry_after > $5)
                  ORDER BY period_start LIMIT $6)
              RETURNING period_start, marked_at",
         )

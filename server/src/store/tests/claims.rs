@@ -13,11 +13,11 @@ on_both_backends!(
     concurrent_claimers_share_the_periods_without_overlap,
 );
 
-const LONG: Duration = Duration::from_secs(60);
+pub(super) const LONG: Duration = Duration::from_secs(60);
 
 /// A plant with the tee model and one reading in each of `hours` hourly periods from
 /// 2026-03-02T00:00Z; its revision number.
-async fn plant_with_dirty_hours(store: &Store, hours: u32) -> (PlantRow, i64) {
+pub(super) async fn plant_with_dirty_hours(store: &Store, hours: u32) -> (PlantRow, i64) {
     let (plant, revision) = west_with_tee(store).await;
     let batch: Vec<Reading> = (0..hours)
         .map(|h| {
@@ -33,11 +33,11 @@ async fn plant_with_dirty_hours(store: &Store, hours: u32) -> (PlantRow, i64) {
     (plant, revision)
 }
 
-fn hour(h: u32) -> DateTime<Utc> {
+pub(super) fn hour(h: u32) -> DateTime<Utc> {
     t(&format!("2026-03-02T{h:02}:00:00Z"))
 }
 
-fn stand_in_run(start: DateTime<Utc>, revision: i64, instance: &str) -> NewRun {
+pub(super) fn stand_in_run(start: DateTime<Utc>, revision: i64, instance: &str) -> NewRun {
     NewRun {
         period_start: start,
         revision,
@@ -50,11 +50,11 @@ fn stand_in_run(start: DateTime<Utc>, revision: i64, instance: &str) -> NewRun {
 }
 
 /// Every period start up to `t`.
-fn before(t: DateTime<Utc>) -> std::ops::RangeInclusive<DateTime<Utc>> {
+pub(super) fn before(t: DateTime<Utc>) -> std::ops::RangeInclusive<DateTime<Utc>> {
     DateTime::<Utc>::MIN_UTC..=t
 }
 
-fn starts(claims: &[Claim]) -> Vec<DateTime<Utc>> {
+pub(super) fn starts(claims: &[Claim]) -> Vec<DateTime<Utc>> {
     claims.iter().map(|c| c.period_start).collect()
 }
 

@@ -133,6 +133,7 @@ macro_rules! on_both_backends {
 
 // One module per group of tables (after the macro, which they use).
 mod claims;
+mod failures;
 mod figures;
 mod notes;
 mod plants;
@@ -182,7 +183,8 @@ fn the_two_schemas_have_the_same_migrations() {
             (2, "meter health".to_string()),
             (3, "period claims".to_string()),
             (4, "out of service notes".to_string()),
-            (5, "period figures".to_string())
+            (5, "period figures".to_string()),
+            (6, "run failures".to_string())
         ]
     );
 }

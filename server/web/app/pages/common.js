@@ -21,7 +21,9 @@ export async function latestStart(plant) {
   if (info && info.last_period && info.last_period.start) return parseTime(info.last_period.start);
   const now = Date.now();
   const list = await api(`/plants/${seg(plant)}/periods${qs({ from: new Date(now - 60 * 24 * HOUR).toISOString(), to: new Date(now).toISOString() })}`);
-  const runs = (list.periods || []).filter((p) => p.status && !['no_readings', 'pending', 'no_run'].includes(p.status));
+  // A `failed` period (its last run abandoned at the time limit) has a run only if an earlier one was kept.
+  const runs = (list.periods || []).filter((p) => p.status && !['no_readings', 'pending', 'no_run'].includes(p.status)
+    && !(p.status === 'failed' && p.run_id == null));
   if (!runs.length) return null;
   return parseTime(runs[runs.length - 1].start ?? runs[runs.length - 1].period_start);
 }
