@@ -16,6 +16,9 @@
 //! - `period/N`: the whole analysis of one period on the network of N streams with noisy
 //!   readings: `reconcile_period` (estimate with its restarts, classification, every σ, the
 //!   tests, identification when the global test fails, loop figures, the report).
+//! - `period_gross_error/N`: the same with a gross error of +GROSS_ERROR_NETWORK_SIGMAS σ on a
+//!   flow meter past the middle of the chain (`testkit::network::middle_flow_meter`), so that
+//!   the period fails the global test and identification runs (with the estimate's restarts).
 //!
 //! - `whatif/point`, `whatif/sweep_50`, `whatif/optimum`: what-if steady states from the
 //!   reconciled Vantle period (the base case above): one point with the purge moved
@@ -35,7 +38,9 @@ use reconcile::model::Plant;
 use reconcile::solve::{solve, Measured, Solution, SolveOptions};
 use reconcile::start::initial_point;
 use reconcile::{parse_plant, reconcile_period};
-use testkit::network::{network, Network};
+use testkit::network::{
+    middle_flow_meter, network, with_gross_error as with_network_gross_error, Network,
+};
 use testkit::plants::VANTLE;
 use testkit::{exact_values, noisy_values, period, vantle_true_state, VantleConditions};
 
@@ -43,6 +48,9 @@ use testkit::{exact_values, noisy_values, period, vantle_true_state, VantleCondi
 const ESTIMATE_SIZES: [usize; 4] = [100, 250, 500, 2000];
 const CLASSIFY_SIZES: [usize; 4] = [100, 250, 500, 2000];
 const PERIOD_SIZES: [usize; 2] = [500, 2000];
+/// Size of the gross error of `period_gross_error/N`, in the meter's σ: large enough that both
+/// networks fail the global test (ν = 304 and 1 210).
+const GROSS_ERROR_NETWORK_SIGMAS: f64 = 30.0;
 /// Seed of the readings' noise. With seed 0 the Vantle period converges (in 9 iterations).
 const NOISE_SEED: u64 = 0;
 const NETWORK_SEED: u64 = 7;
@@ -237,6 +245,48 @@ fn networks(c: &mut Criterion) {
             report.redundancy,
             report.global_test.map(|g| g.passed),
             report.faults.len()
+        );
+        group.bench_with_input(BenchmarkId::from_parameter(size), &size, |b, _| {
+            b.iter(|| reconcile_period(black_box(&net.plant), black_box(&input)))
+        });
+    }
+    group.finish();
+
+    let mut group = c.benchmark_group("period_gross_error");
+    group
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(8));
+    for &size in &PERIOD_SIZES {
+        let net = network(size, NETWORK_SEED);
+        let k = middle_flow_meter(&net.plant, 0);
+        let input = period(with_network_gross_error(
+            &net.plant,
+            noisy_values(
+                &net.plant,
+                &exact_values(&net.plant, &net.layout, &net.z),
+                NOISE_SEED,
+            ),
+            k,
+            GROSS_ERROR_NETWORK_SIGMAS,
+        ));
+        let t = Instant::now();
+        let report = reconcile_period(&net.plant, &input);
+        let once = t.elapsed();
+        let tag = &net.plant.meters[k].tag;
+        eprintln!(
+            "period_gross_error/{size}: {once:?} once, status {:?}, global test passed {:?}, faults {:?}",
+            report.status,
+            report.global_test.map(|g| g.passed),
+            report.faults.iter().map(|f| &f.candidates).collect::<Vec<_>>()
+        );
+        // A period that passes or names another meter first times something else: no figure.
+        assert!(
+            report
+                .faults
+                .first()
+                .is_some_and(|f| f.candidates.contains(tag)),
+            "period_gross_error/{size}: the first fault group names {tag}"
         );
         group.bench_with_input(BenchmarkId::from_parameter(size), &size, |b, _| {
             b.iter(|| reconcile_period(black_box(&net.plant), black_box(&input)))
