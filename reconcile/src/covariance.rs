@@ -32,6 +32,10 @@
 //!   stream quantity and meter is then read from Z. Other functions take one solve.
 //! - **Redundancy.** The hat matrix of the scaled measurements is J P Jᵀ; meter i is redundant
 //!   iff 1 − (J P Jᵀ)_ii > 0, and ν = m − (n − rank G − k) with k unobservable directions.
+//! - **Identification** (faults/sparse.rs) without the m × m adjustment covariance: W v in one
+//!   solve, a leak's signature f_d = J x_d from K̃⁻¹ [0; d] (with W f_d = f_d), the products of
+//!   one vector with every leak signature in one solve, and ‖f_d‖² from the selected inverse's
+//!   entries among d's rows.
 
 use std::cell::RefCell;
 
