@@ -20,6 +20,9 @@
 //!   deadline an hour off (`reconcile_period_cancellable`), as the service runs a period: the
 //!   cost of the clock reads at the checkpoints, beside the same cases without one (which read
 //!   no clock) in the same run.
+//! - `period_gross_error/N`: the same with a gross error of +GROSS_ERROR_NETWORK_SIGMAS σ on a
+//!   flow meter past the middle of the chain (`testkit::network::middle_flow_meter`), so that
+//!   the period fails the global test and identification runs (with the estimate's restarts).
 //!
 //! - `whatif/point`, `whatif/sweep_50`, `whatif/optimum`: what-if steady states from the
 //!   reconciled Vantle period (the base case above): one point with the purge moved
@@ -35,11 +38,14 @@ use std::time::{Duration, Instant};
 use criterion::{criterion_group, BenchmarkId, Criterion};
 use reconcile::classify::{classify, classify_dense};
 use reconcile::equations::Layout;
+use reconcile::faults::{identify_with, Method};
 use reconcile::model::Plant;
 use reconcile::solve::{solve, Measured, Solution, SolveOptions};
 use reconcile::start::initial_point;
 use reconcile::{parse_plant, reconcile_period, reconcile_period_cancellable, Cancel};
-use testkit::network::{network, Network};
+use testkit::network::{
+    middle_flow_meter, network, with_gross_error as with_network_gross_error, Network,
+};
 use testkit::plants::VANTLE;
 use testkit::{exact_values, noisy_values, period, vantle_true_state, VantleConditions};
 
@@ -47,6 +53,9 @@ use testkit::{exact_values, noisy_values, period, vantle_true_state, VantleCondi
 const ESTIMATE_SIZES: [usize; 4] = [100, 250, 500, 2000];
 const CLASSIFY_SIZES: [usize; 4] = [100, 250, 500, 2000];
 const PERIOD_SIZES: [usize; 2] = [500, 2000];
+/// Size of the gross error of `period_gross_error/N`, in the meter's σ: large enough that both
+/// networks fail the global test (ν = 304 and 1 210).
+const GROSS_ERROR_NETWORK_SIGMAS: f64 = 30.0;
 /// Seed of the readings' noise. With seed 0 the Vantle period converges (in 9 iterations).
 const NOISE_SEED: u64 = 0;
 const NETWORK_SEED: u64 = 7;
@@ -247,6 +256,48 @@ fn networks(c: &mut Criterion) {
         });
     }
     group.finish();
+
+    let mut group = c.benchmark_group("period_gross_error");
+    group
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(8));
+    for &size in &PERIOD_SIZES {
+        let net = network(size, NETWORK_SEED);
+        let k = middle_flow_meter(&net.plant, 0);
+        let input = period(with_network_gross_error(
+            &net.plant,
+            noisy_values(
+                &net.plant,
+                &exact_values(&net.plant, &net.layout, &net.z),
+                NOISE_SEED,
+            ),
+            k,
+            GROSS_ERROR_NETWORK_SIGMAS,
+        ));
+        let t = Instant::now();
+        let report = reconcile_period(&net.plant, &input);
+        let once = t.elapsed();
+        let tag = &net.plant.meters[k].tag;
+        eprintln!(
+            "period_gross_error/{size}: {once:?} once, status {:?}, global test passed {:?}, faults {:?}",
+            report.status,
+            report.global_test.map(|g| g.passed),
+            report.faults.iter().map(|f| &f.candidates).collect::<Vec<_>>()
+        );
+        // A period that passes or names another meter first times something else: no figure.
+        assert!(
+            report
+                .faults
+                .first()
+                .is_some_and(|f| f.candidates.contains(tag)),
+            "period_gross_error/{size}: the first fault group names {tag}"
+        );
+        group.bench_with_input(BenchmarkId::from_parameter(size), &size, |b, _| {
+            b.iter(|| reconcile_period(black_box(&net.plant), black_box(&input)))
+        });
+    }
+    group.finish();
 }
 
 /// Time every case once, for sizes too slow for criterion's repeated samples.
@@ -323,6 +374,44 @@ fn probe() {
             report.global_test.map_or("none".into(), |g| if g.passed { "passed".to_string() } else { "failed".to_string() }),
             report.faults.len(),
             report.diagnostics.as_ref().map_or(0, |d| d.restarts),
+        );
+        // The same with the gross error of `period_gross_error/N`: the estimate with its
+        // restarts, then identification by each method on it (the dense one only below 1 000
+        // streams: it takes a solve per meter and per unit).
+        let k = middle_flow_meter(&net.plant, 0);
+        let faulty = with_network_gross_error(
+            &net.plant,
+            input.values.clone(),
+            k,
+            GROSS_ERROR_NETWORK_SIGMAS,
+        );
+        let t = Instant::now();
+        let est = reconcile::estimate(&net.plant, measured(&net.plant, &faulty));
+        let t_est = t.elapsed();
+        let identify = |method| {
+            let t = Instant::now();
+            let found = identify_with(
+                &net.plant,
+                &est.layout,
+                &est.measured,
+                &est.solution.z,
+                &est.classification,
+                method,
+            );
+            (t.elapsed(), found.faults.len())
+        };
+        let factorised = identify(Method::Factorised);
+        let dense = (size < 1000).then(|| identify(Method::Dense));
+        let t = Instant::now();
+        let report = reconcile_period(&net.plant, &period(faulty));
+        let t_period = t.elapsed();
+        println!(
+            "{size} streams, gross error on {}: estimate {t_est:?} ({} restarts), identification {:?} factorised, {:?} dense, whole period {t_period:?} ({} faults)",
+            net.plant.meters[k].tag,
+            est.restarts,
+            factorised,
+            dense,
+            report.faults.len(),
         );
     }
 }

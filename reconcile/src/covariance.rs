@@ -32,6 +32,10 @@
 //!   stream quantity and meter is then read from Z. Other functions take one solve.
 //! - **Redundancy.** The hat matrix of the scaled measurements is J P Jᵀ; meter i is redundant
 //!   iff 1 − (J P Jᵀ)_ii > 0, and ν = m − (n − rank G − k) with k unobservable directions.
+//! - **Identification** (faults/sparse.rs) without the m × m adjustment covariance: W v in one
+//!   solve, a leak's signature f_d = J x_d from K̃⁻¹ [0; d] (with W f_d = f_d), the products of
+//!   one vector with every leak signature in one solve, and ‖f_d‖² from the selected inverse's
+//!   entries among d's rows.
 
 use std::cell::RefCell;
 
@@ -79,9 +83,21 @@ pub struct SparseCovariance {
     /// (dependent rows).
     pub unobservable_pivots: usize,
     pub dependent_rows: usize,
+    /// The pivots replaced by ±PIN, for the leak signatures' norms (`signature_norm`).
+    pins: Vec<Pin>,
     /// P b for the last few gradients b with a support too wide for the selected inverse
     /// (a loop figure's fresh-feed total recurs in every splitter's recycle ratio).
     solved: RefCell<Vec<Solved>>,
+}
+
+/// A replaced pivot: its index in K̃ (original order), the entry the replacement added to K̃'s
+/// diagonal there (±PIN / s², the pivot it replaced being below PIVOT_TOLERANCE), and the
+/// constraint part of K̃⁻¹ e at that index.
+#[derive(Debug, Clone)]
+struct Pin {
+    index: usize,
+    added: f64,
+    constraint_part: Vec<f64>,
 }
 
 /// A cached solve: the gradient b (indices and the bits of its values) and P b.
@@ -290,6 +306,7 @@ impl SparseCovariance {
             j_rows,
             unobservable_pivots: 0,
             dependent_rows: 0,
+            pins: Vec::new(),
             solved: RefCell::new(Vec::new()),
         };
         cov.selected_inverse(cancel)?;
@@ -304,6 +321,12 @@ impl SparseCovariance {
             let mut e = vec![0.0; size];
             e[cov.perm[k]] = 1.0;
             let x = cov.solve(&e);
+            let index = cov.perm[k];
+            cov.pins.push(Pin {
+                index,
+                added: f64::from(signs[index]) * PIN / (cov.scale[index] * cov.scale[index]),
+                constraint_part: x[n..].to_vec(),
+            });
             let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt();
             if norm > 0.0 && norm.is_finite() {
                 for i in 0..n {
@@ -520,6 +543,115 @@ impl SparseCovariance {
         let mut x = self.solve(&b);
         x.truncate(self.n);
         x
+    }
+
+    /// J x for a state vector x (σ-scaled measurement space).
+    fn j_times(&self, x: &[f64]) -> Vec<f64> {
+        self.j_rows
+            .iter()
+            .map(|row| row.iter().map(|&(c, v)| v * x[c]).sum())
+            .collect()
+    }
+
+    /// W v = v − J P Jᵀ v, the covariance of the σ-scaled adjustments applied to v (one solve).
+    pub fn adjustment(&self, v: &[f64]) -> Vec<f64> {
+        let mut b = vec![0.0; self.dinv.len()];
+        for (row, &vi) in self.j_rows.iter().zip(v) {
+            if vi != 0.0 {
+                for &(c, jv) in row {
+                    b[c] += jv * vi;
+                }
+            }
+        }
+        let x = self.solve(&b);
+        v.iter().zip(self.j_times(&x)).map(|(a, b)| a - b).collect()
+    }
+
+    /// The signature f_d = J x_d of a constraint right-hand side d, with x_d the state part of
+    /// K̃⁻¹ [0; d] (`constraint_solution`; one solve).
+    ///
+    /// From the first block row of K̃ [x; y] = [0; d], H x = −Gᵀ(W G x + y) − E x (E: the
+    /// pivots replaced on unobservable states, whose K̃⁻¹ columns J maps to 0), so J P Jᵀ f_d
+    /// = 0 (P Gᵀ = 0): W f_d = f_d, and a leak's GLR needs no projection.
+    pub fn constraint_signature(&self, d: &[f64]) -> Vec<f64> {
+        self.j_times(&self.constraint_solution(d))
+    }
+
+    /// y, the constraint part of K̃⁻¹ [Jᵀ v; 0] (one solve): for every d, f_dᵀ v = dᵀ y with
+    /// f_d the signature of `constraint_signature` (K̃ is symmetric). One solve gives the
+    /// product of v with the signature of every leak.
+    pub fn signature_products(&self, v: &[f64]) -> Vec<f64> {
+        let mut b = vec![0.0; self.dinv.len()];
+        for (row, &vi) in self.j_rows.iter().zip(v) {
+            if vi != 0.0 {
+                for &(c, jv) in row {
+                    b[c] += jv * vi;
+                }
+            }
+        }
+        let x = self.solve(&b);
+        x[self.n..].to_vec()
+    }
+
+    /// ‖f_d‖² for the signature f_d = J x_d of a constraint right-hand side d given by its
+    /// entries (row, value), without a solve when every pair of d's rows is in the selected
+    /// inverse's pattern. Also the size of the terms it is the difference of (0 after a
+    /// solve): a value far below them is rounding.
+    ///
+    /// With [x; y] = K̃⁻¹ [0; d], K̃ = [H + Gᵀ W G + E_s, Gᵀ; G, −E_c] (W = S_y² the
+    /// augmentation, E_s and E_c the replaced pivots' additions on states and rows):
+    /// H x = −Gᵀ W g − E_s x − Gᵀ y with g = G x = d + E_c y, so
+    /// ‖J x‖² = xᵀ H x = −gᵀ W g − xᵀ E_s x − dᵀ y − yᵀ E_c y. Here dᵀ y = dᵀ Y d with Y the
+    /// constraint block of K̃⁻¹ (selected entries), and x, y at the replaced pivots are the
+    /// stored K̃⁻¹ columns there times d (K̃ symmetric). It is the minimum of ‖J z‖² over
+    /// G z = d: the value of that equality-constrained least-squares problem from its KKT
+    /// inverse (Nocedal & Wright, *Numerical Optimization*, 2nd ed., §16.1).
+    pub fn signature_norm(&self, d: &[(usize, f64)]) -> (f64, f64) {
+        let n = self.n;
+        let mut dyd = 0.0;
+        for &(a, va) in d {
+            for &(b, vb) in d {
+                match self.entry(n + a, n + b) {
+                    Some(y) => dyd += va * y * vb,
+                    None => {
+                        let mut dense = vec![0.0; self.dinv.len() - n];
+                        for &(row, v) in d {
+                            dense[row] += v;
+                        }
+                        let norm = self
+                            .constraint_signature(&dense)
+                            .iter()
+                            .map(|f| f * f)
+                            .sum();
+                        return (norm, 0.0);
+                    }
+                }
+            }
+        }
+        // g = d + E_c y on d's rows and the replaced rows; x and y at the replaced pivots.
+        let mut g: Vec<(usize, f64)> = d.to_vec();
+        let mut pinned = 0.0;
+        for pin in &self.pins {
+            let at: f64 = d.iter().map(|&(row, v)| v * pin.constraint_part[row]).sum();
+            if pin.index < n {
+                pinned += pin.added * at * at;
+            } else {
+                // −E_c is the addition on a row's diagonal (added < 0).
+                let e_c = -pin.added;
+                pinned += e_c * at * at;
+                g.push((pin.index - n, e_c * at));
+            }
+        }
+        g.sort_unstable_by_key(|&(row, _)| row);
+        merge_duplicates(&mut g);
+        let gwg: f64 = g
+            .iter()
+            .map(|&(row, v)| {
+                let s = self.scale[n + row];
+                s * s * v * v
+            })
+            .sum();
+        (-gwg - pinned - dyd, gwg + pinned + dyd.abs())
     }
 }
 

@@ -290,3 +290,29 @@ pub fn network(streams: usize, seed: u64) -> Network {
         z,
     }
 }
+
+/// The `nth` flow meter (no component) on a stream past the middle of the chain: where the
+/// tests and the benchmarks put a gross error, away from the feeds at both ends.
+pub fn middle_flow_meter(plant: &Plant, nth: usize) -> usize {
+    (0..plant.meters.len())
+        .filter(|&k| {
+            plant.meters[k].component.is_none() && plant.meters[k].stream > plant.streams.len() / 2
+        })
+        .nth(nth)
+        .expect("a generated network has flow meters past its middle")
+}
+
+/// The values with `sigmas` times its σ added to the value of meter `k`.
+pub fn with_gross_error(
+    plant: &Plant,
+    mut values: Vec<reconcile::period::MeterValue>,
+    k: usize,
+    sigmas: f64,
+) -> Vec<reconcile::period::MeterValue> {
+    let v = values
+        .iter_mut()
+        .find(|v| v.meter == k)
+        .expect("the meter has a value");
+    v.value += sigmas * plant.meters[k].sigma_for(v.value).expect("positive σ");
+    values
+}
