@@ -234,16 +234,8 @@ async fn markup_in_a_note_is_shown_as_text_and_the_read_role_gets_no_note_form()
     let role = sign_in(&b2, &s.server, &s.admin).await;
     assert!(role.contains("admin"), "{role}");
     open(&b2, &s.server, &format!("/plant/{PLANT_NAME}/meters/{tag}")).await;
-    let form_text = b2.wait_for("#note-text", 10).await;
-    b2.type_into(&form_text, "zero checked against the portable standard")
-        .await;
-    let submit = b2.wait_for("#note-submit", 5).await;
-    b2.click(&submit).await;
-    b2.wait_until(
-        "return document.querySelector('#notes').textContent.includes('portable standard')",
-        10,
-    )
-    .await;
+    b2.wait_for("#note-text", 10).await;
+    post_note(&b2, "zero checked against the portable standard", "#notes").await;
     let detail: Value = json_ok(
         c.get(
             s.server
@@ -421,16 +413,7 @@ async fn each_role_is_shown_what_it_may_do_and_maintain_writes_a_note() {
         .await;
     let text = main_text(&b).await;
     assert!(text.contains("history is not shown"), "{text}");
-    let note = b.wait_for("#note-text", 5).await;
-    b.type_into(&note, "transmitter zero trimmed by the maintain role")
-        .await;
-    let submit = b.wait_for("#note-submit", 5).await;
-    b.click(&submit).await;
-    b.wait_until(
-        "return document.querySelector('main').textContent.includes('zero trimmed')",
-        10,
-    )
-    .await;
+    post_note(&b, "transmitter zero trimmed by the maintain role", "main").await;
     b.screenshot(&shot("role-maintain.png")).await;
     let detail: Value = json_ok(
         client()
@@ -700,4 +683,20 @@ async fn every_page_works_on_the_other_test_plants() {
         b.wait_for("#notes", 10).await;
     }
     assert_eq!(csp_violations(&b).await, "");
+}
+
+/// Type `text` into the open meter page's note form, submit it, and wait until the element
+/// `shown_in` (a CSS selector) shows it.
+async fn post_note(b: &Browser, text: &str, shown_in: &str) {
+    let field = b.wait_for("#note-text", 5).await;
+    b.type_into(&field, text).await;
+    let submit = b.wait_for("#note-submit", 5).await;
+    b.click(&submit).await;
+    // JSON strings are JavaScript string literals.
+    let script = format!(
+        "return document.querySelector({}).textContent.includes({})",
+        json!(shown_in),
+        json!(text)
+    );
+    b.wait_until(&script, 10).await;
 }
