@@ -229,6 +229,32 @@ async fn markup_in_a_note_is_shown_as_text_and_the_read_role_gets_no_note_form()
     );
     b.screenshot(&shot("meter-read.png")).await;
 
+    // The normalised adjustment's critical lines are the latest period's measurement test.
+    let api = |path: String| {
+        let req = c.get(s.server.url(&path)).bearer_auth(&s.read);
+        async move { json_ok(req.send().await.unwrap()).await }
+    };
+    let meter: Value = api(format!("/api/v1/plants/{PLANT_NAME}/meters/{tag}")).await;
+    let last = meter["history"].as_array().unwrap().last().unwrap()["period_start"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    let run: Value = api(format!("/api/v1/plants/{PLANT_NAME}/periods/{last}")).await;
+    let tests = run["report"]["measurement_test"]["tests"].as_u64().unwrap();
+    let drawn = b
+        .run(
+            "return document.querySelector('main').textContent",
+            json!([]),
+        )
+        .await;
+    assert!(
+        drawn
+            .as_str()
+            .unwrap_or_default()
+            .contains(&format!("Šidák over {tests} redundant meters")),
+        "{drawn}"
+    );
+
     // The maintain role sees the form and records a note through it.
     let b2 = Browser::start(1280, 800).await;
     let role = sign_in(&b2, &s.server, &s.admin).await;

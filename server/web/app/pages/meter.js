@@ -55,6 +55,22 @@ export async function render(ctx, view) {
   // ---- charts on one time axis -----------------------------------------------------------
   const hist = m.history || [];
   const notes = m.notes || [];
+  // The measurement test's Šidák-corrected critical value, from the latest period's report
+  // (the history does not carry each period's; it changes only with the set of redundant
+  // meters). Without a report the chart falls back to ± 1.96.
+  let test = null;
+  if (hist.length) {
+    try {
+      const run = await api(`${P}/periods/${seg(iso(parseTime(hist[hist.length - 1].period_start)))}`);
+      test = (run.report && run.report.measurement_test) || null;
+    } catch (err) {
+      if (err.status === 401) return;
+    }
+  }
+  const critical = test ? test.critical : 1.96;
+  const criticalLabel = test
+    ? `± ${num(test.critical, 3)}: the measurement test's critical value in the latest period (Šidák over ${test.tests} redundant meters, ${num(100 * test.alpha_per_test, 3)} % two-sided each)`
+    : '± 1.96: 5 % two-sided per test (no report of the latest period to read the Šidák-corrected value from)';
   view.append(h('h2', { text: 'History' }));
   if (!hist.length) {
     view.append(message('info', 'No reconciled period in this meter\'s record yet.'));
@@ -78,8 +94,8 @@ export async function render(ctx, view) {
       title: 'Normalised adjustment (adjustment ÷ its σ)', xKind: 'time', axis, yLabel: 'adjustment / σ', height: 200,
       notes: noteMarks, failed: flagged, failedWidth: pms, failedLabel: 'the period\'s measurement test named the meter',
       hlines: [
-        { y: 1.96, label: '± 1.96: 5 % two-sided per test (the history does not carry each period\'s Šidák critical value)', tag: '+1.96' },
-        { y: -1.96, label: '', legend: false, tag: '−1.96' },
+        { y: critical, label: criticalLabel, tag: `+${num(critical, 3)}` },
+        { y: -critical, label: '', legend: false, tag: `−${num(critical, 3)}` },
         { y: 0, label: '', legend: false, cls: 'h-zero' },
       ],
       series: [{ label: 'normalised adjustment', cls: 's1', points: hist.map((p) => ({ x: X(p), v: p.normalized_adjustment })), fmt: (p) => num(p.v, 3) }],
