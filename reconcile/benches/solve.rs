@@ -40,6 +40,7 @@ use reconcile::classify::{classify, classify_dense};
 use reconcile::equations::Layout;
 use reconcile::faults::{identify_with, Method};
 use reconcile::model::Plant;
+use reconcile::period::MeterValue;
 use reconcile::solve::{solve, Measured, Solution, SolveOptions};
 use reconcile::start::initial_point;
 use reconcile::{parse_plant, reconcile_period, reconcile_period_cancellable, Cancel};
@@ -73,13 +74,26 @@ fn measured(plant: &Plant, values: &[reconcile::period::MeterValue]) -> Vec<Meas
         .collect()
 }
 
-fn noisy_network(streams: usize) -> (Network, Vec<Measured>) {
-    let net = network(streams, NETWORK_SEED);
-    let values = noisy_values(
+/// The bench's readings of the Vantle loop: its true state under the default conditions, with
+/// the fixed noise.
+fn vantle_values(plant: &Plant) -> Vec<MeterValue> {
+    let layout = Layout::new(plant);
+    let z = vantle_true_state(plant, &layout, &VantleConditions::default());
+    noisy_values(plant, &exact_values(plant, &layout, &z), NOISE_SEED)
+}
+
+/// The bench's readings of a generated network: its true state with the fixed noise.
+fn network_values(net: &Network) -> Vec<MeterValue> {
+    noisy_values(
         &net.plant,
         &exact_values(&net.plant, &net.layout, &net.z),
         NOISE_SEED,
-    );
+    )
+}
+
+fn noisy_network(streams: usize) -> (Network, Vec<Measured>) {
+    let net = network(streams, NETWORK_SEED);
+    let values = network_values(&net);
     let m = measured(&net.plant, &values);
     (net, m)
 }
@@ -100,13 +114,7 @@ fn capped() -> SolveOptions {
 
 fn vantle(c: &mut Criterion) {
     let plant = parse_plant(VANTLE).expect("Vantle model is valid");
-    let layout = Layout::new(&plant);
-    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
-    let input = period(noisy_values(
-        &plant,
-        &exact_values(&plant, &layout, &z),
-        NOISE_SEED,
-    ));
+    let input = period(vantle_values(&plant));
     let report = reconcile_period(&plant, &input);
     eprintln!(
         "vantle: status {:?}, {} iterations, objective {:.2}, redundancy {}",
@@ -115,10 +123,7 @@ fn vantle(c: &mut Criterion) {
         report.objective.unwrap_or(f64::NAN),
         report.redundancy
     );
-    let faulty = period(with_gross_error(
-        &plant,
-        noisy_values(&plant, &exact_values(&plant, &layout, &z), NOISE_SEED),
-    ));
+    let faulty = period(with_gross_error(&plant, vantle_values(&plant)));
     let faulty_report = reconcile_period(&plant, &faulty);
     eprintln!(
         "vantle/with_gross_error: status {:?}, objective {:.2}, faults {:?}",
@@ -237,11 +242,7 @@ fn networks(c: &mut Criterion) {
         .measurement_time(Duration::from_secs(8));
     for &size in &PERIOD_SIZES {
         let net = network(size, NETWORK_SEED);
-        let input = period(noisy_values(
-            &net.plant,
-            &exact_values(&net.plant, &net.layout, &net.z),
-            NOISE_SEED,
-        ));
+        let input = period(network_values(&net));
         let report = reconcile_period(&net.plant, &input);
         eprintln!(
             "period/{size}: status {:?}, {} iterations, redundancy {}, global test passed {:?}, {} faults",
@@ -267,11 +268,7 @@ fn networks(c: &mut Criterion) {
         let k = middle_flow_meter(&net.plant, 0);
         let input = period(with_network_gross_error(
             &net.plant,
-            noisy_values(
-                &net.plant,
-                &exact_values(&net.plant, &net.layout, &net.z),
-                NOISE_SEED,
-            ),
+            network_values(&net),
             k,
             GROSS_ERROR_NETWORK_SIGMAS,
         ));
@@ -304,9 +301,7 @@ fn networks(c: &mut Criterion) {
 fn probe() {
     // The Vantle period split into its parts, each the mean of 200 runs.
     let plant = parse_plant(VANTLE).expect("Vantle model is valid");
-    let layout = Layout::new(&plant);
-    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
-    let values = noisy_values(&plant, &exact_values(&plant, &layout, &z), NOISE_SEED);
+    let values = vantle_values(&plant);
     let m = measured(&plant, &values);
     let input = period(values);
     let runs = 200;
@@ -348,11 +343,7 @@ fn probe() {
         let t = Instant::now();
         let c = classify(&net.plant, &layout, &m, &s.z, &vec![false; layout.n]);
         let t_cls = t.elapsed();
-        let input = period(noisy_values(
-            &net.plant,
-            &exact_values(&net.plant, &net.layout, &net.z),
-            NOISE_SEED,
-        ));
+        let input = period(network_values(&net));
         let t = Instant::now();
         let report = reconcile_period(&net.plant, &input);
         let t_period = t.elapsed();
@@ -419,13 +410,7 @@ fn probe() {
 fn whatif(c: &mut Criterion) {
     use reconcile::whatif::{self, Economics, Request, Sweep};
     let plant = parse_plant(VANTLE).expect("Vantle model is valid");
-    let layout = Layout::new(&plant);
-    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
-    let input = period(noisy_values(
-        &plant,
-        &exact_values(&plant, &layout, &z),
-        NOISE_SEED,
-    ));
+    let input = period(vantle_values(&plant));
     let analysis = reconcile::analyse_period(&plant, &input);
     let point = Request {
         set: vec![("split:purge".into(), 0.06)],
@@ -476,19 +461,9 @@ fn whatif(c: &mut Criterion) {
 /// The period cases with a deadline far off, each beside the same case without one.
 fn deadline(c: &mut Criterion) {
     let plant = parse_plant(VANTLE).expect("Vantle model is valid");
-    let layout = Layout::new(&plant);
-    let z = vantle_true_state(&plant, &layout, &VantleConditions::default());
-    let vantle = period(noisy_values(
-        &plant,
-        &exact_values(&plant, &layout, &z),
-        NOISE_SEED,
-    ));
+    let vantle = period(vantle_values(&plant));
     let net = network(500, NETWORK_SEED);
-    let large = period(noisy_values(
-        &net.plant,
-        &exact_values(&net.plant, &net.layout, &net.z),
-        NOISE_SEED,
-    ));
+    let large = period(network_values(&net));
     let far = || Cancel::after(Duration::from_secs(3600));
     let mut group = c.benchmark_group("deadline");
     group.bench_function("vantle_without", |b| {

@@ -13,11 +13,10 @@ use std::time::Instant;
 
 use loopbal_server::demo::scenario::{self, PLANT_NAME};
 use serde_json::{json, Value};
-use support::{
-    client, json_ok, post_readings, purge_design_csv, put_model, token, wait_for_periods, Server,
-    BIN, LOOPBAL, OMBRASK_TAGS,
-};
+use support::{client, json_ok, token, Server, BIN, LOOPBAL};
 use testkit::webdriver::Browser;
+
+mod other_plants;
 
 /// A database the demo filled (two days, reconciled), served; its folder and tokens.
 struct Served {
@@ -230,16 +229,12 @@ async fn markup_in_a_note_is_shown_as_text_and_the_read_role_gets_no_note_form()
     b.screenshot(&shot("meter-read.png")).await;
 
     // The normalised adjustment's critical lines are the latest period's measurement test.
-    let api = |path: String| {
-        let req = c.get(s.server.url(&path)).bearer_auth(&s.read);
-        async move { json_ok(req.send().await.unwrap()).await }
-    };
-    let meter: Value = api(format!("/api/v1/plants/{PLANT_NAME}/meters/{tag}")).await;
+    let meter = read_json(&s, &format!("/api/v1/plants/{PLANT_NAME}/meters/{tag}")).await;
     let last = meter["history"].as_array().unwrap().last().unwrap()["period_start"]
         .as_str()
         .unwrap()
         .to_string();
-    let run: Value = api(format!("/api/v1/plants/{PLANT_NAME}/periods/{last}")).await;
+    let run = read_json(&s, &format!("/api/v1/plants/{PLANT_NAME}/periods/{last}")).await;
     let tests = run["report"]["measurement_test"]["tests"].as_u64().unwrap();
     let drawn = b
         .run(
@@ -262,17 +257,7 @@ async fn markup_in_a_note_is_shown_as_text_and_the_read_role_gets_no_note_form()
     open(&b2, &s.server, &format!("/plant/{PLANT_NAME}/meters/{tag}")).await;
     b2.wait_for("#note-text", 10).await;
     post_note(&b2, "zero checked against the portable standard", "#notes").await;
-    let detail: Value = json_ok(
-        c.get(
-            s.server
-                .url(&format!("/api/v1/plants/{PLANT_NAME}/meters/{tag}")),
-        )
-        .bearer_auth(&s.read)
-        .send()
-        .await
-        .unwrap(),
-    )
-    .await;
+    let detail = read_json(&s, &format!("/api/v1/plants/{PLANT_NAME}/meters/{tag}")).await;
     let stored = detail["notes"].as_array().unwrap();
     assert!(stored
         .iter()
@@ -379,6 +364,18 @@ async fn the_monthly_report_prints_without_the_controls_and_with_the_caution() {
     std::fs::write(shot("report.pdf"), &pdf).expect("write the PDF");
 }
 
+/// `GET path` (with its query) on the served database with the read token: the answer, which
+/// must be a success.
+async fn read_json(s: &Served, path: &str) -> Value {
+    let r = client()
+        .get(s.server.url(path))
+        .bearer_auth(&s.read)
+        .send()
+        .await
+        .unwrap();
+    json_ok(r).await
+}
+
 /// The text of the page's main view.
 async fn main_text(b: &Browser) -> String {
     let v = b
@@ -441,18 +438,7 @@ async fn each_role_is_shown_what_it_may_do_and_maintain_writes_a_note() {
     assert!(text.contains("history is not shown"), "{text}");
     post_note(&b, "transmitter zero trimmed by the maintain role", "main").await;
     b.screenshot(&shot("role-maintain.png")).await;
-    let detail: Value = json_ok(
-        client()
-            .get(
-                s.server
-                    .url(&format!("/api/v1/plants/{PLANT_NAME}/meters/{tag}")),
-            )
-            .bearer_auth(&s.read)
-            .send()
-            .await
-            .unwrap(),
-    )
-    .await;
+    let detail = read_json(&s, &format!("/api/v1/plants/{PLANT_NAME}/meters/{tag}")).await;
     assert!(
         detail["notes"]
             .as_array()
@@ -589,126 +575,6 @@ async fn what_if_table(b: &Browser) -> String {
         )
         .await;
     t.as_str().unwrap_or_default().to_string()
-}
-
-/// Another plant than the demo's: its model put, and its readings of the twelve hours from
-/// 2026-06-01T00:00Z posted and run.
-async fn plant_with_readings(
-    s: &Server,
-    admin: &str,
-    ingest: &str,
-    read: &str,
-    name: &str,
-    model: &str,
-    csv: &str,
-) {
-    let c = client();
-    let r = put_model(&c, s, admin, name, model, "application/toml").await;
-    assert!(r.status().is_success(), "{}", r.text().await.unwrap());
-    let r = post_readings(&c, s, ingest, name, csv, "text/csv").await;
-    assert!(r.status().is_success(), "{}", r.text().await.unwrap());
-    let (from, to) = ("2026-06-01T00:00:00Z", "2026-06-01T12:00:00Z");
-    wait_for_periods(&c, s, read, name, from, to, |ps| {
-        ps.len() == 12 && ps.iter().all(|p| p["runs"] == 1 && p["rerun_due"] == false)
-    })
-    .await;
-}
-
-#[tokio::test]
-#[ignore = "needs chromium and chromium-driver (run by .ci/run)"]
-async fn every_page_works_on_the_other_test_plants() {
-    let dir = tempfile::tempdir().expect("temp dir");
-    let db = dir.path().join("plants.sqlite");
-    let admin = token(&db, "admin", None);
-    let ingest = token(&db, "ingest", None);
-    let read = token(&db, "read", None);
-    let server = LOOPBAL.serve(&db, &[]);
-
-    let (purge_model, purge_csv) = purge_design_csv(12, &|_, _| false);
-    plant_with_readings(
-        &server,
-        &admin,
-        &ingest,
-        &read,
-        "purge-design",
-        &purge_model,
-        &purge_csv,
-    )
-    .await;
-    let mut ombrask_csv = String::from("tag,time,value,quality\n");
-    for hour in 0..12 {
-        for (tag, value) in OMBRASK_TAGS {
-            // A little scatter from hour to hour, so that no two periods are alike.
-            let v = value * (1.0 + 0.002 * ((hour * 7 + tag.len()) % 5) as f64);
-            ombrask_csv += &format!("{tag},2026-06-01T{hour:02}:30:00Z,{v},good\n");
-        }
-    }
-    plant_with_readings(
-        &server,
-        &admin,
-        &ingest,
-        &read,
-        "ombrask-ob2",
-        testkit::plants::OMBRASK,
-        &ombrask_csv,
-    )
-    .await;
-
-    let b = Browser::start(1280, 800).await;
-    sign_in(&b, &server, &read).await;
-    open(&b, &server, "/plants").await;
-    assert_eq!(b.find_all("[data-plant]").await.len(), 2);
-    for (name, model) in [
-        ("purge-design", purge_model.as_str()),
-        ("ombrask-ob2", testkit::plants::OMBRASK),
-    ] {
-        let plant = reconcile::parse_plant(model).expect("the test plant parses");
-        open(&b, &server, &format!("/plant/{name}/loop")).await;
-        assert_eq!(
-            b.find_all("svg#flowsheet [data-unit]").await.len(),
-            plant.units.len(),
-            "{name}"
-        );
-        assert_eq!(
-            b.find_all("svg#flowsheet [data-stream]").await.len(),
-            plant.streams.len(),
-            "{name}"
-        );
-        assert_eq!(
-            b.find_all("svg#flowsheet [data-meter]").await.len(),
-            plant.spec.meters.len(),
-            "{name}"
-        );
-        no_alerts(&b, name).await;
-        b.screenshot(&shot(&format!("{name}-loop.png"))).await;
-        for page in [
-            "balances",
-            "figures",
-            "meters",
-            "what-if",
-            "report?month=2026-06",
-        ] {
-            open(&b, &server, &format!("/plant/{name}/{page}")).await;
-            no_alerts(&b, &format!("{name} {page}")).await;
-            let text = main_text(&b).await;
-            assert!(text.len() > 100, "{name} {page}: {text}");
-            b.screenshot(&shot(&format!(
-                "{name}-{}.png",
-                page.split('?').next().unwrap()
-            )))
-            .await;
-        }
-        let meters = reconcile::parse_plant(model).unwrap().spec.meters;
-        open(
-            &b,
-            &server,
-            &format!("/plant/{name}/meters/{}", meters[0].tag),
-        )
-        .await;
-        no_alerts(&b, &format!("{name} meter")).await;
-        b.wait_for("#notes", 10).await;
-    }
-    assert_eq!(csp_violations(&b).await, "");
 }
 
 /// Type `text` into the open meter page's note form, submit it, and wait until the element

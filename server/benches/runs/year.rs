@@ -219,7 +219,8 @@ pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
         format!("{base}/meters"),
     ];
     let figures = format!("{base}/figures?from={from}&to={to}&name=purge_fraction&points=800");
-    // What the figures page asks for first: every figure of the range, thinned.
+    // Every figure of the range at once, thinned, as an API client may ask for it (the
+    // figures page asks for one figure at a time).
     let all_figures = format!("{base}/figures?from={from}&to={to}&points=800");
     let client = reqwest::Client::builder()
         .pool_max_idle_per_host(1)

@@ -147,15 +147,18 @@ pub fn series(
         }
     }
 
-    // cells[series][period]: the figure's value and σ in that period, if it has the figure.
-    let index: HashMap<&FigureKey, usize> = keys.iter().enumerate().map(|(i, k)| (k, i)).collect();
+    // The series asked for, and cells[series][period]: the figure's value and σ in that
+    // period, if it has the figure.
+    let shown: Vec<&FigureKey> = keys.iter().filter(|k| wanted(k)).collect();
+    let index: HashMap<&FigureKey, usize> =
+        shown.iter().enumerate().map(|(i, &k)| (k, i)).collect();
     let position: HashMap<DateTime<Utc>, usize> = range
         .starts
         .iter()
         .enumerate()
         .map(|(i, s)| (*s, i))
         .collect();
-    let mut cells = vec![vec![None; range.starts.len()]; keys.len()];
+    let mut cells = vec![vec![None; range.starts.len()]; shown.len()];
     for c in &stored.cells {
         if let (Some(&p), Some(&k)) = (position.get(&c.period_start), index.get(&c.key)) {
             // A σ without its value would be no use to anyone.
@@ -168,10 +171,9 @@ pub fn series(
             statuses[p] = (o.status.as_str(), o.global_test_passed);
         }
     }
-    let series: Vec<FigureSeries> = keys
+    let series: Vec<FigureSeries> = shown
         .iter()
         .zip(&cells)
-        .filter(|(key, _)| wanted(key))
         .map(|(key, row)| FigureSeries {
             name: key.name.clone(),
             subject: key.subject.clone(),

@@ -1,6 +1,8 @@
 //! Periods and their runs: the listing of a range with each period's status, and the current
 //! run of one period with its report.
 
+use std::collections::{HashMap, HashSet};
+
 use chrono::{DateTime, TimeDelta, Utc};
 use serde::Serialize;
 use utoipa::ToSchema;
@@ -88,12 +90,16 @@ pub async fn listing(
         .store
         .run_failures(plant, range.first(), range.to)
         .await?;
+    // By period start: a range may hold thousands of periods.
+    let runs: HashMap<_, _> = runs.iter().map(|r| (r.period_start, r)).collect();
+    let dirty: HashSet<_> = dirty.iter().map(|(s, _)| *s).collect();
+    let failures: HashMap<_, _> = failures.iter().map(|f| (f.period_start, f)).collect();
     let mut periods = Vec::new();
     for &start in &range.starts {
         let end = start + TimeDelta::seconds(secs);
-        let run = runs.iter().find(|r| r.period_start == start);
-        let due = dirty.iter().any(|(s, _)| *s == start);
-        let failure = failures.iter().find(|f| f.period_start == start);
+        let run = runs.get(&start).copied();
+        let due = dirty.contains(&start);
+        let failure = failures.get(&start).copied();
         // Recording a run deletes the period's failure, so a failure with a newer current run
         // is one whose instant was read off a clock behind the run's: the run counts.
         let failed = failure.is_some_and(|f| run.is_none_or(|r| r.created_at < f.failed_at));

@@ -85,9 +85,11 @@ impl NewRun {
     ) -> Result<(Vec<reconcile::report::Figure>, Option<bool>)> {
         let figures = match self.report.get("figures") {
             None | Some(serde_json::Value::Null) => Vec::new(),
-            Some(list) => serde_json::from_value(list.clone()).map_err(|e| {
-                StoreError::Corrupt(format!("a report's figures do not read back: {e}"))
-            })?,
+            // Read in place, not from a copy of the list.
+            Some(list) => <Vec<reconcile::report::Figure> as serde::Deserialize>::deserialize(list)
+                .map_err(|e| {
+                    StoreError::Corrupt(format!("a report's figures do not read back: {e}"))
+                })?,
         };
         let passed = self
             .report

@@ -8,6 +8,7 @@
 use std::collections::{BTreeSet, HashMap};
 use std::sync::OnceLock;
 
+use reconcile::period::period_start;
 use sqlx::{Row, Sqlite, Transaction};
 
 use super::super::readings::{runs, Batch};
@@ -109,12 +110,6 @@ fn latest_sql(tags: usize) -> String {
 
 /// Tags per statement of [`latest_sql`].
 const TAGS_PER_STATEMENT: usize = 500;
-
-/// The period start of `time` (ms), the Euclidean floor to a multiple of `period` as in
-/// reconcile::period::period_start.
-fn period_of(time: i64, period: i64) -> i64 {
-    time - time.rem_euclid(period)
-}
 
 /// Whether every reading of `run` is later than the latest instant `latest` holds for its tag
 /// (stored, or written by an earlier run of the batch): then each one is new.
@@ -231,9 +226,11 @@ impl SqliteStore {
             // the full-size statements out of sqlx's statement cache.
             let upsert_text = (!is_full).then(|| upsert_sql(run.len()));
             let (new, changed) = if all_later(run, &latest) {
+                // The engine's own floor (the probe's SQL computes the same in ms).
+                let seconds = batch.period_ms / 1000;
                 dirty.extend(
                     run.iter()
-                        .map(|r| period_of(Millis::from(r.time).0, batch.period_ms)),
+                        .map(|r| Millis::from(period_start(r.time, seconds)).0),
                 );
                 (run.len(), 0)
             } else {

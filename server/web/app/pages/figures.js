@@ -43,22 +43,23 @@ export async function render(ctx, view) {
     clear(status);
     clear(out);
     const width = Math.max(300, Math.min(1600, Math.round((view.clientWidth || document.getElementById('main').clientWidth || 960))));
+    // The range thinned to the chart's width: one figure, or (`name` empty) every figure.
+    const over = (name) => api(`${P}/figures${qs({ from: iso(from), to: iso(to), name, points: width })}`);
+    // The figure to show when none is chosen, or the chosen one is not in the range: the purge
+    // fraction if the range's last period has it, else that period's first figure.
+    const fallback = async () => {
+      const last = await api(`${P}/figures${qs({ from: iso(Math.max(from, to - pms)), to: iso(to) })}`);
+      const names0 = last.names || [];
+      return names0.includes('purge_fraction') ? 'purge_fraction' : names0[0];
+    };
     try {
-      let want = nameSel.value || q.name;
-      if (!want) {
-        const lastOne = await api(`${P}/figures${qs({ from: iso(Math.max(from, to - pms)), to: iso(to) })}`);
-        const names0 = lastOne.names || [];
-        want = names0.includes('purge_fraction') ? 'purge_fraction' : names0[0];
-      }
-      data = want ? await api(`${P}/figures${qs({ from: iso(from), to: iso(to), name: want, points: width })}`)
-        .catch(async (err) => {
-          // A figure the range does not have (a stale address): start from the range's first.
-          if (err.status !== 404) throw err;
-          const all = await api(`${P}/figures${qs({ from: iso(Math.max(from, to - pms)), to: iso(to) })}`);
-          want = (all.names || [])[0];
-          return want ? api(`${P}/figures${qs({ from: iso(from), to: iso(to), name: want, points: width })}`) : all;
-        })
-        : await api(`${P}/figures${qs({ from: iso(from), to: iso(to), points: width })}`);
+      let want = nameSel.value || q.name || await fallback();
+      data = await over(want).catch(async (err) => {
+        // A figure the range does not have (a stale address): the fallback's instead.
+        if (!want || err.status !== 404) throw err;
+        want = await fallback();
+        return over(want);
+      });
       const names = data.names || [...new Set((data.series || []).map((x) => x.name))];
       clear(nameSel);
       for (const n of names) nameSel.append(h('option', { value: n, text: n.replace(/_/g, ' '), selected: n === want }));
