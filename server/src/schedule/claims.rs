@@ -7,7 +7,7 @@ use std::time::Duration;
 
 use chrono::{DateTime, Utc};
 
-use super::record::{record_period, RunError, RunOutcome};
+use super::record::{record_batch, record_period, RunError, RunOutcome};
 use crate::revisions::Models;
 use crate::run_limit;
 use crate::service::Service;
@@ -79,6 +79,58 @@ pub(super) async fn run_claimed(
         Err(e) => give_up(service, plant, claim, e).await,
     }
     outcome
+}
+
+/// Run a batch of claimed periods of one plant (oldest first, see
+/// [`super::record::record_batch`]), renewing every claim of the batch every third of its
+/// lease until the batch is recorded; the claim of each period that failed is given up, so the
+/// period stays dirty and runs again (after its backoff when it was abandoned at its time
+/// limit). A store error gives every claim of the batch up and is returned; otherwise each
+/// period's outcome.
+pub(super) async fn run_claimed_batch(
+    service: &Service,
+    plant: &PlantRow,
+    models: &Models,
+    claims: &[Claim],
+    lease: Duration,
+) -> Result<Vec<(DateTime<Utc>, Result<RunOutcome, RunError>)>, RunError> {
+    let run = record_batch(service, plant, models, claims);
+    tokio::pin!(run);
+    let mut beat = tokio::time::interval((lease / 3).max(Duration::from_millis(1)));
+    beat.tick().await; // the first tick is immediate: the claims are fresh
+    let outcomes = loop {
+        tokio::select! {
+            outcomes = &mut run => break outcomes,
+            _ = beat.tick() => for claim in claims {
+                match service.store.renew_claim(plant, claim, lease).await {
+                    Ok(true) => {}
+                    Ok(false) => tracing::warn!(plant = %plant.name, period = %claim.period_start,
+                        "the claim on this period lapsed during its run; its result will be refused"),
+                    Err(e) => tracing::warn!(plant = %plant.name, period = %claim.period_start,
+                        error = %e, "could not renew the claim on this period"),
+                }
+            },
+        }
+    };
+    let outcomes = match outcomes {
+        Ok(outcomes) => outcomes,
+        Err(e) => {
+            // Nothing of the batch was recorded: every period runs again.
+            for claim in claims {
+                give_up(service, plant, claim, &e).await;
+            }
+            return Err(e);
+        }
+    };
+    let mut each = Vec::with_capacity(claims.len());
+    for (claim, outcome) in claims.iter().zip(outcomes) {
+        match &outcome {
+            Ok(_) | Err(RunError::Store(StoreError::ClaimLost(_))) => {}
+            Err(e) => give_up(service, plant, claim, e).await,
+        }
+        each.push((claim.period_start, outcome));
+    }
+    Ok(each)
 }
 
 /// Give up the claim of a failed run: with its failure recorded when the run was abandoned,

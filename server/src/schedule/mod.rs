@@ -25,7 +25,7 @@ pub use crate::period_run::{MeterInput, RunInputs, UNSTEADY_SPREAD_SIGMAS};
 pub use claims::run_period;
 pub use record::{RunError, RunOutcome};
 
-use claims::run_claimed;
+use claims::run_claimed_batch;
 
 /// When the worker runs periods.
 #[derive(Debug, Clone, Copy)]
@@ -53,18 +53,33 @@ pub fn default_workers() -> usize {
     std::thread::available_parallelism().map_or(1, |n| n.get())
 }
 
-/// A plant with dirty periods in this pass: its models and the latest period start that is
-/// closed.
+/// A batch holds as many periods as make about this many states in all: on a loop of a few
+/// dozen states a batch is the longest, for a network of thousands a single period (whose run
+/// alone outweighs the store's round trips).
+pub const BATCH_STATES: usize = 4096;
+/// The most periods in one batch: a batch's runs are recorded together, so this bounds how
+/// long the first of them waits to be seen.
+pub const MAX_BATCH: usize = 48;
+
+/// Periods of `model` run as one batch (see [`BATCH_STATES`]).
+pub fn batch_size(model: &reconcile::Plant) -> usize {
+    (BATCH_STATES / crate::run_limit::states(model).max(1)).clamp(1, MAX_BATCH)
+}
+
+/// A plant with dirty periods in this pass: its models, the latest period start that is
+/// closed, and how many periods a worker runs at once.
 struct Plan {
     plant: PlantRow,
     models: Arc<Models>,
     starts_up_to: DateTime<Utc>,
+    batch: usize,
 }
 
 /// Claim and run every closed dirty period of every plant that no other instance holds, oldest
-/// first per plant, the plants taking turns, up to `schedule.workers` at a time; returns how
-/// many ran. A period is claimed only when a worker is free to run it, so no claim waits in a
-/// queue while its lease runs down.
+/// first per plant, the plants taking turns, up to `schedule.workers` batches at a time (see
+/// [`batch_size`]; each batch's runs are recorded in one transaction); returns how many ran.
+/// Periods are claimed only when a worker is free to run them, so no claim waits in a queue
+/// while its lease runs down.
 pub async fn run_due(service: &Service, schedule: &Schedule) -> Result<usize, RunError> {
     let mut plans = plans(service, schedule, Utc::now()).await?;
     let workers = schedule.workers.max(1);
@@ -75,7 +90,8 @@ pub async fn run_due(service: &Service, schedule: &Schedule) -> Result<usize, Ru
     loop {
         while running.len() < workers && failure.is_none() {
             let Some(plan) = plans.front() else { break };
-            let wanted = workers - running.len();
+            let free = workers - running.len();
+            let wanted = free * plan.batch;
             let claims = match service
                 .store
                 .claim_due(
@@ -93,38 +109,53 @@ pub async fn run_due(service: &Service, schedule: &Schedule) -> Result<usize, Ru
                     break;
                 }
             };
-            if claims.len() < wanted {
+            let exhausted = claims.len() < wanted;
+            spawn_batches(&mut running, service, plan, claims, free, claimant.lease);
+            if exhausted {
                 // Nothing more of this plant is free this pass.
-                let plan = plans.pop_front().expect("a plan");
-                spawn_runs(&mut running, service, &plan, claims, claimant.lease);
+                plans.pop_front();
             } else {
-                spawn_runs(&mut running, service, plan, claims, claimant.lease);
                 plans.rotate_left(1);
             }
         }
         let Some(joined) = running.join_next().await else {
             break;
         };
-        match joined.map_err(|e| RunError::Task(e.to_string())) {
-            Ok((_, _, Ok(_))) => ran += 1,
-            Ok((plant, start, Err(RunError::Store(StoreError::ClaimLost(_))))) => {
-                tracing::warn!(plant = %plant, period = %start,
-                    "period run outlived its claim; another instance ran the period, this result was dropped");
-            }
-            Ok((_, _, Err(RunError::Store(e)))) => {
+        let (plant, outcomes) = match joined.map_err(|e| RunError::Task(e.to_string())) {
+            Ok((plant, Ok(outcomes))) => (plant, outcomes),
+            Ok((_, Err(RunError::Store(e)))) => {
                 failure.get_or_insert(e.into());
+                continue;
             }
-            Ok((plant, start, Err(e @ RunError::TimedOut { .. }))) => {
-                // Its failure is recorded and its claim given up (claims::run_claimed): the
-                // period is retried after its backoff, and this pass goes on with the others.
-                tracing::warn!(plant = %plant, period = %start, error = %e,
-                    "period run abandoned at its time limit; retried after a backoff");
-            }
-            Ok((plant, start, Err(e))) => {
-                tracing::error!(plant = %plant, period = %start, error = %e, "period run failed");
+            Ok((plant, Err(e))) => {
+                tracing::error!(plant = %plant, error = %e, "a batch of period runs failed");
+                continue;
             }
             Err(e) => {
                 failure.get_or_insert(e);
+                continue;
+            }
+        };
+        for (start, outcome) in outcomes {
+            match outcome {
+                Ok(_) => ran += 1,
+                Err(RunError::Store(StoreError::ClaimLost(_))) => {
+                    tracing::warn!(plant = %plant, period = %start,
+                        "period run outlived its claim; another instance ran the period, this result was dropped");
+                }
+                Err(RunError::Store(e)) => {
+                    failure.get_or_insert(e.into());
+                }
+                Err(e @ RunError::TimedOut { .. }) => {
+                    // Its failure is recorded and its claim given up (claims::run_claimed_batch):
+                    // the period is retried after its backoff, and this pass goes on with the
+                    // others.
+                    tracing::warn!(plant = %plant, period = %start, error = %e,
+                        "period run abandoned at its time limit; retried after a backoff");
+                }
+                Err(e) => {
+                    tracing::error!(plant = %plant, period = %start, error = %e, "period run failed");
+                }
             }
         }
     }
@@ -161,32 +192,45 @@ async fn plans(
             continue;
         };
         let starts_up_to = now - TimeDelta::seconds(current.period_seconds) - grace;
+        let batch = batch_size(&current);
         plans.push_back(Plan {
             plant,
             models: Arc::new(models),
             starts_up_to,
+            batch,
         });
     }
     Ok(plans)
 }
 
-type Joined = (String, DateTime<Utc>, Result<RunOutcome, RunError>);
+type Joined = (
+    String,
+    Result<Vec<(DateTime<Utc>, Result<RunOutcome, RunError>)>, RunError>,
+);
 
-fn spawn_runs(
+/// Run `claims` (oldest first) as up to `free` batches of consecutive periods, as even as they
+/// divide.
+fn spawn_batches(
     running: &mut tokio::task::JoinSet<Joined>,
     service: &Service,
     plan: &Plan,
     claims: Vec<Claim>,
+    free: usize,
     lease: Duration,
 ) {
-    for claim in claims {
+    if claims.is_empty() {
+        return;
+    }
+    let size = claims.len().div_ceil(free.max(1));
+    let mut claims = claims.into_iter().peekable();
+    while claims.peek().is_some() {
+        let batch: Vec<Claim> = claims.by_ref().take(size).collect();
         let service = service.clone();
         let plant = plan.plant.clone();
         let models = Arc::clone(&plan.models);
         running.spawn(async move {
-            let start = claim.period_start;
-            let outcome = run_claimed(&service, &plant, &models, &claim, lease).await;
-            (plant.name, start, outcome)
+            let outcome = run_claimed_batch(&service, &plant, &models, &batch, lease).await;
+            (plant.name, outcome)
         });
     }
 }

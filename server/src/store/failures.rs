@@ -9,7 +9,7 @@ use chrono::{DateTime, TimeDelta, Utc};
 
 use super::claims::RELEASE;
 use super::rows::{self, Claim, PlantRow, RunFailure};
-use super::values::Millis;
+use super::values::{param_list, Millis};
 use super::{Result, Store, Tx};
 
 impl Store {
@@ -102,15 +102,21 @@ impl Store {
     }
 }
 
-/// Forget the period's failures (inside the transaction recording a run of it): the engine
-/// finished it.
-pub(super) async fn clear(tx: &mut Tx, plant: &PlantRow, start: DateTime<Utc>) -> Result<()> {
-    const CLEAR: &str = "DELETE FROM run_failures WHERE plant_id = $1 AND period_start = $2";
-    in_tx!(tx, t => sqlx::query(CLEAR)
-        .bind(plant.id)
-        .bind(Millis::from(start))
-        .execute(&mut **t)
-        .await
-        .map(drop)?);
+/// Forget the failures of the periods `starts` (inside the transaction recording runs of
+/// them): the engine finished them.
+pub(super) async fn clear(tx: &mut Tx, plant: &PlantRow, starts: &[Millis]) -> Result<()> {
+    for chunk in starts.chunks(500) {
+        let sql = format!(
+            "DELETE FROM run_failures WHERE plant_id = $1 AND period_start IN ({})",
+            param_list(2, chunk.len())
+        );
+        in_tx!(tx, t => {
+            let mut query = sqlx::query(&sql).bind(plant.id);
+            for start in chunk {
+                query = query.bind(*start);
+            }
+            query.execute(&mut **t).await.map(drop)?
+        });
+    }
     Ok(())
 }

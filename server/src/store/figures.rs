@@ -6,61 +6,57 @@ use chrono::{DateTime, Utc};
 use reconcile::report::Figure;
 
 use super::rows::{self, FigureCell, FigureKey, PeriodOutcome, PlantRow};
-use super::values::Millis;
+use super::values::{param_list, value_rows, Millis};
 use super::{Result, Store, Tx};
 
 /// Rows of one multi-row insert: 9 parameters each, well within both backends' limits.
-const ROWS_PER_INSERT: usize = 500;
+const ROWS_PER_INSERT: usize = 100;
 
-/// Replace the figures of the period `period_start` with those of run `run_id` (inside the
-/// run's transaction).
+/// Replace the figures of each run's period with the run's (its period start, its id, its
+/// figures; inside the runs' transaction): one delete for all the periods, and the rows in
+/// multi-row inserts.
 pub(super) async fn write(
     tx: &mut Tx,
     plant: &PlantRow,
-    period_start: DateTime<Utc>,
-    run_id: i64,
-    figures: &[Figure],
+    runs: &[(Millis, i64, &[Figure])],
 ) -> Result<()> {
-    const DELETE: &str = "DELETE FROM period_figures WHERE plant_id = $1 AND period_start = $2";
-    let start = Millis::from(period_start);
-    in_tx!(tx, t => sqlx::query(DELETE)
-        .bind(plant.id)
-        .bind(start)
-        .execute(&mut **t)
-        .await
-        .map(drop)?);
-    for (chunk_no, chunk) in figures.chunks(ROWS_PER_INSERT).enumerate() {
-        let values = (0..chunk.len())
-            .map(|i| {
-                let p = 9 * i;
-                format!(
-                    "(${}, ${}, ${}, ${}, ${}, ${}, ${}, ${}, ${})",
-                    p + 1,
-                    p + 2,
-                    p + 3,
-                    p + 4,
-                    p + 5,
-                    p + 6,
-                    p + 7,
-                    p + 8,
-                    p + 9
-                )
-            })
-            .collect::<Vec<_>>()
-            .join(", ");
+    for chunk in runs.chunks(ROWS_PER_INSERT) {
+        let sql = format!(
+            "DELETE FROM period_figures WHERE plant_id = $1 AND period_start IN ({})",
+            param_list(2, chunk.len())
+        );
+        in_tx!(tx, t => {
+            let mut query = sqlx::query(&sql).bind(plant.id);
+            for (start, _, _) in chunk {
+                query = query.bind(*start);
+            }
+            query.execute(&mut **t).await.map(drop)?
+        });
+    }
+    let rows: Vec<(Millis, i64, i64, &Figure)> = runs
+        .iter()
+        .flat_map(|(start, run_id, figures)| {
+            figures
+                .iter()
+                .enumerate()
+                .map(move |(seq, f)| (*start, seq as i64, *run_id, f))
+        })
+        .collect();
+    for chunk in rows.chunks(ROWS_PER_INSERT) {
         let sql = format!(
             "INSERT INTO period_figures
                  (plant_id, period_start, seq, run_id, name, subject, uom, value, sigma)
-             VALUES {values}"
+             VALUES {}",
+            value_rows(1, chunk.len(), 9)
         );
         in_tx!(tx, t => {
             let mut query = sqlx::query(&sql);
-            for (i, f) in chunk.iter().enumerate() {
+            for (start, seq, run_id, f) in chunk {
                 query = query
                     .bind(plant.id)
-                    .bind(start)
-                    .bind((chunk_no * ROWS_PER_INSERT + i) as i64)
-                    .bind(run_id)
+                    .bind(*start)
+                    .bind(*seq)
+                    .bind(*run_id)
                     .bind(&f.name)
                     .bind(&f.subject)
                     .bind(&f.uom)

@@ -60,8 +60,8 @@ pub use pg::PgStore;
 pub use readings::{outside, OutOfRange};
 pub use rows::{
     Claim, FigureCell, FigureKey, Grant, IngestCounts, MeterNote, MeterRow, ModelRevision, NewRun,
-    NewToken, NoteDraft, NoteKind, NoteOutcome, PeriodOutcome, PlantRow, Role, RunFailure, RunRow,
-    RunSummary, Settled, StoredReading,
+    NewToken, NoteDraft, NoteKind, NoteOutcome, PeriodOutcome, PlantRow, PreparedRun, Role,
+    RunFailure, RunRow, RunSummary, Settled, StoredReading,
 };
 pub use sqlite::SqliteStore;
 

@@ -8,7 +8,7 @@ use chrono::{DateTime, Utc};
 use reconcile::{ModelSpec, Quality, Reading, ReportStatus};
 use sqlx::types::Json;
 
-use super::values::StoreRow;
+use super::values::{JsonText, StoreRow};
 use super::{Result, StoreError};
 use crate::health::MeterPeriod;
 
@@ -77,12 +77,10 @@ pub struct NewRun {
 }
 
 impl NewRun {
-    /// The report's loop figures and whether it passed the global test (none without a test),
-    /// as the store keeps them in columns beside the report. A report without figures (no
-    /// data) has none.
-    pub(super) fn figures_and_test(
-        &self,
-    ) -> Result<(Vec<reconcile::report::Figure>, Option<bool>)> {
+    /// The run as the store writes it: report and inputs as JSON text, and the report's loop
+    /// figures and whether it passed the global test (none without a test), which the store
+    /// keeps in columns beside the report. A report without figures (no data) has none.
+    pub fn prepare(&self) -> Result<PreparedRun> {
         let figures = match self.report.get("figures") {
             None | Some(serde_json::Value::Null) => Vec::new(),
             // Read in place, not from a copy of the list.
@@ -91,12 +89,64 @@ impl NewRun {
                     StoreError::Corrupt(format!("a report's figures do not read back: {e}"))
                 })?,
         };
-        let passed = self
+        let global_test_passed = self
             .report
             .get("global_test")
             .and_then(|t| t.get("passed"))
             .and_then(serde_json::Value::as_bool);
-        Ok((figures, passed))
+        Ok(PreparedRun {
+            period_start: self.period_start,
+            revision: self.revision,
+            engine_version: self.engine_version.clone(),
+            status: self.status,
+            report: JsonText::of(&self.report)?,
+            inputs: JsonText::of(&self.inputs)?,
+            figures,
+            global_test_passed,
+            meters: self.meters.clone(),
+        })
+    }
+}
+
+/// A run ready to write: everything the store writes, already serialised, so that the
+/// transaction recording it holds the database only for its statements. Made with
+/// [`PreparedRun::from_report`] or [`NewRun::prepare`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct PreparedRun {
+    pub(super) period_start: DateTime<Utc>,
+    pub(super) revision: i64,
+    pub(super) engine_version: String,
+    pub(super) status: ReportStatus,
+    pub(super) report: JsonText,
+    pub(super) inputs: JsonText,
+    /// The report's loop figures, kept in columns beside it.
+    pub(super) figures: Vec<reconcile::report::Figure>,
+    /// Whether the report passed its global test; none without a test.
+    pub(super) global_test_passed: Option<bool>,
+    pub(super) meters: Vec<(String, MeterPeriod)>,
+}
+
+impl PreparedRun {
+    /// The run of a period from the engine's typed report and the inputs it ran on, serialised
+    /// once (no intermediate JSON tree).
+    pub fn from_report<I: serde::Serialize>(
+        period_start: DateTime<Utc>,
+        revision: i64,
+        report: &reconcile::Report,
+        inputs: &I,
+        meters: Vec<(String, MeterPeriod)>,
+    ) -> Result<PreparedRun> {
+        Ok(PreparedRun {
+            period_start,
+            revision,
+            engine_version: reconcile::ENGINE_VERSION.to_string(),
+            status: report.status,
+            report: JsonText::of(report)?,
+            inputs: JsonText::of(inputs)?,
+            figures: report.figures.clone(),
+            global_test_passed: report.global_test.as_ref().map(|t| t.passed),
+            meters,
+        })
     }
 }
 

@@ -1,10 +1,13 @@
 //! Runs of the engine on a period: every run is kept, one per period is current.
 
+use std::collections::HashMap;
+
 use chrono::{DateTime, Utc};
 
-use super::rows::{self, Claim, NewRun, PlantRow, RunRow, RunSummary, Settled};
-use super::values::{JsonText, Millis};
+use super::rows::{self, Claim, NewRun, PlantRow, PreparedRun, RunRow, RunSummary, Settled};
+use super::values::{param_list, Millis};
 use super::{claims, failures, figures, pg, sqlite, Result, Store, Tx};
+use crate::health::MeterPeriod;
 
 /// The columns `rows::run` reads.
 const COLUMNS: &str = "id, period_start, revision, engine_version, status, report_json, \
@@ -24,7 +27,9 @@ impl Store {
     /// Record a run made without a claim (an administrator's re-run) as its period's current
     /// run; the earlier ones stay as history. Returns the run's id.
     pub async fn record_run(&self, plant: &PlantRow, run: &NewRun) -> Result<i64> {
-        self.record(plant, run, None).await.map(|(id, _)| id)
+        self.record(plant, &run.prepare()?, None)
+            .await
+            .map(|(id, _)| id)
     }
 
     /// Record the run of a claimed period as its current run and settle the claim, in one
@@ -36,71 +41,154 @@ impl Store {
         run: &NewRun,
         claim: &Claim,
     ) -> Result<(i64, Settled)> {
-        let (id, settled) = self.record(plant, run, Some(claim)).await?;
+        let (id, settled) = self.record(plant, &run.prepare()?, Some(claim)).await?;
         Ok((id, settled.unwrap_or(Settled::Cleared)))
+    }
+
+    /// Record the runs of a batch of claimed periods, each as its period's current run with
+    /// its claim settled, in one transaction: a handful of statements for the batch (one
+    /// insert of the runs, one of their meters' records, one of their figures), not a handful
+    /// per period. A run whose claim lapsed and was taken by another instance is not recorded
+    /// (its entry is [`super::StoreError::ClaimLost`]); the others are. A store error records
+    /// none.
+    pub async fn record_claimed_runs(
+        &self,
+        plant: &PlantRow,
+        runs: &[(&PreparedRun, &Claim)],
+    ) -> Result<Vec<Result<(i64, Settled)>>> {
+        let mut tx = self.write_for(plant).await?;
+        let mut held = Vec::with_capacity(runs.len());
+        let mut settled = Vec::with_capacity(runs.len());
+        for (run, claim) in runs {
+            match claims::settle(&mut tx, plant, claim).await {
+                Ok(s) => {
+                    held.push(*run);
+                    settled.push(Ok(s));
+                }
+                Err(lost @ super::StoreError::ClaimLost(_)) => settled.push(Err(lost)),
+                Err(e) => return Err(e),
+            }
+        }
+        let mut ids = self.write_runs(&mut tx, plant, &held).await?.into_iter();
+        tx.commit().await?;
+        Ok(settled
+            .into_iter()
+            .map(|s| s.map(|s| (ids.next().expect("an id per recorded run"), s)))
+            .collect())
     }
 
     /// Record `run` as its period's current run, and forget the period's failures
     /// (`failures`); with a claim, only while the claim is held, settling it in the same
-    /// transaction.
-    async fn record(
+    /// transaction ([`super::StoreError::ClaimLost`] and nothing recorded if it is not).
+    pub async fn record(
         &self,
         plant: &PlantRow,
-        run: &NewRun,
+        run: &PreparedRun,
         claim: Option<&Claim>,
     ) -> Result<(i64, Option<Settled>)> {
-        let demote = format!(
-            "UPDATE runs AS r SET current = FALSE
-             WHERE r.plant_id = $1 AND r.period_start = $2 AND {}",
-            self.is_current()
-        );
-        const INSERT: &str = "
-            INSERT INTO runs (plant_id, period_start, revision, engine_version, status,
-                              report_json, inputs_json, created_at, current,
-                              global_test_passed)
-            VALUES ($1, $2, $3, $4, $5, $6, $7, $8, TRUE, $9) RETURNING id";
-        let start = Millis::from(run.period_start);
-        let (report, inputs) = (JsonText::of(&run.report)?, JsonText::of(&run.inputs)?);
-        let (figures, global_test_passed) = run.figures_and_test()?;
-        // Demoting the old current run and inserting the new one in one transaction keeps
-        // exactly one current run per period (the partial unique index runs_current holds the
-        // database to at most one). Concurrent records of one plant take turns, so a second
-        // record of the same period waits and then demotes this one, rather than meet the
-        // unique index when neither found a current run to demote.
         let mut tx = self.write_for(plant).await?;
-        let id: i64 = in_tx!(&mut tx, t => {
-            sqlx::query(&demote)
-                .bind(plant.id)
-                .bind(start)
-                .execute(&mut **t)
-                .await?;
-            sqlx::query_scalar(INSERT)
-                .bind(plant.id)
-                .bind(start)
-                .bind(run.revision)
-                .bind(&run.engine_version)
-                .bind(run.status.as_str())
-                .bind(&report)
-                .bind(&inputs)
-                .bind(Millis::now())
-                .bind(global_test_passed)
-                .fetch_one(&mut **t)
-                .await?
-        });
-        match &mut tx {
-            Tx::Sqlite(t) => sqlite::write_meter_periods(t, plant, id, &run.meters).await?,
-            Tx::Postgres(t) => pg::write_meter_periods(t, plant, id, &run.meters).await?,
-        }
-        figures::write(&mut tx, plant, run.period_start, id, &figures).await?;
-        // The engine finished the period: an earlier abandoned run of it no longer counts.
-        failures::clear(&mut tx, plant, run.period_start).await?;
         // A claim lost meanwhile refuses the whole run: the transaction is dropped unapplied.
         let settled = match claim {
             Some(claim) => Some(claims::settle(&mut tx, plant, claim).await?),
             None => None,
         };
+        let id = self.write_runs(&mut tx, plant, &[run]).await?[0];
         tx.commit().await?;
         Ok((id, settled))
+    }
+
+    /// Write `runs` (of distinct periods) in `tx` as their periods' current runs: the runs,
+    /// their meters' records, their figures, and their periods' failures forgotten. Returns
+    /// the runs' ids in their order.
+    async fn write_runs(
+        &self,
+        tx: &mut Tx,
+        plant: &PlantRow,
+        runs: &[&PreparedRun],
+    ) -> Result<Vec<i64>> {
+        // Rows of one insert of runs: 8 parameters each besides the plant.
+        const RUNS_PER_INSERT: usize = 100;
+        if runs.is_empty() {
+            return Ok(Vec::new());
+        }
+        let starts: Vec<Millis> = runs.iter().map(|r| Millis::from(r.period_start)).collect();
+        // Demoting the old current runs and inserting the new ones in one transaction keeps
+        // exactly one current run per period (the partial unique index runs_current holds the
+        // database to at most one). Concurrent records of one plant take turns, so a second
+        // record of the same period waits and then demotes this one, rather than meet the
+        // unique index when neither found a current run to demote.
+        for chunk in starts.chunks(RUNS_PER_INSERT) {
+            let demote = format!(
+                "UPDATE runs AS r SET current = FALSE
+                 WHERE r.plant_id = $1 AND r.period_start IN ({}) AND {}",
+                param_list(2, chunk.len()),
+                self.is_current()
+            );
+            in_tx!(tx, t => {
+                let mut query = sqlx::query(&demote).bind(plant.id);
+                for start in chunk {
+                    query = query.bind(*start);
+                }
+                query.execute(&mut **t).await.map(drop)?
+            });
+        }
+        let now = Millis::now();
+        let mut ids: HashMap<Millis, i64> = HashMap::with_capacity(runs.len());
+        for chunk in runs.chunks(RUNS_PER_INSERT) {
+            let rows = (0..chunk.len())
+                .map(|i| format!("($1, {}, TRUE)", param_list(2 + 8 * i, 8)))
+                .collect::<Vec<_>>()
+                .join(", ");
+            let insert = format!(
+                "INSERT INTO runs (plant_id, period_start, revision, engine_version, status,
+                                   report_json, inputs_json, created_at, global_test_passed,
+                                   current)
+                 VALUES {rows} RETURNING id, period_start"
+            );
+            // The order of RETURNING's rows is not promised: each id is matched to its period.
+            let returned: Vec<(i64, Millis)> = in_tx!(tx, t => {
+                let mut query = sqlx::query_as(&insert).bind(plant.id);
+                for run in chunk {
+                    query = query
+                        .bind(Millis::from(run.period_start))
+                        .bind(run.revision)
+                        .bind(&run.engine_version)
+                        .bind(run.status.as_str())
+                        .bind(&run.report)
+                        .bind(&run.inputs)
+                        .bind(now)
+                        .bind(run.global_test_passed);
+                }
+                query.fetch_all(&mut **t).await?
+            });
+            ids.extend(returned.into_iter().map(|(id, start)| (start, id)));
+        }
+        let ids: Vec<i64> = starts
+            .iter()
+            .map(|start| {
+                ids.get(start).copied().ok_or_else(|| {
+                    super::StoreError::Corrupt("a recorded run's id did not come back".into())
+                })
+            })
+            .collect::<Result<_>>()?;
+        let meters: Vec<(i64, &[(String, MeterPeriod)])> = runs
+            .iter()
+            .zip(&ids)
+            .map(|(run, id)| (*id, run.meters.as_slice()))
+            .collect();
+        match tx {
+            Tx::Sqlite(t) => sqlite::write_meter_periods(t, plant, &meters).await?,
+            Tx::Postgres(t) => pg::write_meter_periods(t, plant, &meters).await?,
+        }
+        let figures: Vec<(Millis, i64, &[reconcile::report::Figure])> = runs
+            .iter()
+            .zip(starts.iter().zip(&ids))
+            .map(|(run, (start, id))| (*start, *id, run.figures.as_slice()))
+            .collect();
+        figures::write(tx, plant, &figures).await?;
+        // The engine finished the periods: earlier abandoned runs of them no longer count.
+        failures::clear(tx, plant, &starts).await?;
+        Ok(ids)
     }
 
     pub async fn current_run(

@@ -130,3 +130,29 @@ impl StoreRow for PgRow {
         Ok(self.try_get(column)?)
     }
 }
+
+/// `rows` rows of `width` numbered parameters each, `($first, …), (…)`, for a multi-row
+/// `VALUES` (the same text on both backends).
+pub(super) fn value_rows(first: usize, rows: usize, width: usize) -> String {
+    (0..rows)
+        .map(|r| format!("({})", param_list(first + r * width, width)))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// `n` numbered parameters from `$first`, comma-separated, for `IN (…)` or a `VALUES` row.
+pub(super) fn param_list(first: usize, n: usize) -> String {
+    (first..first + n)
+        .map(|i| format!("${i}"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+#[cfg(test)]
+mod placeholder_tests {
+    #[test]
+    fn value_rows_number_every_parameter_once_in_order() {
+        assert_eq!(super::value_rows(2, 2, 3), "($2, $3, $4), ($5, $6, $7)");
+        assert_eq!(super::param_list(1, 0), "");
+    }
+}

@@ -7,6 +7,7 @@ use reconcile::{Quality, Reading};
 use super::*;
 use crate::store::Store;
 
+mod batches;
 mod time_limit;
 
 #[tokio::test]

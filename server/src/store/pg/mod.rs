@@ -202,28 +202,31 @@ pub(super) async fn insert_meters(
 pub(super) async fn write_meter_periods(
     tx: &mut PgConnection,
     plant: &PlantRow,
-    run_id: i64,
-    rows: &[(String, MeterPeriod)],
+    runs: &[(i64, &[(String, MeterPeriod)])],
 ) -> Result<()> {
+    let rows: Vec<(i64, &(String, MeterPeriod))> = runs
+        .iter()
+        .flat_map(|(run_id, rows)| rows.iter().map(move |row| (*run_id, row)))
+        .collect();
     if rows.is_empty() {
         return Ok(());
     }
     let correlations = rows
         .iter()
-        .map(|(_, p)| JsonText::of(&p.correlations).map(|j| j.0))
+        .map(|(_, (_, p))| JsonText::of(&p.correlations).map(|j| j.0))
         .collect::<Result<Vec<_>>>()?;
     sqlx::query(
         "INSERT INTO meter_periods
              (plant_id, run_id, tag, period_start, measured, reconciled, sigma, adjustment,
               adjustment_sigma, normalized_adjustment, redundant, flagged, readings,
               bad_readings, out_of_range_readings, correlations)
-         SELECT $1, $2, m.tag, m.period_start, m.measured, m.reconciled, m.sigma, m.adjustment,
-                m.adjustment_sigma, m.normalized, m.redundant, m.flagged, m.readings,
-                m.bad_readings, m.out_of_range_readings, m.correlations::json
-         FROM UNNEST($3::text[], $4::int8[], $5::float8[], $6::float8[], $7::float8[],
+         SELECT $1, m.run_id, m.tag, m.period_start, m.measured, m.reconciled, m.sigma,
+                m.adjustment, m.adjustment_sigma, m.normalized, m.redundant, m.flagged,
+                m.readings, m.bad_readings, m.out_of_range_readings, m.correlations::json
+         FROM UNNEST($2::int8[], $3::text[], $4::int8[], $5::float8[], $6::float8[], $7::float8[],
                      $8::float8[], $9::float8[], $10::float8[], $11::bool[], $12::bool[],
                      $13::int8[], $14::int8[], $15::int8[], $16::text[])
-             AS m (tag, period_start, measured, reconciled, sigma, adjustment,
+             AS m (run_id, tag, period_start, measured, reconciled, sigma, adjustment,
                    adjustment_sigma, normalized, redundant, flagged, readings, bad_readings,
                    out_of_range_readings, correlations)
          ON CONFLICT (plant_id, tag, period_start) DO UPDATE SET
@@ -237,20 +240,20 @@ pub(super) async fn write_meter_periods(
              correlations = excluded.correlations",
     )
     .bind(plant.id)
-    .bind(run_id)
-    .bind(column(rows, |(tag, _)| tag.as_str()))
-    .bind(column(rows, |(_, p)| Millis::from(p.period_start).0))
-    .bind(column(rows, |(_, p)| p.measured))
-    .bind(column(rows, |(_, p)| p.reconciled))
-    .bind(column(rows, |(_, p)| p.sigma))
-    .bind(column(rows, |(_, p)| p.adjustment))
-    .bind(column(rows, |(_, p)| p.adjustment_sigma))
-    .bind(column(rows, |(_, p)| p.normalized))
-    .bind(column(rows, |(_, p)| p.redundant))
-    .bind(column(rows, |(_, p)| p.flagged))
-    .bind(column(rows, |(_, p)| p.readings))
-    .bind(column(rows, |(_, p)| p.bad_readings))
-    .bind(column(rows, |(_, p)| p.out_of_range_readings))
+    .bind(column(&rows, |(run_id, _)| *run_id))
+    .bind(column(&rows, |(_, (tag, _))| tag.as_str()))
+    .bind(column(&rows, |(_, (_, p))| Millis::from(p.period_start).0))
+    .bind(column(&rows, |(_, (_, p))| p.measured))
+    .bind(column(&rows, |(_, (_, p))| p.reconciled))
+    .bind(column(&rows, |(_, (_, p))| p.sigma))
+    .bind(column(&rows, |(_, (_, p))| p.adjustment))
+    .bind(column(&rows, |(_, (_, p))| p.adjustment_sigma))
+    .bind(column(&rows, |(_, (_, p))| p.normalized))
+    .bind(column(&rows, |(_, (_, p))| p.redundant))
+    .bind(column(&rows, |(_, (_, p))| p.flagged))
+    .bind(column(&rows, |(_, (_, p))| p.readings))
+    .bind(column(&rows, |(_, (_, p))| p.bad_readings))
+    .bind(column(&rows, |(_, (_, p))| p.out_of_range_readings))
     .bind(correlations)
     .execute(&mut *tx)
     .await?;

@@ -132,6 +132,7 @@ macro_rules! on_both_backends {
 }
 
 // One module per group of tables (after the macro, which they use).
+mod batches;
 mod claims;
 mod failures;
 mod figures;
