@@ -5,6 +5,8 @@
 //!   readings: estimate, classification, every σ and the report.
 //! - `vantle/with_gross_error`: the same period with a gross error of +8σ on the make-up gas
 //!   flow meter VC3-FI-101 (redundant), so that fault identification runs too.
+//! - `vantle/reconcile_period_prepared`: `vantle/reconcile_period` with the model revision
+//!   prepared once and kept (`reconcile::Prepared`), as `loopbal reconcile` runs a file.
 //! - `estimate/N`: generated networks of N streams × 8 components (testkit/src/network.rs):
 //!   Layout::new + start::initial_point + solve::solve with the default options.
 //! - `estimate_10_iterations/N`: the same, capped at 10 Gauss–Newton iterations (what a run
@@ -30,7 +32,9 @@
 //!   optimum at invented prices (golden section, about 40 points).
 //!
 //! Run with `cargo bench -p reconcile --bench solve`. `LOOPBAL_BENCH_PROBE=1` instead times each
-//! case once and prints iterations and status, without criterion.
+//! case once and prints iterations and status, without criterion; `LOOPBAL_BENCH_PROBE=periods`
+//! analyses the Vantle period under N noise seeds (`LOOPBAL_BENCH_PERIODS`, 500), alone and
+//! with one kept `Prepared`, and counts the restarts and the states left on a bound.
 
 use std::hint::black_box;
 use std::time::{Duration, Instant};
@@ -43,7 +47,10 @@ use reconcile::model::Plant;
 use reconcile::period::MeterValue;
 use reconcile::solve::{solve, Measured, Solution, SolveOptions};
 use reconcile::start::initial_point;
-use reconcile::{parse_plant, reconcile_period, reconcile_period_cancellable, Cancel};
+use reconcile::{
+    analyse_period_prepared, parse_plant, reconcile_period, reconcile_period_cancellable, Cancel,
+    Prepared,
+};
 use testkit::network::{
     middle_flow_meter, network, with_gross_error as with_network_gross_error, Network,
 };
@@ -141,6 +148,19 @@ fn vantle(c: &mut Criterion) {
     });
     group.bench_function("with_gross_error", |b| {
         b.iter(|| reconcile_period(black_box(&plant), black_box(&faulty)))
+    });
+    // The same period with the revision prepared once and kept, as `loopbal reconcile` and a
+    // caller that keeps a `Prepared` per revision run it.
+    let mut prepared = Prepared::new(&plant);
+    group.bench_function("reconcile_period_prepared", |b| {
+        b.iter(|| {
+            analyse_period_prepared(
+                black_box(&plant),
+                &mut prepared,
+                black_box(&input),
+                &Cancel::never(),
+            )
+        })
     });
     group.finish();
 }
@@ -487,7 +507,60 @@ fn deadline(c: &mut Criterion) {
 
 criterion_group!(benches, vantle, networks, whatif, deadline);
 
+/// `LOOPBAL_BENCH_PROBE=periods`: the Vantle period with the noise of seeds 1..=N
+/// (`LOOPBAL_BENCH_PERIODS`, 500), each analysed once: the restarts run, the states left on a
+/// bound, and the mean time, for profilers (callgrind, perf) as much as for the figures.
+fn probe_periods() {
+    let plant = parse_plant(VANTLE).expect("Vantle model is valid");
+    let layout = Layout::new(&plant);
+    let exact = exact_values(
+        &plant,
+        &layout,
+        &vantle_true_state(&plant, &layout, &VantleConditions::default()),
+    );
+    let count: u64 = std::env::var("LOOPBAL_BENCH_PERIODS")
+        .ok()
+        .and_then(|s| s.parse().ok())
+        .unwrap_or(500);
+    let inputs: Vec<_> = (1..=count)
+        .map(|seed| period(noisy_values(&plant, &exact, seed)))
+        .collect();
+    let mut restarts = std::collections::BTreeMap::<usize, usize>::new();
+    let mut on_bound = std::collections::BTreeMap::<String, usize>::new();
+    // `LOOPBAL_BENCH_PREPARED_ONLY` leaves the periods alone out (for a profiler's count of
+    // the kept path only).
+    let t = Instant::now();
+    if std::env::var_os("LOOPBAL_BENCH_PREPARED_ONLY").is_none() {
+        for input in &inputs {
+            black_box(reconcile_period(&plant, input));
+        }
+    }
+    let alone = t.elapsed() / count as u32;
+    let mut prepared = Prepared::new(&plant);
+    let t = Instant::now();
+    for input in &inputs {
+        let report = analyse_period_prepared(&plant, &mut prepared, input, &Cancel::never())
+            .expect("no deadline")
+            .report;
+        if let Some(d) = &report.diagnostics {
+            *restarts.entry(d.restarts).or_default() += 1;
+            for name in &d.at_bound {
+                *on_bound.entry(name.clone()).or_default() += 1;
+            }
+        }
+    }
+    let per = t.elapsed() / count as u32;
+    println!(
+        "vantle, {count} periods: {alone:?} a period alone, {per:?} with the revision prepared once; periods by restarts {restarts:?}"
+    );
+    println!("states on a bound (periods): {on_bound:?}");
+}
+
 fn main() {
+    if std::env::var("LOOPBAL_BENCH_PROBE").as_deref() == Ok("periods") {
+        probe_periods();
+        return;
+    }
     if std::env::var_os("LOOPBAL_BENCH_PROBE").is_some() {
         probe();
         return;

@@ -5,8 +5,9 @@ use crate::estimate::Estimate;
 use crate::model::Plant;
 use crate::period::PeriodInput;
 use crate::period_report::{fill_report, report_left_out, unmeasured_meter};
+use crate::prepared::Prepared;
 use crate::report::{Report, ReportStatus, CAUTION};
-use crate::restarts::estimate_cancellable;
+use crate::restarts::estimate_prepared;
 use crate::solve::Measured;
 
 /// A period's report and the estimate behind it (none when no meter gave a usable value).
@@ -42,6 +43,18 @@ pub fn analyse_period(plant: &Plant, input: &PeriodInput) -> Analysis {
 /// thousand. An analysis that finishes gives exactly the answer of [`analyse_period`].
 pub fn analyse_period_cancellable(
     plant: &Plant,
+    input: &PeriodInput,
+    cancel: &Cancel,
+) -> Result<Analysis, Cancelled> {
+    analyse_period_prepared(plant, &mut Prepared::new(plant), input, cancel)
+}
+
+/// [`analyse_period_cancellable`] with what the periods of `plant`'s model revision share
+/// kept in `prepared` (made once per revision by [`Prepared::new`] and handed to each of its
+/// periods): the same analysis, without building that again.
+pub fn analyse_period_prepared(
+    plant: &Plant,
+    prepared: &mut Prepared,
     input: &PeriodInput,
     cancel: &Cancel,
 ) -> Result<Analysis, Cancelled> {
@@ -119,11 +132,105 @@ pub fn analyse_period_cancellable(
             estimate: None,
         });
     }
-    let est = estimate_cancellable(plant, measured, cancel)?;
+    let est = estimate_prepared(plant, prepared, measured, cancel)?;
     fill_report(plant, input, &est, &mut report, cancel)?;
     report_left_out(input, &mut report);
     Ok(Analysis {
         report,
         estimate: Some(est),
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parse_plant;
+    use crate::structural_zeros::tests::PLANT;
+
+    /// Readings of the loop near 110 kmol/h of makeup (A 100, B 10), 400 kmol/h recycled and
+    /// 5 kmol/h of water beside it, each off by a fraction of its σ.
+    fn readings(seed: usize) -> crate::period::PeriodInput {
+        let wobble = |k: usize| ((seed * 7 + k * 13) % 11) as f64 / 11.0 - 0.5;
+        let values = [110.0, 510.0, 110.0, 400.0, 0.3, 5.0, 5.0]
+            .iter()
+            .zip([1.0, 5.0, 1.0, 4.0, 0.01, 0.1, 0.1])
+            .enumerate()
+            .map(|(meter, (&v, sigma))| crate::period::MeterValue {
+                meter,
+                value: v + sigma * wobble(meter),
+                readings: 1,
+                used_uncertain: false,
+                spread: 0.0,
+            })
+            .collect();
+        crate::period::PeriodInput {
+            start: chrono::DateTime::from_timestamp(0, 0).expect("an instant"),
+            end: chrono::DateTime::from_timestamp(3600, 0).expect("an instant"),
+            values,
+            left_out: Vec::new(),
+        }
+    }
+
+    #[test]
+    fn a_structural_zero_starts_no_restart_and_the_answer_is_the_one_found_with_restarts() {
+        let plant = parse_plant(PLANT).expect("valid model");
+        let mut held = Prepared::new(&plant);
+        let mut free = Prepared::with_zeros(&plant, false);
+        let zeros: Vec<String> = held
+            .structural_zeros()
+            .map(|i| crate::equations::var_name(&plant, held.layout(), i))
+            .collect();
+        let mut restarted_before = 0;
+        for seed in 0..6 {
+            let input = readings(seed);
+            let now = analyse_period_prepared(&plant, &mut held, &input, &Cancel::never())
+                .expect("no deadline");
+            let before = analyse_period_prepared(&plant, &mut free, &input, &Cancel::never())
+                .expect("no deadline");
+            let (d_now, d_before) = (
+                now.report.diagnostics.as_ref().expect("an estimate"),
+                before.report.diagnostics.as_ref().expect("an estimate"),
+            );
+            // Left free, the zeros mostly come to rest on their bound and the estimate restarts
+            // for them; held, it never does, and names them as resting on their bound.
+            restarted_before += usize::from(d_before.restarts > 0);
+            assert_eq!(d_now.restarts, 0, "seed {seed}: {d_now:?}");
+            let mut at_bound = d_now.at_bound.clone();
+            at_bound.sort();
+            let mut expected = zeros.clone();
+            expected.sort();
+            assert_eq!(at_bound, expected, "seed {seed}");
+            // The same minimum: objective and every reconciled value and σ.
+            assert_eq!(now.report.status, before.report.status);
+            let (j_now, j_before) = (
+                now.report.objective.expect("solved"),
+                before.report.objective.expect("solved"),
+            );
+            assert!(
+                (j_now - j_before).abs() <= 1e-9 * (1.0 + j_before),
+                "seed {seed}: {j_now} against {j_before}"
+            );
+            for (a, b) in now.report.meters.iter().zip(&before.report.meters) {
+                for (x, y) in [
+                    (a.reconciled, b.reconciled),
+                    (a.reconciled_sigma, b.reconciled_sigma),
+                    (a.normalized_adjustment, b.normalized_adjustment),
+                ] {
+                    let (Some(x), Some(y)) = (x, y) else {
+                        assert_eq!(x.is_some(), y.is_some(), "seed {seed}, meter {}", a.tag);
+                        continue;
+                    };
+                    assert!(
+                        (x - y).abs() <= 1e-7 * (1.0 + y.abs()),
+                        "seed {seed}, meter {}: {x} against {y}",
+                        a.tag
+                    );
+                }
+            }
+        }
+        assert!(
+            restarted_before >= 3,
+            "{restarted_before} of 6 periods restarted"
+        );
+    }
 }

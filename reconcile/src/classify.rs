@@ -97,6 +97,25 @@ fn full_svd(a: &DMatrix<f64>) -> (DMatrix<f64>, Vec<f64>, DMatrix<f64>) {
     (u, s_full, v)
 }
 
+/// The singular values of `a`, in no particular order, as `full_svd` finds them (the same
+/// padding of a wide matrix, all zero for a matrix holding NaN or ∞) without forming the
+/// singular vectors: nalgebra's iteration updates the values alike with or without them, so
+/// they are the same numbers, at about half the cost.
+fn singular_values(a: &DMatrix<f64>) -> Vec<f64> {
+    if !a.iter().all(|x| x.is_finite()) {
+        return vec![0.0; a.ncols()];
+    }
+    let (rows, cols) = a.shape();
+    let svd = if rows < cols {
+        let mut p = DMatrix::zeros(cols, cols);
+        p.view_mut((0, 0), (rows, cols)).copy_from(a);
+        p.svd(false, false)
+    } else {
+        a.clone().svd(false, false)
+    };
+    svd.singular_values.iter().copied().collect()
+}
+
 /// A diagonal of R this much smaller than the largest counts as a possible rank deficiency,
 /// and the SVD decides instead. Conservative: the SVD's own threshold is RANK_TOLERANCE.
 const QR_RANK_GUARD: f64 = 1e-7;
@@ -332,8 +351,8 @@ pub fn classify_dense(
                 row /= norm;
             }
         }
-        let (_, se, _) = full_svd(&equilibrated);
-        let se_max = se.first().copied().unwrap_or(0.0);
+        let se = singular_values(&equilibrated);
+        let se_max = se.iter().copied().fold(0.0, f64::max);
         let rank = se
             .iter()
             .filter(|&&x| x > RANK_TOLERANCE * se_max.max(1e-300))

@@ -24,6 +24,7 @@ pub mod names;
 pub mod period;
 pub(crate) mod period_report;
 pub mod plausible;
+pub mod prepared;
 pub mod report;
 mod restarts;
 pub mod simulate;
@@ -31,6 +32,7 @@ pub mod solve;
 pub mod sparse;
 pub mod start;
 pub mod stats;
+pub mod structural_zeros;
 pub mod text;
 pub mod uncertainty;
 pub mod uom;
@@ -38,15 +40,16 @@ mod validate;
 pub mod whatif;
 
 pub use analysis::{
-    analyse_period, analyse_period_cancellable, reconcile_period, reconcile_period_cancellable,
-    Analysis,
+    analyse_period, analyse_period_cancellable, analyse_period_prepared, reconcile_period,
+    reconcile_period_cancellable, Analysis,
 };
 pub use cancel::{Cancel, Cancelled};
 pub use estimate::Estimate;
 pub use model::{ModelError, ModelProblem, ModelSpec, Plant};
 pub use period::{group_readings, prepare, LeftOut, PeriodInput, Quality, Reading};
+pub use prepared::Prepared;
 pub use report::{Report, ReportStatus};
-pub use restarts::{estimate, estimate_cancellable};
+pub use restarts::{estimate, estimate_cancellable, estimate_prepared};
 pub use validate::parse_plant;
 
 /// Version of the engine, recorded with every report.

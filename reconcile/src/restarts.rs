@@ -8,6 +8,7 @@ use crate::equations::Layout;
 use crate::estimate::Estimate;
 use crate::faults::identify_at_cancellable;
 use crate::model::Plant;
+use crate::prepared::Prepared;
 use crate::solve::{solve_with, Measured, Solution, SolveOptions, SolveStatus};
 use crate::sparse::Symbolic;
 use crate::start::initial_point;
@@ -25,17 +26,45 @@ pub fn estimate_cancellable(
     measured: Vec<Measured>,
     cancel: &Cancel,
 ) -> Result<Estimate, Cancelled> {
-    let layout = Layout::new(plant);
-    let start = initial_point(plant, &layout, &measured);
-    // The KKT pattern depends only on the plant and the meters measured: restarts share its
-    // symbolic analysis.
-    let mut kkt = None;
+    estimate_prepared(plant, &mut Prepared::new(plant), measured, cancel)
+}
+
+/// [`estimate_cancellable`] with what the model revision's periods share kept in `prepared`
+/// (the layout, the structural zeros, the KKT matrix's symbolic analysis): the same estimate,
+/// without building them again.
+pub fn estimate_prepared(
+    plant: &Plant,
+    prepared: &mut Prepared,
+    measured: Vec<Measured>,
+    cancel: &Cancel,
+) -> Result<Estimate, Cancelled> {
+    prepared.ensure_for(plant);
+    // The KKT pattern depends only on the plant and the meters measured: restarts, and the
+    // periods of the revision, share its symbolic analysis.
+    let mut kkt = prepared.kkt.take();
+    let result = estimate_with(plant, prepared, measured, &mut kkt, cancel);
+    prepared.kkt = kkt;
+    result
+}
+
+fn estimate_with(
+    plant: &Plant,
+    prepared: &Prepared,
+    measured: Vec<Measured>,
+    kkt: &mut Option<Symbolic>,
+    cancel: &Cancel,
+) -> Result<Estimate, Cancelled> {
+    let layout = &prepared.layout;
+    // The solve works on the layout whose structural zeros have upper bound zero: they start
+    // and stay there.
+    let bounded = &prepared.solve_layout;
+    let start = initial_point(plant, layout, &measured);
     let mut best = settle(
         plant,
-        &layout,
+        bounded,
         &measured,
         start.clone(),
-        &mut kkt,
+        kkt,
         SolveOptions::default().max_iterations,
         cancel,
     );
@@ -50,7 +79,7 @@ pub fn estimate_cancellable(
     loop {
         // A solve stopped by the deadline ends as not converged: nothing to judge.
         cancel.check()?;
-        let verdict = verdict(plant, &layout, &measured, &mut best, cancel)?;
+        let verdict = verdict(plant, prepared, &measured, &mut best, cancel)?;
         let limit = match verdict {
             Verdict::Good => break,
             Verdict::OnBound | Verdict::FailsGlobalTest => FEW_RESTARTS,
@@ -68,20 +97,20 @@ pub fn estimate_cancellable(
         // iterations and confirms the minimum, where a perturbed start would take many.
         let informed = match verdict {
             Verdict::FailsGlobalTest if restarts == 1 => {
-                start_without_suspects(plant, &layout, &measured, &best, cancel)?
+                start_without_suspects(plant, layout, &measured, &best, cancel)?
             }
             _ => None,
         };
         let alternative = informed.unwrap_or_else(|| {
             perturbed += 1;
-            perturbed_start(&start, &layout, perturbed)
+            perturbed_start(&start, layout, perturbed)
         });
         let candidate = settle(
             plant,
-            &layout,
+            bounded,
             &measured,
             alternative,
-            &mut kkt,
+            kkt,
             RESTART_ITERATIONS,
             cancel,
         );
@@ -102,10 +131,10 @@ pub fn estimate_cancellable(
     let (solution, classification) = best;
     let classification = match classification {
         Some(c) => c,
-        None => classify_free(plant, &layout, &measured, &solution, cancel)?,
+        None => classify_free(plant, prepared, &measured, &solution, cancel)?,
     };
     Ok(Estimate {
-        layout,
+        layout: layout.clone(),
         measured,
         solution,
         classification,
@@ -156,11 +185,12 @@ fn settle(
 /// observable.
 fn classify_free(
     plant: &Plant,
-    layout: &Layout,
+    prepared: &Prepared,
     measured: &[Measured],
     solution: &Solution,
     cancel: &Cancel,
 ) -> Result<Classification, Cancelled> {
+    let layout = &prepared.layout;
     classify_cancellable(
         plant,
         layout,
@@ -173,7 +203,7 @@ fn classify_free(
 
 fn verdict(
     plant: &Plant,
-    layout: &Layout,
+    prepared: &Prepared,
     measured: &[Measured],
     best: &mut Settled,
     cancel: &Cancel,
@@ -184,14 +214,20 @@ fn verdict(
     }
     let classification = match &mut best.1 {
         Some(c) => c,
-        slot => slot.insert(classify_free(plant, layout, measured, solution, cancel)?),
+        slot => slot.insert(classify_free(plant, prepared, measured, solution, cancel)?),
     };
     Ok(
         if !global_test(solution.objective, classification.redundancy, plant.alpha).passed {
             Verdict::FailsGlobalTest
-        } else if solution.at_bound.iter().any(|&b| b) {
+        } else if solution
+            .at_bound
+            .iter()
+            .zip(&prepared.structural_zero)
+            .any(|(&b, &zero)| b && !zero)
+        {
             // A state resting on a bound is also suspect: from a poor start the iteration can pin
-            // a flow at zero and settle in a minimum of the boundary.
+            // a flow at zero and settle in a minimum of the boundary. Not a structural zero,
+            // which rests there in every state the model means.
             Verdict::OnBound
         } else {
             Verdict::Good

@@ -14,7 +14,7 @@ use std::collections::{BTreeMap, HashMap};
 use chrono::{DateTime, TimeDelta, Utc};
 use reconcile::plausible::Screened;
 use reconcile::{
-    Analysis, Cancel, Cancelled, LeftOut, PeriodInput, Plant, Quality, Reading, Report,
+    Analysis, Cancel, Cancelled, LeftOut, PeriodInput, Plant, Prepared, Quality, Reading, Report,
 };
 use serde::Serialize;
 
@@ -106,6 +106,29 @@ pub fn run_period(
     left_out: Vec<LeftOut>,
     cancel: &Cancel,
 ) -> Result<PeriodRun, Cancelled> {
+    let mut prepared = Prepared::new(plant);
+    run_period_prepared(
+        plant,
+        &mut prepared,
+        revision,
+        start,
+        readings,
+        left_out,
+        cancel,
+    )
+}
+
+/// [`run_period`] with what the revision's periods share kept in `prepared` (one
+/// [`Prepared`] per revision, handed to each of its periods): the same run.
+pub fn run_period_prepared(
+    plant: &Plant,
+    prepared: &mut Prepared,
+    revision: i64,
+    start: DateTime<Utc>,
+    readings: Vec<PeriodReading>,
+    left_out: Vec<LeftOut>,
+    cancel: &Cancel,
+) -> Result<PeriodRun, Cancelled> {
     let found = readings.len();
     let screens = screens(plant, &readings);
     let mut readings: Vec<Reading> = readings.into_iter().map(|r| r.reading).collect();
@@ -114,7 +137,7 @@ pub fn run_period(
     readings.sort_by(|a, b| a.time.cmp(&b.time).then_with(|| a.tag.cmp(&b.tag)));
     let (input, screened) = period_input(plant, &readings, start, left_out);
     let (unsteady, warnings) = steadiness(plant, &input);
-    let analysis = reconcile::analyse_period_cancellable(plant, &input, cancel)?;
+    let analysis = reconcile::analyse_period_prepared(plant, prepared, &input, cancel)?;
     let correlations = correlations_by_tag(plant, &analysis, cancel)?;
     let mut report = analysis.report;
     report

@@ -108,20 +108,36 @@ pub fn reconcile(opts: &Options) -> anyhow::Result<ExitCode> {
     let mut reports: Vec<Report> = Vec::new();
     let mut crashed = Vec::new();
     let mut timings = Vec::new();
+    let mut prepared = reconcile::Prepared::new(&plant);
     for (start, readings) in periods {
         // The engine promises not to panic; should it break that promise on some input, the
         // other periods are still reported and the run fails (exit 1) instead of aborting.
         // Files carry no technicians' notes, so no meter is left out; a command on files has
         // no time limit, so a run always finishes.
+        // The file is one revision: its periods share one `Prepared`.
         let never = reconcile::Cancel::never();
-        let run =
-            || period_run::run_period(&plant, FILE_REVISION, start, readings, Vec::new(), &never);
+        let run = std::panic::AssertUnwindSafe(|| {
+            period_run::run_period_prepared(
+                &plant,
+                &mut prepared,
+                FILE_REVISION,
+                start,
+                readings,
+                Vec::new(),
+                &never,
+            )
+        });
         let began = std::time::Instant::now();
         let outcome = std::panic::catch_unwind(run);
         timings.push((start, began.elapsed()));
         match outcome {
             Ok(Ok(run)) => reports.push(run.report),
-            Ok(Err(reconcile::Cancelled)) | Err(_) => crashed.push(start),
+            Ok(Err(reconcile::Cancelled)) => crashed.push(start),
+            Err(_) => {
+                // A panic may have left it half-updated: the next period prepares afresh.
+                prepared = reconcile::Prepared::new(&plant);
+                crashed.push(start);
+            }
         }
     }
     // Written after the runs, so that writing them is not timed (bench/peer/ reads them).
