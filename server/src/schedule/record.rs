@@ -11,11 +11,12 @@
 //! period, that leaves the engine's work and the rows written; the round trips to the store
 //! and the hand-offs between threads are paid once per batch.
 
+use std::collections::HashMap;
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use chrono::{DateTime, SecondsFormat, TimeDelta, Utc};
-use reconcile::{Cancel, Plant, Report};
+use reconcile::{Cancel, Plant, Prepared, Report};
 
 use crate::out_of_service::{self, Interval};
 use crate::period_run::{self, PeriodReading, RunInputs};
@@ -86,6 +87,7 @@ struct Done {
 /// serialise its report and inputs for the store. `None`: abandoned at the limit.
 fn run_one(
     model: &Plant,
+    prepared: &mut Prepared,
     revision: i64,
     start: DateTime<Utc>,
     readings: Vec<PeriodReading>,
@@ -94,8 +96,9 @@ fn run_one(
 ) -> Result<Option<Done>, String> {
     let began = Instant::now();
     let cancel = Cancel::after(limit);
-    let Ok(run) = period_run::run_period(model, revision, start, readings, left_out, &cancel)
-    else {
+    let Ok(run) = period_run::run_period_prepared(
+        model, prepared, revision, start, readings, left_out, &cancel,
+    ) else {
         return Ok(None);
     };
     let new = PreparedRun::from_report(start, revision, &run.report, &run.inputs, run.meters)
@@ -133,7 +136,16 @@ pub(super) async fn record_period(
     let limit = service.run_limit.for_model(&model);
     let done = tokio::task::spawn_blocking(move || {
         // The clock starts here, not while the run waits for a blocking thread.
-        run_one(&model, revision, start, readings, left_out, limit)
+        let mut prepared = Prepared::new(&model);
+        run_one(
+            &model,
+            &mut prepared,
+            revision,
+            start,
+            readings,
+            left_out,
+            limit,
+        )
     })
     .await
     .map_err(|e| engine(e.to_string()))?
@@ -200,10 +212,19 @@ pub(super) async fn record_batch(
         }
     }
     let ran = tokio::task::spawn_blocking(move || {
+        // What depends only on the model revision is prepared once for the batch's periods of
+        // that revision, and made again after a run abandoned part-way.
+        let mut prepared: HashMap<i64, Prepared> = HashMap::new();
         work.into_iter()
             .map(
                 |(slot, model, revision, start, readings, left_out, limit)| {
-                    let done = run_one(&model, revision, start, readings, left_out, limit);
+                    let kept = prepared
+                        .entry(revision)
+                        .or_insert_with(|| Prepared::new(&model));
+                    let done = run_one(&model, kept, revision, start, readings, left_out, limit);
+                    if !matches!(done, Ok(Some(_))) {
+                        prepared.remove(&revision);
+                    }
                     (slot, start, limit, done)
                 },
             )
