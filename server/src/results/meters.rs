@@ -65,8 +65,9 @@ pub struct MeterHealth {
     pub uom: String,
     #[serde(flatten)]
     pub health: Health,
-    /// The history this assessment covers starts here: the last recalibration or replacement,
-    /// or the first record.
+    /// The history this assessment covers starts here: the last recalibration or replacement
+    /// when that bounds the record, else the record's first period (the record reaches back
+    /// at most the health window from the plant's latest period).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub history_since: Option<String>,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -140,7 +141,7 @@ const METHOD: &str = "two-sided CUSUM of the normalised adjustment, k = 0.5; wat
                       70,000 periods); bias pooled over the periods of the evidence";
 
 /// Each tag's history start: its last recalibration or replacement.
-fn resets(notes: &[MeterNote], tag: &str) -> Option<DateTime<Utc>> {
+pub(crate) fn resets(notes: &[MeterNote], tag: &str) -> Option<DateTime<Utc>> {
     notes
         .iter()
         .filter(|n| n.tag == tag && n.kind.resets())
@@ -231,12 +232,27 @@ pub async fn refresh_all(service: &Service) {
     }
 }
 
-/// Every meter's health over its record since its last reset, after attribution among
-/// correlated suspects, and the first period of each record: as kept in the service's memo
-/// when nothing it depends on has changed since (see [`health::Memo`]), else assessed now and
-/// kept. The key is read before the records, so a run that lands meanwhile only makes the
+/// Where a meter's record starts: its last recalibration or replacement (`reset`), or the
+/// health window's start counted back from the plant's `latest` period, whichever is later; so
+/// stray periods long before the plant's other data never reach into the evidence.
+pub fn record_start(
+    reset: Option<DateTime<Utc>>,
+    latest: Option<DateTime<Utc>>,
+    window: chrono::TimeDelta,
+) -> DateTime<Utc> {
+    let window_start = latest
+        .and_then(|l| l.checked_sub_signed(window))
+        .unwrap_or(DateTime::<Utc>::MIN_UTC);
+    reset.map_or(window_start, |r| r.max(window_start))
+}
+
+/// Every meter's health over its record (see [`record_start`]), after attribution among
+/// correlated suspects, where each record starts and its first period: as kept in the
+/// service's memo when nothing it depends on has changed since (see [`health::Memo`]), else
+/// from each meter's running state in the store (see [`crate::store::Store::health_states`])
+/// and kept. The key is read before the states, so a run that lands meanwhile only makes the
 /// kept assessment look stale, never hides itself.
-async fn assessed(
+pub(crate) async fn assessed(
     service: &Service,
     plant: &PlantRow,
     tags: Vec<String>,
@@ -250,61 +266,87 @@ async fn assessed(
     if let Some(kept) = service.health.get(plant.id, &key) {
         return Ok(kept);
     }
-    let records = service
-        .store
-        .meter_periods(
-            plant,
-            None,
-            DateTime::<Utc>::MIN_UTC,
-            DateTime::<Utc>::MAX_UTC,
-        )
-        .await?;
-    let tags = &key.tags;
-    let healths: Vec<Health> = tags
+    let latest = service.store.latest_period(plant).await?;
+    let window = service.health_window;
+    let wanted: Vec<(String, DateTime<Utc>)> = key
+        .tags
         .iter()
         .map(|tag| {
-            let since = resets(notes, tag);
-            let record: Vec<MeterPeriod> = records
-                .iter()
-                .filter(|(t, p)| t == tag && since.is_none_or(|s| p.period_start >= s))
-                .map(|(_, p)| p.clone())
-                .collect();
-            health::assess(&record)
+            (
+                tag.clone(),
+                record_start(resets(notes, tag), latest, window),
+            )
         })
         .collect();
+    let states = service.store.health_states(plant, &wanted, window).await?;
+    let healths: Vec<Health> = states.iter().map(health::Running::health).collect();
+    let records = suspects_records(service, plant, &key.tags, &healths).await?;
+    let value = std::sync::Arc::new(health::Assessed {
+        healths: attributed(&key.tags, healths, &records),
+        since: wanted.into_iter().map(|(_, since)| since).collect(),
+        first: states.iter().map(|s| s.first).collect(),
+    });
+    service
+        .health
+        .put(plant.id, key, std::sync::Arc::clone(&value));
+    Ok(value)
+}
+
+/// What attribution among suspects reads: with two suspects or more, their records from the
+/// earliest start of their evidence on (within the health window: the evidence is within each
+/// record); with fewer, nothing.
+async fn suspects_records(
+    service: &Service,
+    plant: &PlantRow,
+    tags: &[String],
+    healths: &[Health],
+) -> Result<Vec<(String, MeterPeriod)>, ResultsError> {
+    let suspects: Vec<usize> = (0..healths.len())
+        .filter(|&i| healths[i].status == Status::Suspect)
+        .collect();
+    let mut records = Vec::new();
+    if suspects.len() < 2 {
+        return Ok(records);
+    }
+    let from = suspects
+        .iter()
+        .filter_map(|&i| healths[i].evidence_since)
+        .min()
+        .unwrap_or(DateTime::<Utc>::MIN_UTC);
+    for &i in &suspects {
+        records.extend(
+            service
+                .store
+                .meter_periods(plant, Some(&tags[i]), from, DateTime::<Utc>::MAX_UTC)
+                .await?,
+        );
+    }
+    Ok(records)
+}
+
+/// `healths` after attribution among correlated suspects ([`health::attribute`]), from
+/// `records` (the suspects' records over their evidence).
+pub(crate) fn attributed(
+    tags: &[String],
+    healths: Vec<Health>,
+    records: &[(String, MeterPeriod)],
+) -> Vec<Health> {
     let evidence = |i: usize, j: usize| {
         let since = [&healths[i], &healths[j]]
             .iter()
             .filter_map(|h| h.evidence_since)
             .min();
-        let z = |tag: &str| common_evidence(&records, tag, since);
+        let z = |tag: &str| common_evidence(records, tag, since);
         (z(&tags[i]), z(&tags[j]))
     };
     let mut attributed = healths.clone();
     health::attribute(
         tags,
         &mut attributed,
-        &|i, j| correlation(&records, &tags[i], &tags[j]),
+        &|i, j| correlation(records, &tags[i], &tags[j]),
         &evidence,
     );
-    let first = tags
-        .iter()
-        .map(|tag| {
-            let since = resets(notes, tag);
-            records
-                .iter()
-                .find(|(t, p)| t == tag && since.is_none_or(|s| p.period_start >= s))
-                .map(|(_, p)| p.period_start)
-        })
-        .collect();
-    let value = std::sync::Arc::new(health::Assessed {
-        healths: attributed,
-        first,
-    });
-    service
-        .health
-        .put(plant.id, key, std::sync::Arc::clone(&value));
-    Ok(value)
+    attributed
 }
 
 /// Every meter of the model in effect at `now`, worst first: suspect, frozen, out of range,
@@ -317,6 +359,15 @@ pub async fn ranking(
     plant: &PlantRow,
     now: DateTime<Utc>,
 ) -> Result<MeterList, ResultsError> {
+    Ok(rank(service, plant, now).await?.0)
+}
+
+/// [`ranking`], and where each meter's record starts, by tag.
+async fn rank(
+    service: &Service,
+    plant: &PlantRow,
+    now: DateTime<Utc>,
+) -> Result<(MeterList, Vec<(String, DateTime<Utc>)>), ResultsError> {
     let spec = spec_at(service, plant, now).await?;
     let notes = service.store.notes(plant, None).await?;
     let tags: Vec<String> = spec.meters.iter().map(|m| m.tag.clone()).collect();
@@ -325,8 +376,10 @@ pub async fn ranking(
         .meters
         .iter()
         .zip(assessed.healths.iter().zip(&assessed.first))
-        .map(|(m, (health, first))| {
-            let since = resets(&notes, &m.tag);
+        .zip(&assessed.since)
+        .map(|((m, (health, first)), start)| {
+            // The reset, when it is what bounds the record; else its first period.
+            let since = resets(&notes, &m.tag).filter(|r| r == start);
             let health = health.clone();
             MeterHealth {
                 tag: m.tag.clone(),
@@ -363,11 +416,18 @@ pub async fn ranking(
             .cmp(&b.health.status.rank())
             .then(b.health.statistic.total_cmp(&a.health.statistic))
     });
-    Ok(MeterList {
+    let starts = spec
+        .meters
+        .iter()
+        .map(|m| m.tag.clone())
+        .zip(assessed.since.iter().copied())
+        .collect();
+    let list = MeterList {
         plant: plant.name.clone(),
         method: METHOD.to_string(),
         meters,
-    })
+    };
+    Ok((list, starts))
 }
 
 /// One period of a meter's history.
@@ -399,7 +459,8 @@ pub struct MeterDetail {
     #[serde(flatten)]
     pub meter: MeterHealth,
     pub method: String,
-    /// Since the last recalibration or replacement, oldest first.
+    /// The record's periods (since the last recalibration or replacement, at most the health
+    /// window), oldest first.
     pub history: Vec<HistoryPoint>,
     pub notes: Vec<NoteBody>,
 }
@@ -413,7 +474,7 @@ pub async fn detail(
     tag: &str,
     now: DateTime<Utc>,
 ) -> Result<MeterDetail, ResultsError> {
-    let list = ranking(service, plant, now).await?;
+    let (list, starts) = rank(service, plant, now).await?;
     let count = list.meters.len();
     let Some(meter) = list.meters.into_iter().find(|m| m.tag == tag) else {
         return Err(ResultsError::NotFound(format!(
@@ -423,22 +484,19 @@ pub async fn detail(
         )));
     };
     let notes = service.store.notes(plant, Some(tag)).await?;
-    let since = resets(&notes, tag).unwrap_or(DateTime::<Utc>::MIN_UTC);
-    // The whole record: the history is the part since the last reset, and each recalibrated
-    // note's bias estimate is of the part before it.
+    let since = starts
+        .iter()
+        .find(|(t, _)| t == tag)
+        .map_or(DateTime::<Utc>::MIN_UTC, |(_, since)| *since);
+    // The record the health is of: from its last reset or the window's start, an index range
+    // of the meter's rows.
     let record = service
         .store
-        .meter_periods(
-            plant,
-            Some(tag),
-            DateTime::<Utc>::MIN_UTC,
-            DateTime::<Utc>::MAX_UTC,
-        )
+        .meter_periods(plant, Some(tag), since, DateTime::<Utc>::MAX_UTC)
         .await?;
     let (mut hi, mut lo) = (0.0f64, 0.0f64);
     let history = record
         .iter()
-        .filter(|(_, p)| p.period_start >= since)
         .map(|(_, p)| {
             if let Some(d) = p.normalized.filter(|d| d.is_finite() && p.redundant) {
                 hi = (hi - d - CUSUM_K).max(0.0);
@@ -474,47 +532,56 @@ pub async fn detail(
         meter,
         method: METHOD.to_string(),
         history,
-        notes: note_bodies(&notes, &record),
+        notes: note_bodies(service, plant, tag, &notes).await?,
     })
 }
 
 /// A meter's notes as answered, each recalibrated one with loopbal's own bias estimate just
 /// before it beside the technician's `as_found`.
-fn note_bodies(notes: &[MeterNote], record: &[(String, MeterPeriod)]) -> Vec<NoteBody> {
-    notes
-        .iter()
-        .map(|n| {
-            let mut body = NoteBody::from(n);
-            if n.kind == NoteKind::Recalibrated {
-                let bias = bias_before(notes, record, n.effective_at);
-                body.estimated_bias = bias.map(|b| b.0);
-                body.estimated_bias_sigma = bias.map(|b| b.1);
-            }
-            body
-        })
-        .collect()
+async fn note_bodies(
+    service: &Service,
+    plant: &PlantRow,
+    tag: &str,
+    notes: &[MeterNote],
+) -> Result<Vec<NoteBody>, ResultsError> {
+    let mut bodies = Vec::with_capacity(notes.len());
+    for n in notes {
+        let mut body = NoteBody::from(n);
+        if n.kind == NoteKind::Recalibrated {
+            let bias = bias_before(service, plant, tag, notes, n.effective_at).await?;
+            body.estimated_bias = bias.map(|b| b.0);
+            body.estimated_bias_sigma = bias.map(|b| b.1);
+        }
+        bodies.push(body);
+    }
+    Ok(bodies)
 }
 
 /// The pooled bias ± σ the meter list showed for the meter just before `at`: its health over
-/// the periods from the reset before `at` (or the first record) to `at`.
-fn bias_before(
+/// the record it had then, from the reset before `at` or the health window's start counted
+/// back from `at`, whichever is later, to `at`.
+async fn bias_before(
+    service: &Service,
+    plant: &PlantRow,
+    tag: &str,
     notes: &[MeterNote],
-    record: &[(String, MeterPeriod)],
     at: DateTime<Utc>,
-) -> Option<(f64, f64)> {
-    let from = notes
+) -> Result<Option<(f64, f64)>, ResultsError> {
+    let reset = notes
         .iter()
         .filter(|n| n.kind.resets() && n.effective_at < at)
         .map(|n| n.effective_at)
         .max();
-    let before: Vec<MeterPeriod> = record
-        .iter()
+    let from = record_start(reset, Some(at), service.health_window);
+    let before: Vec<MeterPeriod> = service
+        .store
+        .meter_periods(plant, Some(tag), from, at)
+        .await?
+        .into_iter()
         .map(|(_, p)| p)
-        .filter(|p| from.is_none_or(|f| p.period_start >= f) && p.period_start < at)
-        .cloned()
         .collect();
     let health = health::assess(&before);
-    Some((health.bias?, health.bias_sigma?))
+    Ok(health.bias.zip(health.bias_sigma))
 }
 
 /// A technician's note.

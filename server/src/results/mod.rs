@@ -6,6 +6,8 @@
 
 pub mod balances;
 pub mod figures;
+#[cfg(test)]
+mod health_tests;
 pub mod meter_value;
 pub mod meters;
 pub mod out_of_service;

@@ -4,7 +4,7 @@ use chrono::{DateTime, Utc};
 
 use super::rows::{self, Claim, NewRun, PlantRow, RunRow, RunSummary, Settled};
 use super::values::{JsonText, Millis};
-use super::{claims, failures, figures, pg, sqlite, Result, Store, Tx};
+use super::{claims, failures, figures, meter_health, pg, sqlite, Result, Store, Tx};
 
 /// The columns `rows::run` reads.
 const COLUMNS: &str = "id, period_start, revision, engine_version, status, report_json, \
@@ -91,6 +91,8 @@ impl Store {
             Tx::Sqlite(t) => sqlite::write_meter_periods(t, plant, id, &run.meters).await?,
             Tx::Postgres(t) => pg::write_meter_periods(t, plant, id, &run.meters).await?,
         }
+        // Each meter's running health state follows its rows (O(1) a meter for a new period).
+        meter_health::advance(&mut tx, plant, &run.meters).await?;
         figures::write(&mut tx, plant, run.period_start, id, &figures).await?;
         // The engine finished the period: an earlier abandoned run of it no longer counts.
         failures::clear(&mut tx, plant, run.period_start).await?;
