@@ -329,7 +329,7 @@ pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
 /// after a new run landed (the memo not current: the running states are read, and the new
 /// period's rows have been folded into them by the run's own transaction) and again when the
 /// memo is current; and `GET …/meters` right after a re-run of the period a day before the
-/// last (the meters' states are rebuilt). `rounds` of each, medians. Each run is a copy of
+/// last (the meters' states are taken up again from a checkpoint). `rounds` of each, medians. Each run is a copy of
 /// the run and meter rows of the period before it, recorded through the store's own
 /// `record_run`.
 pub async fn meter_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
@@ -427,7 +427,7 @@ pub async fn meter_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
         "   meter health, {rounds} rounds, medians: GET meters {a:.1} ms right after a run landed, {b:.1} ms with the memo current ({periods} periods in a record); GET meters/{tag} {c:.1} ms after a run, {d:.1} ms current ({history} history points)"
     );
     println!(
-        "   GET meters right after a re-run of the period a day before the last (every meter's state rebuilt from the window's start): {e:.1} ms median"
+        "   GET meters right after a re-run of the period a day before the last (every meter's state taken up again from a checkpoint): {e:.1} ms median"
     );
     println!(
         "   target: GET meters < 20 ms: {}; GET meters/{{tag}} < 30 ms: {}",
