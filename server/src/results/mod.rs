@@ -10,6 +10,7 @@ pub mod figures;
 mod health_tests;
 pub mod meter_value;
 pub mod meters;
+mod notes;
 pub mod out_of_service;
 pub mod periods;
 pub mod range;
