@@ -214,6 +214,12 @@ pub enum Command {
         #[arg(long, value_name = "SECONDS", default_value_t = 60, env = "LOOPBAL_RUN_LEASE",
               value_parser = clap::value_parser!(u64).range(2..=86400))]
         run_lease: u64,
+        /// Days of history meter health looks back from the plant's latest period (1 to
+        /// 36500): the CUSUM, the pooled bias and the counts cover the periods since the
+        /// meter's last recalibration or replacement, or this many days, whichever is shorter.
+        #[arg(long, value_name = "DAYS", default_value_t = 90, env = "LOOPBAL_HEALTH_WINDOW",
+              value_parser = clap::value_parser!(u32).range(1..=36500))]
+        health_window: u32,
         /// This instance's name in its claims and log (the host's name by default); the
         /// process id and a random suffix are added, so names never collide.
         #[arg(long, value_name = "NAME", env = "LOOPBAL_INSTANCE_NAME")]

@@ -93,6 +93,7 @@ fn main() -> ExitCode {
             run_workers,
             run_timeout,
             run_lease,
+            health_window,
             instance_name,
         } => {
             serve::init_tracing();
@@ -131,6 +132,7 @@ fn main() -> ExitCode {
                             ),
                             lease: std::time::Duration::from_secs(*run_lease),
                         },
+                        health_window: chrono::TimeDelta::days((*health_window).into()),
                     }))
                 })
                 .map(|()| ExitCode::SUCCESS)

@@ -26,6 +26,8 @@ pub struct Options {
     /// How long a period run may take (the scheduler's and an administrator's re-run).
     pub run_limit: RunLimit,
     pub claimant: Claimant,
+    /// How far back meter health looks from the plant's latest period.
+    pub health_window: chrono::TimeDelta,
 }
 
 /// Log lines go to stderr; `RUST_LOG` chooses what (default: info for loopbal, warn for the
@@ -47,7 +49,8 @@ pub async fn serve(opts: Options) -> anyhow::Result<()> {
         .with_context(|| format!("opening the database {}", redacted(&opts.database)))?;
     let service = Service::new(store.clone())
         .with_claimant(opts.claimant)
-        .with_run_limit(opts.run_limit);
+        .with_run_limit(opts.run_limit)
+        .with_health_window(opts.health_window);
     let instance = service.claimant.instance.clone();
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
     let worker = tokio::spawn(schedule::worker(service.clone(), opts.schedule, stop_rx));

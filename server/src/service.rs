@@ -33,7 +33,13 @@ pub struct Service {
     models: Arc<ModelCache>,
     /// Each plant's meter health as last assessed (crate::health::Memo).
     pub health: Arc<crate::health::Memo>,
+    /// How far back from the plant's latest period meter health looks (at most; a
+    /// recalibration or replacement since starts it later).
+    pub health_window: chrono::TimeDelta,
 }
+
+/// The health window when none is given: 90 days.
+pub const DEFAULT_HEALTH_WINDOW_DAYS: u32 = 90;
 
 impl Service {
     pub fn new(store: Store) -> Service {
@@ -45,7 +51,14 @@ impl Service {
             run_limit: RunLimit::default(),
             models: Arc::new(ModelCache::default()),
             health: Arc::new(crate::health::Memo::default()),
+            health_window: chrono::TimeDelta::days(DEFAULT_HEALTH_WINDOW_DAYS.into()),
         }
+    }
+
+    /// The same service with meter health looking back `window` from the latest period.
+    pub fn with_health_window(mut self, window: chrono::TimeDelta) -> Service {
+        self.health_window = window;
+        self
     }
 
     /// The same service claiming periods as `claimant`.

@@ -57,7 +57,7 @@ use testkit::bench::{self, load_average as load, Db};
 
 use month::{engine_alone, month_cases, print_side_by_side};
 use service::{readings, Service};
-use year::{report_reads, run_year, workspace_reads, Year};
+use year::{meter_reads, report_reads, run_year, workspace_reads, Year};
 
 const BATCH: usize = 10_000;
 const MONTH_HOURS: usize = 720;
@@ -171,6 +171,7 @@ async fn run() {
     run_year(&svc, &year).await;
     let median = report_reads(&svc, &year, reads, meters).await;
     workspace_reads(&svc, &year, 20).await;
+    meter_reads(&svc, &year, 20).await;
     svc.stop().await;
 
     if std::env::var_os("LOOPBAL_BENCH_KEEP").is_some() {

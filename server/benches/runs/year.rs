@@ -324,3 +324,114 @@ pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
         first.0, first.1
     );
 }
+
+/// Meter health with the year stored: `GET …/meters` and `GET …/meters/{tag}` timed right
+/// after a new run landed (the memo not current: the running states are read, and the new
+/// period's rows have been folded into them by the run's own transaction) and again when the
+/// memo is current; and `GET …/meters` right after a re-run of the period a day before the
+/// last (the meters' states are taken up again from a checkpoint). `rounds` of each, medians. Each run is a copy of
+/// the run and meter rows of the period before it, recorded through the store's own
+/// `record_run`.
+pub async fn meter_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
+    let base = &svc.served.base;
+    let store = &svc.state().store;
+    let tag = &year.plant.meters[0].tag;
+    let client = reqwest::Client::builder()
+        .pool_max_idle_per_host(1)
+        .build()
+        .expect("client");
+    let get = |url: String| {
+        let req = client.get(url.clone()).bearer_auth(&svc.served.token);
+        async move {
+            let t = Instant::now();
+            let res = req.send().await.expect("GET");
+            let ok = res.status().is_success();
+            let body = res.bytes().await.expect("body");
+            refuse_unless(ok, "tests/health.rs", || {
+                format!("GET {url} failed: {}", String::from_utf8_lossy(&body))
+            });
+            (t.elapsed().as_secs_f64() * 1e3, body)
+        }
+    };
+    let mut next = year.start + TimeDelta::hours(year.hours as i64);
+    // A new period one hour after the last; or, with `rerun`, the period a day before the
+    // last again (its meter states must be rebuilt).
+    let mut land = |rerun: bool| {
+        let dst = if rerun {
+            next - TimeDelta::hours(24)
+        } else {
+            next
+        };
+        if !rerun {
+            next += TimeDelta::hours(1);
+        }
+        async move {
+            let src = dst - TimeDelta::hours(1);
+            let row = store
+                .current_run(&svc.row, src)
+                .await
+                .expect("current run")
+                .expect("a run of the last period");
+            let meters = store
+                .meter_periods(&svc.row, None, src, dst)
+                .await
+                .expect("meter rows")
+                .into_iter()
+                .map(|(tag, mut p)| {
+                    p.period_start = dst;
+                    (tag, p)
+                })
+                .collect::<Vec<_>>();
+            let mut report = row.run.report.clone();
+            report["period_start"] = rfc3339(dst).into();
+            report["period_end"] = rfc3339(dst + TimeDelta::hours(1)).into();
+            let run = NewRun {
+                period_start: dst,
+                report,
+                meters,
+                ..row.run.clone()
+            };
+            store.record_run(&svc.row, &run).await.expect("record run");
+        }
+    };
+    let list = format!("{base}/meters");
+    let one = format!("{base}/meters/{tag}");
+    let (mut fresh, mut kept, mut fresh_one, mut kept_one) = (vec![], vec![], vec![], vec![]);
+    let mut rerun = Vec::new();
+    let mut history = 0;
+    let mut periods = 0;
+    for _ in 0..rounds {
+        land(true).await;
+        rerun.push(get(list.clone()).await.0);
+        land(false).await;
+        fresh.push(get(list.clone()).await.0);
+        let (ms, body) = get(list.clone()).await;
+        kept.push(ms);
+        let v: serde_json::Value = serde_json::from_slice(&body).unwrap_or_default();
+        periods = v["meters"][0]["periods"].as_u64().unwrap_or(0);
+        land(false).await;
+        fresh_one.push(get(one.clone()).await.0);
+        let (ms, body) = get(one.clone()).await;
+        kept_one.push(ms);
+        let v: serde_json::Value = serde_json::from_slice(&body).unwrap_or_default();
+        history = v["history"].as_array().map_or(0, Vec::len);
+    }
+    let median = |v: &mut Vec<f64>| {
+        v.sort_by(f64::total_cmp);
+        percentile(v, 50.0)
+    };
+    let (a, b) = (median(&mut fresh), median(&mut kept));
+    let (c, d) = (median(&mut fresh_one), median(&mut kept_one));
+    let e = median(&mut rerun);
+    println!(
+        "   meter health, {rounds} rounds, medians: GET meters {a:.1} ms right after a run landed, {b:.1} ms with the memo current ({periods} periods in a record); GET meters/{tag} {c:.1} ms after a run, {d:.1} ms current ({history} history points)"
+    );
+    println!(
+        "   GET meters right after a re-run of the period a day before the last (every meter's state taken up again from a checkpoint): {e:.1} ms median"
+    );
+    println!(
+        "   target: GET meters < 20 ms: {}; GET meters/{{tag}} < 30 ms: {}",
+        if a < 20.0 { "met" } else { "NOT met" },
+        if c < 30.0 { "met" } else { "NOT met" }
+    );
+}

@@ -4,16 +4,17 @@
 
 use chrono::{DateTime, Utc};
 use reconcile::ModelSpec;
-use serde::{Deserialize, Serialize};
+use serde::Serialize;
 use utoipa::ToSchema;
 
+pub use super::notes::{add_note, NewNote, NoteKindWord};
 use super::out_of_service::{self, Loss, Losses};
 use super::{rfc3339, ResultsError};
 use crate::health::{self, Health, MeterPeriod, Status, CUSUM_K, CUSUM_SUSPECT, CUSUM_WATCH};
 use crate::out_of_service::{covering, Interval};
 use crate::revisions::{in_effect, RevisionError};
 use crate::service::Service;
-use crate::store::{MeterNote, NoteDraft, NoteKind, NoteOutcome, PlantRow};
+use crate::store::{MeterNote, NoteKind, PlantRow};
 
 /// A note as answered.
 #[derive(Debug, Serialize, ToSchema)]
@@ -65,8 +66,9 @@ pub struct MeterHealth {
     pub uom: String,
     #[serde(flatten)]
     pub health: Health,
-    /// The history this assessment covers starts here: the last recalibration or replacement,
-    /// or the first record.
+    /// The history this assessment covers starts here: the last recalibration or replacement
+    /// when that bounds the record, else the record's first period (the record reaches back
+    /// at most the health window from the plant's latest period).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub history_since: Option<String>,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -140,7 +142,7 @@ const METHOD: &str = "two-sided CUSUM of the normalised adjustment, k = 0.5; wat
                       70,000 periods); bias pooled over the periods of the evidence";
 
 /// Each tag's history start: its last recalibration or replacement.
-fn resets(notes: &[MeterNote], tag: &str) -> Option<DateTime<Utc>> {
+pub(crate) fn resets(notes: &[MeterNote], tag: &str) -> Option<DateTime<Utc>> {
     notes
         .iter()
         .filter(|n| n.tag == tag && n.kind.resets())
@@ -231,12 +233,27 @@ pub async fn refresh_all(service: &Service) {
     }
 }
 
-/// Every meter's health over its record since its last reset, after attribution among
-/// correlated suspects, and the first period of each record: as kept in the service's memo
-/// when nothing it depends on has changed since (see [`health::Memo`]), else assessed now and
-/// kept. The key is read before the records, so a run that lands meanwhile only makes the
+/// Where a meter's record starts: its last recalibration or replacement (`reset`), or the
+/// health window's start counted back from the plant's `latest` period, whichever is later; so
+/// stray periods long before the plant's other data never reach into the evidence.
+pub fn record_start(
+    reset: Option<DateTime<Utc>>,
+    latest: Option<DateTime<Utc>>,
+    window: chrono::TimeDelta,
+) -> DateTime<Utc> {
+    let window_start = latest
+        .and_then(|l| l.checked_sub_signed(window))
+        .unwrap_or(DateTime::<Utc>::MIN_UTC);
+    reset.map_or(window_start, |r| r.max(window_start))
+}
+
+/// Every meter's health over its record (see [`record_start`]), after attribution among
+/// correlated suspects, where each record starts and its first period: as kept in the
+/// service's memo when nothing it depends on has changed since (see [`health::Memo`]), else
+/// from each meter's running state in the store (see [`crate::store::Store::health_states`])
+/// and kept. The key is read before the states, so a run that lands meanwhile only makes the
 /// kept assessment look stale, never hides itself.
-async fn assessed(
+pub(crate) async fn assessed(
     service: &Service,
     plant: &PlantRow,
     tags: Vec<String>,
@@ -250,61 +267,87 @@ async fn assessed(
     if let Some(kept) = service.health.get(plant.id, &key) {
         return Ok(kept);
     }
-    let records = service
-        .store
-        .meter_periods(
-            plant,
-            None,
-            DateTime::<Utc>::MIN_UTC,
-            DateTime::<Utc>::MAX_UTC,
-        )
-        .await?;
-    let tags = &key.tags;
-    let healths: Vec<Health> = tags
+    let latest = service.store.latest_period(plant).await?;
+    let window = service.health_window;
+    let wanted: Vec<(String, DateTime<Utc>)> = key
+        .tags
         .iter()
         .map(|tag| {
-            let since = resets(notes, tag);
-            let record: Vec<MeterPeriod> = records
-                .iter()
-                .filter(|(t, p)| t == tag && since.is_none_or(|s| p.period_start >= s))
-                .map(|(_, p)| p.clone())
-                .collect();
-            health::assess(&record)
+            (
+                tag.clone(),
+                record_start(resets(notes, tag), latest, window),
+            )
         })
         .collect();
+    let states = service.store.health_states(plant, &wanted, window).await?;
+    let healths: Vec<Health> = states.iter().map(health::Running::health).collect();
+    let records = suspects_records(service, plant, &key.tags, &healths).await?;
+    let value = std::sync::Arc::new(health::Assessed {
+        healths: attributed(&key.tags, healths, &records),
+        since: wanted.into_iter().map(|(_, since)| since).collect(),
+        first: states.iter().map(|s| s.first).collect(),
+    });
+    service
+        .health
+        .put(plant.id, key, std::sync::Arc::clone(&value));
+    Ok(value)
+}
+
+/// What attribution among suspects reads: with two suspects or more, their records from the
+/// earliest start of their evidence on (within the health window: the evidence is within each
+/// record); with fewer, nothing.
+async fn suspects_records(
+    service: &Service,
+    plant: &PlantRow,
+    tags: &[String],
+    healths: &[Health],
+) -> Result<Vec<(String, MeterPeriod)>, ResultsError> {
+    let suspects: Vec<usize> = (0..healths.len())
+        .filter(|&i| healths[i].status == Status::Suspect)
+        .collect();
+    let mut records = Vec::new();
+    if suspects.len() < 2 {
+        return Ok(records);
+    }
+    let from = suspects
+        .iter()
+        .filter_map(|&i| healths[i].evidence_since)
+        .min()
+        .unwrap_or(DateTime::<Utc>::MIN_UTC);
+    for &i in &suspects {
+        records.extend(
+            service
+                .store
+                .meter_periods(plant, Some(&tags[i]), from, DateTime::<Utc>::MAX_UTC)
+                .await?,
+        );
+    }
+    Ok(records)
+}
+
+/// `healths` after attribution among correlated suspects ([`health::attribute`]), from
+/// `records` (the suspects' records over their evidence).
+pub(crate) fn attributed(
+    tags: &[String],
+    healths: Vec<Health>,
+    records: &[(String, MeterPeriod)],
+) -> Vec<Health> {
     let evidence = |i: usize, j: usize| {
         let since = [&healths[i], &healths[j]]
             .iter()
             .filter_map(|h| h.evidence_since)
             .min();
-        let z = |tag: &str| common_evidence(&records, tag, since);
+        let z = |tag: &str| common_evidence(records, tag, since);
         (z(&tags[i]), z(&tags[j]))
     };
     let mut attributed = healths.clone();
     health::attribute(
         tags,
         &mut attributed,
-        &|i, j| correlation(&records, &tags[i], &tags[j]),
+        &|i, j| correlation(records, &tags[i], &tags[j]),
         &evidence,
     );
-    let first = tags
-        .iter()
-        .map(|tag| {
-            let since = resets(notes, tag);
-            records
-                .iter()
-                .find(|(t, p)| t == tag && since.is_none_or(|s| p.period_start >= s))
-                .map(|(_, p)| p.period_start)
-        })
-        .collect();
-    let value = std::sync::Arc::new(health::Assessed {
-        healths: attributed,
-        first,
-    });
-    service
-        .health
-        .put(plant.id, key, std::sync::Arc::clone(&value));
-    Ok(value)
+    attributed
 }
 
 /// Every meter of the model in effect at `now`, worst first: suspect, frozen, out of range,
@@ -317,6 +360,15 @@ pub async fn ranking(
     plant: &PlantRow,
     now: DateTime<Utc>,
 ) -> Result<MeterList, ResultsError> {
+    Ok(rank(service, plant, now).await?.0)
+}
+
+/// [`ranking`], and where each meter's record starts, by tag.
+async fn rank(
+    service: &Service,
+    plant: &PlantRow,
+    now: DateTime<Utc>,
+) -> Result<(MeterList, Vec<(String, DateTime<Utc>)>), ResultsError> {
     let spec = spec_at(service, plant, now).await?;
     let notes = service.store.notes(plant, None).await?;
     let tags: Vec<String> = spec.meters.iter().map(|m| m.tag.clone()).collect();
@@ -325,8 +377,10 @@ pub async fn ranking(
         .meters
         .iter()
         .zip(assessed.healths.iter().zip(&assessed.first))
-        .map(|(m, (health, first))| {
-            let since = resets(&notes, &m.tag);
+        .zip(&assessed.since)
+        .map(|((m, (health, first)), start)| {
+            // The reset, when it is what bounds the record; else its first period.
+            let since = resets(&notes, &m.tag).filter(|r| r == start);
             let health = health.clone();
             MeterHealth {
                 tag: m.tag.clone(),
@@ -363,11 +417,18 @@ pub async fn ranking(
             .cmp(&b.health.status.rank())
             .then(b.health.statistic.total_cmp(&a.health.statistic))
     });
-    Ok(MeterList {
+    let starts = spec
+        .meters
+        .iter()
+        .map(|m| m.tag.clone())
+        .zip(assessed.since.iter().copied())
+        .collect();
+    let list = MeterList {
         plant: plant.name.clone(),
         method: METHOD.to_string(),
         meters,
-    })
+    };
+    Ok((list, starts))
 }
 
 /// One period of a meter's history.
@@ -399,7 +460,8 @@ pub struct MeterDetail {
     #[serde(flatten)]
     pub meter: MeterHealth,
     pub method: String,
-    /// Since the last recalibration or replacement, oldest first.
+    /// The record's periods (since the last recalibration or replacement, at most the health
+    /// window), oldest first.
     pub history: Vec<HistoryPoint>,
     pub notes: Vec<NoteBody>,
 }
@@ -413,7 +475,7 @@ pub async fn detail(
     tag: &str,
     now: DateTime<Utc>,
 ) -> Result<MeterDetail, ResultsError> {
-    let list = ranking(service, plant, now).await?;
+    let (list, starts) = rank(service, plant, now).await?;
     let count = list.meters.len();
     let Some(meter) = list.meters.into_iter().find(|m| m.tag == tag) else {
         return Err(ResultsError::NotFound(format!(
@@ -423,22 +485,19 @@ pub async fn detail(
         )));
     };
     let notes = service.store.notes(plant, Some(tag)).await?;
-    let since = resets(&notes, tag).unwrap_or(DateTime::<Utc>::MIN_UTC);
-    // The whole record: the history is the part since the last reset, and each recalibrated
-    // note's bias estimate is of the part before it.
+    let since = starts
+        .iter()
+        .find(|(t, _)| t == tag)
+        .map_or(DateTime::<Utc>::MIN_UTC, |(_, since)| *since);
+    // The record the health is of: from its last reset or the window's start, an index range
+    // of the meter's rows.
     let record = service
         .store
-        .meter_periods(
-            plant,
-            Some(tag),
-            DateTime::<Utc>::MIN_UTC,
-            DateTime::<Utc>::MAX_UTC,
-        )
+        .meter_periods(plant, Some(tag), since, DateTime::<Utc>::MAX_UTC)
         .await?;
     let (mut hi, mut lo) = (0.0f64, 0.0f64);
     let history = record
         .iter()
-        .filter(|(_, p)| p.period_start >= since)
         .map(|(_, p)| {
             if let Some(d) = p.normalized.filter(|d| d.is_finite() && p.redundant) {
                 hi = (hi - d - CUSUM_K).max(0.0);
@@ -474,167 +533,54 @@ pub async fn detail(
         meter,
         method: METHOD.to_string(),
         history,
-        notes: note_bodies(&notes, &record),
+        notes: note_bodies(service, plant, tag, &notes).await?,
     })
 }
 
 /// A meter's notes as answered, each recalibrated one with loopbal's own bias estimate just
 /// before it beside the technician's `as_found`.
-fn note_bodies(notes: &[MeterNote], record: &[(String, MeterPeriod)]) -> Vec<NoteBody> {
-    notes
-        .iter()
-        .map(|n| {
-            let mut body = NoteBody::from(n);
-            if n.kind == NoteKind::Recalibrated {
-                let bias = bias_before(notes, record, n.effective_at);
-                body.estimated_bias = bias.map(|b| b.0);
-                body.estimated_bias_sigma = bias.map(|b| b.1);
-            }
-            body
-        })
-        .collect()
+async fn note_bodies(
+    service: &Service,
+    plant: &PlantRow,
+    tag: &str,
+    notes: &[MeterNote],
+) -> Result<Vec<NoteBody>, ResultsError> {
+    let mut bodies = Vec::with_capacity(notes.len());
+    for n in notes {
+        let mut body = NoteBody::from(n);
+        if n.kind == NoteKind::Recalibrated {
+            let bias = bias_before(service, plant, tag, notes, n.effective_at).await?;
+            body.estimated_bias = bias.map(|b| b.0);
+            body.estimated_bias_sigma = bias.map(|b| b.1);
+        }
+        bodies.push(body);
+    }
+    Ok(bodies)
 }
 
 /// The pooled bias ± σ the meter list showed for the meter just before `at`: its health over
-/// the periods from the reset before `at` (or the first record) to `at`.
-fn bias_before(
+/// the record it had then, from the reset before `at` or the health window's start counted
+/// back from `at`, whichever is later, to `at`.
+async fn bias_before(
+    service: &Service,
+    plant: &PlantRow,
+    tag: &str,
     notes: &[MeterNote],
-    record: &[(String, MeterPeriod)],
     at: DateTime<Utc>,
-) -> Option<(f64, f64)> {
-    let from = notes
+) -> Result<Option<(f64, f64)>, ResultsError> {
+    let reset = notes
         .iter()
         .filter(|n| n.kind.resets() && n.effective_at < at)
         .map(|n| n.effective_at)
         .max();
-    let before: Vec<MeterPeriod> = record
-        .iter()
+    let from = record_start(reset, Some(at), service.health_window);
+    let before: Vec<MeterPeriod> = service
+        .store
+        .meter_periods(plant, Some(tag), from, at)
+        .await?
+        .into_iter()
         .map(|(_, p)| p)
-        .filter(|p| from.is_none_or(|f| p.period_start >= f) && p.period_start < at)
-        .cloned()
         .collect();
     let health = health::assess(&before);
-    Some((health.bias?, health.bias_sigma?))
-}
-
-/// A technician's note.
-#[derive(Debug, Deserialize, ToSchema)]
-#[serde(deny_unknown_fields)]
-pub struct NewNote {
-    /// checked, recalibrated, replaced, out_of_service or back_in_service; recalibrated and
-    /// replaced start a fresh history, out_of_service takes the meter out of the estimate
-    /// until back_in_service.
-    #[schema(value_type = NoteKindWord)]
-    pub kind: String,
-    /// What was found or done.
-    #[serde(default)]
-    #[schema(max_length = 4000)]
-    pub text: String,
-    /// When it was done (RFC 3339); now when absent.
-    #[schema(format = DateTime, nullable = false)]
-    pub effective_at: Option<String>,
-    /// On a recalibrated note only: the error measured before recalibrating, in the meter's
-    /// uom (positive: read high).
-    pub as_found: Option<f64>,
-}
-
-/// The kinds of note, as the document lists them (the handler reads the word itself, so that
-/// an unknown one is refused with the list of kinds).
-#[derive(Debug, Deserialize, ToSchema)]
-#[serde(rename_all = "snake_case")]
-#[allow(dead_code)]
-pub enum NoteKindWord {
-    Checked,
-    Recalibrated,
-    Replaced,
-    OutOfService,
-    BackInService,
-}
-
-/// Longest note text accepted.
-const MAX_NOTE_CHARS: usize = 4000;
-
-/// The kinds in a sentence: `a, b, c, d, e`.
-fn kinds() -> String {
-    NoteKind::ALL.map(NoteKind::as_str).join(", ")
-}
-
-/// The note's own fields checked: its kind, `as_found` (finite, on a recalibrated note only)
-/// and text.
-fn checked_fields(note: &NewNote) -> Result<NoteKind, ResultsError> {
-    let refused = |s: String| Err(ResultsError::Refused(s));
-    let Some(kind) = NoteKind::parse(note.kind.trim()) else {
-        return refused(format!("kind \"{}\" is not one of {}", note.kind, kinds()));
-    };
-    if let Some(v) = note.as_found {
-        if kind != NoteKind::Recalibrated {
-            return refused(format!(
-                "as_found is the error found before a recalibration; a {} note may not carry \
-                 one",
-                kind.as_str()
-            ));
-        }
-        if !v.is_finite() {
-            return refused(format!("as_found {v} is not a finite number"));
-        }
-    }
-    if note.text.chars().count() > MAX_NOTE_CHARS {
-        return refused(format!("text is longer than {MAX_NOTE_CHARS} characters"));
-    }
-    // No store keeps it: PostgreSQL's text refuses the character.
-    if note.text.contains('\0') {
-        return refused("text holds the character U+0000, which a note may not hold".into());
-    }
-    Ok(kind)
-}
-
-/// Record a technician's note on a meter of any of the plant's revisions; `effective_at`
-/// defaults to `now`. Refused, naming the field, when the kind is unknown, `as_found` is on
-/// another kind than recalibrated or not finite, the time is not RFC 3339, the text is too
-/// long or holds U+0000, or an out_of_service / back_in_service note does not pair with the
-/// meter's notes (see [`crate::out_of_service::check`]); nothing is then stored. A note that
-/// takes the meter out of service or brings it back marks the periods already run from its
-/// time on to run again, and wakes the scheduler.
-pub async fn add_note(
-    service: &Service,
-    plant: &PlantRow,
-    tag: &str,
-    note: &NewNote,
-    token_id: Option<i64>,
-    now: DateTime<Utc>,
-) -> Result<NoteBody, ResultsError> {
-    let kind = checked_fields(note)?;
-    let effective_at = match note.effective_at.as_deref() {
-        Some(t) => super::range::parse_time("effective_at", t)?,
-        None => now,
-    };
-    let revs = service.store.list_revisions(plant).await?;
-    if !revs
-        .iter()
-        .any(|r| r.spec.meters.iter().any(|m| m.tag == tag))
-    {
-        return Err(ResultsError::NotFound(format!(
-            "plant \"{}\" has no meter {}",
-            plant.name,
-            reconcile::text::quote(tag)
-        )));
-    }
-    let draft = NoteDraft {
-        tag,
-        kind,
-        text: &note.text,
-        effective_at,
-        as_found: note.as_found,
-        token_id,
-    };
-    let check = |notes: &[MeterNote]| crate::out_of_service::check(notes, tag, kind, effective_at);
-    match service.store.add_note(plant, &draft, &check).await? {
-        NoteOutcome::Refused(why) => Err(ResultsError::Refused(why)),
-        NoteOutcome::Stored { note, marked } => {
-            if marked > 0 {
-                service.wake.notify_one();
-            }
-            Ok(NoteBody::from(&note))
-        }
-    }
+    Ok(health.bias.zip(health.bias_sigma))
 }

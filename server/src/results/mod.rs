@@ -6,8 +6,11 @@
 
 pub mod balances;
 pub mod figures;
+#[cfg(test)]
+mod health_tests;
 pub mod meter_value;
 pub mod meters;
+mod notes;
 pub mod out_of_service;
 pub mod periods;
 pub mod range;

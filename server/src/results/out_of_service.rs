@@ -57,7 +57,12 @@ pub async fn losses(
     let tag = interval.tag.as_str();
     let records = service
         .store
-        .meter_periods(plant, Some(tag), DateTime::<Utc>::MIN_UTC, interval.since)
+        .meter_periods(
+            plant,
+            Some(tag),
+            super::meters::record_start(None, Some(interval.since), service.health_window),
+            interval.since,
+        )
         .await?;
     let Some(start) = records
         .iter()

@@ -3,7 +3,7 @@
 //!
 //! One store, two dialects. The row types live in `rows` and are decoded there once for both
 //! backends; each group of tables has its module (`plants`, `readings`, `tokens`, `claims`,
-//! `failures`, `runs`, `meters`) holding its methods, written once with SQL both dialects accept (`$n`
+//! `failures`, `runs`, `meters`, `meter_health`) holding its methods, written once with SQL both dialects accept (`$n`
 //! parameters, which SQLite takes too). Only what the dialects truly do differently lives in
 //! `sqlite/` and `pg/`: opening, batch writes (multi-row VALUES in SQLite, arrays and UNNEST in
 //! PostgreSQL), claims (SQLite's one writer against PostgreSQL's SKIP LOCKED and database
@@ -43,6 +43,7 @@ macro_rules! in_tx {
 mod claims;
 mod failures;
 mod figures;
+mod meter_health;
 mod meters;
 mod pg;
 mod plants;
@@ -51,7 +52,7 @@ mod rows;
 mod runs;
 mod sqlite;
 #[cfg(test)]
-mod tests;
+pub(crate) mod tests;
 mod tokens;
 mod values;
 

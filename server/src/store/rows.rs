@@ -500,24 +500,28 @@ pub(super) fn report_part<R: StoreRow>(r: &R) -> Result<(DateTime<Utc>, serde_js
 /// Every column of `meter_periods`.
 pub(super) fn meter_period<R: StoreRow>(r: &R) -> Result<(String, MeterPeriod)> {
     let Json(correlations): Json<BTreeMap<String, f64>> = r.read("correlations")?;
-    Ok((
-        r.read("tag")?,
-        MeterPeriod {
-            period_start: r.instant("period_start")?,
-            measured: r.read("measured")?,
-            reconciled: r.read("reconciled")?,
-            sigma: r.read("sigma")?,
-            adjustment: r.read("adjustment")?,
-            adjustment_sigma: r.read("adjustment_sigma")?,
-            normalized: r.read("normalized_adjustment")?,
-            redundant: r.read("redundant")?,
-            flagged: r.read("flagged")?,
-            readings: r.read("readings")?,
-            bad_readings: r.read("bad_readings")?,
-            out_of_range_readings: r.read("out_of_range_readings")?,
-            correlations,
-        },
-    ))
+    let mut period = meter_period_narrow(r)?;
+    period.correlations = correlations;
+    Ok((r.read("tag")?, period))
+}
+
+/// The columns of `meter_periods` but its tag and correlations (left empty).
+pub(super) fn meter_period_narrow<R: StoreRow>(r: &R) -> Result<MeterPeriod> {
+    Ok(MeterPeriod {
+        period_start: r.instant("period_start")?,
+        measured: r.read("measured")?,
+        reconciled: r.read("reconciled")?,
+        sigma: r.read("sigma")?,
+        adjustment: r.read("adjustment")?,
+        adjustment_sigma: r.read("adjustment_sigma")?,
+        normalized: r.read("normalized_adjustment")?,
+        redundant: r.read("redundant")?,
+        flagged: r.read("flagged")?,
+        readings: r.read("readings")?,
+        bad_readings: r.read("bad_readings")?,
+        out_of_range_readings: r.read("out_of_range_readings")?,
+        correlations: BTreeMap::new(),
+    })
 }
 
 /// `id, tag, kind, text, effective_at, created_at, as_found` of `meter_notes`.

@@ -6,7 +6,7 @@ use chrono::{DateTime, Utc};
 
 use super::rows::{self, Claim, NewRun, PlantRow, PreparedRun, RunRow, RunSummary, Settled};
 use super::values::{param_list, Millis};
-use super::{claims, failures, figures, pg, sqlite, Result, Store, Tx};
+use super::{claims, failures, figures, meter_health, pg, sqlite, Result, Store, Tx};
 use crate::health::MeterPeriod;
 
 /// The columns `rows::run` reads.
@@ -180,6 +180,11 @@ impl Store {
             Tx::Sqlite(t) => sqlite::write_meter_periods(t, plant, &meters).await?,
             Tx::Postgres(t) => pg::write_meter_periods(t, plant, &meters).await?,
         }
+        // Each meter's running health state follows its rows (O(1) a meter for a new period),
+        // the runs' rows in their periods' order.
+        let mut rows: Vec<&(String, MeterPeriod)> = runs.iter().flat_map(|r| &r.meters).collect();
+        rows.sort_by_key(|(_, p)| p.period_start);
+        meter_health::advance(tx, plant, &rows).await?;
         let figures: Vec<(Millis, i64, &[reconcile::report::Figure])> = runs
             .iter()
             .zip(starts.iter().zip(&ids))

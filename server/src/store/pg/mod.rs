@@ -13,6 +13,7 @@ use sqlx::postgres::{PgConnection, PgPool, PgPoolOptions};
 use sqlx::{Postgres, Transaction};
 
 use super::claims::lease_ms;
+use super::meter_health::StateWrite;
 use super::rows::{self, Claim, PlantRow};
 use super::values::{JsonText, Millis};
 use super::{Result, StoreError};
@@ -255,6 +256,31 @@ pub(super) async fn write_meter_periods(
     .bind(column(&rows, |(_, (_, p))| p.bad_readings))
     .bind(column(&rows, |(_, (_, p))| p.out_of_range_readings))
     .bind(correlations)
+    .execute(&mut *tx)
+    .await?;
+    Ok(())
+}
+
+/// Insert or replace meter health states (inside a write transaction), all in one statement.
+pub(super) async fn write_health_states(
+    tx: &mut PgConnection,
+    plant: &PlantRow,
+    states: &[StateWrite],
+) -> Result<()> {
+    sqlx::query(
+        "INSERT INTO meter_health (plant_id, tag, since, last_period, stale, state)
+         SELECT $1, s.* FROM UNNEST($2::text[], $3::int8[], $4::int8[], $5::bool[], $6::bytea[])
+             AS s (tag, since, last_period, stale, state)
+         ON CONFLICT (plant_id, tag) DO UPDATE SET
+             since = excluded.since, last_period = excluded.last_period,
+             stale = excluded.stale, state = excluded.state",
+    )
+    .bind(plant.id)
+    .bind(column(states, |s| s.0.as_str()))
+    .bind(column(states, |s| s.1 .0))
+    .bind(column(states, |s| s.2.map(|m| m.0)))
+    .bind(column(states, |s| s.3))
+    .bind(column(states, |s| s.4.clone()))
     .execute(&mut *tx)
     .await?;
     Ok(())

@@ -13,6 +13,7 @@ use sqlx::sqlite::{
 use sqlx::{Sqlite, SqliteConnection, Transaction};
 
 use super::claims::lease_ms;
+use super::meter_health::StateWrite;
 use super::rows::{self, Claim, PlantRow};
 use super::values::{JsonText, Millis};
 use super::Result;
@@ -237,6 +238,32 @@ pub(super) async fn write_meter_periods(
                 .bind(JsonText::of(&p.correlations)?);
         }
         query.execute(&mut *tx).await?;
+    }
+    Ok(())
+}
+
+/// Insert or replace meter health states (inside a write transaction), one statement a state.
+pub(super) async fn write_health_states(
+    tx: &mut SqliteConnection,
+    plant: &PlantRow,
+    states: &[StateWrite],
+) -> Result<()> {
+    for (tag, since, last, stale, state) in states {
+        sqlx::query(
+            "INSERT INTO meter_health (plant_id, tag, since, last_period, stale, state)
+             VALUES (?, ?, ?, ?, ?, ?)
+             ON CONFLICT (plant_id, tag) DO UPDATE SET
+                 since = excluded.since, last_period = excluded.last_period,
+                 stale = excluded.stale, state = excluded.state",
+        )
+        .bind(plant.id)
+        .bind(tag)
+        .bind(since)
+        .bind(last)
+        .bind(stale)
+        .bind(state)
+        .execute(&mut *tx)
+        .await?;
     }
     Ok(())
 }

@@ -16,7 +16,7 @@ use super::*;
 pub(in crate::store) const POSTGRES_URL_VAR: &str = "LOOPBAL_TEST_POSTGRES_URL";
 
 /// A store on a database of its own, removed when this is dropped (a failed test's too).
-pub(in crate::store) struct Scratch {
+pub(crate) struct Scratch {
     pub store: Store,
     /// The URL that opens the same database again.
     pub url: String,
@@ -185,7 +185,8 @@ fn the_two_schemas_have_the_same_migrations() {
             (3, "period claims".to_string()),
             (4, "out of service notes".to_string()),
             (5, "period figures".to_string()),
-            (6, "run failures".to_string())
+            (6, "run failures".to_string()),
+            (7, "meter health state".to_string())
         ]
     );
 }

@@ -29,11 +29,17 @@
 //! balance neighbourhood, only those whose pooled evidence is the strongest are `suspect`; the
 //! others are on `watch`, with the reason.
 
+mod memo;
+mod running;
+
 use std::collections::BTreeMap;
 
 use chrono::{DateTime, Utc};
 use serde::Serialize;
 use utoipa::ToSchema;
+
+pub use memo::{Assessed, Memo, MemoKey};
+pub use running::Running;
 
 /// CUSUM reference value k, in units of σ of the normalised adjustment.
 pub const CUSUM_K: f64 = 0.5;
@@ -132,38 +138,76 @@ pub struct Health {
     pub equivalent: Vec<String>,
 }
 
+/// One period's part of a pooled bias: (−a/σ², σ_a²/σ⁴), when the period has a testable
+/// adjustment.
+fn bias_terms(p: &MeterPeriod) -> Option<(f64, f64)> {
+    let (Some(a), Some(sa), Some(s)) = (p.adjustment, p.adjustment_sigma, p.sigma) else {
+        return None;
+    };
+    if !(sa > 0.0 && s > 0.0 && p.redundant) || p.normalized.is_none() {
+        return None;
+    }
+    // b̂ₕ = −a σ²/σ_a² with weight σ_a²/σ⁴: Σ w b̂ = Σ −a/σ², Σ w = Σ σ_a²/σ⁴.
+    Some((-a / (s * s), (sa * sa) / (s * s * s * s)))
+}
+
 /// Pooled bias of a run of periods: (estimate, σ).
 fn pooled_bias(periods: &[&MeterPeriod]) -> Option<(f64, f64)> {
     let (mut num, mut info) = (0.0, 0.0);
-    for p in periods {
-        let (Some(a), Some(sa), Some(s)) = (p.adjustment, p.adjustment_sigma, p.sigma) else {
-            continue;
-        };
-        if !(sa > 0.0 && s > 0.0 && p.redundant) || p.normalized.is_none() {
-            continue;
-        }
-        // b̂ₕ = −a σ²/σ_a² with weight σ_a²/σ⁴: Σ w b̂ = Σ −a/σ², Σ w = Σ σ_a²/σ⁴.
-        num += -a / (s * s);
-        info += (sa * sa) / (s * s * s * s);
+    for (n, i) in periods.iter().filter_map(|p| bias_terms(p)) {
+        num += n;
+        info += i;
     }
     (info > 0.0).then(|| (num / info, 1.0 / info.sqrt()))
 }
 
-/// The health of one meter from its record (oldest first), before the neighbourhood rule.
+/// The normalised adjustment a period's CUSUM step takes, when the period is testable.
+fn cusum_input(p: &MeterPeriod) -> Option<f64> {
+    p.normalized.filter(|d| d.is_finite() && p.redundant)
+}
+
+/// One step of both CUSUM sides on the normalised adjustment `d`: (high, low) after it.
+fn cusum_step(hi: f64, lo: f64, d: f64) -> (f64, f64) {
+    // A meter reading high is adjusted down: d < 0 drives the high side.
+    let up = -d;
+    ((hi + up - CUSUM_K).max(0.0), (lo - up - CUSUM_K).max(0.0))
+}
+
+/// The state at the end of a meter's record that its health is judged from, however it was
+/// reached: by [`assess`] over the whole record, or by [`Running`] period by period.
+#[derive(Debug, Clone, PartialEq)]
+struct End {
+    hi: f64,
+    lo: f64,
+    /// Where the larger side's current excursion began.
+    start: Option<DateTime<Utc>>,
+    /// Pooled bias over the evidence (or the whole record): (estimate, σ).
+    bias: Option<(f64, f64)>,
+    periods: usize,
+    tested: usize,
+    flagged: usize,
+    missing: usize,
+    out_of_range: usize,
+    bad_quality: usize,
+    /// The last period: its start, whether it had a value, whether out of range.
+    last: Option<(DateTime<Utc>, bool, bool)>,
+    /// How many of the last periods repeat the last measured value exactly.
+    frozen: usize,
+}
+
+/// The health of one meter from its record (oldest first), before the neighbourhood rule:
+/// the whole record read from scratch.
 pub fn assess(record: &[MeterPeriod]) -> Health {
     let (mut hi, mut lo) = (0.0f64, 0.0f64);
     // Index where each side's current excursion began.
     let (mut hi_start, mut lo_start) = (None::<usize>, None::<usize>);
     let mut tested = 0;
     for (i, p) in record.iter().enumerate() {
-        let Some(d) = p.normalized.filter(|d| d.is_finite() && p.redundant) else {
+        let Some(d) = cusum_input(p) else {
             continue;
         };
         tested += 1;
-        // A meter reading high is adjusted down: d < 0 drives the high side.
-        let up = -d;
-        hi = (hi + up - CUSUM_K).max(0.0);
-        lo = (lo - up - CUSUM_K).max(0.0);
+        (hi, lo) = cusum_step(hi, lo, d);
         hi_start = if hi > 0.0 { hi_start.or(Some(i)) } else { None };
         lo_start = if lo > 0.0 { lo_start.or(Some(i)) } else { None };
     }
@@ -173,16 +217,41 @@ pub fn assess(record: &[MeterPeriod]) -> Health {
         Some(s) if statistic >= CUSUM_WATCH => record[s..].iter().collect(),
         _ => record.iter().collect(),
     };
-    let bias = pooled_bias(&evidence);
     let count = |f: &dyn Fn(&MeterPeriod) -> bool| record.iter().filter(|p| f(p)).count();
-    let last = record.last();
-    let frozen = frozen_run(record);
-    let (status, reason) = if record.is_empty() {
+    judge(End {
+        hi,
+        lo,
+        start: start.map(|s| record[s].period_start),
+        bias: pooled_bias(&evidence),
+        periods: record.len(),
+        tested,
+        flagged: count(&|p| p.flagged),
+        missing: count(&|p| p.measured.is_none()),
+        out_of_range: count(&|p| p.out_of_range_readings > 0),
+        bad_quality: count(&|p| p.bad_readings > 0),
+        last: record.last().map(|p| {
+            (
+                p.period_start,
+                p.measured.is_some(),
+                p.out_of_range_readings > 0,
+            )
+        }),
+        frozen: frozen_run(record),
+    })
+}
+
+/// The health the end of a record shows: the screens first (missing, frozen, out of range),
+/// then the statistic.
+fn judge(end: End) -> Health {
+    let (hi, lo) = (end.hi, end.lo);
+    let statistic = hi.max(lo);
+    let frozen = end.frozen;
+    let (status, reason) = if end.periods == 0 {
         (
             Status::Ok,
             "no reconciled period since the history started".to_string(),
         )
-    } else if last.is_some_and(|p| p.measured.is_none()) {
+    } else if end.last.is_some_and(|(_, measured, _)| !measured) {
         (
             Status::Missing,
             "no usable reading in the last period".to_string(),
@@ -192,12 +261,12 @@ pub fn assess(record: &[MeterPeriod]) -> Health {
             Status::Frozen,
             format!("the same value in the last {frozen} periods: the transmitter may be stuck"),
         )
-    } else if last.is_some_and(|p| p.out_of_range_readings > 0) {
+    } else if end.last.is_some_and(|(_, _, out)| out) {
         (
             Status::OutOfRange,
             "readings outside the instrument range in the last period".to_string(),
         )
-    } else if tested == 0 {
+    } else if end.tested == 0 {
         (
             Status::Untestable,
             "not redundant in any period: the meter set cannot check it".to_string(),
@@ -208,9 +277,7 @@ pub fn assess(record: &[MeterPeriod]) -> Health {
             format!(
                 "CUSUM {statistic:.1} ≥ {CUSUM_SUSPECT}: the adjustments have leaned one way \
                  since {}",
-                start
-                    .map(|s| record[s].period_start.to_rfc3339())
-                    .unwrap_or_default()
+                end.start.map(|s| s.to_rfc3339()).unwrap_or_default()
             ),
         )
     } else if statistic >= CUSUM_WATCH {
@@ -224,6 +291,7 @@ pub fn assess(record: &[MeterPeriod]) -> Health {
             "adjustments within their expected spread".to_string(),
         )
     };
+    let bias = end.bias;
     Health {
         status,
         reason,
@@ -233,16 +301,14 @@ pub fn assess(record: &[MeterPeriod]) -> Health {
         bias: bias.map(|b| b.0),
         bias_sigma: bias.map(|b| b.1),
         bias_z: bias.map(|(b, s)| b / s),
-        evidence_since: start
-            .filter(|_| statistic > 0.0)
-            .map(|s| record[s].period_start),
-        periods_flagged: count(&|p| p.flagged),
-        periods: record.len(),
-        periods_tested: tested,
-        periods_missing: count(&|p| p.measured.is_none()),
-        periods_out_of_range: count(&|p| p.out_of_range_readings > 0),
-        periods_bad_quality: count(&|p| p.bad_readings > 0),
-        last_period: last.map(|p| p.period_start),
+        evidence_since: end.start.filter(|_| statistic > 0.0),
+        periods_flagged: end.flagged,
+        periods: end.periods,
+        periods_tested: end.tested,
+        periods_missing: end.missing,
+        periods_out_of_range: end.out_of_range,
+        periods_bad_quality: end.bad_quality,
+        last_period: end.last.map(|(t, _, _)| t),
         equivalent: Vec::new(),
     }
 }
@@ -327,7 +393,7 @@ pub fn attribute(
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use chrono::TimeZone;
     use rand::SeedableRng;
     use rand_distr::{Distribution, StandardNormal};
@@ -336,7 +402,7 @@ mod tests {
 
     /// A record of `n` hourly periods of a meter with σ = 1, σ_a = `sa`, whose adjustment
     /// carries noise plus the effect of a bias `bias` from period `from`.
-    fn record(n: usize, sa: f64, bias: f64, from: usize, seed: u64) -> Vec<MeterPeriod> {
+    pub(crate) fn record(n: usize, sa: f64, bias: f64, from: usize, seed: u64) -> Vec<MeterPeriod> {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
         (0..n)
             .map(|h| {
@@ -362,6 +428,25 @@ mod tests {
                 }
             })
             .collect()
+    }
+
+    /// Every field equal, the bias sums within rounding (1e-9 of their σ): the running state
+    /// subtracts the periods it drops from its whole-record sums, where a sum from scratch never
+    /// added them.
+    pub(crate) fn same(a: &Health, b: &Health) -> bool {
+        let close = |x: Option<f64>, y: Option<f64>, scale: f64| match (x, y) {
+            (Some(x), Some(y)) => (x - y).abs() <= 1e-9 * scale,
+            (x, y) => x == y,
+        };
+        let scale = a.bias_sigma.unwrap_or(1.0);
+        let (mut a2, mut b2) = (a.clone(), b.clone());
+        for h in [&mut a2, &mut b2] {
+            (h.bias, h.bias_sigma, h.bias_z) = (None, None, None);
+        }
+        a2 == b2
+            && close(a.bias, b.bias, scale)
+            && close(a.bias_sigma, b.bias_sigma, scale)
+            && close(a.bias_z, b.bias_z, 1.0)
     }
 
     #[test]
@@ -470,61 +555,5 @@ mod tests {
         assert_eq!(health[0].equivalent, ["B"]);
         assert_eq!(health[1].equivalent, ["A"]);
         assert!(health[1].reason.contains("cannot tell it apart from A"));
-    }
-}
-
-/// Every meter's health of one plant as last assessed, and what it was assessed from, so
-/// that the meter list, one meter's page and the plant list need not assess a long history
-/// again on every request. The assessment is a function of the current model's tags, the
-/// technicians' notes and the per-meter records of the runs; a new run of the plant (by any
-/// instance), a new note or another set of tags makes it stale, and it is assessed again on
-/// the next request.
-#[derive(Debug, Default)]
-pub struct Memo {
-    plants: std::sync::Mutex<std::collections::HashMap<i64, (MemoKey, std::sync::Arc<Assessed>)>>,
-}
-
-/// What an assessment was made from: the tags in model order, the plant's runs (their count
-/// and largest id: runs are never deleted) and its notes (count and largest id).
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct MemoKey {
-    pub tags: Vec<String>,
-    pub runs: (i64, i64),
-    pub notes: (usize, i64),
-}
-
-/// Every meter's health (after attribution among correlated suspects) and the first period
-/// of its history, in the order of the tags.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Assessed {
-    pub healths: Vec<Health>,
-    pub first: Vec<Option<chrono::DateTime<chrono::Utc>>>,
-}
-
-impl Memo {
-    /// The assessment of `plant` made from `key`, if it is the one kept.
-    pub fn get(&self, plant: i64, key: &MemoKey) -> Option<std::sync::Arc<Assessed>> {
-        let plants = self.lock();
-        plants
-            .get(&plant)
-            .filter(|(kept, _)| kept == key)
-            .map(|(_, assessed)| std::sync::Arc::clone(assessed))
-    }
-
-    /// Keep `assessed`, made from `key`, for `plant` (replacing what was kept).
-    pub fn put(&self, plant: i64, key: MemoKey, assessed: std::sync::Arc<Assessed>) {
-        self.lock().insert(plant, (key, assessed));
-    }
-
-    fn lock(
-        &self,
-    ) -> std::sync::MutexGuard<
-        '_,
-        std::collections::HashMap<i64, (MemoKey, std::sync::Arc<Assessed>)>,
-    > {
-        // Entries are replaced whole; a map left by a panicking holder is still consistent.
-        self.plants
-            .lock()
-            .unwrap_or_else(std::sync::PoisonError::into_inner)
     }
 }
