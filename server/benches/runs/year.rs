@@ -222,23 +222,8 @@ pub async fn workspace_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
     // Every figure of the range at once, thinned, as an API client may ask for it (the
     // figures page asks for one figure at a time).
     let all_figures = format!("{base}/figures?from={from}&to={to}&points=800");
-    let client = reqwest::Client::builder()
-        .pool_max_idle_per_host(1)
-        .build()
-        .expect("client");
-    let get = |url: String| {
-        let req = client.get(url.clone()).bearer_auth(&svc.served.token);
-        async move {
-            let t = Instant::now();
-            let res = req.send().await.expect("GET");
-            let ok = res.status().is_success();
-            let body = res.bytes().await.expect("body");
-            refuse_unless(ok, "tests/api/workspace.rs", || {
-                format!("GET {url} failed: {}", String::from_utf8_lossy(&body))
-            });
-            (t.elapsed().as_secs_f64() * 1e3, body)
-        }
-    };
+    let client = bench_client();
+    let get = |url: String| timed_get(&client, svc, url, "tests/api/workspace.rs");
     let mut pages = Vec::with_capacity(rounds);
     let mut each = vec![Vec::with_capacity(rounds); loop_page.len()];
     let mut series = Vec::with_capacity(rounds);
@@ -336,23 +321,8 @@ pub async fn meter_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
     let base = &svc.served.base;
     let store = &svc.state().store;
     let tag = &year.plant.meters[0].tag;
-    let client = reqwest::Client::builder()
-        .pool_max_idle_per_host(1)
-        .build()
-        .expect("client");
-    let get = |url: String| {
-        let req = client.get(url.clone()).bearer_auth(&svc.served.token);
-        async move {
-            let t = Instant::now();
-            let res = req.send().await.expect("GET");
-            let ok = res.status().is_success();
-            let body = res.bytes().await.expect("body");
-            refuse_unless(ok, "tests/health.rs", || {
-                format!("GET {url} failed: {}", String::from_utf8_lossy(&body))
-            });
-            (t.elapsed().as_secs_f64() * 1e3, body)
-        }
-    };
+    let client = bench_client();
+    let get = |url: String| timed_get(&client, svc, url, "tests/health.rs");
     let mut next = year.start + TimeDelta::hours(year.hours as i64);
     // A new period one hour after the last; or, with `rerun`, the period a day before the
     // last again (its meter states must be rebuilt).
@@ -434,4 +404,36 @@ pub async fn meter_reads(svc: &Service, year: &Year<'_>, rounds: usize) {
         if a < 20.0 { "met" } else { "NOT met" },
         if c < 30.0 { "met" } else { "NOT met" }
     );
+}
+
+/// A client holding one connection, as a browser tab's requests reuse theirs.
+fn bench_client() -> reqwest::Client {
+    reqwest::Client::builder()
+        .pool_max_idle_per_host(1)
+        .build()
+        .expect("client")
+}
+
+/// GET `url` with the service's token: its time in ms and its body; a failure stops the bench,
+/// naming `test` (the test that checks the same answers).
+async fn timed_get(
+    client: &reqwest::Client,
+    svc: &Service,
+    url: String,
+    test: &str,
+) -> (f64, Vec<u8>) {
+    let t = Instant::now();
+    let res = client
+        .get(url.clone())
+        .bearer_auth(&svc.served.token)
+        .send()
+        .await
+        .expect("GET");
+    let ok = res.status().is_success();
+    let body = res.bytes().await.expect("body");
+    let ms = t.elapsed().as_secs_f64() * 1e3;
+    refuse_unless(ok, test, || {
+        format!("GET {url} failed: {}", String::from_utf8_lossy(&body))
+    });
+    (ms, body.to_vec())
 }

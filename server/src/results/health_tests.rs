@@ -16,31 +16,8 @@ use reconcile::ModelSpec;
 use super::meters::{assessed, attributed, record_start, resets};
 use crate::health::{assess, tests::same, Health, MeterPeriod, Status};
 use crate::service::Service;
-use crate::store::tests::Scratch;
+use crate::store::tests::{on_both_backends, Scratch};
 use crate::store::{MeterNote, NewRun, NoteDraft, NoteKind, NoteOutcome, PlantRow, Store};
-
-/// A `sqlite` and a `postgres` test of each named test function, as the store's own tests
-/// make them: the `postgres` one is built ignored unless LOOPBAL_TEST_POSTGRES_URL was set at
-/// build time.
-macro_rules! on_both_backends {
-    ($($name:ident),* $(,)?) => {$(
-        mod $name {
-            #[tokio::test]
-            async fn sqlite() {
-                super::$name(super::Scratch::sqlite().await).await
-            }
-
-            #[tokio::test]
-            #[cfg_attr(
-                not(loopbal_postgres_tests),
-                ignore = "set LOOPBAL_TEST_POSTGRES_URL to run it on PostgreSQL"
-            )]
-            async fn postgres() {
-                super::$name(super::Scratch::postgres().await).await
-            }
-        }
-    )*};
-}
 
 on_both_backends!(
     a_month_with_reruns_late_periods_and_notes_reads_as_from_scratch,

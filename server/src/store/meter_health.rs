@@ -166,13 +166,7 @@ pub(super) async fn advance(
     if rows.is_empty() {
         return Ok(());
     }
-    let states: Vec<Stored> = in_tx!(&mut *tx, t => sqlx::query(STATES)
-        .bind(plant.id)
-        .fetch_all(&mut **t)
-        .await?
-        .iter()
-        .map(stored_row)
-        .collect::<Result<_>>()?);
+    let states = stored_in(tx, plant).await?;
     let mut kept_by_tag: BTreeMap<&str, Kept> = states
         .iter()
         .filter_map(|s| s.kept.clone().map(|k| (s.tag.as_str(), k)))
@@ -199,6 +193,17 @@ pub(super) async fn advance(
         .map(|tag| write(tag, &kept_by_tag[tag]))
         .collect();
     put(tx, plant, &writes).await
+}
+
+/// The plant's stored states, read inside `tx`.
+async fn stored_in(tx: &mut Tx, plant: &PlantRow) -> Result<Vec<Stored>> {
+    in_tx!(tx, t => sqlx::query(STATES)
+        .bind(plant.id)
+        .fetch_all(&mut **t)
+        .await?
+        .iter()
+        .map(stored_row)
+        .collect())
 }
 
 /// Write `states` (one statement a row in SQLite, one in all in PostgreSQL).
@@ -331,13 +336,7 @@ impl Store {
         }
         let mut tx = self.write_for(plant).await?;
         // Read again inside the transaction: a run may have landed meanwhile.
-        let stored: Vec<Stored> = in_tx!(&mut tx, t => sqlx::query(STATES)
-            .bind(plant.id)
-            .fetch_all(&mut **t)
-            .await?
-            .iter()
-            .map(stored_row)
-            .collect::<Result<_>>()?);
+        let stored = stored_in(&mut tx, plant).await?;
         let found = current(&stored);
         let mut states = Vec::with_capacity(wanted.len());
         let mut writes = Vec::new();

@@ -130,6 +130,7 @@ macro_rules! on_both_backends {
         }
     )*};
 }
+pub(crate) use on_both_backends;
 
 // One module per group of tables (after the macro, which they use).
 mod batches;
